@@ -1,0 +1,89 @@
+"""A discrete problem: grid, coefficient, source, face terms and held cells, from a spec.
+
+Pure-Neumann problems (no Dirichlet or Robin face and no hold) determine u only up to a
+constant and have a solution only when sources and boundary fluxes balance. They are
+refused when the imbalance exceeds ``BALANCE_RTOL`` of the total inflow; otherwise the
+rounding-level remainder is removed from f, one cell is pinned to make the system definite,
+and the solution is reported in the gauge mean(u) = 0.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import fields
+from .boundary import FaceTerms, face_terms
+from .errors import JobError
+from .grid import FACE_AXIS, Grid
+from .physics import PHYSICS
+from .shapes import mask
+from .spec import JobSpec
+
+BALANCE_RTOL = 1e-6
+
+
+@dataclass(frozen=True)
+class Problem:
+    """Everything the operator needs, as arrays on the grid (SI units of the physics)."""
+
+    grid: Grid
+    coefficient: np.ndarray  # k per cell
+    source: np.ndarray  # f per unit volume, per cell
+    faces: dict[str, FaceTerms]
+    held: np.ndarray  # bool per cell
+    held_value: np.ndarray  # value of held cells (meaningless elsewhere)
+    gauge_mean_zero: bool = False  # pure Neumann: u is shifted to mean zero after the solve
+
+    @property
+    def unknowns(self) -> int:
+        return int(self.grid.size - np.count_nonzero(self.held))
+
+
+def neumann_inflow(faces: dict[str, FaceTerms], grid: Grid) -> float:
+    """Total prescribed flux entering through Neumann faces (amount per time)."""
+    return float(sum(t.flux.sum() * grid.face_area(FACE_AXIS[name][0]) for name, t in faces.items()))
+
+
+def build_problem(
+    spec: JobSpec,
+    coefficient_file: np.ndarray | None = None,
+    source_file: np.ndarray | None = None,
+) -> Problem:
+    """Discretise a validated spec; arrays named by ``file`` keys are passed in already loaded."""
+    grid = Grid.from_spec(spec.grid)
+    physics = PHYSICS[spec.physics]
+    k = fields.coefficient(spec.material, grid, physics.coefficient_scale, coefficient_file)
+    f = fields.source(spec.source, grid, source_file)
+    faces = face_terms(spec.boundary, grid, k)
+
+    held = np.zeros(grid.shape, dtype=np.bool_)
+    held_value = np.zeros(grid.shape, dtype=np.float64)
+    for i, (hold, m) in enumerate(zip(spec.hold, fields.region_masks(spec.hold, grid, "hold"))):
+        held |= m
+        held_value[m] = hold.value
+    if held.all():
+        raise JobError("every cell is held; nothing is left to solve", "hold")
+
+    fixed = held.any() or any(t.kind != "neumann" for t in faces.values())
+    if fixed:
+        return Problem(grid, k, f, faces, held, held_value)
+
+    inflow = neumann_inflow(faces, grid)
+    generated = float(f.sum()) * grid.cell_volume
+    imbalance = generated + inflow
+    scale = float(np.abs(f).sum()) * grid.cell_volume + sum(
+        float(np.abs(t.flux).sum()) * grid.face_area(FACE_AXIS[n][0]) for n, t in faces.items()
+    )
+    if abs(imbalance) > BALANCE_RTOL * scale:
+        units = physics.amount_units
+        raise JobError(
+            f"pure-Neumann problem (no dirichlet or robin face, no hold) is unbalanced: sources "
+            f"add {generated:.6g} {units} and boundary fluxes {inflow:.6g} {units}, net {imbalance:.6g} "
+            f"{units} ({abs(imbalance) / scale:.3g} of the total); balance them or fix a face or a hold",
+            "boundary",
+        )
+    f = f - imbalance / (grid.size * grid.cell_volume)
+    held[0, 0, 0] = True  # pin: with a balanced right-hand side the pinned equation holds too
+    return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True)
