@@ -1,0 +1,52 @@
+"""A residual log: one JSON object per line, flushed as it is written, so another process
+can follow a running solve.
+
+Lines: ``{"event": "start", ...}``, then ``{"iteration": i, "relative_residual": r,
+"seconds": t}`` per iteration, then ``{"event": "end", "converged": bool, ...}``.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any, Iterator
+
+
+def log_path(output: Path) -> Path:
+    """The residual log beside an output: ``results/a.zarr`` -> ``results/a.residuals.jsonl``."""
+    return output.with_name(output.stem + ".residuals.jsonl")
+
+
+class ResidualLog:
+    def __init__(self, path: Path) -> None:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        self.path = path
+        self._fh = open(path, "w", encoding="utf-8")
+
+    def _write(self, record: dict[str, Any]) -> None:
+        self._fh.write(json.dumps(record) + "\n")
+        self._fh.flush()
+
+    def start(self, **info: Any) -> None:
+        self._write({"event": "start", **info})
+
+    def iteration(self, iteration: int, relative_residual: float, seconds: float) -> None:
+        self._write({"iteration": iteration, "relative_residual": relative_residual, "seconds": seconds})
+
+    def end(self, **info: Any) -> None:
+        self._write({"event": "end", **info})
+
+    def close(self) -> None:
+        self._fh.close()
+
+
+def read_log(path: Path) -> Iterator[dict[str, Any]]:
+    """The log's records; a last line still being written is skipped."""
+    with open(path, encoding="utf-8") as fh:
+        for line in fh:
+            if not line.endswith("\n"):
+                break
+            try:
+                yield json.loads(line)
+            except json.JSONDecodeError:
+                break

@@ -1,0 +1,103 @@
+"""Writing results as a zarr v3 group, atomically: a temporary sibling renamed at the end.
+
+Layout (every array carries ``dimension_names``, so ``xarray.open_zarr`` gives a Dataset):
+
+* ``<solution>`` (x, y, z): the field, named by physics (temperature, potential, head, u)
+* ``x``, ``y``, ``z``: cell-centre coordinates in metres
+* ``residual_history`` (iteration): relative residual ||b - A u|| / ||b|| per iteration
+* ``residual_seconds`` (iteration): seconds since the solve began
+* group attributes: ``solution``, ``physics``, ``job`` (the validated spec), ``solver``
+  (method, iterations, converged, final relative residual, times), ``sevenfold_version``,
+  and ``complete`` = true, written last.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import uuid
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from . import __version__
+
+
+@dataclass(frozen=True)
+class Variable:
+    """One array of the result, on named dimensions, with its attributes (units, long_name)."""
+
+    data: np.ndarray
+    dims: tuple[str, ...]
+    attrs: dict[str, Any]
+
+
+def partial_path(final: Path) -> Path:
+    """A hidden sibling that no one mistakes for a finished result."""
+    return final.with_name(f".{final.name}.partial-{os.getpid()}-{uuid.uuid4().hex[:8]}")
+
+
+def _chunks(shape: tuple[int, ...], wanted: tuple[int, ...]) -> tuple[int, ...]:
+    return tuple(max(1, min(s, c)) for s, c in zip(shape, wanted))
+
+
+def write_result(
+    final: Path,
+    variables: dict[str, Variable],
+    attrs: dict[str, Any],
+    chunks: tuple[int, int, int],
+) -> Path:
+    """Write ``variables`` and group ``attrs`` to ``final`` through a temporary sibling.
+
+    On any error the temporary is removed and ``final`` is left as it was.
+    """
+    import zarr
+
+    final = Path(final)
+    final.parent.mkdir(parents=True, exist_ok=True)
+    tmp = partial_path(final)
+    try:
+        group = zarr.open_group(store=str(tmp), mode="w", zarr_format=3)
+        for name, var in variables.items():
+            c = _chunks(var.data.shape, chunks if var.data.ndim == 3 else (2**20,))
+            arr = group.create_array(
+                name, shape=var.data.shape, chunks=c, dtype=var.data.dtype,
+                dimension_names=list(var.dims), attributes=var.attrs,
+            )
+            arr[...] = var.data
+        group.attrs.update({**attrs, "sevenfold_version": __version__})
+        group.attrs["complete"] = True
+        with warnings.catch_warnings():
+            # zarr notes that consolidated metadata is an extension to the v3 format;
+            # xarray reads it and falls back to plain metadata elsewhere.
+            warnings.simplefilter("ignore")
+            zarr.consolidate_metadata(str(tmp))
+        _replace(tmp, final)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return final
+
+
+def _replace(tmp: Path, final: Path) -> None:
+    """Move ``tmp`` to ``final``; an older result there is set aside first, then removed."""
+    old = None
+    if final.exists():
+        old = final.with_name(f".{final.name}.old-{uuid.uuid4().hex[:8]}")
+        os.rename(final, old)
+    os.rename(tmp, final)
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def is_complete(path: Path) -> bool:
+    """True when ``path`` is a finished sevenfold result."""
+    import zarr
+
+    try:
+        return bool(zarr.open_group(store=str(path), mode="r").attrs.get("complete", False))
+    except Exception:
+        return False
