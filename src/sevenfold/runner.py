@@ -18,7 +18,7 @@ from .inputs import load_array
 from .memory import available_bytes, estimate_bytes, human
 from .operator import assemble, scatter
 from .physics import PHYSICS
-from .problem import build_problem
+from .problem import Problem, build_problem
 from .residual_log import ResidualLog, log_path
 from .solvers import choose_method, solve
 from .solvers.cg import Monitor, QuietMonitor, SolveResult
@@ -71,9 +71,12 @@ def plan_job(job_file: str | Path, output: str | Path | None = None, spec: JobSp
     spec = spec or load_job(job_file)
     cells = Grid.from_spec(spec.grid).size
     method = choose_method(spec.solver, cells)
+    try:
+        out = output_path(spec, job_file, output)
+    except JobError as exc:
+        raise exc.located(str(job_file)) from None
     return Plan(
-        spec, job_file, output_path(spec, job_file, output), cells, cells, method,
-        estimate_bytes(cells, cells, method), available_bytes(),
+        spec, job_file, out, cells, cells, method, estimate_bytes(cells, cells, method), available_bytes()
     )
 
 
@@ -86,6 +89,16 @@ def refuse_if_too_large(plan: Plan) -> None:
             "grid.cells",
             str(plan.job_file),
         )
+
+
+def prepare_problem(plan: Plan) -> Problem:
+    """Load the files a job names and discretise it; every input error surfaces here."""
+    refuse_if_too_large(plan)
+    try:
+        arrays = _load_files(plan.spec, plan.job_file)
+        return build_problem(plan.spec, arrays["material"], arrays["source"])
+    except JobError as exc:
+        raise exc.located(str(plan.job_file)) if not exc.source else exc
 
 
 def _load_files(spec: JobSpec, job_file: Path) -> dict[str, np.ndarray | None]:
@@ -125,14 +138,9 @@ def run_job(
     """
     t0 = time.perf_counter()
     job_file = Path(job_file)
-    try:
-        plan = plan_job(job_file, output, spec)
-        refuse_if_too_large(plan)
-        spec = plan.spec
-        arrays = _load_files(spec, job_file)
-        problem = build_problem(spec, arrays["material"], arrays["source"])
-    except JobError as exc:
-        raise exc.located(str(job_file)) if not exc.source else exc
+    plan = plan_job(job_file, output, spec)
+    spec = plan.spec
+    problem = prepare_problem(plan)
     t_build = time.perf_counter()
     system = assemble(problem)
     t_assemble = time.perf_counter()

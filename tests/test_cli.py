@@ -1,0 +1,46 @@
+"""The command line as a user meets it: exit codes, summaries, the demo."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import zarr
+
+from sevenfold.cli import main
+from sevenfold.demo import examples_dir
+from sevenfold.spec import load_job
+
+from test_store import write_job
+
+
+def test_check_shows_the_plan(tmp_path: Path, capsys) -> None:
+    assert main(["check", str(write_job(tmp_path))]) == 0
+    text = capsys.readouterr().out
+    assert "12 x 10 x 8 = 960" in text and "memory" in text and "valid" in text
+
+
+def test_run_exit_codes(tmp_path: Path, capsys) -> None:
+    job = write_job(tmp_path, method="amg")
+    assert main(["run", "--quiet", str(job), "--output", str(tmp_path / "out.zarr")]) == 0
+    assert "converged" in capsys.readouterr().out
+    assert zarr.open_group(str(tmp_path / "out.zarr"), mode="r").attrs["complete"] is True
+    failing = write_job(tmp_path, method="amg", max_iterations=1)
+    assert main(["run", "--quiet", str(failing)]) == 1
+    assert "did not converge" in capsys.readouterr().err
+
+
+def test_examples_are_valid_and_shipped() -> None:
+    jobs = sorted(examples_dir().glob("*.toml"))
+    assert len(jobs) >= 3
+    physics = {load_job(j).physics for j in jobs}
+    assert {"heat", "electrostatics", "groundwater"} <= physics
+
+
+def test_demo_runs_every_example(tmp_path: Path, capsys) -> None:
+    assert main(["demo", str(tmp_path / "demo")]) == 0
+    text = capsys.readouterr().out
+    for job in sorted(examples_dir().glob("*.toml")):
+        name = load_job(job).name
+        result = tmp_path / "demo" / "results" / f"{name}.zarr"
+        assert zarr.open_group(str(result), mode="r").attrs["solver"]["converged"] is True
+        assert name in text
