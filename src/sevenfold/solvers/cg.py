@@ -13,6 +13,7 @@ from typing import Callable, Protocol
 import numpy as np
 
 from ..errors import Cancelled, SolverError
+from ..kernels.vector import dot, update_direction, update_solution_and_residual
 
 
 class Monitor(Protocol):
@@ -88,16 +89,16 @@ def pcg(
     monitor.iteration(0, history[0], 0.0)
     if nb == 0.0:
         return SolveResult(x, method, 0, True, 0.0, setup_seconds, 0.0, history, times)
-    r = b.copy()
+    r = b.astype(np.float64, copy=True)
     z = precondition(r)
     p = z.copy()
-    rz = float(r @ z)
+    rz = dot(r, z)
     best_before = np.inf
     for it in range(1, max_iterations + 1):
         if monitor.stop_requested():
             raise Cancelled("the solve was cancelled")
         q = A @ p
-        pq = float(p @ q)
+        pq = dot(p, q)
         if not np.isfinite(pq) or pq <= 0.0:
             raise SolverError(
                 "conjugate gradients broke down (non-finite or non-positive curvature); "
@@ -105,9 +106,7 @@ def pcg(
                 history,
             )
         alpha = rz / pq
-        x += alpha * p
-        r -= alpha * q
-        res = float(np.linalg.norm(r)) / nb
+        res = np.sqrt(update_solution_and_residual(x, r, p, q, alpha)) / nb
         elapsed = time.perf_counter() - start
         history.append(res)
         times.append(elapsed)
@@ -126,9 +125,8 @@ def pcg(
                     history,
                 )
         z = precondition(r)
-        rz_new = float(r @ z)
-        p *= rz_new / rz
-        p += z
+        rz_new = dot(r, z)
+        update_direction(p, z, rz_new / rz)
         rz = rz_new
     raise SolverError(
         f"did not converge in {max_iterations} iterations (relative residual {history[-1]:.3e}, "

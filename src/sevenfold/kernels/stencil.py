@@ -1,0 +1,234 @@
+"""Matrix-free 7-point stencils on face arrays, for geometric multigrid.
+
+A level's operator is given by four (nx, ny, nz) arrays: ``tx[i, j, k]`` couples cell
+(i, j, k) with (i+1, j, k) (zero on the last plane), likewise ``ty`` and ``tz``, and ``diag``.
+Per unit volume, (A u)_P = diag_P u_P - sum_N t_PN u_N. Held cells have no couplings, diag 1
+and right-hand side 0, so they stay 0 in every correction and the operator is SPD on the
+free cells. All loops run in parallel over x slabs.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit, prange
+
+from .assembly import harmonic
+
+
+@njit(cache=True, parallel=True)
+def fine_stencil(k, held, held_value, f, inv_h2, face_diag, face_rhs, tx, ty, tz, diag, b):
+    """Face arrays, diagonal and right-hand side of the finest level, from the cell fields.
+
+    Matches :func:`sevenfold.kernels.assembly.fill_rows` exactly on free cells.
+    """
+    nx, ny, nz = k.shape
+    cx, cy, cz = inv_h2[0], inv_h2[1], inv_h2[2]
+    for i in prange(nx):
+        for j in range(ny):
+            for m in range(nz):
+                tx[i, j, m] = 0.0
+                ty[i, j, m] = 0.0
+                tz[i, j, m] = 0.0
+                if held[i, j, m]:
+                    diag[i, j, m] = 1.0
+                    b[i, j, m] = 0.0
+                    continue
+                kp = k[i, j, m]
+                d = 0.0
+                rhs = f[i, j, m]
+                # minus side: coupling stored by the neighbour; plus side: stored here
+                if i > 0:
+                    t = harmonic(kp, k[i - 1, j, m]) * cx
+                    d += t
+                    if held[i - 1, j, m]:
+                        rhs += t * held_value[i - 1, j, m]
+                else:
+                    d += face_diag[0][j, m]
+                    rhs += face_rhs[0][j, m]
+                if i < nx - 1:
+                    t = harmonic(kp, k[i + 1, j, m]) * cx
+                    d += t
+                    if held[i + 1, j, m]:
+                        rhs += t * held_value[i + 1, j, m]
+                    else:
+                        tx[i, j, m] = t
+                else:
+                    d += face_diag[1][j, m]
+                    rhs += face_rhs[1][j, m]
+                if j > 0:
+                    t = harmonic(kp, k[i, j - 1, m]) * cy
+                    d += t
+                    if held[i, j - 1, m]:
+                        rhs += t * held_value[i, j - 1, m]
+                else:
+                    d += face_diag[2][i, m]
+                    rhs += face_rhs[2][i, m]
+                if j < ny - 1:
+                    t = harmonic(kp, k[i, j + 1, m]) * cy
+                    d += t
+                    if held[i, j + 1, m]:
+                        rhs += t * held_value[i, j + 1, m]
+                    else:
+                        ty[i, j, m] = t
+                else:
+                    d += face_diag[3][i, m]
+                    rhs += face_rhs[3][i, m]
+                if m > 0:
+                    t = harmonic(kp, k[i, j, m - 1]) * cz
+                    d += t
+                    if held[i, j, m - 1]:
+                        rhs += t * held_value[i, j, m - 1]
+                else:
+                    d += face_diag[4][i, j]
+                    rhs += face_rhs[4][i, j]
+                if m < nz - 1:
+                    t = harmonic(kp, k[i, j, m + 1]) * cz
+                    d += t
+                    if held[i, j, m + 1]:
+                        rhs += t * held_value[i, j, m + 1]
+                    else:
+                        tz[i, j, m] = t
+                else:
+                    d += face_diag[5][i, j]
+                    rhs += face_rhs[5][i, j]
+                diag[i, j, m] = d
+                b[i, j, m] = rhs
+
+
+@njit(cache=True, inline="always")
+def _offdiag_row(tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz):
+    """sum_N t_PN u_N for cell (i, j, m); the x and y weights are 0 on the box's faces."""
+    s = (
+        wxm * tx[im, j, m] * u[im, j, m]
+        + wxp * tx[i, j, m] * u[ip, j, m]
+        + wym * ty[i, jm, m] * u[i, jm, m]
+        + wyp * ty[i, j, m] * u[i, jp, m]
+    )
+    if m > 0:
+        s += tz[i, j, m - 1] * u[i, j, m - 1]
+    if m < nz - 1:
+        s += tz[i, j, m] * u[i, j, m + 1]
+    return s
+
+
+@njit(cache=True, inline="always")
+def _neighbours(i, j, nx, ny):
+    """Neighbour indices and 0/1 weights in x and y; clamped indices where there is none."""
+    wxm = 1.0 if i > 0 else 0.0
+    wxp = 1.0 if i < nx - 1 else 0.0
+    wym = 1.0 if j > 0 else 0.0
+    wyp = 1.0 if j < ny - 1 else 0.0
+    return wxm, wxp, wym, wyp, max(i - 1, 0), min(i + 1, nx - 1), max(j - 1, 0), min(j + 1, ny - 1)
+
+
+@njit(cache=True, parallel=True)
+def apply(tx, ty, tz, diag, u, out):
+    """out = A u."""
+    nx, ny, nz = u.shape
+    for i in prange(nx):
+        for j in range(ny):
+            wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
+            for m in range(nz):
+                out[i, j, m] = diag[i, j, m] * u[i, j, m] - _offdiag_row(
+                    tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz)
+
+
+@njit(cache=True, parallel=True)
+def residual(tx, ty, tz, diag, b, u, r):
+    """r = b - A u."""
+    nx, ny, nz = u.shape
+    for i in prange(nx):
+        for j in range(ny):
+            wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
+            for m in range(nz):
+                r[i, j, m] = b[i, j, m] - diag[i, j, m] * u[i, j, m] + _offdiag_row(
+                    tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz)
+
+
+@njit(cache=True, parallel=True)
+def gauss_seidel_colour(tx, ty, tz, diag, b, u, colour):
+    """One Gauss-Seidel sweep over the cells with (i + j + k) % 2 == colour."""
+    nx, ny, nz = u.shape
+    for i in prange(nx):
+        for j in range(ny):
+            wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
+            for m in range((i + j + colour) & 1, nz, 2):
+                u[i, j, m] = (b[i, j, m] + _offdiag_row(
+                    tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz)) / diag[i, j, m]
+
+
+@njit(cache=True, parallel=True)
+def restrict(r, free, step, rc):
+    """rc = P^T r for piecewise-constant prolongation over aggregates of ``step`` cells per axis."""
+    nx, ny, nz = r.shape
+    sx, sy, sz = step[0], step[1], step[2]
+    ncx, ncy, ncz = rc.shape
+    for I in prange(ncx):
+        for J in range(ncy):
+            for K in range(ncz):
+                s = 0.0
+                for i in range(I * sx, min(I * sx + sx, nx)):
+                    for j in range(J * sy, min(J * sy + sy, ny)):
+                        for m in range(K * sz, min(K * sz + sz, nz)):
+                            if free[i, j, m]:
+                                s += r[i, j, m]
+                rc[I, J, K] = s
+
+
+@njit(cache=True, parallel=True)
+def prolong_add(ec, free, step, scale, u):
+    """u += scale * P ec on the free cells."""
+    nx, ny, nz = u.shape
+    sx, sy, sz = step[0], step[1], step[2]
+    for i in prange(nx):
+        for j in range(ny):
+            for m in range(nz):
+                if free[i, j, m]:
+                    u[i, j, m] += scale * ec[i // sx, j // sy, m // sz]
+
+
+@njit(cache=True, parallel=True)
+def galerkin(tx, ty, tz, diag, free, step, txc, tyc, tzc, diagc, freec):
+    """Coarse face arrays P^T A P for piecewise-constant P over aggregates (free cells only).
+
+    A coupling between two aggregates is the sum of the fine couplings crossing between
+    them; a coarse diagonal is the sum of its free children's diagonals minus twice the
+    couplings inside the aggregate. An aggregate with no free child is held (diag 1).
+    """
+    nx, ny, nz = diag.shape
+    sx, sy, sz = step[0], step[1], step[2]
+    ncx, ncy, ncz = diagc.shape
+    for I in prange(ncx):
+        for J in range(ncy):
+            for K in range(ncz):
+                i1, j1, k1 = min(I * sx + sx, nx), min(J * sy + sy, ny), min(K * sz + sz, nz)
+                d = 0.0
+                cxs = 0.0
+                cys = 0.0
+                czs = 0.0
+                nfree = 0
+                for i in range(I * sx, i1):
+                    for j in range(J * sy, j1):
+                        for m in range(K * sz, k1):
+                            if not free[i, j, m]:
+                                continue
+                            nfree += 1
+                            d += diag[i, j, m]
+                            # couplings to the plus neighbours: internal or to the next aggregate
+                            if i + 1 < i1:
+                                d -= 2.0 * tx[i, j, m]
+                            elif i + 1 < nx:
+                                cxs += tx[i, j, m]
+                            if j + 1 < j1:
+                                d -= 2.0 * ty[i, j, m]
+                            elif j + 1 < ny:
+                                cys += ty[i, j, m]
+                            if m + 1 < k1:
+                                d -= 2.0 * tz[i, j, m]
+                            elif m + 1 < nz:
+                                czs += tz[i, j, m]
+                freec[I, J, K] = nfree > 0
+                diagc[I, J, K] = d if nfree > 0 else 1.0
+                txc[I, J, K] = cxs
+                tyc[I, J, K] = cys
+                tzc[I, J, K] = czs
