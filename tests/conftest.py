@@ -95,13 +95,20 @@ def _in_box(box, x, y, z):
 
 
 def reference_fields(table: dict[str, Any]):
-    """k, f, held mask and held values on the cells, for values and box regions."""
+    """k, f, held mask and held values on the cells, for values and box regions only."""
     x, y, z = centres(table)
     k = np_eval(table["material"]["value"], x, y, z)
     for region in table["material"].get("region", ()):
         m = _in_box(region["box"], x, y, z)
         k[m] = np_eval(region["value"], x, y, z)[m]
+    cell_volume = np.prod(grid_of(table)[1])
     f = np_eval(table.get("source", {}).get("value", 0.0), x, y, z)
+    for region in table.get("source", {}).get("region", ()):
+        m = _in_box(region["box"], x, y, z)
+        if "total" in region:  # spread evenly over the region's cells
+            f[m] = region["total"] / (np.count_nonzero(m) * cell_volume)
+        else:
+            f[m] = np_eval(region["value"], x, y, z)[m]
     held = np.zeros(x.shape, dtype=bool)
     held_value = np.zeros(x.shape)
     for hold in table.get("hold", ()):

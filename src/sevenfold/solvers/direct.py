@@ -13,7 +13,8 @@ from .cg import Monitor, QuietMonitor, SolveResult, relative_residual
 
 def solve_direct(A, b, monitor: Monitor | None = None) -> SolveResult:
     monitor = monitor or QuietMonitor()
-    monitor.iteration(0, 1.0 if np.any(b) else 0.0, 0.0)
+    start = 1.0 if np.any(b) else 0.0  # the same convention as pcg: 0 when b = 0
+    monitor.iteration(0, start, 0.0)
     t0 = time.perf_counter()
     lu = sla.splu(A.tocsc(), permc_spec="MMD_AT_PLUS_A")
     setup = time.perf_counter() - t0
@@ -21,6 +22,6 @@ def solve_direct(A, b, monitor: Monitor | None = None) -> SolveResult:
     elapsed = time.perf_counter() - t0
     final = relative_residual(A, x, b)
     if not np.isfinite(final):
-        raise SolverError("the direct solve produced non-finite values", [1.0, final])
+        raise SolverError("the direct solve produced non-finite values", [start, final])
     monitor.iteration(1, final, elapsed)
-    return SolveResult(x, "direct", 1, True, final, setup, elapsed - setup, [1.0, final], [0.0, elapsed])
+    return SolveResult(x, "direct", 1, True, final, setup, elapsed - setup, [start, final], [0.0, elapsed])
