@@ -42,6 +42,19 @@ class ProgressMonitor:
         return False
 
 
+def balance_table(balance: dict, title: str = "balance") -> Table:
+    """A result's balance (``attrs["balance"]``) as a table: amounts and the imbalance."""
+    from .balance import balance_rows
+
+    table = Table(title=title, box=None, title_justify="left")
+    table.add_column("term")
+    table.add_column(balance.get("units", ""), justify="right")
+    for label, value in balance_rows(balance):
+        table.add_row(escape(label), f"{value:.6g}")
+    table.add_row("relative imbalance", f"{balance['relative_imbalance']:.2e}")
+    return table
+
+
 def _check(args: argparse.Namespace) -> int:
     from .memory import human
     from .runner import plan_job, prepare_problem
@@ -84,8 +97,12 @@ def _run(args: argparse.Namespace) -> int:
         f"(assembly {result.seconds['assemble']:.2f} s, setup {s.setup_seconds:.2f} s, "
         f"solve {s.solve_seconds:.2f} s, write {result.seconds['write']:.2f} s)"
     )
+    if result.balance is not None:
+        out.print(balance_table(result.balance.to_dict()))
     out.print(f"result: {escape(str(result.output))}")
     out.print(f"residuals: {escape(str(result.residual_log))}")
+    if result.probes_csv is not None:
+        out.print(f"probes: {escape(str(result.probes_csv))}")
     return EXIT_OK
 
 

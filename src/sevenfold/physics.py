@@ -28,3 +28,50 @@ PHYSICS = {
     "groundwater": Physics("head", "m", "hydraulic_conductivity", "m/s", "1/s", "m/s", "m^3/s"),
     "generic": Physics("u", "1", "k", "1", "1", "1", "1"),
 }
+
+
+@dataclass(frozen=True)
+class DerivedField:
+    """A field a job may ask for in ``output.fields``, computed from the solution.
+
+    ``kind`` is one of ``flux`` (-k grad u, three arrays ``<name>_x/_y/_z``),
+    ``negative_gradient`` (-grad u, three arrays), ``gradient_magnitude`` (|grad u|),
+    ``coefficient`` (k as used, after regions and scaling) and ``source`` (f as used).
+    """
+
+    kind: str
+    units: str
+    long_name: str
+
+    @property
+    def vector(self) -> bool:
+        return self.kind in ("flux", "negative_gradient")
+
+
+DERIVED = {
+    "heat": {
+        "heat_flux": DerivedField("flux", "W/m^2", "heat flux -k grad T"),
+        "temperature_gradient_magnitude": DerivedField("gradient_magnitude", "K/m", "|grad T|"),
+        "conductivity": DerivedField("coefficient", "W/(m K)", "thermal conductivity as used"),
+        "heat_source": DerivedField("source", "W/m^3", "heat source per unit volume as used"),
+    },
+    "electrostatics": {
+        "electric_displacement": DerivedField("flux", "C/m^2", "electric displacement D = -eps grad phi"),
+        "electric_field": DerivedField("negative_gradient", "V/m", "electric field E = -grad phi"),
+        "electric_field_magnitude": DerivedField("gradient_magnitude", "V/m", "|E|"),
+        "permittivity": DerivedField("coefficient", "F/m", "absolute permittivity as used"),
+        "charge_density": DerivedField("source", "C/m^3", "free charge density as used"),
+    },
+    "groundwater": {
+        "darcy_flux": DerivedField("flux", "m/s", "Darcy flux (specific discharge) -K grad h"),
+        "hydraulic_gradient_magnitude": DerivedField("gradient_magnitude", "1", "|grad h|"),
+        "hydraulic_conductivity": DerivedField("coefficient", "m/s", "hydraulic conductivity as used"),
+        "source": DerivedField("source", "1/s", "volumetric source per unit volume as used"),
+    },
+    "generic": {
+        "flux": DerivedField("flux", "1", "flux -k grad u"),
+        "gradient_magnitude": DerivedField("gradient_magnitude", "1", "|grad u|"),
+        "k": DerivedField("coefficient", "1", "coefficient k as used"),
+        "source": DerivedField("source", "1", "source f as used"),
+    },
+}

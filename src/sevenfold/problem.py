@@ -35,6 +35,9 @@ class Problem:
     held: np.ndarray  # bool per cell
     held_value: np.ndarray  # value of held cells (meaningless elsewhere)
     gauge_mean_zero: bool = False  # pure Neumann: u is shifted to mean zero after the solve
+    # Which [[hold]] holds each cell (the last listed that covers it), -1 elsewhere; the cell
+    # pinned in a pure-Neumann problem is held but belongs to no hold. None: not recorded.
+    hold_index: np.ndarray | None = None
 
     @property
     def unknowns(self) -> int:
@@ -60,15 +63,17 @@ def build_problem(
 
     held = np.zeros(grid.shape, dtype=np.bool_)
     held_value = np.zeros(grid.shape, dtype=np.float64)
+    hold_index = np.full(grid.shape, -1, dtype=np.int32)
     for i, (hold, m) in enumerate(zip(spec.hold, fields.region_masks(spec.hold, grid, "hold"))):
         held |= m
         held_value[m] = hold.value
+        hold_index[m] = i
     if held.all():
         raise JobError("every cell is held; nothing is left to solve", "hold")
 
     fixed = held.any() or any(t.kind != "neumann" for t in faces.values())
     if fixed:
-        return Problem(grid, k, f, faces, held, held_value)
+        return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index)
 
     inflow = neumann_inflow(faces, grid)
     generated = float(f.sum()) * grid.cell_volume
@@ -86,4 +91,4 @@ def build_problem(
         )
     f = f - imbalance / (grid.size * grid.cell_volume)
     held[0, 0, 0] = True  # pin: with a balanced right-hand side the pinned equation holds too
-    return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True)
+    return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True, hold_index=hold_index)

@@ -12,18 +12,21 @@ from pathlib import Path
 
 import numpy as np
 
+from .balance import Balance, compute_balance
+from .derived import derived_fields
 from .errors import JobError, SolverError
 from .grid import Grid
 from .inputs import load_array
 from .memory import available_bytes, estimate_bytes, human
 from .operator import assemble, scatter
-from .physics import PHYSICS
+from .physics import DERIVED, PHYSICS
+from .probes import ProbeValues, sample
 from .problem import Problem, build_problem
 from .residual_log import ResidualLog, log_path
 from .solvers import choose_method, solve
 from .solvers.cg import Monitor, QuietMonitor, SolveResult
 from .spec import JobSpec, load_job
-from .store import Variable, write_result
+from .store import Variable, write_probe_csv, write_result
 
 
 @dataclass(frozen=True)
@@ -51,6 +54,48 @@ class JobResult:
     output: Path
     residual_log: Path
     seconds: dict[str, float]
+    balance: Balance | None = None
+    probes: tuple[ProbeValues, ...] = ()
+    probes_csv: Path | None = None
+
+
+def probes_csv_path(output: Path) -> Path:
+    """The probe table beside an output: ``results/a.zarr`` -> ``results/a.probes.csv``."""
+    return output.with_name(output.stem + ".probes.csv")
+
+
+def job_balance(spec: JobSpec, problem: Problem, u: np.ndarray) -> Balance:
+    """The balance of a solution, with the holds labelled as in the job file."""
+    physics = PHYSICS[spec.physics]
+    return compute_balance(
+        problem, u, physics.amount_units,
+        names=[h.name or f"hold {i}" for i, h in enumerate(spec.hold)],
+        values=[h.value for h in spec.hold],
+        charges=spec.physics == "electrostatics",
+    )
+
+
+def _output_variables(spec: JobSpec, problem: Problem, u: np.ndarray,
+                      probes: list[ProbeValues]) -> dict[str, Variable]:
+    """Derived fields and probe samples as result variables (same dims as the solution)."""
+    physics = PHYSICS[spec.physics]
+    catalogue = DERIVED[spec.physics]
+    variables: dict[str, Variable] = {}
+    for name, data in derived_fields(problem, u, spec.physics, spec.output.fields).items():
+        base = name if name in catalogue else name[:-2]
+        info = catalogue[base]
+        long_name = info.long_name + (f", {name[-1]} component" if info.vector else "")
+        variables[name] = Variable(data, ("x", "y", "z"), {"units": info.units, "long_name": long_name})
+    for p in probes:
+        dim = f"probe_{p.name}_distance"
+        where = ({"point": list(map(float, p.points[0]))} if p.kind == "point" else
+                 {"start": list(map(float, p.points[0])), "end": list(map(float, p.points[-1]))})
+        variables[f"probe_{p.name}"] = Variable(p.values, (dim,), {
+            "units": physics.solution_units, "long_name": f"{physics.solution} at probe {p.name}",
+            "kind": p.kind, **where})
+        variables[dim] = Variable(p.distance, (dim,), {
+            "units": "m", "long_name": f"distance along probe {p.name} from its first sample"})
+    return variables
 
 
 def output_path(spec: JobSpec, job_file: Path, override: str | Path | None = None) -> Path:
@@ -165,6 +210,8 @@ def run_job(
     u = scatter(system, problem, result.x)
     del system
     grid = problem.grid
+    balance = job_balance(spec, problem, u)
+    probes = sample(grid, u, spec.probe)
     seconds = {
         "build": t_build - t0,
         "assemble": t_assemble - t_build,
@@ -181,6 +228,7 @@ def run_job(
             "units": "1", "long_name": "relative residual ||b - A u|| / ||b||"}),
         "residual_seconds": Variable(np.asarray(result.times), ("iteration",), {
             "units": "s", "long_name": "seconds since the solve began"}),
+        **_output_variables(spec, problem, u, probes),
     }
     seconds["job"] = time.perf_counter() - t0  # up to the write; the write adds its own below
     attrs = {
@@ -192,9 +240,15 @@ def run_job(
         "job": spec.model_dump(mode="json"),
         "solver": {**result.summary(), "rtol": spec.solver.rtol, "unknowns": problem.unknowns},
         "seconds": seconds,
+        "balance": balance.to_dict(),
+        "probes": [{"name": p.name, "kind": p.kind, "samples": len(p.values),
+                    "min": float(p.values.min()), "max": float(p.values.max())} for p in probes],
     }
     t_write = time.perf_counter()
     write_result(plan.output, variables, attrs, spec.output.chunks)
+    csv = None
+    if probes:
+        csv = write_probe_csv(probes_csv_path(plan.output), probes, physics.solution, physics.solution_units)
     seconds["write"] = time.perf_counter() - t_write
     seconds["job"] = time.perf_counter() - t0
-    return JobResult(plan, result, plan.output, log_path(plan.output), seconds)
+    return JobResult(plan, result, plan.output, log_path(plan.output), seconds, balance, tuple(probes), csv)

@@ -7,6 +7,7 @@ physics names (see :mod:`sevenfold.physics`). Boundary fluxes are positive INTO 
 from __future__ import annotations
 
 import math
+import re
 import tomllib
 from pathlib import Path
 from typing import Annotated, Any, Literal, Union
@@ -22,6 +23,7 @@ from pydantic import (
 
 from .errors import JobError
 from .expressions import ExpressionError, check_expression
+from .physics import DERIVED
 
 FACES = ("x_min", "x_max", "y_min", "y_max", "z_min", "z_max")
 METHODS = ("auto", "amg", "direct")
@@ -298,9 +300,13 @@ class BoundarySpec(_Frozen):
 
 
 class HoldSpec(_Shaped):
-    """Cells whose centres fall inside the shape are held at ``value``."""
+    """Cells whose centres fall inside the shape are held at ``value``.
+
+    ``name`` labels the hold in the balance report and the capacitance matrix.
+    """
 
     value: float
+    name: str | None = None
 
     _v = field_validator("value", mode="before")(lambda cls, v: _number(v))
 
@@ -329,8 +335,11 @@ class SolverSpec(_Frozen):
 
 
 class OutputSpec(_Frozen):
+    """Where the result goes; ``fields`` names derived fields to store (see physics.DERIVED)."""
+
     path: str = "results/{name}.zarr"
     chunks: tuple[int, int, int] = (64, 64, 64)
+    fields: tuple[str, ...] = ()
 
     @field_validator("chunks")
     @classmethod
@@ -347,6 +356,69 @@ class OutputSpec(_Frozen):
         return v
 
 
+# ---------------------------------------------------------------- probes
+_PROBE_NAME = re.compile(r"^[A-Za-z0-9_-]+$")
+
+
+class ProbeLine(_Frozen):
+    """``points`` equally spaced samples from ``start`` to ``end``, both included."""
+
+    start: Vector3
+    end: Vector3
+    points: int
+
+    _v = field_validator("start", "end", mode="before")(lambda cls, v: _vector(v))
+
+    @field_validator("points", mode="before")
+    @classmethod
+    def _points(cls, v: Any) -> Any:
+        if isinstance(v, bool) or not isinstance(v, int) or v < 2:
+            raise ValueError("points must be a whole number of at least 2")
+        return v
+
+    @model_validator(mode="after")
+    def _length(self) -> "ProbeLine":
+        if self.start == self.end:
+            raise ValueError("start and end are the same point")
+        return self
+
+
+class ProbeSpec(_Frozen):
+    """A named sensor: one ``point = [x, y, z]`` or a ``line`` of samples (metres)."""
+
+    name: str
+    point: Vector3 | None = None
+    line: ProbeLine | None = None
+
+    _v = field_validator("point", mode="before")(lambda cls, v: _vector(v))
+
+    @field_validator("name")
+    @classmethod
+    def _name(cls, v: str) -> str:
+        if not _PROBE_NAME.match(v):
+            raise ValueError("name may use only letters, digits, '_' and '-'")
+        return v
+
+    @model_validator(mode="after")
+    def _one_kind(self) -> "ProbeSpec":
+        if (self.point is None) == (self.line is None):
+            raise ValueError("give exactly one of point or line")
+        return self
+
+    @property
+    def samples(self) -> list[tuple[float, float, float]]:
+        """The probe's sample points, in metres."""
+        if self.point is not None:
+            return [self.point]
+        line = self.line
+        assert line is not None
+        n = line.points
+        return [
+            tuple(a + (b - a) * i / (n - 1) for a, b in zip(line.start, line.end))  # type: ignore[misc]
+            for i in range(n)
+        ]
+
+
 class JobSpec(_Frozen):
     name: str
     physics: Literal["heat", "electrostatics", "groundwater", "generic"] = "generic"
@@ -357,6 +429,7 @@ class JobSpec(_Frozen):
     hold: tuple[HoldSpec, ...] = ()
     solver: SolverSpec = SolverSpec()
     output: OutputSpec = OutputSpec()
+    probe: tuple[ProbeSpec, ...] = ()
 
     @field_validator("name")
     @classmethod
@@ -364,6 +437,36 @@ class JobSpec(_Frozen):
         if not v.strip() or any(c in v for c in "/\\\0") or v.startswith("."):
             raise ValueError("name must be non-empty, not start with '.', and contain no path separators")
         return v
+
+    @model_validator(mode="after")
+    def _outputs(self) -> "JobSpec":
+        # Messages start with the key: a model-level error has no location of its own.
+        allowed = DERIVED[self.physics]
+        for i, name in enumerate(self.output.fields):
+            if name not in allowed:
+                raise ValueError(
+                    f"output.fields.{i}: {name!r} is not a field of physics {self.physics!r}; "
+                    f"choose from {', '.join(allowed)}"
+                )
+        if len(set(self.output.fields)) != len(self.output.fields):
+            raise ValueError("output.fields: a field is listed twice")
+        lo = self.grid.origin
+        hi = tuple(o + n * h for o, n, h in zip(lo, self.grid.cells, self.grid.cell_spacing))
+        seen: set[str] = set()
+        for i, probe in enumerate(self.probe):
+            if probe.name in seen:
+                raise ValueError(f"probe.{i}.name: {probe.name!r} is used by an earlier probe")
+            seen.add(probe.name)
+            key = "point" if probe.point is not None else "line"
+            for p in probe.samples:
+                for axis, c, a, b in zip("xyz", p, lo, hi):
+                    slack = 1e-9 * (b - a)  # rounding of coordinates given on a face
+                    if not (a - slack <= c <= b + slack):
+                        raise ValueError(
+                            f"probe.{i}.{key}: {probe.name!r} reaches {axis} = {c:g}, outside the box "
+                            f"[{a:g}, {b:g}]; probes must lie inside the grid"
+                        )
+        return self
 
 
 # ---------------------------------------------------------------- loading

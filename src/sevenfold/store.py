@@ -101,3 +101,23 @@ def is_complete(path: Path) -> bool:
         return bool(zarr.open_group(store=str(path), mode="r").attrs.get("complete", False))
     except Exception:
         return False
+
+
+def write_probe_csv(path: Path, probes, solution: str, units: str) -> Path:
+    """One row per probe sample: probe, kind, sample, x, y, z, distance (m), value.
+
+    ``probes`` are :class:`sevenfold.probes.ProbeValues`. Written through a temporary
+    sibling and renamed, like the result.
+    """
+    import csv
+
+    path = Path(path)
+    tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
+    with open(tmp, "w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["probe", "kind", "sample", "x_m", "y_m", "z_m", "distance_m", f"{solution} ({units})"])
+        for p in probes:
+            for i, (pt, d, v) in enumerate(zip(p.points, p.distance, p.values)):
+                w.writerow([p.name, p.kind, i, *(repr(float(c)) for c in pt), repr(float(d)), repr(float(v))])
+    os.replace(tmp, path)
+    return path

@@ -1,0 +1,181 @@
+"""The balance of a solved problem: sources, flows out through the six faces, flows into holds.
+
+Every flow is computed from the same discrete fluxes the operator uses, so that summing the
+free cells' equations gives ``source = sum(face outflows) + sum(hold inflows)`` up to the
+solver's residual (the imbalance is the volume-weighted sum of the residuals b - A u).
+
+* Source: sum of f V over the cells not in a hold. Held cells' sources are not part of the
+  equations and are left out. For a pure-Neumann problem, f is the rounding-adjusted source
+  the solver saw (see problem.py); the pinned cell belongs to no hold and counts as free:
+  its equation is implied by the others because the adjusted sources balance exactly.
+* Face outflow (positive leaving the domain), for every boundary cell of the face, held or
+  free: ``-(G (value - u_P) + q) A``.
+* Hold inflow (positive into the hold): the flux from every neighbouring cell that is not in
+  the same hold, ``harmonic(k_P, k_N) / h (u_N - u_P) A``, minus what the hold's own cells
+  lose through boundary faces. That is what the agent keeping the hold at its value must
+  remove: a heat sink's heat, a well's discharge. An electrode's charge is minus its inflow
+  (Gauss's law: the charge is the displacement flux leaving the electrode).
+
+Amounts are in the physics' amount units (W, C, m^3/s); A is one cell face's area (m^2).
+Nothing here does I/O.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from .grid import FACE_AXIS, Grid
+from .problem import Problem
+from .spec import FACES
+
+# Cells per slab when summing face fluxes: bounds the temporaries on large grids.
+_SLAB_CELLS = 1 << 22
+
+
+@dataclass(frozen=True)
+class HoldFlow:
+    """One ``[[hold]]``: its index in the job, name, value, cells it holds, and inflow."""
+
+    index: int
+    name: str
+    value: float
+    cells: int
+    inflow: float  # amount per time into the hold, positive in (units of the physics' amount)
+    charge: float | None = None  # electrostatics: -inflow (C)
+
+
+@dataclass(frozen=True)
+class Balance:
+    """Sources, face outflows and hold inflows of one solution, in ``units``."""
+
+    units: str
+    source: float
+    faces: dict[str, float]  # outflow per face, positive leaving the domain
+    holds: list[HoldFlow] = field(default_factory=list)
+    imbalance: float = 0.0  # source - sum(faces) - sum(hold inflows)
+    scale: float = 0.0  # the largest term's magnitude
+    relative_imbalance: float = 0.0  # |imbalance| / scale (0 when every term is 0)
+
+    def to_dict(self) -> dict:
+        """JSON-friendly form for the result attributes."""
+        return asdict(self)
+
+
+def _hold_index(problem: Problem) -> np.ndarray:
+    if problem.hold_index is not None:
+        return problem.hold_index
+    return np.where(problem.held, 0, -1).astype(np.int32)
+
+
+def _slabs(n: int, per_slab: int):
+    step = max(1, _SLAB_CELLS // max(per_slab, 1))
+    for i0 in range(0, n, step):
+        yield i0, min(n, i0 + step)
+
+
+def interior_hold_inflow(problem: Problem, u: np.ndarray, holds: int) -> np.ndarray:
+    """Flux into each hold from cells not in that hold, over interior faces (amount per time)."""
+    grid = problem.grid
+    k = problem.coefficient
+    index = _hold_index(problem)
+    out = np.zeros(holds + 1)  # slot ``holds`` collects index -1 (free), then is dropped
+    nx = grid.cells[0]
+    per_slab = grid.cells[1] * grid.cells[2]
+    for axis in range(3):
+        n = grid.cells[axis]
+        if n < 2:
+            continue
+        conductance = grid.face_area(axis) / grid.spacing[axis]
+        for i0, i1 in _slabs(nx, per_slab):
+            # cells P in the slab and their + neighbour N along ``axis``
+            if axis == 0:
+                i1 = min(i1, nx - 1)
+                if i1 <= i0:
+                    continue
+                sp, sn = np.s_[i0:i1], np.s_[i0 + 1:i1 + 1]
+                P, N = (sp, slice(None), slice(None)), (sn, slice(None), slice(None))
+            else:
+                P = [np.s_[i0:i1], slice(None), slice(None)]
+                N = list(P)
+                P[axis], N[axis] = np.s_[:-1], np.s_[1:]
+                P, N = tuple(P), tuple(N)
+            hp, hn = index[P], index[N]
+            cross = hp != hn
+            if not cross.any():
+                continue
+            kp, kn = k[P][cross], k[N][cross]
+            flow = 2.0 * kp * kn / (kp + kn) * conductance * (u[P][cross] - u[N][cross])  # P -> N
+            hp, hn = hp[cross], hn[cross]
+            out += np.bincount(np.where(hn >= 0, hn, holds), weights=flow, minlength=holds + 1)
+            out -= np.bincount(np.where(hp >= 0, hp, holds), weights=flow, minlength=holds + 1)
+    return out[:holds]
+
+
+def _boundary(a: np.ndarray, face: str) -> np.ndarray:
+    axis, side = FACE_AXIS[face]
+    return np.take(a, 0 if side == 0 else a.shape[axis] - 1, axis=axis)
+
+
+def face_outflow_density(problem: Problem, u: np.ndarray, face: str) -> np.ndarray:
+    """Outward flux per unit area through each boundary face of ``face`` (2D array)."""
+    t = problem.faces[face]
+    return -(t.conductance * (t.value - _boundary(u, face)) + t.flux)
+
+
+def compute_balance(problem: Problem, u: np.ndarray, units: str = "1",
+                    names: list[str | None] | None = None, values: list[float] | None = None,
+                    charges: bool = False) -> Balance:
+    """The balance of solution ``u`` (full field, held cells at their values) of ``problem``.
+
+    ``names`` and ``values`` label the holds (one per ``[[hold]]``); ``charges`` adds each
+    hold's charge (minus its inflow) for electrostatics.
+    """
+    grid: Grid = problem.grid
+    index = _hold_index(problem)
+    count = int(index.max()) + 1 if index.size else 0
+    if names is not None:
+        count = max(count, len(names))
+    free = index < 0
+    source = float(problem.source[free].sum()) * grid.cell_volume
+
+    inflow = interior_hold_inflow(problem, u, count)
+    faces: dict[str, float] = {}
+    for face in FACES:
+        axis, _ = FACE_AXIS[face]
+        out = face_outflow_density(problem, u, face) * grid.face_area(axis)
+        faces[face] = float(out.sum())
+        idx = _boundary(index, face)
+        if count and (idx >= 0).any():
+            # a hold's own cells lose this through the boundary, so it does not flow into the hold
+            inflow -= np.bincount(idx[idx >= 0], weights=out[idx >= 0], minlength=count)[:count]
+
+    cells = np.bincount(index[index >= 0].ravel(), minlength=count) if count else np.zeros(0, int)
+    holds = []
+    for i in range(count):
+        name = (names[i] if names is not None and i < len(names) else None) or f"hold {i}"
+        value = float(values[i]) if values is not None and i < len(values) else float("nan")
+        holds.append(HoldFlow(i, name, value, int(cells[i]), float(inflow[i]),
+                              -float(inflow[i]) if charges else None))
+    imbalance = source - sum(faces.values()) - float(inflow.sum())
+    scale = max([abs(source), *map(abs, faces.values()), *map(abs, inflow)], default=0.0)
+    relative = abs(imbalance) / scale if scale > 0 else 0.0
+    return Balance(units, source, faces, holds, imbalance, scale, relative)
+
+
+def balance_rows(balance: dict) -> list[tuple[str, float]]:
+    """(label, amount) rows for a printed balance table, from ``Balance.to_dict()``.
+
+    Shared by ``sevenfold run`` and anything else that shows a result's balance.
+    """
+    rows: list[tuple[str, float]] = [("source (free cells)", balance["source"])]
+    for face, v in balance["faces"].items():
+        rows.append((f"out through {face}", v))
+    for h in balance["holds"]:
+        if h.get("charge") is not None:
+            rows.append((f"charge on {h['name']} ({h['value']:g})", h["charge"]))
+        else:
+            rows.append((f"into {h['name']} ({h['value']:g})", h["inflow"]))
+    rows.append(("imbalance", balance["imbalance"]))
+    return rows
