@@ -106,6 +106,74 @@ def _run(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _capacitance(args: argparse.Namespace) -> int:
+    from .capacitance import capacitance_matrix
+    from .runner import plan_job, prepare_problem
+
+    plan = plan_job(args.job)
+    spec = plan.spec
+    if spec.physics != "electrostatics":
+        raise JobError(f"capacitance needs physics = 'electrostatics', this job is {spec.physics!r}",
+                       "physics", str(plan.job_file))
+    names = [h.name or f"hold {i}" for i, h in enumerate(spec.hold)]
+    try:
+        problem = prepare_problem(plan)
+        res = capacitance_matrix(problem, names, spec.solver)
+    except JobError as exc:
+        raise exc if exc.source else exc.located(str(plan.job_file))
+    table = Table(title="capacitance matrix (pF): row i = electrode i at 1 V, the others at 0 V; "
+                  "entry j = charge on electrode j", title_justify="left", box=None)
+    table.add_column("at 1 V")
+    for n in names:
+        table.add_column(escape(n), justify="right")
+    if res.grounded_faces:
+        table.add_column("ground", justify="right")
+    for i, n in enumerate(names):
+        cells = [f"{1e12 * c:.6g}" for c in res.matrix[i]]
+        if res.grounded_faces:
+            cells.append(f"{1e12 * res.ground[i]:.6g}")
+        table.add_row(escape(n), *cells)
+    out.print(table)
+    if res.grounded_faces:
+        out.print(f"grounded: the faces {', '.join(res.grounded_faces)} act as one further conductor at 0 V "
+                  "(their charge is the ground column)")
+    else:
+        out.print("no grounded face: each row sums to zero")
+    if len(names) == 2:
+        out.print(f"capacitance between {escape(names[0])} and {escape(names[1])}: "
+                  f"{-1e12 * res.matrix[0, 1]:.6g} pF (minus the off-diagonal entry)")
+    out.print(f"symmetry: max |C - C^T| / max |C| = {res.asymmetry:.1e}; {res.method}, "
+              f"iterations per solve {res.iterations}")
+    return EXIT_OK
+
+
+def _converge(args: argparse.Namespace) -> int:
+    from .study import plot_study, run_study
+
+    def progress(level: int, cells) -> None:
+        out.print(f"level {level}: {cells[0]} x {cells[1]} x {cells[2]} cells ...")
+
+    study = run_study(args.job, args.levels, args.ratio, args.folder, progress=progress)
+    levels = Table(title="levels", title_justify="left", box=None)
+    for col in ("level", "cells", "h (m)", "ratio per axis"):
+        levels.add_column(col)
+    for i, lv in enumerate(study.levels):
+        levels.add_row(str(i), " x ".join(map(str, lv.cells)), f"{lv.h:.4g}",
+                       "-" if i == 0 else ", ".join(f"{r:.4g}" for r in lv.ratios))
+    out.print(levels)
+    table = Table(title="Grid Convergence Index on the finest level (Roache; Fs = 1.25)",
+                  title_justify="left", box=None)
+    for col in ("quantity", "finest", "order p", "extrapolated", "GCI", "GCI %", "convergence"):
+        table.add_column(col, justify="left" if col in ("quantity", "convergence") else "right")
+    for key, r in study.results.items():
+        table.add_row(escape(key), f"{r.f1:.6g}", f"{r.order:.3f}", f"{r.extrapolated:.6g}",
+                      f"{r.gci:.3g}", f"{100 * r.gci_relative:.3g}", r.convergence)
+    out.print(table)
+    png = plot_study(study, Path(study.folder) / "convergence.png")
+    out.print(f"study: {escape(study.folder)} (study.json, level-*.zarr); figure: {escape(str(png))}")
+    return EXIT_OK
+
+
 def _demo(args: argparse.Namespace) -> int:
     from .demo import run_demo
 
@@ -129,6 +197,17 @@ def parser() -> argparse.ArgumentParser:
     r.add_argument("--output", "-o", help="result path (overrides output.path)")
     r.add_argument("--quiet", "-q", action="store_true", help="no progress bar")
     r.set_defaults(func=_run)
+
+    cap = sub.add_parser("capacitance", help="capacitance matrix of an electrostatics job's electrodes")
+    cap.add_argument("job", help="job file (TOML) with physics = 'electrostatics' and two or more [[hold]]")
+    cap.set_defaults(func=_capacitance)
+
+    cv = sub.add_parser("converge", help="grid-convergence study: observed order, extrapolation, GCI")
+    cv.add_argument("job", help="job file (TOML)")
+    cv.add_argument("--levels", type=int, default=3, help="number of grids, at least 3 (default 3)")
+    cv.add_argument("--ratio", type=float, default=2.0, help="refinement ratio between levels (default 2)")
+    cv.add_argument("--folder", help="where the levels go (default <output stem>.converge)")
+    cv.set_defaults(func=_converge)
 
     d = sub.add_parser("demo", help="copy the example jobs into DIR and run them")
     d.add_argument("dir", nargs="?", default="sevenfold-demo", help="folder (default ./sevenfold-demo)")

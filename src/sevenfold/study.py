@@ -1,0 +1,207 @@
+"""Grid-convergence study: run one job on successively refined grids and apply Roache's GCI.
+
+Level 0 is the job's own grid; level l has ``round(cells * ratio**l)`` cells along each axis
+with more than one cell (axes of one cell stay thin). The box, materials, sources, holds,
+boundaries and probes are unchanged. The cell size of a level is the representative
+``h = (V / N)**(1/D)`` over the D refined axes, so the ratio between levels is the same on
+every refined axis up to the rounding of the cell counts, which must stay within
+``RATIO_SPREAD``. The three finest levels give the observed order, the Richardson-extrapolated
+value and the GCI (see gci.py) of each quantity:
+
+* ``<solution>_max``: the largest cell value of the solution,
+* ``outflow_<face>``: each face's outflow (faces with no flow on any level are left out),
+* ``inflow_<hold>`` or ``charge_<hold>``: each hold's inflow (an electrode's charge),
+* ``probe_<name>``: each point probe's value.
+
+This module runs jobs and writes the study's files; the formulas live in gci.py.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .errors import JobError
+from .gci import GCIResult, gci_three_grids
+from .runner import JobResult, output_path, run_job
+from .spec import JobSpec, load_job
+
+RATIO_SPREAD = 0.02  # largest relative difference of the per-axis ratios between two levels
+
+
+@dataclass(frozen=True)
+class Level:
+    cells: tuple[int, int, int]
+    h: float  # representative cell size (m)
+    ratios: tuple[float, float, float]  # actual per-axis ratio to the previous level (1 if thin)
+    values: dict[str, float]
+    output: str
+
+
+@dataclass(frozen=True)
+class Study:
+    name: str
+    solution_units: str
+    amount_units: str
+    levels: list[Level]
+    results: dict[str, GCIResult] = field(default_factory=dict)
+    folder: str = ""
+
+    def to_dict(self) -> dict:
+        return {
+            "name": self.name,
+            "method": "Roache's GCI on the three finest levels, Fs = 1.25",
+            "levels": [vars(lv) | {"ratios": list(lv.ratios), "cells": list(lv.cells)} for lv in self.levels],
+            "results": {k: v.to_dict() for k, v in self.results.items()},
+        }
+
+
+def level_cells(cells: tuple[int, int, int], ratio: float, level: int) -> tuple[int, int, int]:
+    """Cells of level ``level``: each axis with more than one cell scaled by ratio**level."""
+    return tuple(c if c == 1 else max(1, int(round(c * ratio**level))) for c in cells)  # type: ignore[return-value]
+
+
+def refined_spec(spec: JobSpec, cells: tuple[int, int, int]) -> JobSpec:
+    """The same job on ``cells``; the box (origin and size) is kept."""
+    g = spec.grid
+    size = g.size or tuple(n * h for n, h in zip(g.cells, g.cell_spacing))
+    table = spec.model_dump(mode="json", exclude_none=True)
+    table["grid"] = {"cells": list(cells), "size": list(size), "origin": list(g.origin)}
+    return JobSpec.model_validate(table)
+
+
+def plan_levels(spec: JobSpec, levels: int, ratio: float) -> list[tuple[tuple[int, int, int], float, tuple[float, ...]]]:
+    """(cells, h, per-axis ratios) of each level, refusing uneven refinement."""
+    if levels < 3:
+        raise JobError(f"a study needs at least 3 levels, got {levels}", "--levels")
+    if not (math.isfinite(ratio) and ratio > 1.0):
+        raise JobError(f"the refinement ratio must exceed 1, got {ratio}", "--ratio")
+    base = tuple(spec.grid.cells)
+    refined_axes = [a for a in range(3) if base[a] > 1]
+    if not refined_axes:
+        raise JobError("the grid has one cell; there is nothing to refine", "grid.cells")
+    size = spec.grid.size or tuple(n * h for n, h in zip(base, spec.grid.cell_spacing))
+    out = []
+    prev = None
+    for lv in range(levels):
+        cells = level_cells(base, ratio, lv)  # type: ignore[arg-type]
+        h = math.prod(size[a] / cells[a] for a in refined_axes) ** (1.0 / len(refined_axes))
+        ratios = tuple(1.0 if prev is None or base[a] == 1 else cells[a] / prev[a] for a in range(3))
+        if prev is not None:
+            used = [ratios[a] for a in refined_axes]
+            if max(used) - min(used) > RATIO_SPREAD * min(used) or min(used) <= 1.0:
+                raise JobError(
+                    f"with ratio {ratio:g} level {lv} has cells {list(cells)}, refining the axes by "
+                    f"{', '.join(f'{r:.4g}' for r in used)}; choose cell counts or a ratio that "
+                    "refine every axis alike (within 2%)", "--ratio")
+        out.append((cells, h, ratios))
+        prev = cells
+    return out
+
+
+def quantities(result: JobResult) -> dict[str, float]:
+    """The study's quantities of one finished level (see the module docstring)."""
+    import zarr
+
+    group = zarr.open_group(store=str(result.output), mode="r")
+    solution = group.attrs["solution"]
+    values = {f"{solution}_max": float(np.max(group[solution][...]))}
+    bal = result.balance
+    assert bal is not None
+    for face, v in bal.faces.items():
+        values[f"outflow_{face}"] = v
+    for h in bal.holds:
+        key = "charge" if h.charge is not None else "inflow"
+        values[f"{key}_{h.name.replace(' ', '_')}"] = h.charge if h.charge is not None else h.inflow
+    for p in result.probes:
+        if p.kind == "point":
+            values[f"probe_{p.name}"] = float(p.values[0])
+    return values
+
+
+def run_study(job_file: str | Path, levels: int = 3, ratio: float = 2.0,
+              folder: str | Path | None = None, spec: JobSpec | None = None,
+              progress=None) -> Study:
+    """Run every level in this process and compute the GCI of every quantity.
+
+    Results go to ``folder`` (default ``<output stem>.converge`` beside the job's output):
+    ``level-<l>.zarr`` per level and ``study.json``. ``progress(level, cells)`` is called
+    before each level when given.
+    """
+    from .physics import PHYSICS
+
+    job_file = Path(job_file)
+    spec = spec or load_job(job_file)
+    for key, fspec in (("material", spec.material), ("source", spec.source)):
+        if fspec.file is not None:
+            raise JobError("a study refines the grid, so the field cannot come from a file; "
+                           "give it by value or expression", f"{key}.file", str(job_file))
+    try:
+        plans = plan_levels(spec, levels, ratio)
+    except JobError as exc:
+        raise exc.located(str(job_file)) from None
+    if folder is None:
+        out = output_path(spec, job_file)
+        folder = out.with_name(out.stem + ".converge")
+    folder = Path(folder).resolve()
+    folder.mkdir(parents=True, exist_ok=True)
+    done: list[Level] = []
+    for lv, (cells, h, ratios) in enumerate(plans):
+        if progress is not None:
+            progress(lv, cells)
+        target = folder / f"level-{lv}.zarr"
+        result = run_job(job_file, target, None, refined_spec(spec, cells))
+        done.append(Level(cells, h, ratios, quantities(result), str(target)))
+    physics = PHYSICS[spec.physics]
+    study = Study(spec.name, physics.solution_units, physics.amount_units, done, {}, str(folder))
+    fine, mid, coarse = done[-1], done[-2], done[-3]
+    for key in fine.values:
+        trio = [lv.values.get(key) for lv in (fine, mid, coarse)]
+        if any(v is None for v in trio):
+            continue
+        if key.startswith("outflow_") and all(v == 0.0 for v in trio):
+            continue  # an insulated face: nothing to converge
+        study.results[key] = gci_three_grids(trio[0], trio[1], trio[2], mid.h / fine.h, coarse.h / mid.h)
+    (folder / "study.json").write_text(json.dumps(study.to_dict(), indent=2, default=float))
+    return study
+
+
+def plot_study(study: Study, target: str | Path) -> Path:
+    """Log-log PNG: |f(h) - f_extrapolated| / |f_extrapolated| against cell size h, per quantity."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    target = Path(target)
+    hs = np.array([lv.h for lv in study.levels])
+    fig, ax = plt.subplots(figsize=(6.4, 4.8), dpi=100)
+    plotted = False
+    for key, res in study.results.items():
+        if not math.isfinite(res.extrapolated):
+            continue
+        ref = abs(res.extrapolated) or max(abs(lv.values[key]) for lv in study.levels) or 1.0
+        change = np.array([abs(lv.values[key] - res.extrapolated) / ref for lv in study.levels])
+        keep = change > 0
+        if keep.sum() >= 2:
+            ax.loglog(hs[keep], change[keep], "o-", label=f"{key} (p = {res.order:.2f})")
+            plotted = True
+    if plotted:
+        h0 = hs[-1]
+        ys = [ln.get_ydata()[-1] for ln in ax.get_lines()]
+        y0 = float(np.median(ys))
+        ax.loglog(hs, y0 * (hs / h0) ** 2, "k--", lw=1, label="slope 2")
+    ax.set_xlabel("cell size h (m)")
+    ax.set_ylabel("|f(h) - f_extrapolated| / |f_extrapolated|")
+    ax.set_title(f"grid convergence: {study.name}")
+    ax.grid(True, which="both", alpha=0.3)
+    if plotted:
+        ax.legend(fontsize=7)
+    fig.tight_layout()
+    fig.savefig(target)
+    plt.close(fig)
+    return target
