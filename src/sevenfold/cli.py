@@ -174,6 +174,24 @@ def _converge(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _report(args: argparse.Namespace) -> int:
+    from .report import write_report
+
+    index = write_report(args.result, args.folder)
+    out.print(f"report: {escape(str(index))}")
+    return EXIT_OK
+
+
+def _export(args: argparse.Namespace) -> int:
+    from .export import open_result, write_vti
+
+    result = open_result(args.result)
+    fields = args.fields.split(",") if args.fields else None
+    path = write_vti(result, args.vti, fields)
+    out.print(f"VTK image data: {escape(str(path))}")
+    return EXIT_OK
+
+
 def _demo(args: argparse.Namespace) -> int:
     from .demo import run_demo
 
@@ -208,6 +226,17 @@ def parser() -> argparse.ArgumentParser:
     cv.add_argument("--ratio", type=float, default=2.0, help="refinement ratio between levels (default 2)")
     cv.add_argument("--folder", help="where the levels go (default <output stem>.converge)")
     cv.set_defaults(func=_converge)
+
+    rp = sub.add_parser("report", help="PNG figures and a one-page HTML summary of a result")
+    rp.add_argument("result", help="result (zarr group written by run)")
+    rp.add_argument("--folder", help="where the report goes (default <result stem>.report)")
+    rp.set_defaults(func=_report)
+
+    ex = sub.add_parser("export", help="write a result as VTK image data (.vti)")
+    ex.add_argument("result", help="result (zarr group written by run)")
+    ex.add_argument("--vti", required=True, help="the .vti file to write")
+    ex.add_argument("--fields", help="comma-separated arrays to include (default: all cell fields)")
+    ex.set_defaults(func=_export)
 
     d = sub.add_parser("demo", help="copy the example jobs into DIR and run them")
     d.add_argument("dir", nargs="?", default="sevenfold-demo", help="folder (default ./sevenfold-demo)")

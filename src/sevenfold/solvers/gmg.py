@@ -139,10 +139,13 @@ class Hierarchy:
         self._smooth(lv, b, u, (1, 0))
 
     def precondition(self, r: np.ndarray) -> np.ndarray:
+        """One cycle from zero for A z = r. The returned array is reused by the next call."""
         fine = self.levels[0]
-        u = np.zeros(fine.shape)
-        self.cycle(0, r.reshape(fine.shape), u)
-        return u.ravel()
+        if fine.e is None:
+            fine.e = np.empty(fine.shape)
+        fine.e[...] = 0.0
+        self.cycle(0, r.reshape(fine.shape), fine.e)
+        return fine.e.ravel()
 
 
 class FineOperator:
@@ -151,11 +154,14 @@ class FineOperator:
     def __init__(self, level: Level) -> None:
         self.level = level
         self.shape = (level.diag.size, level.diag.size)
+        self._out: np.ndarray | None = None
 
     def __matmul__(self, x: np.ndarray) -> np.ndarray:
-        out = np.empty(self.level.shape)
-        self.level.apply(x.reshape(self.level.shape), out)
-        return out.ravel()
+        """A x; the returned array is reused by the next product (CG needs one at a time)."""
+        if self._out is None:
+            self._out = np.empty(self.level.shape)
+        self.level.apply(x.reshape(self.level.shape), self._out)
+        return self._out.ravel()
 
 
 def fine_level(problem) -> tuple[Level, np.ndarray]:

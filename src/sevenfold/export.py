@@ -1,0 +1,96 @@
+"""Reading a finished result back, and exporting it to VTK image data (.vti).
+
+The .vti file is written by pyevtk (a small, maintained writer of VTK's XML formats). Each
+sevenfold cell is one VTK cell: the image's origin is the box's minimum corner and its
+spacing the cell spacing, and the solution and every derived field on (x, y, z) are cell
+data. VTK arrays carry no units; they are those of the result (``units`` attribute of each
+array in the zarr group).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .errors import JobError
+from .spec import JobSpec
+
+
+@dataclass(frozen=True)
+class StoredResult:
+    """A result's group attributes, its job and its arrays on (x, y, z), lazily read."""
+
+    path: Path
+    attrs: dict[str, Any]
+    spec: JobSpec
+    group: Any  # zarr.Group
+
+    @property
+    def solution(self) -> str:
+        return self.attrs["solution"]
+
+    def cell_fields(self) -> list[str]:
+        """Names of the arrays on (x, y, z): the solution first, then derived fields."""
+        names = []
+        for name, arr in self.group.arrays():
+            if tuple(arr.metadata.dimension_names or ()) == ("x", "y", "z"):
+                names.append(name)
+        names.sort(key=lambda n: (n != self.solution, n))
+        return names
+
+    def array(self, name: str) -> np.ndarray:
+        return np.asarray(self.group[name][...])
+
+    def units(self, name: str) -> str:
+        return str(self.group[name].attrs.get("units", ""))
+
+
+def open_result(path: str | Path) -> StoredResult:
+    """Open a finished sevenfold result, or raise JobError with one clear reason."""
+    import zarr
+
+    path = Path(path)
+    if not path.exists():
+        raise JobError("no such result", source=str(path))
+    try:
+        group = zarr.open_group(store=str(path), mode="r")
+        attrs = dict(group.attrs)
+    except Exception as exc:  # zarr raises many types for things that are not groups
+        raise JobError(f"not a zarr result group: {exc}", source=str(path)) from None
+    if not attrs.get("complete") or "job" not in attrs:
+        raise JobError("not a complete sevenfold result (no 'complete' or 'job' attribute)", source=str(path))
+    spec = JobSpec.model_validate(_without_none(attrs["job"]))
+    return StoredResult(path, attrs, spec, group)
+
+
+def _without_none(value: Any) -> Any:
+    """The stored job table without null entries (they stand for keys the file left out)."""
+    if isinstance(value, dict):
+        return {k: _without_none(v) for k, v in value.items() if v is not None}
+    if isinstance(value, list):
+        return [_without_none(v) for v in value]
+    return value
+
+
+def write_vti(result: StoredResult, target: str | Path, fields: list[str] | None = None) -> Path:
+    """Write ``fields`` (default: every array on (x, y, z)) as cell data of a .vti file."""
+    from pyevtk.hl import imageToVTK
+
+    target = Path(target)
+    if target.suffix != ".vti":
+        raise JobError("the VTK image file must end in .vti", source=str(target))
+    available = result.cell_fields()
+    names = fields or available
+    unknown = [n for n in names if n not in available]
+    if unknown:
+        raise JobError(f"no cell field {unknown[0]!r} in the result; it has {', '.join(available)}",
+                       source=str(result.path))
+    spacing = tuple(float(h) for h in result.spec.grid.cell_spacing)
+    origin = tuple(float(o) for o in result.spec.grid.origin)
+    data = {n: np.ascontiguousarray(result.array(n), dtype=np.float64) for n in names}
+    target.parent.mkdir(parents=True, exist_ok=True)
+    written = imageToVTK(str(target.with_suffix("")), origin=origin, spacing=spacing, cellData=data)
+    return Path(written)
