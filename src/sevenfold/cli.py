@@ -57,10 +57,11 @@ def balance_table(balance: dict, title: str = "balance") -> Table:
 
 def _check(args: argparse.Namespace) -> int:
     from .memory import human
-    from .runner import plan_job, prepare_problem
+    from .runner import plan_job, prepare_problem, settle_plan
 
     plan = plan_job(args.job)
     problem = prepare_problem(plan)
+    plan = settle_plan(plan, problem)  # the method the built problem is really solved with
     spec = plan.spec
     table = Table(show_header=False, box=None)
     nx, ny, nz = spec.grid.cells

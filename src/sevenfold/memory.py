@@ -11,6 +11,9 @@ SYSTEM_BYTES_PER_UNKNOWN = {
     # CSR (7 entries of value+index, row pointer), right-hand side, CG vectors
     "amg": 92 + 8 + 56 + 160,  # + smoothed-aggregation hierarchy
     "direct": 92 + 8 + 16,
+    # no matrix: the right-hand side is transformed in place in the padded solution buffer;
+    # 8 more for an out-of-place transform
+    "fft": 8 + 8,
 }
 BASE_BYTES = 250 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr once imported
 

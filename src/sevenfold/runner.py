@@ -7,7 +7,7 @@ queue call :func:`run_job` and nothing below it.
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -18,13 +18,14 @@ from .errors import JobError, SolverError
 from .grid import Grid
 from .inputs import load_array
 from .memory import available_bytes, estimate_bytes, human
-from .operator import assemble, scatter
+from .operator import LinearSystem, assemble, scatter
 from .physics import DERIVED, PHYSICS
 from .probes import ProbeValues, sample
 from .problem import Problem, build_problem
 from .residual_log import ResidualLog, log_path
-from .solvers import choose_method, solve
+from .solvers import choose_method, method_for, solve
 from .solvers.cg import Monitor, QuietMonitor, SolveResult
+from .solvers.fft import solve_fft
 from .spec import JobSpec, load_job
 from .store import Variable, write_probe_csv, write_result
 
@@ -137,13 +138,32 @@ def refuse_if_too_large(plan: Plan) -> None:
 
 
 def prepare_problem(plan: Plan) -> Problem:
-    """Load the files a job names and discretise it; every input error surfaces here."""
+    """Load the files a job names and discretise it; every input error surfaces here,
+    including a method the problem does not allow (``fft`` on an ineligible problem)."""
     refuse_if_too_large(plan)
     try:
         arrays = _load_files(plan.spec, plan.job_file)
-        return build_problem(plan.spec, arrays["material"], arrays["source"])
+        problem = build_problem(plan.spec, arrays["material"], arrays["source"])
+        method_for(plan.spec.solver, problem)
+        return problem
     except JobError as exc:
         raise exc.located(str(plan.job_file)) if not exc.source else exc
+
+
+def settle_plan(plan: Plan, problem: Problem) -> Plan:
+    """The plan once the problem is built: the method it is really solved with, and its memory."""
+    method = method_for(plan.spec.solver, problem)
+    return replace(plan, method=method, memory_bytes=estimate_bytes(plan.cells, problem.unknowns, method))
+
+
+def solve_problem(problem: Problem, system: LinearSystem | None, spec: JobSpec,
+                  monitor: Monitor) -> tuple[np.ndarray, SolveResult]:
+    """u on every cell and the solve's record: by transforms when there is no assembled system
+    (method ``fft``), else by the assembled system's solver."""
+    if system is None:
+        return solve_fft(problem, monitor=monitor)
+    result = solve(system.matrix, system.rhs, spec.solver, monitor)
+    return scatter(system, problem, result.x), result
 
 
 def _load_files(spec: JobSpec, job_file: Path) -> dict[str, np.ndarray | None]:
@@ -186,16 +206,16 @@ def run_job(
     plan = plan_job(job_file, output, spec)
     spec = plan.spec
     problem = prepare_problem(plan)
+    plan = settle_plan(plan, problem)
     t_build = time.perf_counter()
-    system = assemble(problem)
+    system = None if plan.method == "fft" else assemble(problem)  # fft needs no matrix
     t_assemble = time.perf_counter()
 
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
     try:
-        log.start(job=spec.name, method=choose_method(spec.solver, problem.unknowns),
-                  rtol=spec.solver.rtol, unknowns=problem.unknowns)
-        result = solve(system.matrix, system.rhs, spec.solver, _Logged(log, monitor or QuietMonitor()))
+        log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
+        u, result = solve_problem(problem, system, spec, _Logged(log, monitor or QuietMonitor()))
         log.end(converged=True, iterations=result.iterations,
                 final_relative_residual=result.final_relative_residual)
     except SolverError as exc:
@@ -206,8 +226,6 @@ def run_job(
         raise
     finally:
         log.close()
-    t_solve = time.perf_counter()
-    u = scatter(system, problem, result.x)
     del system
     grid = problem.grid
     balance = job_balance(spec, problem, u)
