@@ -41,3 +41,8 @@ class SolverError(SevenfoldError):
 
 class Cancelled(SevenfoldError):
     """A solve was asked to stop before it finished."""
+
+
+class QueueError(SevenfoldError):
+    """The queue cannot do what was asked: an unknown job id, a job in the wrong state, an
+    unusable queue home or database (CLI exit code 2)."""

@@ -9,6 +9,7 @@ from __future__ import annotations
 import time
 from dataclasses import dataclass, replace
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -196,10 +197,12 @@ def run_job(
     output: str | Path | None = None,
     monitor: Monitor | None = None,
     spec: JobSpec | None = None,
+    extra_attrs: dict[str, Any] | None = None,
 ) -> JobResult:
     """Run one job to a finished result, or raise JobError / SolverError / Cancelled.
 
     A failed or interrupted job leaves no result at ``output``, only its residual log.
+    ``extra_attrs`` are added to the result's attributes (the queue records its run there).
     """
     t0 = time.perf_counter()
     job_file = Path(job_file)
@@ -258,6 +261,7 @@ def run_job(
         "job": spec.model_dump(mode="json"),
         "solver": {**result.summary(), "rtol": spec.solver.rtol, "unknowns": problem.unknowns},
         "seconds": seconds,
+        **(extra_attrs or {}),
         "balance": balance.to_dict(),
         "probes": [{"name": p.name, "kind": p.kind, "samples": len(p.values),
                     "min": float(p.values.min()), "max": float(p.values.max())} for p in probes],

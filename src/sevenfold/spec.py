@@ -504,6 +504,9 @@ def _reason(err: dict[str, Any]) -> str:
 
 def parse_job(table: dict[str, Any], source: str = "") -> JobSpec:
     """Validate a job table (as read from TOML) into a :class:`JobSpec`."""
+    if isinstance(table, dict) and "sweep" in table:
+        raise JobError("a [sweep] table stands for one job per combination; queue them with "
+                       "`sevenfold submit`", "sweep", source)
     try:
         return JobSpec.model_validate(table)
     except ValidationError as exc:
