@@ -22,6 +22,9 @@ its source is already balanced).
 The relative residual ``||b - A u|| / ||b||`` is then evaluated independently of the
 transforms, slab by slab straight from the problem's source, coefficient and face terms,
 without assembling a matrix.
+
+Units as in the rest of the package: u in the physics' solution units, f per unit volume,
+fluxes q per unit area and positive INTO the domain, b and the residual per unit volume.
 """
 
 from __future__ import annotations
@@ -29,6 +32,8 @@ from __future__ import annotations
 import math
 import os
 import time
+from concurrent.futures import ThreadPoolExecutor
+from typing import Callable
 
 import numpy as np
 import scipy.fft
@@ -102,14 +107,33 @@ def _transform(w: np.ndarray, kinds: tuple[str, ...], workers: int, inverse: boo
     return w
 
 
-def _divide_by_eigenvalues(w_hat: np.ndarray, lx: np.ndarray, ly: np.ndarray, lz: np.ndarray) -> None:
+def _in_threads(work: Callable[[int, int], float], n: int, workers: int) -> float:
+    """The sum of work(start, stop) over contiguous parts of range(n), one part per thread.
+
+    numpy releases the GIL inside its array loops, so the parts run side by side.
+    """
+    parts = max(1, min(workers, n))
+    if parts == 1:
+        return work(0, n)
+    bounds = [n * p // parts for p in range(parts + 1)]
+    with ThreadPoolExecutor(parts) as pool:
+        return sum(pool.map(work, bounds[:-1], bounds[1:]))
+
+
+def _divide_by_eigenvalues(w_hat: np.ndarray, lx: np.ndarray, ly: np.ndarray, lz: np.ndarray,
+                           workers: int = 1) -> None:
     """w_hat[i, j, l] /= lx[i] + ly[j] + lz[l], plane by plane (the planes stay in cache)."""
     lyz = ly[:, None] + lz[None, :]
-    plane = np.empty_like(lyz)
-    with np.errstate(divide="ignore", invalid="ignore"):  # 0/0 of the pure-Neumann constant mode
-        for i in range(w_hat.shape[0]):
-            np.add(lyz, lx[i], out=plane)
-            np.divide(w_hat[i], plane, out=w_hat[i])
+
+    def planes(start: int, stop: int) -> float:
+        plane = np.empty_like(lyz)
+        with np.errstate(divide="ignore", invalid="ignore"):  # 0/0: the pure-Neumann constant mode
+            for i in range(start, stop):
+                np.add(lyz, lx[i], out=plane)
+                np.divide(w_hat[i], plane, out=w_hat[i])
+        return 0.0
+
+    _in_threads(planes, w_hat.shape[0], workers)
 
 
 def _padded(shape: tuple[int, int, int]) -> np.ndarray:
@@ -127,7 +151,7 @@ def _sum_of_squares(a: np.ndarray) -> float:
     return float(np.einsum("i,i->", flat, flat))
 
 
-def residual_norm(problem: Problem, padded_u: np.ndarray) -> float:
+def residual_norm(problem: Problem, padded_u: np.ndarray, workers: int = 1) -> float:
     """||b - A u|| of the full system (every cell), per unit volume, without a matrix.
 
     ``padded_u`` is (nx + 2, ny, nz) C-ordered with u in [1:-1] and finite end planes.
@@ -135,7 +159,7 @@ def residual_norm(problem: Problem, padded_u: np.ndarray) -> float:
     f_P + sum_N T (u_N - u_P) + sum_faces [(G value + q)/h - G/h u_P]. Every cell is first
     given six neighbours (flat shifts of the C-ordered buffer; the ones across a face are
     wrong), then each face plane is corrected: the wrong neighbour's term removed and the
-    face's own terms added.
+    face's own terms added. Slabs of x planes are shared out among ``workers`` threads.
     """
     grid = problem.grid
     nx, ny, nz = grid.cells
@@ -149,40 +173,45 @@ def residual_norm(problem: Problem, padded_u: np.ndarray) -> float:
              for name, t in problem.faces.items()}
 
     step = max(1, SLAB_CELLS // plane)
-    buf = np.empty((min(step, nx), ny, nz))
-    tmp = np.empty_like(buf)
-    total = 0.0
-    for i0 in range(0, nx, step):
-        i1 = min(nx, i0 + step)
-        m = i1 - i0
-        base, length = (i0 + 1) * plane, m * plane
 
-        def shifted(offset: int) -> np.ndarray:
-            return flat[base + offset: base + offset + length].reshape(m, ny, nz)
+    def slabs(start: int, stop: int) -> float:
+        buf = np.empty((min(step, stop - start), ny, nz))
+        tmp = np.empty_like(buf)
+        total = 0.0
+        for i0 in range(start, stop, step):
+            i1 = min(stop, i0 + step)
+            m = i1 - i0
+            base, length = (i0 + 1) * plane, m * plane
 
-        c = padded_u[i0 + 1: i1 + 1]
-        near = {"x": (padded_u[i0:i1], padded_u[i0 + 2: i1 + 2]), "y": (shifted(-nz), shifted(nz)),
-                "z": (shifted(-1), shifted(1))}
-        r, t = buf[:m], tmp[:m]
-        np.multiply(c, -2.0 * (cx + cy + cz), out=r)
-        r += f[i0:i1]
-        for axis, name in enumerate(AXES):
-            np.add(near[name][0], near[name][1], out=t)
-            t *= coupling[axis]
-            r += t
-        for name in problem.faces:
-            axis, side = FACE_AXIS[name]
-            if axis == 0:
-                if (side == 0 and i0 != 0) or (side == 1 and i1 != nx):
-                    continue
-                at = (0 if side == 0 else m - 1,)
-                rhs, diag = terms[name]
-            else:
-                at = (slice(None),) * axis + (0 if side == 0 else grid.cells[axis] - 1,)
-                rhs, diag = (a[i0:i1] for a in terms[name])
-            wrong = near[AXES[axis]][side][at]
-            r[at] += coupling[axis] * (c[at] - wrong) + rhs - diag * c[at]
-        total += _sum_of_squares(r)
+            def shifted(offset: int) -> np.ndarray:
+                return flat[base + offset: base + offset + length].reshape(m, ny, nz)
+
+            c = padded_u[i0 + 1: i1 + 1]
+            near = {"x": (padded_u[i0:i1], padded_u[i0 + 2: i1 + 2]), "y": (shifted(-nz), shifted(nz)),
+                    "z": (shifted(-1), shifted(1))}
+            r, t = buf[:m], tmp[:m]
+            np.multiply(c, -2.0 * (cx + cy + cz), out=r)
+            r += f[i0:i1]
+            for axis, name in enumerate(AXES):
+                np.add(near[name][0], near[name][1], out=t)
+                t *= coupling[axis]
+                r += t
+            for name in problem.faces:
+                axis, side = FACE_AXIS[name]
+                if axis == 0:
+                    if (side == 0 and i0 != 0) or (side == 1 and i1 != nx):
+                        continue
+                    at = (0 if side == 0 else m - 1,)
+                    rhs, diag = terms[name]
+                else:
+                    at = (slice(None),) * axis + (0 if side == 0 else grid.cells[axis] - 1,)
+                    rhs, diag = (a[i0:i1] for a in terms[name])
+                wrong = near[AXES[axis]][side][at]
+                r[at] += coupling[axis] * (c[at] - wrong) + rhs - diag * c[at]
+            total += _sum_of_squares(r)
+        return total
+
+    total = _in_threads(slabs, nx, workers)
     return math.sqrt(total)
 
 
@@ -191,7 +220,8 @@ def solve_fft(
 ) -> tuple[np.ndarray, SolveResult]:
     """Solve an eligible problem exactly; returns u on every cell (nx, ny, nz) and the result.
 
-    ``workers`` threads run the transforms (default: numba's thread count). The result records method ``fft``, one iteration and the history
+    ``workers`` threads run the transforms, the division and the residual (default: numba's
+    thread count). The result records method ``fft``, one iteration and the history
     [1, ||b - A u|| / ||b||]; its ``x`` is u flattened in C order (all cells). Raises
     ValueError for an ineligible problem (see :func:`fft_eligibility`).
     """
@@ -223,7 +253,7 @@ def solve_fft(
     monitor.iteration(0, first, setup)
 
     w_hat = _transform(w, kinds, workers, inverse=False)
-    _divide_by_eigenvalues(w_hat, lx, ly, lz)
+    _divide_by_eigenvalues(w_hat, lx, ly, lz, workers)
     if problem.gauge_mean_zero:
         w_hat[0, 0, 0] = 0.0  # the constant mode (zero eigenvalue): mean(u) = 0
     u = _transform(w_hat, kinds, workers, inverse=True)
@@ -231,8 +261,8 @@ def solve_fft(
         np.copyto(w, u)  # scipy worked out of place this time: bring u back into the buffer
     u = w
     if problem.gauge_mean_zero:
-        u -= u.mean()
-    residual = residual_norm(problem, padded)
+        u -= u.mean()  # the mean is zero already up to rounding; make it so exactly as scatter does
+    residual = residual_norm(problem, padded, workers)
     final = residual / b_norm if b_norm > 0 else residual
     elapsed = time.perf_counter() - t0
     if not math.isfinite(final):
