@@ -122,8 +122,7 @@ def _capacitance(args: argparse.Namespace) -> int:
         res = capacitance_matrix(problem, names, spec.solver)
     except JobError as exc:
         raise exc if exc.source else exc.located(str(plan.job_file))
-    table = Table(title="capacitance matrix (pF): row i = electrode i at 1 V, the others at 0 V; "
-                  "entry j = charge on electrode j", title_justify="left", box=None)
+    table = Table(title="capacitance matrix (pF)", title_justify="left", box=None)
     table.add_column("at 1 V")
     for n in names:
         table.add_column(escape(n), justify="right")
@@ -135,14 +134,15 @@ def _capacitance(args: argparse.Namespace) -> int:
             cells.append(f"{1e12 * res.ground[i]:.6g}")
         table.add_row(escape(n), *cells)
     out.print(table)
+    out.print("row i: electrode i at 1 V, the others at 0 V; column j: the charge on electrode j")
     if res.grounded_faces:
         out.print(f"grounded: the faces {', '.join(res.grounded_faces)} act as one further conductor at 0 V "
                   "(their charge is the ground column)")
     else:
         out.print("no grounded face: each row sums to zero")
     if len(names) == 2:
-        out.print(f"capacitance between {escape(names[0])} and {escape(names[1])}: "
-                  f"{-1e12 * res.matrix[0, 1]:.6g} pF (minus the off-diagonal entry)")
+        out.print(f"{'mutual ' if res.grounded_faces else ''}capacitance between {escape(names[0])} and "
+                  f"{escape(names[1])}: {-1e12 * res.matrix[0, 1]:.6g} pF (minus the off-diagonal entry)")
     out.print(f"symmetry: max |C - C^T| / max |C| = {res.asymmetry:.1e}; {res.method}, "
               f"iterations per solve {res.iterations}")
     return EXIT_OK
