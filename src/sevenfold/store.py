@@ -6,8 +6,11 @@ Layout (every array carries ``dimension_names``, so ``xarray.open_zarr`` gives a
 * ``x``, ``y``, ``z``: cell-centre coordinates in metres
 * ``residual_history`` (iteration): relative residual ||b - A u|| / ||b|| per iteration
 * ``residual_seconds`` (iteration): seconds since the solve began
+* derived fields of ``output.fields`` (x, y, z), and ``probe_<name>`` on
+  ``probe_<name>_distance`` per probe; the probes also go to ``<stem>.probes.csv``
 * group attributes: ``solution``, ``physics``, ``job`` (the validated spec), ``solver``
-  (method, iterations, converged, final relative residual, times), ``sevenfold_version``,
+  (method, iterations, converged, final relative residual, times), ``balance`` (see
+  balance.py), ``probes``, ``sevenfold_version``,
   and ``complete`` = true, written last.
 """
 
