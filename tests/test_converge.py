@@ -120,3 +120,14 @@ def test_uneven_refinement_is_refused(tmp_path: Path, capsys) -> None:
     assert "refine every axis alike" in err and "Traceback" not in err
     assert main(["converge", str(job), "--levels", "2"]) == 2
     assert "at least 3 levels" in capsys.readouterr().err
+
+
+def test_fields_from_files_cannot_be_refined(tmp_path: Path, capsys) -> None:
+    import numpy as np
+
+    np.save(tmp_path / "k.npy", np.ones((6, 6, 6)))
+    job = tmp_path / "mms.toml"
+    job.write_text(MMS.replace("[material]\nvalue = 1.0", '[material]\nfile = "k.npy"'))
+    assert main(["converge", str(job)]) == 2
+    err = " ".join(capsys.readouterr().err.split())
+    assert "material.file" in err and "cannot come from a file" in err

@@ -91,3 +91,12 @@ def test_export_refusals(result: Path, tmp_path: Path, capsys) -> None:
     assert main(["export", str(result), "--vti", str(tmp_path / "t.vti"), "--fields", "temperature"]) == 0
     _, arrays = read_vti(tmp_path / "t.vti")
     assert list(arrays) == ["temperature"]
+
+
+def test_a_folder_that_is_no_result_is_refused(tmp_path: Path, capsys) -> None:
+    (tmp_path / "plain").mkdir()
+    (tmp_path / "plain" / "notes.txt").write_text("not a result")
+    assert main(["report", str(tmp_path / "plain")]) == 2
+    err = capsys.readouterr().err
+    assert "not a" in err and "Traceback" not in err
+    assert main(["export", str(tmp_path / "plain"), "--vti", str(tmp_path / "x.vti")]) == 2
