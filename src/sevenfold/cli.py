@@ -242,6 +242,7 @@ def parser() -> argparse.ArgumentParser:
     d = sub.add_parser("demo", help="copy the example jobs into DIR and run them")
     d.add_argument("dir", nargs="?", default="sevenfold-demo", help="folder (default ./sevenfold-demo)")
     d.set_defaults(func=_demo)
+    __import__("sevenfold.queue.commands", fromlist=["register"]).register(sub)  # submit, list, worker, ...
     return p
 
 

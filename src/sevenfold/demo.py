@@ -1,4 +1,4 @@
-"""``sevenfold demo``: copy the example jobs into a folder and run each one."""
+"""``sevenfold demo``: copy the example jobs into a folder, queue them and drain the queue."""
 
 from __future__ import annotations
 
@@ -35,30 +35,61 @@ def copy_examples(target: Path) -> list[Path]:
     return copied
 
 
+DEMO_MARK = ".sevenfold-demo-queue"  # marks a queue home the demo made and may replace
+
+
+def fresh_queue_home(path: Path):
+    """An empty queue home at ``path``; an earlier demo's queue there is replaced."""
+    from .queue.home import locate
+
+    if path.exists():
+        if not (path / DEMO_MARK).exists():
+            raise SevenfoldError(f"{str(path)!r} exists and is not a demo queue; choose another folder")
+        for entry in path.iterdir():
+            if entry.name == "numba-cache":
+                continue  # compiled kernels stay valid: keep them
+            shutil.rmtree(entry) if entry.is_dir() else entry.unlink()
+    path.mkdir(parents=True, exist_ok=True)
+    (path / DEMO_MARK).touch()
+    return locate(path)
+
+
 def run_demo(target: Path, console: Console) -> int:
-    from .runner import run_job
+    """Copy the examples to ``target``, queue them in ``target/queue``, drain it with a worker."""
+    from .queue.db import Queue
+    from .queue.submit import submit
+    from .queue.worker import Worker, WorkerOptions
 
     jobs = copy_examples(target)
     console.print(f"copied {len(jobs)} example jobs to {escape(str(target.resolve()))}")
+    home = fresh_queue_home(target.resolve() / "queue")
+    with Queue(home) as queue:
+        queued = submit(queue, jobs)
+        console.print(f"submitted {len(queued)} jobs to the queue in {escape(str(home.root))}; "
+                      "a worker runs them one after another:")
+        Worker(home, WorkerOptions(slots=1, drain=True),
+               say=lambda text: console.print(text, markup=False, highlight=False, soft_wrap=True)).run()
+        finished = [queue.get(j.id) for j in queued]
     table = Table(title="sevenfold demo", box=box.SIMPLE_HEAD, pad_edge=False)
     for col in ("job", "physics", "cells", "method", "iters", "residual", "time s"):
         table.add_column(col, no_wrap=True)
     failures = 0
-    for job in jobs:
-        console.print(f"running {escape(job.name)} ...")
-        try:
-            r = run_job(job)
-        except SevenfoldError as exc:
+    for j in finished:
+        s = j.summary or {}
+        physics = str((j.job_table or {}).get("physics", "generic"))
+        if j.state != "done":
             failures += 1
-            console.print(f"[red]{escape(job.name)} failed:[/red] {escape(str(exc))}")
+            console.print(f"[red]{escape(j.name)} {j.state}:[/red] {escape(j.error or '')}")
+            table.add_row(escape(j.name), physics, f"{j.cells:,}", j.method, j.state, "", "")
             continue
-        s = r.solve
         table.add_row(
-            r.plan.spec.name, r.plan.spec.physics, f"{r.plan.cells:,}", s.method, str(s.iterations),
-            f"{s.final_relative_residual:.1e}", f"{r.seconds['job']:.1f}",
+            escape(j.name), physics, f"{j.cells:,}", str(s.get("method")), str(s.get("iterations")),
+            f"{s.get('final_relative_residual', float('nan')):.1e}",
+            f"{(s.get('seconds') or {}).get('job', float('nan')):.1f}",
         )
     console.print(table)
     results = target.resolve() / "results"
     console.print(f"results (zarr groups) and residual logs are in {escape(str(results))}")
+    console.print(f"the queue: sevenfold list --home {escape(str(home.root))}")
     console.print("open one with xarray:  xarray.open_zarr(" + repr(str(results / "heat-spreader.zarr")) + ")")
     return 1 if failures else 0

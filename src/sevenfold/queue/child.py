@@ -1,0 +1,200 @@
+"""The process that runs jobs for one worker slot: ``python -m sevenfold.queue.child``.
+
+It warms the compiled kernels once (under a file lock on the shared numba cache, so only
+one process compiles them first), says ``{"ready": pid}``, then reads one JSON request per
+line on stdin and answers one JSON line per request on the stdout it was started with;
+whatever the libraries print goes to stderr (the slot's log). It dies with its worker
+(PR_SET_PDEATHSIG on Linux, and a parent check every iteration elsewhere). SIGUSR1 asks the
+running solve to stop at its next iteration.
+
+The worker sets ``NUMBA_NUM_THREADS`` and ``NUMBA_CACHE_DIR`` in its environment before
+numba is imported; nothing numerical is imported at module level here.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import signal
+import sys
+import tempfile
+import time
+import traceback
+from pathlib import Path
+from typing import Any, TextIO
+
+from ..errors import Cancelled, JobError, SolverError
+from .files import append_run
+from .home import Home
+
+# Two tiny jobs that touch every compiled kernel and both solver paths, and the zarr writer.
+WARM_JOBS = (
+    {"name": "warm-direct", "grid": {"cells": [4, 3, 5], "size": [1.0, 1.0, 1.0]},
+     "material": {"value": 1.0}, "source": {"value": 1.0},
+     "boundary": {"x_min": {"type": "dirichlet", "value": 0.0},
+                  "x_max": {"type": "robin", "coefficient": 1.0, "reference": 1.0},
+                  "y_min": {"type": "neumann", "flux": 1.0}},
+     "hold": [{"box": {"min": [0.3, 0.3, 0.3], "max": [0.7, 0.7, 0.7]}, "value": 2.0}],
+     "solver": {"method": "direct"}},
+    {"name": "warm-amg", "grid": {"cells": [12, 12, 12], "size": [1.0, 1.0, 1.0]},
+     "material": {"value": 1.0}, "source": {"value": 1.0},
+     "boundary": {"x_min": {"type": "dirichlet", "value": 0.0}},
+     "solver": {"method": "amg", "rtol": 1e-6}},
+)
+
+
+class ChildState:
+    """What the signal handler and the monitor share inside one child process."""
+
+    def __init__(self, parent: int) -> None:
+        self.parent = parent
+        self.interrupted = False
+
+    def interrupt(self, signum: int, frame: object) -> None:
+        self.interrupted = True
+
+    def parent_gone(self) -> bool:
+        return os.getppid() != self.parent
+
+
+class QueueMonitor:
+    """Stops the solve when the job's cancel flag appears, on SIGUSR1, or when the worker dies."""
+
+    def __init__(self, flag: Path, state: ChildState) -> None:
+        self.flag, self.state = flag, state
+
+    def iteration(self, iteration: int, relative_residual: float, elapsed: float) -> None:
+        pass  # the runner writes the residual log
+
+    def stop_requested(self) -> bool:
+        return self.state.interrupted or self.flag.exists() or self.state.parent_gone()
+
+
+def die_with_parent(parent: int) -> None:
+    """Ask Linux to SIGKILL this process when the worker dies; exit if it already has."""
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        PR_SET_PDEATHSIG = 1
+        libc.prctl(PR_SET_PDEATHSIG, signal.SIGKILL, 0, 0, 0)
+    except (OSError, AttributeError):
+        pass  # elsewhere the monitor's parent check and EOF on stdin do the job
+    if os.getppid() != parent:
+        os._exit(0)
+
+
+def warm_up(home: Home) -> float:
+    """Compile or load the kernels once, serialised across processes; returns seconds."""
+    import fcntl
+
+    from ..runner import run_job
+    from ..spec import parse_job
+
+    t0 = time.perf_counter()
+    home.numba_cache.mkdir(parents=True, exist_ok=True)
+    with open(home.numba_cache / ".lock", "a+") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        try:
+            with tempfile.TemporaryDirectory(prefix="warm-", dir=home.numba_cache) as tmp:
+                for table in WARM_JOBS:
+                    spec = parse_job(table, "warm-up")
+                    run_job(Path(tmp) / "warm.toml", Path(tmp) / f"{spec.name}.zarr", spec=spec)
+        finally:
+            fcntl.flock(lock, fcntl.LOCK_UN)
+    return time.perf_counter() - t0
+
+
+def _os_error(exc: BaseException) -> OSError | None:
+    seen = set()
+    while exc is not None and id(exc) not in seen:
+        if isinstance(exc, OSError):
+            return exc
+        seen.add(id(exc))
+        exc = exc.__cause__ or exc.__context__  # type: ignore[assignment]
+    return None
+
+
+def execute(request: dict[str, Any], home: Home, state: ChildState) -> dict[str, Any]:
+    """Run the job a request names; the reply says done (with a summary), failed or cancelled."""
+    from ..runner import run_job
+
+    job_id, run_id, attempt = request["job"], request["run"], request["attempt"]
+    output = Path(request["output"])
+    record = {"job": job_id, "run": run_id, "attempt": attempt, "worker": request.get("worker"),
+              "pid": os.getpid(), "queue": str(home.root)}
+    try:
+        append_run(output, {"event": "start", **record, "time": time.time()})
+        result = run_job(
+            home.job_file(job_id), output, QueueMonitor(home.cancel_flag(job_id), state),
+            extra_attrs={"queue": record},
+        )
+        append_run(output, {"event": "done", **record, "time": time.time()})
+    except Cancelled as exc:
+        return {"status": "cancelled", "error": str(exc)}
+    except JobError as exc:
+        return {"status": "failed", "kind": "input", "error": str(exc)}
+    except SolverError as exc:
+        return {"status": "failed", "kind": "solver", "error": f"solver failed: {exc}"}
+    except MemoryError:
+        return {"status": "failed", "kind": "memory", "error": "ran out of memory"}
+    except Exception as exc:
+        os_exc = _os_error(exc)
+        if os_exc is not None:
+            return {"status": "failed", "kind": "os", "error": f"OS error: {os_exc}"}
+        traceback.print_exc(file=sys.stderr)
+        return {"status": "failed", "kind": "internal",
+                "error": f"internal error {type(exc).__name__}: {exc} (traceback in the worker's slot log)"}
+    s = result.solve
+    return {
+        "status": "done",
+        "summary": {
+            **s.summary(),
+            "unknowns": int(result.solve.x.shape[0]),
+            "cells": result.plan.cells,
+            "seconds": result.seconds,
+            "output": str(result.output),
+        },
+    }
+
+
+def _send(channel: TextIO, message: dict[str, Any]) -> None:
+    channel.write(json.dumps(message) + "\n")
+    channel.flush()
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(prog="python -m sevenfold.queue.child")
+    p.add_argument("--home", required=True)
+    p.add_argument("--parent", type=int, required=True)
+    args = p.parse_args(argv)
+    # The protocol keeps the stdout we were given; fd 1 itself now points at stderr.
+    channel = os.fdopen(os.dup(1), "w", encoding="utf-8")
+    os.dup2(2, 1)
+    sys.stdout = sys.stderr
+    die_with_parent(args.parent)
+    state = ChildState(args.parent)
+    signal.signal(signal.SIGUSR1, state.interrupt)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the worker decides what Ctrl-C means
+    home = Home(Path(args.home))
+    os.environ.setdefault("NUMBA_CACHE_DIR", str(home.numba_cache))
+    try:
+        seconds = warm_up(home)
+    except Exception as exc:
+        traceback.print_exc(file=sys.stderr)
+        _send(channel, {"fatal": f"warm-up failed: {type(exc).__name__}: {exc}"})
+        return 1
+    _send(channel, {"ready": os.getpid(), "warm_seconds": seconds})
+    for line in sys.stdin:
+        if not line.strip():
+            continue
+        request = json.loads(line)
+        reply = execute(request, home, state)
+        state.interrupted = False
+        _send(channel, {"job": request["job"], "run": request["run"], **reply})
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,461 @@
+"""The queue's subcommands: submit, list, show, watch, log, cancel, retry, worker.
+
+Registered on the ``sevenfold`` parser by :func:`register`; each one is a thin shell over
+:mod:`sevenfold.queue.db`, :mod:`.submit` and :mod:`.worker`. Every command takes
+``--home DIR`` (else ``$SEVENFOLD_HOME``, else the user data directory).
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import io
+import json
+import math
+import sys
+import time
+from pathlib import Path
+from typing import Any
+
+from rich.markup import escape
+from rich.table import Table
+
+from ..errors import QueueError
+from .db import STATES, Job, Queue, stamp
+from .home import locate
+
+STATE_STYLE = {"queued": "cyan", "running": "yellow", "done": "green", "failed": "red", "cancelled": "magenta"}
+
+
+def _consoles():
+    from ..cli import err, out
+
+    return out, err
+
+
+def _queue(args: argparse.Namespace) -> Queue:
+    return Queue(locate(args.home))
+
+
+def seconds_arg(text: str) -> float:
+    """``90``, ``90s``, ``15m``, ``2h`` -> seconds."""
+    units = {"s": 1.0, "m": 60.0, "h": 3600.0}
+    t = text.strip().lower()
+    scale = 1.0
+    if t and t[-1] in units:
+        scale, t = units[t[-1]], t[:-1]
+    try:
+        value = float(t) * scale
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a duration (e.g. 90, 90s, 15m, 2h)") from None
+    if not (value > 0 and math.isfinite(value)):
+        raise argparse.ArgumentTypeError(f"{text!r} must be a positive duration")
+    return value
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, got {value}")
+    return value
+
+
+def _gib(text: str) -> int:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number of GiB") from None
+    if not (value > 0 and math.isfinite(value)):
+        raise argparse.ArgumentTypeError(f"must be a positive number of GiB, got {text!r}")
+    return int(value * 2**30)
+
+
+def duration(seconds: float | None) -> str:
+    if seconds is None:
+        return ""
+    if seconds < 60:
+        return f"{seconds:.1f} s"
+    if seconds < 3600:
+        return f"{int(seconds // 60)} min {int(seconds % 60):02d} s"
+    return f"{int(seconds // 3600)} h {int(seconds % 3600 // 60):02d} min"
+
+
+def _ran(job: Job, now: float) -> float | None:
+    if job.started is None:
+        return None
+    return (job.finished or now) - job.started
+
+
+def public(job: Job) -> dict[str, Any]:
+    """A job as ``list --json`` shows it."""
+    s = job.summary or {}
+    return {
+        "id": job.id,
+        "name": job.name,
+        "state": job.state,
+        "priority": job.priority,
+        "attempts": job.attempts,
+        "max_attempts": job.max_attempts,
+        "batch": job.batch_id,
+        "variant": job.variant,
+        "output": job.output,
+        "error": job.error,
+        "submitted": stamp(job.submitted),
+        "started": stamp(job.started) or None,
+        "finished": stamp(job.finished) or None,
+        "worker": job.worker,
+        "time_limit": job.time_limit,
+        "cells": job.cells,
+        "method": s.get("method", job.method),
+        "memory_bytes": job.memory_bytes,
+        "iterations": s.get("iterations"),
+        "final_relative_residual": s.get("final_relative_residual"),
+        "seconds": (s.get("seconds") or {}).get("job"),
+        "source": job.source,
+    }
+
+
+def _clean_stale(queue: Queue) -> None:
+    from .files import remove_partials
+
+    for r in queue.recover_stale():
+        remove_partials(Path(r.output))
+
+
+# ---------------------------------------------------------------- submit
+def _submit(args: argparse.Namespace) -> int:
+    from .submit import enqueue, prepare_all
+
+    out, err = _consoles()
+    queue = _queue(args)
+    prepared, errors = prepare_all(args.jobs, queue.home)
+    if errors:
+        for exc in errors:
+            err.print(f"[red]error:[/red] {escape(str(exc))}", soft_wrap=True)
+        err.print(f"nothing was submitted ({len(errors)} of {len(args.jobs)} job files refused)")
+        return 2
+    jobs = enqueue(queue, prepared, args.priority, args.time_limit, args.max_attempts)
+    if args.json:
+        print(json.dumps([{"id": j.id, "name": j.name, "batch": j.batch_id, "output": j.output} for j in jobs],
+                         indent=2))
+        return 0
+    by_batch: dict[str | None, list[Job]] = {}
+    for j in jobs:
+        by_batch.setdefault(j.batch_id, []).append(j)
+    for batch, members in by_batch.items():
+        if batch is not None:
+            out.print(f"batch {batch}: {len(members)} jobs from {escape(members[0].source)}")
+        for j in members:
+            out.print(f"{'  ' if batch else ''}{j.id}  {escape(j.name)}", soft_wrap=True)
+    return 0
+
+
+# ---------------------------------------------------------------- list
+def _batch_arg(text: str | None) -> int | None:
+    if text is None:
+        return None
+    t = text.strip()
+    if t[:1] in ("b", "B"):
+        t = t[1:]
+    if not t.isdecimal():
+        raise QueueError(f"{text!r} is not a batch id (b<number>)")
+    return int(t)
+
+
+def _list(args: argparse.Namespace) -> int:
+    out, _ = _consoles()
+    queue = _queue(args)
+    _clean_stale(queue)
+    jobs = queue.jobs(state=args.state, batch=_batch_arg(args.batch))
+    if args.json:
+        print(json.dumps([public(j) for j in jobs], indent=2))
+        return 0
+    from .watch import read_progress
+
+    now = time.time()
+    table = Table(box=None, pad_edge=False)
+    for col in ("id", "name", "state", "prio", "tries", "submitted", "ran", "result"):
+        table.add_column(col, overflow="fold" if col in ("name", "result") else "ellipsis",
+                         no_wrap=col not in ("name", "result"))
+    for j in jobs:
+        if j.state == "done" and j.summary:
+            result = f"{j.summary.get('iterations')} it, {j.summary.get('final_relative_residual', 0):.1e}"
+        elif j.state == "running":
+            p = read_progress(j.output, since=j.started)
+            result = (f"iteration {p.iteration}, {p.history[-1]:.1e}" if p.history else "building")
+            if j.cancel_requested:
+                result += ", cancelling"
+        else:
+            result = j.error or ""
+        result = result if len(result) <= 90 else result[:87] + "..."
+        table.add_row(
+            str(j.id), escape(j.name), f"[{STATE_STYLE[j.state]}]{j.state}[/]", str(j.priority),
+            str(j.attempts), time.strftime("%m-%d %H:%M", time.localtime(j.submitted)),
+            duration(_ran(j, now)), escape(result),
+        )
+    out.print(table)
+    counts = queue.counts()
+    workers = queue.workers()
+    summary = ", ".join(f"{counts[s]} {s}" for s in STATES if counts[s])
+    out.print(f"{summary or 'no jobs'}; {len(workers)} worker(s) running"
+              + (": " + ", ".join(f"{escape(w['id'])} ({w['slots']} slot(s))" for w in workers) if workers else ""))
+    return 0
+
+
+# ---------------------------------------------------------------- show
+def _show(args: argparse.Namespace) -> int:
+    from ..memory import human
+    from ..store import is_complete
+    from .tomlwrite import dumps
+    from .watch import read_progress
+
+    out, _ = _consoles()
+    queue = _queue(args)
+    _clean_stale(queue)
+    job = queue.get(args.id)
+    now = time.time()
+    t = Table(show_header=False, box=None, pad_edge=False)
+    t.add_column(style="bold", no_wrap=True)
+    t.add_column(overflow="fold")
+
+    def row(key: str, value: str) -> None:
+        t.add_row(key, escape(value))
+
+    row("job", f"{job.id}  {job.name}")
+    t.add_row("state", f"[{STATE_STYLE[job.state]}]{job.state}[/]" + (" (cancel requested)" if job.cancel_requested and job.state == "running" else ""))
+    if job.batch is not None:
+        row("batch", f"{job.batch_id}: " + ", ".join(f"{k} = {v!r}" for k, v in (job.variant or {}).items()))
+    row("priority", str(job.priority))
+    row("attempts", f"{job.attempts} (at most {job.max_attempts} when a worker dies)")
+    if job.time_limit:
+        row("time limit", duration(job.time_limit))
+    row("submitted", stamp(job.submitted))
+    if job.started:
+        row("started", f"{stamp(job.started)} (waited {duration(job.started - job.submitted)})")
+    if job.finished:
+        row("finished", f"{stamp(job.finished)}" + (f" (ran {duration(job.finished - job.started)})" if job.started else ""))
+    elif job.started:
+        row("running for", duration(now - job.started))
+    if job.worker:
+        beat = f", last heartbeat {duration(now - job.heartbeat)} ago" if job.heartbeat and job.state == "running" else ""
+        row("worker", f"{job.worker}{beat}")
+    out_path = Path(job.output)
+    row("output", f"{job.output} ({'complete' if is_complete(out_path) else 'not written'})")
+    row("source", job.source)
+    for i in job.inputs:
+        row(i["key"], f"{i['original']} (snapshot {i['snapshot']}, sha256 {i['sha256'][:16]})")
+    row("plan", f"{job.cells:,} cells, method {job.method}, about {human(job.memory_bytes)}")
+    s = job.summary
+    if s:
+        row("solver", f"{s.get('method')}, {s.get('iterations')} iterations, "
+                      f"{'converged' if s.get('converged') else 'not converged'}, final relative residual "
+                      f"{s.get('final_relative_residual', float('nan')):.3e}")
+        secs = s.get("seconds") or {}
+        row("seconds", ", ".join(f"{k} {v:.2f}" for k, v in secs.items()))
+    p = read_progress(job.output, since=job.started) if job.started else read_progress(job.output)
+    if p.history:
+        from .watch import describe
+
+        row("last residual", describe(p))
+    if job.error:
+        t.add_row("error", f"[red]{escape(job.error)}[/red]")
+    out.print(t)
+    ev = Table(title="history", title_justify="left", box=None, pad_edge=False)
+    for col in ("time", "event", "detail"):
+        ev.add_column(col, overflow="fold")
+    for e in queue.events(job.id):
+        ev.add_row(stamp(e.time), e.event, escape(e.detail))
+    out.print(ev)
+    out.print("[bold]job as it runs[/bold] (snapshot; the job file may have changed since)")
+    out.print(escape(dumps(job.job_table or {})), soft_wrap=True)
+    return 0
+
+
+# ---------------------------------------------------------------- watch
+def _watch(args: argparse.Namespace) -> int:
+    from .watch import describe, plot, read_progress
+
+    out, _ = _consoles()
+    queue = _queue(args)
+    job = queue.get(args.id)
+    live_view = out.is_terminal and not args.lines
+
+    def position(j: Job) -> str:
+        ahead = [q for q in queue.jobs(state="queued") if (q.priority, -q.id) > (j.priority, -j.id)]
+        return f"queued, {len(ahead)} job(s) ahead"
+
+    def panel(j: Job, text: str, history: list[float]):
+        from rich.console import Group
+        from rich.text import Text
+
+        head = Text.assemble((f"job {j.id} {j.name}  ", "bold"), (j.state, STATE_STYLE[j.state]))
+        return Group(head, Text(text), Text("\n".join(plot(history))))
+
+    last_shown: tuple | None = None
+    last_clean = 0.0
+    try:
+        if live_view:
+            from rich.live import Live
+
+            live = Live(console=out, refresh_per_second=4, transient=False)
+            live.start()
+        while True:
+            if time.monotonic() - last_clean > 5.0:  # s; a silent worker's job comes back meanwhile
+                _clean_stale(queue)
+                last_clean = time.monotonic()
+            job = queue.get(args.id)
+            if job.state == "queued":
+                text, history = position(job), []
+            else:
+                p = read_progress(job.output, since=job.started)
+                text, history = describe(p), p.history
+            key = (job.state, len(history), text if not history else None)
+            if live_view:
+                live.update(panel(job, text, history))
+            elif key != last_shown:
+                print(f"{time.strftime('%H:%M:%S')}  {job.state}: {text}", flush=True)
+            last_shown = key
+            if job.state in ("done", "failed", "cancelled"):
+                break
+            time.sleep(args.interval)
+        if live_view:
+            live.stop()
+        else:
+            for line in plot(history):
+                print(line)
+    except KeyboardInterrupt:
+        if live_view:
+            live.stop()
+        print("stopped watching; the job goes on", file=sys.stderr)
+        return 130
+    if job.state == "done":
+        s = job.summary or {}
+        out.print(f"job {job.id} done: {s.get('iterations')} iterations, relative residual "
+                  f"{s.get('final_relative_residual', float('nan')):.2e}; result {escape(job.output)}", soft_wrap=True)
+        return 0
+    out.print(f"job {job.id} {job.state}: {escape(job.error or '')}", soft_wrap=True)
+    return 1
+
+
+# ---------------------------------------------------------------- log
+def _log(args: argparse.Namespace) -> int:
+    from .watch import read_progress
+
+    queue = _queue(args)
+    job = queue.get(args.id)
+    p = read_progress(job.output, since=job.started) if job.started else read_progress(job.output)
+    history, seconds = p.history, p.seconds
+    if not history and job.state == "done":
+        history, seconds = _history_from_result(Path(job.output))
+    if not history:
+        raise QueueError(f"job {job.id} has no residuals yet ({job.state})")
+    buf = io.StringIO()
+    if args.csv:
+        w = csv.writer(buf, lineterminator="\n")
+        w.writerow(["iteration", "relative_residual", "seconds"])
+        for i, (r, s) in enumerate(zip(history, seconds)):
+            w.writerow([i, repr(r), repr(s)])
+    else:
+        buf.write(f"{'iteration':>9}  {'relative residual':>17}  {'seconds':>9}\n")
+        for i, (r, s) in enumerate(zip(history, seconds)):
+            buf.write(f"{i:9d}  {r:17.6e}  {s:9.3f}\n")
+    sys.stdout.write(buf.getvalue())
+    return 0
+
+
+def _history_from_result(output: Path) -> tuple[list[float], list[float]]:
+    try:
+        import zarr
+
+        g = zarr.open_group(str(output), mode="r")
+        return [float(x) for x in g["residual_history"][:]], [float(x) for x in g["residual_seconds"][:]]
+    except Exception:
+        return [], []
+
+
+# ---------------------------------------------------------------- cancel, retry
+def _cancel(args: argparse.Namespace) -> int:
+    out, _ = _consoles()
+    queue = _queue(args)
+    for job, what in queue.cancel(queue.resolve(args.ids)):
+        out.print(f"{job.id}  {escape(job.name)}: {escape(what)}", soft_wrap=True)
+    return 0
+
+
+def _retry(args: argparse.Namespace) -> int:
+    out, _ = _consoles()
+    queue = _queue(args)
+    for job, what in queue.retry(queue.resolve(args.ids)):
+        was = f" (was {job.state}: {job.error})" if job.error and what == "queued again" else ""
+        out.print(f"{job.id}  {escape(job.name)}: {escape(what + was)}", soft_wrap=True)
+    return 0
+
+
+# ---------------------------------------------------------------- worker
+def _worker(args: argparse.Namespace) -> int:
+    from .worker import Worker, WorkerOptions
+
+    out, _ = _consoles()
+    home = locate(args.home)
+    options = WorkerOptions(slots=args.slots, drain=args.drain, memory_bytes=args.memory,
+                            time_limit=args.time_limit)
+    worker = Worker(home, options, say=lambda text: out.print(text, markup=False, highlight=False, soft_wrap=True))
+    return worker.run(handle_signals=True)
+
+
+# ---------------------------------------------------------------- registration
+def register(sub: argparse._SubParsersAction) -> None:
+    """Add the queue's subcommands to the ``sevenfold`` parser."""
+    home = argparse.ArgumentParser(add_help=False)
+    home.add_argument("--home", metavar="DIR",
+                      help="queue home (default $SEVENFOLD_HOME, else the user data directory)")
+
+    s = sub.add_parser("submit", parents=[home], help="validate job files and queue them")
+    s.add_argument("jobs", nargs="+", metavar="JOB", help="job files (TOML); a [sweep] table queues one job per combination")
+    s.add_argument("--priority", type=int, default=0, help="higher runs first (default 0)")
+    s.add_argument("--time-limit", type=seconds_arg, metavar="T", help="stop a run after T (90, 15m, 2h)")
+    s.add_argument("--max-attempts", type=_positive_int, default=3, metavar="N",
+                   help="runs to try when workers die mid-job, then fail (default 3)")
+    s.add_argument("--json", action="store_true", help="print the queued jobs as JSON")
+    s.set_defaults(func=_submit)
+
+    ls = sub.add_parser("list", parents=[home], help="the queue's jobs")
+    ls.add_argument("--state", choices=STATES)
+    ls.add_argument("--batch", metavar="B", help="only the jobs of batch B (b<number>)")
+    ls.add_argument("--json", action="store_true", help="a JSON array of jobs")
+    ls.set_defaults(func=_list)
+
+    sh = sub.add_parser("show", parents=[home], help="one job: spec, timings, solver summary, error, history")
+    sh.add_argument("id", type=int)
+    sh.set_defaults(func=_show)
+
+    w = sub.add_parser("watch", parents=[home], help="follow a job's residual until it ends")
+    w.add_argument("id", type=int)
+    w.add_argument("--interval", type=float, default=0.5, help="seconds between looks (default 0.5)")
+    w.add_argument("--lines", action="store_true", help="print lines instead of a live view")
+    w.set_defaults(func=_watch)
+
+    lg = sub.add_parser("log", parents=[home], help="a job's residual history")
+    lg.add_argument("id", type=int)
+    lg.add_argument("--csv", action="store_true", help="comma-separated: iteration,relative_residual,seconds")
+    lg.set_defaults(func=_log)
+
+    c = sub.add_parser("cancel", parents=[home], help="cancel jobs or batches (IDs or b<number>)")
+    c.add_argument("ids", nargs="+", metavar="ID")
+    c.set_defaults(func=_cancel)
+
+    r = sub.add_parser("retry", parents=[home], help="queue failed or cancelled jobs again (IDs or b<number>)")
+    r.add_argument("ids", nargs="+", metavar="ID")
+    r.set_defaults(func=_retry)
+
+    wk = sub.add_parser("worker", parents=[home], help="run queued jobs until stopped")
+    wk.add_argument("--slots", type=_positive_int, default=1, help="jobs at once; the cores are split between them")
+    wk.add_argument("--drain", action="store_true", help="stop once nothing is queued or running")
+    wk.add_argument("--memory", type=_gib, metavar="GB",
+                    help="GiB the running jobs may use together by estimate (default: available at start)")
+    wk.add_argument("--time-limit", type=seconds_arg, metavar="T",
+                    help="limit for jobs submitted without one (90, 15m, 2h)")
+    wk.set_defaults(func=_worker)

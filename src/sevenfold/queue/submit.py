@@ -1,0 +1,177 @@
+"""Submitting: validate a job file as the engine would, snapshot it, enter it in the queue.
+
+A job is checked like ``sevenfold check`` does (spec, output path, regions, files, boundary
+data), with two differences: the memory check only refuses jobs larger than the machine's
+physical memory (whether one fits beside others is for the worker, ``worker --memory``), and a job of more than :data:`FULL_CHECK_CELLS` cells is checked as far
+as its spec and the presence of the files it names, so a sweep of large jobs does not build
+every problem at submit time; the rest is checked when it starts.
+
+The snapshot is the job file's text and table as submitted, with the files it names
+(``material.file``, ``source.file``) copied into ``<home>/inputs/<sha256>/`` and the table
+pointing at the copies, so later edits of the file or its inputs do not change a queued job.
+The output path is resolved against the job file's folder at submit time.
+"""
+
+from __future__ import annotations
+
+import copy
+import dataclasses
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Sequence
+
+from ..errors import JobError
+from .db import DEFAULT_MAX_ATTEMPTS, Job, NewBatch, NewJob, Queue
+from .files import snapshot_input
+from .home import Home
+from .sweep import Variant, expand
+
+FULL_CHECK_CELLS = 4_000_000
+FILE_KEYS = ("material", "source")
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """The jobs one job file stands for, validated and snapshotted."""
+
+    job_file: Path
+    jobs: list[NewJob]
+    batch: NewBatch | None
+
+
+def _read(job_file: Path) -> tuple[str, dict[str, Any]]:
+    """The job file's text and its table, from one unchanging content (engine's messages)."""
+    from ..spec import read_job_table
+
+    for _ in range(3):
+        try:
+            before = job_file.read_bytes()
+        except OSError:
+            before = None
+        table = read_job_table(job_file)  # refuses missing, unreadable and malformed files
+        try:
+            after = job_file.read_bytes()
+        except OSError:
+            continue
+        if before == after:
+            return after.decode("utf-8"), table
+    raise JobError("the file keeps changing while it is read; submit it again", source=str(job_file))
+
+
+def _check(variant: Variant, job_file: Path, source: str):
+    """Validate one job table through the engine; returns its plan."""
+    from ..runner import plan_job, prepare_problem, refuse_if_too_large
+    from ..spec import parse_job
+
+    spec = parse_job(variant.table, source)
+    plan = plan_job(job_file, spec=spec)
+    # Whether it fits now is the worker's question; one larger than the machine never will.
+    refuse_if_too_large(dataclasses.replace(plan, available_bytes=total_bytes()))
+    if plan.cells <= FULL_CHECK_CELLS:
+        # The memory check belongs to the worker that will run the job, not to this machine now.
+        prepare_problem(dataclasses.replace(plan, available_bytes=2**62))
+    else:
+        for key in FILE_KEYS:
+            name = getattr(spec, key).file
+            if name is not None and not _resolve(name, job_file).exists():
+                raise JobError(f"file {str(_resolve(name, job_file))!r} does not exist", f"{key}.file", source)
+    return plan
+
+
+def total_bytes() -> int:
+    """The machine's physical memory in bytes."""
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemTotal:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    try:
+        return os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):
+        return 2**62
+
+
+def _resolve(name: str, job_file: Path) -> Path:
+    path = Path(name)
+    return path if path.is_absolute() else job_file.parent / path
+
+
+def _snapshot(table: dict[str, Any], job_file: Path, home: Home) -> tuple[dict[str, Any], list[dict[str, Any]]]:
+    table = copy.deepcopy(table)
+    inputs = []
+    for key in FILE_KEYS:
+        sub = table.get(key)
+        if isinstance(sub, dict) and isinstance(sub.get("file"), str):
+            original = _resolve(sub["file"], job_file).resolve()
+            try:
+                copy_path, digest = snapshot_input(original, home.inputs)
+            except OSError as exc:
+                raise JobError(f"cannot copy {str(original)!r} into the queue: {exc.strerror or exc}",
+                               f"{key}.file", str(job_file)) from None
+            sub["file"] = str(copy_path)
+            inputs.append({"key": f"{key}.file", "original": str(original), "snapshot": str(copy_path),
+                           "sha256": digest})
+    return table, inputs
+
+
+def prepare(job_file: str | Path, home: Home) -> Prepared:
+    """Validate and snapshot one job file (every combination of its sweep); JobError if bad."""
+    job_file = Path(job_file)
+    source = str(job_file)
+    text, table = _read(job_file)
+    variants, info = expand(table, source)
+    jobs: list[NewJob] = []
+    outputs: dict[str, int | None] = {}
+    for v in variants:
+        try:
+            plan = _check(v, job_file, source)
+        except JobError as exc:
+            if v.index is None:
+                raise
+            raise JobError(f"{exc.reason} (sweep combination {v.index}: {v.label})",
+                           exc.where, exc.source or source) from None
+        out = str(plan.output)
+        if out in outputs:
+            raise JobError(
+                f"sweep combinations {outputs[out]} and {v.index} would both write {out!r}; "
+                "put {name} in output.path so each combination gets its own result",
+                "output.path", source)
+        outputs[out] = v.index
+        run_table, inputs = _snapshot(v.table, job_file, home)
+        jobs.append(NewJob(
+            name=plan.spec.name, output=out, source=os.path.abspath(job_file), job_text=text,
+            job_table=run_table, inputs=inputs, cells=plan.cells, method=plan.method,
+            memory_bytes=plan.memory_bytes, variant=v.values,
+        ))
+    batch = None if info is None else NewBatch(os.path.abspath(job_file), info.mode, info.keys, info.size)
+    return Prepared(job_file, jobs, batch)
+
+
+def prepare_all(job_files: Sequence[str | Path], home: Home) -> tuple[list[Prepared], list[JobError]]:
+    """Every file prepared, and the refusals of the bad ones (nothing is queued here)."""
+    done, errors = [], []
+    for f in job_files:
+        try:
+            done.append(prepare(f, home))
+        except JobError as exc:
+            errors.append(exc)
+    return done, errors
+
+
+def enqueue(queue: Queue, prepared: Sequence[Prepared], priority: int = 0,
+            time_limit: float | None = None, max_attempts: int = DEFAULT_MAX_ATTEMPTS) -> list[Job]:
+    """Enter prepared jobs in one transaction; returns them with their ids."""
+    rows = [(job, p.batch, i) for i, p in enumerate(prepared) for job in p.jobs]
+    return queue.add(rows, priority, time_limit, max_attempts)
+
+
+def submit(queue: Queue, job_files: Sequence[str | Path], priority: int = 0,
+           time_limit: float | None = None, max_attempts: int = DEFAULT_MAX_ATTEMPTS) -> list[Job]:
+    """Validate every file, then queue them all; a bad file raises its JobError, queuing nothing."""
+    prepared, errors = prepare_all(job_files, queue.home)
+    if errors:
+        raise errors[0]
+    return enqueue(queue, prepared, priority, time_limit, max_attempts)
