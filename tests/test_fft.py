@@ -17,13 +17,13 @@ import pytest
 import scipy.fft
 from conftest import FACES, make_spec, make_table, np_eval, reference_system, solve_spec
 
-from sevenfold import runner
 from sevenfold.cli import main
 from sevenfold.errors import JobError
 from sevenfold.operator import assemble
 from sevenfold.problem import build_problem
 from sevenfold.runner import run_job
 from sevenfold.solvers import fft as fft_module
+from sevenfold.solvers import select
 from sevenfold.solvers import method_for, solve
 from sevenfold.solvers.fft import eigenvalues, fft_eligibility, residual_norm, solve_fft
 from sevenfold.spec import SolverSpec
@@ -245,7 +245,7 @@ def test_run_solves_without_assembling_and_matches_direct(tmp_path: Path, monkey
     def no_assembly(problem):
         raise AssertionError("the fft path assembled a matrix")
 
-    monkeypatch.setattr(runner, "assemble", no_assembly)
+    monkeypatch.setattr(select, "assemble", no_assembly)
     for method in ("fft", "auto"):
         result = run_job(write_job(tmp_path, method, method))
         assert result.plan.method == "fft" and result.solve.method == "fft"

@@ -25,7 +25,7 @@ from .balance import compute_balance
 from .errors import JobError, SolverError
 from .operator import assemble, scatter
 from .problem import Problem
-from .solvers import choose_method
+from .solvers import assembled_method
 from .solvers.cg import pcg
 from .spec import SolverSpec
 
@@ -55,7 +55,7 @@ class _Solver:
 
     def __init__(self, A, solver: SolverSpec) -> None:
         self.A, self.spec = A, solver
-        self.method = choose_method(solver, A.shape[0])
+        self.method = assembled_method(solver, A.shape[0])
         if self.method == "direct":
             import scipy.sparse.linalg as sla
 

@@ -12,7 +12,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from .kernels.assembly import fill_rows, number_rows, row_lengths
-from .problem import Problem
+from .problem import Problem, complete_field
 from .spec import FACES
 
 INT32_MAX = np.iinfo(np.int32).max
@@ -67,9 +67,7 @@ def assemble(problem: Problem) -> LinearSystem:
 
 def scatter(system: LinearSystem, problem: Problem, x: np.ndarray) -> np.ndarray:
     """The full (nx, ny, nz) field: solved values on free cells, held values on held cells."""
-    u = problem.held_value.copy()
+    u = np.zeros(problem.grid.shape)
     free = system.row >= 0
     u[free] = x[system.row[free]]
-    if problem.gauge_mean_zero:
-        u -= u.mean()
-    return u
+    return complete_field(problem, u)

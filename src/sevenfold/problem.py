@@ -92,3 +92,12 @@ def build_problem(
     f = f - imbalance / (grid.size * grid.cell_volume)
     held[0, 0, 0] = True  # pin: with a balanced right-hand side the pinned equation holds too
     return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True, hold_index=hold_index)
+
+
+def complete_field(problem: Problem, u: np.ndarray) -> np.ndarray:
+    """The full field from solved values on the free cells: held cells take their values,
+    and a pure-Neumann solution is shifted to mean zero. ``u`` is changed in place."""
+    np.copyto(u, problem.held_value, where=problem.held)
+    if problem.gauge_mean_zero:
+        u -= u.mean()
+    return u

@@ -19,14 +19,12 @@ from .errors import JobError, SolverError
 from .grid import Grid
 from .inputs import load_array
 from .memory import available_bytes, estimate_bytes, human
-from .operator import LinearSystem, assemble, scatter
 from .physics import DERIVED, PHYSICS
 from .probes import ProbeValues, sample
 from .problem import Problem, build_problem
 from .residual_log import ResidualLog, log_path
-from .solvers import choose_method, method_for, solve
+from .solvers import choose_method, method_for, solve_problem
 from .solvers.cg import Monitor, QuietMonitor, SolveResult
-from .solvers.fft import solve_fft
 from .spec import JobSpec, load_job
 from .store import Variable, write_probe_csv, write_result
 
@@ -157,16 +155,6 @@ def settle_plan(plan: Plan, problem: Problem) -> Plan:
     return replace(plan, method=method, memory_bytes=estimate_bytes(plan.cells, problem.unknowns, method))
 
 
-def solve_problem(problem: Problem, system: LinearSystem | None, spec: JobSpec,
-                  monitor: Monitor) -> tuple[np.ndarray, SolveResult]:
-    """u on every cell and the solve's record: by transforms when there is no assembled system
-    (method ``fft``), else by the assembled system's solver."""
-    if system is None:
-        return solve_fft(problem, monitor=monitor)
-    result = solve(system.matrix, system.rhs, spec.solver, monitor)
-    return scatter(system, problem, result.x), result
-
-
 def _load_files(spec: JobSpec, job_file: Path) -> dict[str, np.ndarray | None]:
     shape = tuple(spec.grid.cells)
     out: dict[str, np.ndarray | None] = {"material": None, "source": None}
@@ -211,14 +199,12 @@ def run_job(
     problem = prepare_problem(plan)
     plan = settle_plan(plan, problem)
     t_build = time.perf_counter()
-    system = None if plan.method == "fft" else assemble(problem)  # fft needs no matrix
-    t_assemble = time.perf_counter()
 
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
     try:
         log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
-        u, result = solve_problem(problem, system, spec, _Logged(log, monitor or QuietMonitor()))
+        u, result = solve_problem(problem, spec.solver, plan.method, _Logged(log, monitor or QuietMonitor()))
         log.end(converged=True, iterations=result.iterations,
                 final_relative_residual=result.final_relative_residual)
     except SolverError as exc:
@@ -229,13 +215,12 @@ def run_job(
         raise
     finally:
         log.close()
-    del system
     grid = problem.grid
     balance = job_balance(spec, problem, u)
     probes = sample(grid, u, spec.probe)
     seconds = {
         "build": t_build - t0,
-        "assemble": t_assemble - t_build,
+        "assemble": result.assembly_seconds,
         "setup": result.setup_seconds,
         "solve": result.solve_seconds,
     }

@@ -26,7 +26,7 @@ from .expressions import ExpressionError, check_expression
 from .physics import DERIVED
 
 FACES = ("x_min", "x_max", "y_min", "y_max", "z_min", "z_max")
-METHODS = ("auto", "amg", "direct", "fft")
+METHODS = ("auto", "gmg", "amg", "direct", "fft")
 
 
 class _Frozen(BaseModel):
@@ -313,7 +313,7 @@ class HoldSpec(_Shaped):
 
 # ---------------------------------------------------------------- solver, output
 class SolverSpec(_Frozen):
-    method: Literal["auto", "amg", "direct", "fft"] = "auto"
+    method: Literal["auto", "gmg", "amg", "direct", "fft"] = "auto"
     rtol: float = 1e-8
     max_iterations: int = 500
     amg: Literal["smoothed_aggregation", "classical"] = "smoothed_aggregation"

@@ -44,6 +44,7 @@ class SolveResult:
     history: list[float] = field(default_factory=list)  # relative residual, index = iteration
     times: list[float] = field(default_factory=list)  # seconds since the solve began
     notes: str = ""
+    assembly_seconds: float = 0.0  # building the operator (CSR matrix or face arrays)
 
     def summary(self) -> dict:
         return {
@@ -51,6 +52,7 @@ class SolveResult:
             "iterations": self.iterations,
             "converged": self.converged,
             "final_relative_residual": self.final_relative_residual,
+            "assembly_seconds": self.assembly_seconds,
             "setup_seconds": self.setup_seconds,
             "solve_seconds": self.solve_seconds,
             "notes": self.notes,

@@ -1,25 +1,38 @@
-"""Which solver a job uses, and the one entry point that runs it."""
+"""Which solver a job uses, and the one entry point that runs it on a Problem.
+
+``auto`` takes, in order: ``fft`` when the problem allows it (exact, no matrix); ``direct``
+for small systems; else ``gmg``, falling back to ``amg`` when multigrid converges slowly.
+"""
 
 from __future__ import annotations
 
+import time
+
+import numpy as np
+
 from ..errors import JobError
-from ..problem import Problem
+from ..operator import assemble, scatter
+from ..problem import Problem, complete_field
 from ..spec import SolverSpec
 from .amg import solve_amg
-from .cg import Monitor, SolveResult
+from .cg import Monitor, QuietMonitor, SolveResult
 from .direct import solve_direct
-from .fft import fft_eligibility
+from .fft import fft_eligibility, solve_fft
+from .gmg import solve_gmg
 
 DIRECT_LIMIT = 30_000  # unknowns; sparse LU fill grows quickly in 3D beyond this
 FFT_NEEDS = "a constant coefficient, no holds, and on each axis two dirichlet or two neumann faces"
+# auto leaves gmg for amg when, after GUARD_ITERATIONS, the mean residual reduction per
+# iteration is worse than GUARD_RATE (that pace would need over 25 iterations for 1e-8)
+GUARD_ITERATIONS = 10
+GUARD_RATE = 0.5
 
 
 def choose_method(solver: SolverSpec, unknowns: int) -> str:
-    """The method ``auto`` resolves to before the problem is built: direct for small systems,
-    else AMG-preconditioned CG. :func:`method_for` makes the final choice."""
+    """The method ``auto`` resolves to before the problem is built (no fft test yet)."""
     if solver.method != "auto":
         return solver.method
-    return "direct" if unknowns <= DIRECT_LIMIT else "amg"
+    return "direct" if unknowns <= DIRECT_LIMIT else "gmg"
 
 
 def method_for(solver: SolverSpec, problem: Problem) -> str:
@@ -36,11 +49,70 @@ def method_for(solver: SolverSpec, problem: Problem) -> str:
     return choose_method(solver, problem.unknowns)
 
 
+def assembled_method(solver: SolverSpec, unknowns: int) -> str:
+    """``direct`` or ``amg``: what solves an already assembled matrix for this solver section."""
+    if solver.method in ("direct", "amg"):
+        return solver.method
+    if solver.method in ("fft", "gmg"):
+        raise ValueError(f"method {solver.method!r} solves from the Problem, not from an assembled matrix")
+    return "direct" if unknowns <= DIRECT_LIMIT else "amg"
+
+
 def solve(A, b, solver: SolverSpec, monitor: Monitor | None = None) -> SolveResult:
-    """Solve an assembled system (every method but ``fft``, which solves from the Problem)."""
-    method = choose_method(solver, A.shape[0])
-    if method == "fft":
-        raise ValueError("method 'fft' solves from the Problem with solvers.fft.solve_fft, not from a matrix")
-    if method == "direct":
+    """Solve an assembled system with ``direct`` or AMG-preconditioned CG."""
+    if assembled_method(solver, A.shape[0]) == "direct":
         return solve_direct(A, b, monitor)
     return solve_amg(A, b, solver.rtol, solver.max_iterations, solver.amg, monitor, solver.stagnation_window)
+
+
+class _SlowMultigrid(Exception):
+    def __init__(self, rate: float, iteration: int) -> None:
+        self.rate, self.iteration = rate, iteration
+
+
+class _RateGuard:
+    """Passes progress on, and stops multigrid whose mean rate is worse than GUARD_RATE."""
+
+    def __init__(self, inner: Monitor) -> None:
+        self.inner = inner
+
+    def iteration(self, iteration: int, relative_residual: float, elapsed: float) -> None:
+        self.inner.iteration(iteration, relative_residual, elapsed)
+        if iteration >= GUARD_ITERATIONS and relative_residual > 0:
+            rate = relative_residual ** (1.0 / iteration)
+            if rate > GUARD_RATE:
+                raise _SlowMultigrid(rate, iteration)
+
+    def stop_requested(self) -> bool:
+        return self.inner.stop_requested()
+
+
+def solve_assembled(problem: Problem, solver: SolverSpec, method: str,
+                    monitor: Monitor) -> tuple[np.ndarray, SolveResult]:
+    """Assemble the CSR system and solve it with ``amg`` or ``direct``."""
+    t0 = time.perf_counter()
+    system = assemble(problem)
+    assembly = time.perf_counter() - t0
+    result = solve(system.matrix, system.rhs, solver.model_copy(update={"method": method}), monitor)
+    result.assembly_seconds = assembly
+    return scatter(system, problem, result.x), result
+
+
+def solve_problem(problem: Problem, solver: SolverSpec, method: str,
+                  monitor: Monitor | None = None) -> tuple[np.ndarray, SolveResult]:
+    """u on every cell (held values in place, gauge applied) and the solve's record."""
+    monitor = monitor or QuietMonitor()
+    if method == "fft":
+        return solve_fft(problem, monitor=monitor)
+    if method == "gmg":
+        guarded = solver.method == "auto"
+        try:
+            u, result = solve_gmg(problem, solver.rtol, solver.max_iterations,
+                                  _RateGuard(monitor) if guarded else monitor, solver.stagnation_window)
+        except _SlowMultigrid as slow:
+            u, result = solve_assembled(problem, solver, "amg", monitor)
+            result.notes = (f"auto chose gmg, which reduced the residual only {slow.rate:.2f} per "
+                            f"iteration over {slow.iteration} iterations; solved with amg instead")
+            return u, result
+        return complete_field(problem, u), result
+    return solve_assembled(problem, solver, method, monitor)
