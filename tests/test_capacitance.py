@@ -172,3 +172,11 @@ def test_capacitance_refusals(tmp_path: Path, capsys, physics: str, top: str, me
     assert main(["capacitance", str(_write(tmp_path, PLATES_TOML.format(physics=physics, top=top)))]) == 2
     err = " ".join(capsys.readouterr().err.split())
     assert message in err and "Traceback" not in err
+
+
+def test_a_matrix_free_method_in_the_job_still_gives_the_matrix() -> None:
+    """gmg solves from the Problem; the unit solves reuse a matrix, so they fall back to auto's choice."""
+    problem = build_problem(plates())
+    res = capacitance_matrix(problem, ["bottom", "top"], SolverSpec(method="gmg"))
+    assert res.method == "direct"
+    assert res.matrix[1, 1] == pytest.approx(series_capacitance(), rel=1e-10)

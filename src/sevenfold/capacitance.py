@@ -55,6 +55,10 @@ class _Solver:
 
     def __init__(self, A, solver: SolverSpec) -> None:
         self.A, self.spec = A, solver
+        if solver.method in ("fft", "gmg"):
+            # matrix-free methods solve from a Problem; here the matrix is reused per electrode,
+            # so take what ``auto`` takes for an assembled matrix (direct when small, else AMG)
+            solver = solver.model_copy(update={"method": "auto"})
         self.method = assembled_method(solver, A.shape[0])
         if self.method == "direct":
             import scipy.sparse.linalg as sla
