@@ -101,3 +101,22 @@ def test_iterations_are_grid_independent(case: str) -> None:
     counts = [solve_gmg(cube(n, case), 1e-8, 100)[1].iterations for n in (32, 128)]
     assert max(counts) <= 1.3 * min(counts), counts
     assert max(counts) <= 12, counts
+
+
+def test_auto_leaves_slow_multigrid_for_amg(monkeypatch) -> None:
+    """With the guard set so that any pace counts as slow, auto finishes with amg and says why;
+    a job that asks for gmg by name keeps gmg."""
+    from sevenfold.solvers import select
+
+    monkeypatch.setattr(select, "GUARD_ITERATIONS", 2)
+    monkeypatch.setattr(select, "GUARD_RATE", 0.0)
+    problem = cube(40, "layer")
+    spec_auto = make_spec(solver={"method": "auto", "rtol": 1e-9}).solver
+    assert select.method_for(spec_auto, problem) == "gmg"
+    u, result = select.solve_problem(problem, spec_auto, "gmg")
+    assert result.method == "amg-sa" and "solved with amg instead" in result.notes
+    assert result.converged and result.final_relative_residual <= 1e-9
+    spec_gmg = make_spec(solver={"method": "gmg", "rtol": 1e-9}).solver
+    u_gmg, kept = select.solve_problem(problem, spec_gmg, "gmg")
+    assert kept.method == "gmg"
+    assert np.abs(u - u_gmg).max() <= 1e-6 * np.abs(u_gmg).max()

@@ -4,26 +4,24 @@ from __future__ import annotations
 
 import os
 
-# Bytes per cell or unknown, measured as peak RSS on this project's reference machine
-# (see benchmarks/RESULTS.md); fields: k, f, held mask and values, row numbers, full solution.
-FIELD_BYTES_PER_CELL = 41
-SYSTEM_BYTES_PER_UNKNOWN = {
-    # CSR (7 entries of value+index, row pointer), right-hand side, CG vectors
-    "amg": 92 + 8 + 56 + 160,  # + smoothed-aggregation hierarchy
-    "direct": 92 + 8 + 16,
-    # no matrix: the right-hand side is transformed in place in the padded solution buffer;
-    # 8 more for an out-of-place transform
-    "fft": 8 + 8,
-}
-BASE_BYTES = 250 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr once imported
+# Peak resident memory of a whole `sevenfold run` process, fitted as BASE_BYTES plus bytes per
+# cell from runs at 64^3 to 160^3 on the reference machine (benchmarks/memory_fit.py prints
+# the fit and its errors). Per cell, for the default outputs:
+#   gmg:    fields (k, f, masks), face arrays, rhs, CG vectors, coarse levels, result buffer
+#   amg:    fields, CSR matrix, pyamg's smoothed-aggregation hierarchy, CG vectors
+#   fft:    fields and the transformed right-hand side
+#   direct: fields and CSR, plus the LU factors, which grow like n^(4/3) on a 3D grid
+BASE_BYTES = 240 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
+BYTES_PER_CELL = {"gmg": 128, "amg": 640, "fft": 40, "direct": 100}
+LU_BYTES_PER_FILL = 250  # times unknowns^(4/3)
+FIELD_BYTES_PER_CELL = 8  # each derived array stored with the result
 
 
-def estimate_bytes(cells: int, unknowns: int, method: str) -> int:
-    """Estimated peak resident memory of a job in bytes."""
-    per = SYSTEM_BYTES_PER_UNKNOWN.get(method, SYSTEM_BYTES_PER_UNKNOWN["amg"])
-    total = BASE_BYTES + FIELD_BYTES_PER_CELL * cells + per * unknowns
+def estimate_bytes(cells: int, unknowns: int, method: str, derived_arrays: int = 0) -> int:
+    """Estimated peak resident memory of a job in bytes (``derived_arrays`` extra outputs)."""
+    total = BASE_BYTES + (BYTES_PER_CELL.get(method, BYTES_PER_CELL["amg"]) + FIELD_BYTES_PER_CELL * derived_arrays) * cells
     if method == "direct":
-        total += int(200 * unknowns ** (4 / 3))  # LU fill of a 3D grid graph grows like n^(4/3)
+        total += int(LU_BYTES_PER_FILL * unknowns ** (4 / 3))
     return int(total)
 
 

@@ -121,7 +121,8 @@ def plan_job(job_file: str | Path, output: str | Path | None = None, spec: JobSp
     except JobError as exc:
         raise exc.located(str(job_file)) from None
     return Plan(
-        spec, job_file, out, cells, cells, method, estimate_bytes(cells, cells, method), available_bytes()
+        spec, job_file, out, cells, cells, method,
+        estimate_bytes(cells, cells, method, derived_arrays(spec)), available_bytes()
     )
 
 
@@ -152,7 +153,14 @@ def prepare_problem(plan: Plan) -> Problem:
 def settle_plan(plan: Plan, problem: Problem) -> Plan:
     """The plan once the problem is built: the method it is really solved with, and its memory."""
     method = method_for(plan.spec.solver, problem)
-    return replace(plan, method=method, memory_bytes=estimate_bytes(plan.cells, problem.unknowns, method))
+    memory = estimate_bytes(plan.cells, problem.unknowns, method, derived_arrays(plan.spec))
+    return replace(plan, method=method, memory_bytes=memory)
+
+
+def derived_arrays(spec: JobSpec) -> int:
+    """How many (x, y, z) arrays the requested derived fields add to the result."""
+    catalogue = DERIVED[spec.physics]
+    return sum(3 if catalogue[name].vector else 1 for name in spec.output.fields)
 
 
 def _load_files(spec: JobSpec, job_file: Path) -> dict[str, np.ndarray | None]:
