@@ -45,14 +45,26 @@ def write_job(folder: Path, method: str, n: int) -> Path:
     return path
 
 
+MEASURE = """
+import os, subprocess, sys
+child = subprocess.Popen(sys.argv[1:], stdout=subprocess.DEVNULL)
+_, status, usage = os.wait4(child.pid, 0)
+print(status, usage.ru_maxrss * 1024)  # kilobytes on Linux
+"""
+
+
 def peak_bytes(job: Path) -> int:
-    """Peak resident set of one `sevenfold run` process, in bytes."""
+    """Peak resident set of one `sevenfold run` process, in bytes.
+
+    Linux carries a peak across exec, so the run is started from a small go-between process
+    rather than from this one, whose own peak grows as it builds problems for the estimates.
+    """
     exe = Path(sys.executable).with_name("sevenfold")
-    child = subprocess.Popen([str(exe), "run", "--quiet", str(job)], stdout=subprocess.DEVNULL)
-    _, status, usage = os.wait4(child.pid, 0)
-    if status != 0:
-        raise RuntimeError(f"{job} failed with status {status}")
-    return usage.ru_maxrss * 1024  # kilobytes on Linux
+    out = subprocess.run([sys.executable, "-c", MEASURE, str(exe), "run", "--quiet", str(job)],
+                         capture_output=True, text=True, check=True).stdout.split()
+    if out[0] != "0":
+        raise RuntimeError(f"{job} failed with status {out[0]}")
+    return int(out[1])
 
 
 def estimate(job: Path) -> tuple[str, int]:
