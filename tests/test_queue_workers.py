@@ -115,6 +115,23 @@ def test_sigkill_of_a_worker_mid_solve_requeues_the_job_which_then_completes(tmp
     assert integrity(home) == "ok"
 
 
+def test_a_worker_stopped_by_sigterm_puts_its_running_job_back(tmp_path: Path, warm_cache: Path) -> None:
+    home = make_home(tmp_path / "home", warm_cache)
+    (s,) = submit(home, endless_job(tmp_path, "interrupted"))
+    w = WorkerProcess(home, environ=env(grace=60))
+    wait_for(lambda: iterations_logged(s["output"]) >= 3, "the solve to be iterating")
+    w.proc.send_signal(signal.SIGTERM)
+    assert w.wait() == 0, w.output()
+    j = job(home, s["id"])
+    assert j.state == "queued" and j.attempts == 1 and j.worker is None
+    with Queue(home) as q:
+        assert [e.event for e in q.events(s["id"])] == ["submitted", "started", "requeued"]
+        assert "shut down" in q.events(s["id"])[-1].detail
+    end = list(read_log(log_path(Path(s["output"]))))[-1]
+    assert end["event"] == "end" and "Cancelled" in end["error"]  # stopped cooperatively
+    assert not Path(s["output"]).exists() and partials(s["output"]) == []
+
+
 # ---------------------------------------------------------------- one worker, many situations
 @pytest.fixture(scope="module")
 def worker_home(tmp_path_factory, warm_cache: Path):
