@@ -5,6 +5,7 @@ The end-to-end runs with worker processes are in test_queue_workers.py.
 
 from __future__ import annotations
 
+import datetime
 import errno
 import json
 import math
@@ -13,7 +14,6 @@ import shutil
 import sqlite3
 import subprocess
 import threading
-import time
 import tomllib
 from pathlib import Path
 
@@ -462,7 +462,9 @@ def test_list_json_has_the_documented_fields(tmp_path: Path, home: Home, capsys)
     for key in ("error", "started", "finished"):
         assert key in j and j[key] is None
     assert j["state"] == "queued" and j["priority"] == 3 and j["attempts"] == 0
-    assert time.strptime(j["submitted"][:19], "%Y-%m-%dT%H:%M:%S")
+    submitted = datetime.datetime.fromisoformat(j["submitted"])  # ISO 8601 with its offset
+    with Queue(home) as q:
+        assert submitted.tzinfo is not None and submitted.timestamp() == int(q.get(j["id"]).submitted)
     assert listing(home, "--state", "done", capsys=capsys) == []
 
 

@@ -11,7 +11,6 @@ import os
 import signal
 import sqlite3
 import subprocess
-import sys
 import threading
 from pathlib import Path
 

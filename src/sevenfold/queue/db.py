@@ -15,6 +15,7 @@ seconds (UTC).
 
 from __future__ import annotations
 
+import datetime
 import json
 import random
 import sqlite3
@@ -222,10 +223,10 @@ def _busy(exc: sqlite3.OperationalError) -> bool:
 
 
 def stamp(t: float | None) -> str:
-    """A Unix time as local ISO 8601 with offset, seconds precision ("" for none)."""
+    """A Unix time as local ISO 8601 (RFC 3339) with offset, whole seconds ("" for none)."""
     if t is None:
         return ""
-    return time.strftime("%Y-%m-%dT%H:%M:%S%z", time.localtime(t))
+    return datetime.datetime.fromtimestamp(t).astimezone().isoformat(timespec="seconds")
 
 
 class Queue:
