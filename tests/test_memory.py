@@ -50,7 +50,8 @@ def peak_of_run(job: Path) -> int:
 
 
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="ru_maxrss units differ off Linux")
-@pytest.mark.parametrize("method, n", [("gmg", 112), ("amg", 64), ("fft", 112)])
+# grids large enough that the per-cell part dominates the ~50 MiB by which the base varies
+@pytest.mark.parametrize("method, n", [("gmg", 160), ("amg", 96), ("fft", 192)])
 def test_estimate_within_a_quarter_of_the_peak(tmp_path: Path, method: str, n: int) -> None:
     job = tmp_path / "job.toml"
     job.write_text(JOB.format(method=method, n=n, region="" if method == "fft" else LAYER))

@@ -5,14 +5,16 @@ from __future__ import annotations
 import os
 
 # Peak resident memory of a whole `sevenfold run` process, fitted as BASE_BYTES plus bytes per
-# cell from runs at 64^3 to 160^3 on the reference machine (benchmarks/memory_fit.py prints
-# the fit and its errors). Per cell, for the default outputs:
+# cell from runs at 64^3 to 160^3 in fresh and in development installs on the reference machine
+# (benchmarks/memory_fit.py prints the fit and its errors). The base alone varies by about
+# 50 MiB between installs (how much of the shared libraries the kernel maps in), so small
+# jobs are estimated to within that. Per cell, for the default outputs:
 #   gmg:    fields (k, f, masks), face arrays, rhs, CG vectors, coarse levels, result buffer
 #   amg:    fields, CSR matrix, pyamg's smoothed-aggregation hierarchy, CG vectors
 #   fft:    fields and the transformed right-hand side
 #   direct: fields and CSR, plus the LU factors, which grow like n^(4/3) on a 3D grid
-BASE_BYTES = 240 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
-BYTES_PER_CELL = {"gmg": 128, "amg": 640, "fft": 40, "direct": 100}
+BASE_BYTES = 200 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
+BYTES_PER_CELL = {"gmg": 126, "amg": 640, "fft": 43, "direct": 100}
 LU_BYTES_PER_FILL = 250  # times unknowns^(4/3)
 FIELD_BYTES_PER_CELL = 8  # each derived array stored with the result
 
