@@ -184,7 +184,7 @@ def test_ineligible_problems_are_refused_with_the_reason(case: str) -> None:
     assert reason in err.value.reason
     with pytest.raises(ValueError, match="eligible"):
         solve_fft(problem)
-    assert method_for(SolverSpec(method="auto"), problem) == "direct"  # small: auto takes LU
+    assert method_for(SolverSpec(method="auto"), problem) == "gmg"
 
 
 def test_matrix_entry_point_does_not_take_fft() -> None:
@@ -227,7 +227,7 @@ def test_check_shows_fft_chosen_by_auto_only_when_eligible(tmp_path: Path, capsy
     assert "fft (chosen by auto)" in capsys.readouterr().out
     assert main(["check", str(write_job(tmp_path, "robin", "auto", z_max="robin"))]) == 0
     text = capsys.readouterr().out
-    assert "direct (chosen by auto)" in text and "fft (chosen" not in text
+    assert "gmg (chosen by auto)" in text and "fft (chosen" not in text
 
 
 def test_check_refuses_fft_with_the_reason(tmp_path: Path, capsys) -> None:

@@ -199,3 +199,48 @@ def test_pure_neumann_unbalanced(outflow):
     assert f"net {net:.6g} W" in message
     assert f"sources add {GENERATED:.6g} W" in message
     assert f"boundary fluxes {0.0 - outflow:.6g} W" in message
+
+
+@pytest.mark.parametrize("method", ["amg", "gmg"])
+def test_reported_residual_is_the_true_one_on_extreme_contrast(method: str) -> None:
+    """A 1e12:1 checkerboard: the reported final residual, recomputed here from the assembled
+    matrix, meets rtol and is the true one."""
+    from sevenfold.solvers.select import solve_problem
+    from sevenfold.spec import SolverSpec
+
+    n = 20
+    i, j, k = np.indices((n, n, n))
+    contrast = np.where((i + j + k) % 2 == 0, 1e6, 1e-6)
+    spec = make_spec(grid={"cells": [n, n, n], "size": [1.0, 1.0, 1.0]}, material={"file": "k.npy"},
+                     source={"value": 1.0}, boundary={"x_min": {"type": "dirichlet", "value": 0.0}})
+    problem = build_problem(spec, coefficient_file=contrast)
+    system = assemble(problem)
+    u, result = solve_problem(problem, SolverSpec(method=method, rtol=1e-8, max_iterations=2000), method)
+    true = np.linalg.norm(system.rhs - system.matrix @ u.ravel()) / np.linalg.norm(system.rhs)
+    assert result.converged and true <= 1e-8
+    assert result.final_relative_residual == pytest.approx(true, rel=1e-3)
+
+
+def test_cg_never_reports_convergence_its_true_residual_denies() -> None:
+    """An operator whose products carry random errors of 1e-6 (a stand-in for rounding drift):
+    the updated residual falls below rtol but b - Ax cannot, so CG restarts and then fails
+    rather than reporting a converged solve."""
+    from sevenfold.solvers.cg import MAX_RESTARTS, pcg
+
+    system = assemble(build_problem(make_spec(
+        grid={"cells": [6, 5, 4], "size": [1.0, 1.0, 1.0]}, source={"value": 1.0},
+        boundary={"x_min": {"type": "dirichlet", "value": 0.0}})))
+    A = system.matrix
+    rng = np.random.default_rng(3)
+
+    class Noisy:
+        shape = A.shape
+
+        def __matmul__(self, v):
+            w = A @ v
+            return w + 1e-6 * np.linalg.norm(w) * rng.standard_normal(w.shape) / np.sqrt(w.size)
+
+    with pytest.raises(SolverError, match=f"after {MAX_RESTARTS} restarts"):
+        pcg(Noisy(), system.rhs, lambda r: r / A.diagonal(), 1e-8, 500)
+    exact = pcg(A, system.rhs, lambda r: r / A.diagonal(), 1e-10, 500)
+    assert exact.converged and exact.final_relative_residual <= 1e-10

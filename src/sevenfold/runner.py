@@ -115,7 +115,7 @@ def plan_job(job_file: str | Path, output: str | Path | None = None, spec: JobSp
     job_file = Path(job_file)
     spec = spec or load_job(job_file)
     cells = Grid.from_spec(spec.grid).size
-    method = choose_method(spec.solver, cells)
+    method = choose_method(spec.solver)
     try:
         out = output_path(spec, job_file, output)
     except JobError as exc:

