@@ -1,0 +1,141 @@
+"""The plain numpy + scipy + pyamg script that sevenfold is measured against.
+
+Steady -div(k grad u) = 0 on the unit cube split into n^3 cells (cell-centred finite
+volumes, 7-point stencil). The coefficient is 1 with low-conductivity walls and
+inclusions of 1e-3 (contrast 1000:1), laid out in :data:`BOXES`; a cell takes a box's
+value when its centre lies in the box (boundary included), later boxes winning. The x_min
+face is held at 1 and x_max at 0, half a cell from the boundary cells' centres; the other
+faces are insulated. Equations are written per unit cell volume, as sevenfold writes them.
+
+    python benchmarks/baseline.py --cells 128 --out sol.npy
+
+prints one JSON line of timings (seconds), iterations and peak RSS (bytes).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import resource
+import time
+
+import numpy as np
+import pyamg
+import scipy.sparse as sp
+from scipy.sparse.linalg import cg
+
+K_BACKGROUND = 1.0
+K_LOW = 1.0e-3
+# (min corner, max corner, coefficient) on the unit cube; edges on multiples of 1/8.
+BOXES: tuple[tuple[tuple[float, float, float], tuple[float, float, float], float], ...] = (
+    ((0.25, 0.0, 0.0), (0.375, 1.0, 0.75), K_LOW),     # wall across x, open above z = 0.75
+    ((0.625, 0.0, 0.25), (0.75, 1.0, 1.0), K_LOW),     # wall across x, open below z = 0.25
+    ((0.375, 0.125, 0.125), (0.625, 0.375, 0.375), K_LOW),  # inclusion between the walls
+    ((0.375, 0.625, 0.5), (0.625, 0.875, 0.875), K_LOW),    # inclusion between the walls
+)
+U_X_MIN = 1.0
+U_X_MAX = 0.0
+RTOL = 1e-8
+MAX_ITERATIONS = 500
+
+
+def coefficient(n: int) -> np.ndarray:
+    """k on the n^3 cells of the unit cube, indexed [x, y, z]."""
+    h = 1.0 / n
+    c = (np.arange(n) + 0.5) * h
+    x, y, z = c[:, None, None], c[None, :, None], c[None, None, :]
+    k = np.full((n, n, n), K_BACKGROUND)
+    for lo, hi, value in BOXES:
+        inside = ((lo[0] <= x) & (x <= hi[0])) & ((lo[1] <= y) & (y <= hi[1])) & ((lo[2] <= z) & (z <= hi[2]))
+        k[np.broadcast_to(inside, k.shape)] = value
+    return k
+
+
+def assemble(k: np.ndarray, spacing: tuple[float, float, float]) -> tuple[sp.csr_matrix, np.ndarray]:
+    """The 7-point matrix and right-hand side, from COO triplets of every interior face."""
+    shape = k.shape
+    cells = k.size
+    index = np.arange(cells).reshape(shape)
+    rows, cols, vals = [], [], []
+    for axis in range(3):
+        lo = [slice(None)] * 3
+        hi = [slice(None)] * 3
+        lo[axis] = slice(0, -1)
+        hi[axis] = slice(1, None)
+        k_lo, k_hi = k[tuple(lo)], k[tuple(hi)]
+        t = (2.0 * k_lo * k_hi / (k_lo + k_hi) / spacing[axis] ** 2).ravel()
+        p = index[tuple(lo)].ravel()
+        q = index[tuple(hi)].ravel()
+        rows += [p, q, p, q]
+        cols += [p, q, q, p]
+        vals += [t, t, -t, -t]
+    # Dirichlet faces: the face value sits half a cell from the boundary cell's centre
+    b = np.zeros(shape)
+    hx = spacing[0]
+    for side, value in ((0, U_X_MIN), (-1, U_X_MAX)):
+        g = 2.0 * k[side] / hx**2
+        p = index[side].ravel()
+        rows.append(p)
+        cols.append(p)
+        vals.append(g.ravel())
+        b[side] += g * value
+    A = sp.coo_matrix(
+        (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(cells, cells)
+    ).tocsr()
+    return A, b.ravel()
+
+
+def solve(A: sp.csr_matrix, b: np.ndarray, rtol: float = RTOL) -> tuple[np.ndarray, int, float, float]:
+    """Smoothed-aggregation AMG as CG's preconditioner: solution, iterations, setup s, solve s."""
+    t0 = time.perf_counter()
+    ml = pyamg.smoothed_aggregation_solver(A)
+    M = ml.aspreconditioner()
+    t1 = time.perf_counter()
+    iterations = 0
+
+    def count(_x: np.ndarray) -> None:
+        nonlocal iterations
+        iterations += 1
+
+    x, info = cg(A, b, rtol=rtol, maxiter=MAX_ITERATIONS, M=M, callback=count)
+    t2 = time.perf_counter()
+    if info != 0:
+        raise SystemExit(f"cg did not converge (info {info}) after {iterations} iterations")
+    return x, iterations, t1 - t0, t2 - t1
+
+
+def main(argv: list[str] | None = None) -> None:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--cells", type=int, default=128, help="cells along each axis")
+    p.add_argument("--out", default="sol.npy", help="where to np.save the (n, n, n) solution")
+    p.add_argument("--rtol", type=float, default=RTOL)
+    args = p.parse_args(argv)
+    n = args.cells
+    h = 1.0 / n
+
+    t0 = time.perf_counter()
+    k = coefficient(n)
+    t1 = time.perf_counter()
+    A, b = assemble(k, (h, h, h))
+    t2 = time.perf_counter()
+    x, iterations, setup, solve_s = solve(A, b, args.rtol)
+    residual = float(np.linalg.norm(b - A @ x) / np.linalg.norm(b))
+    t3 = time.perf_counter()
+    np.save(args.out, x.reshape(k.shape))
+    t4 = time.perf_counter()
+    print(json.dumps({
+        "cells": n**3,
+        "coefficient": t1 - t0,
+        "assembly": t2 - t1,
+        "setup": setup,
+        "solve": solve_s,
+        "write": t4 - t3,
+        "total": t4 - t0,
+        "iterations": iterations,
+        "relative_residual": residual,
+        "peak_rss_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024,
+    }))
+
+
+if __name__ == "__main__":
+    main()
