@@ -180,3 +180,10 @@ def test_a_matrix_free_method_in_the_job_still_gives_the_matrix() -> None:
     res = capacitance_matrix(problem, ["bottom", "top"], SolverSpec(method="gmg"))
     assert res.method == "direct"
     assert res.matrix[1, 1] == pytest.approx(series_capacitance(), rel=1e-10)
+
+
+def test_vacuum_permittivity_is_scipys_codata_value() -> None:
+    """physics.py keeps epsilon_0 as a literal; scipy.constants carries the CODATA value."""
+    from sevenfold.physics import EPSILON_0
+
+    assert EPSILON_0 == epsilon_0

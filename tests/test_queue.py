@@ -479,7 +479,8 @@ def test_show_and_log_of_a_finished_job(tmp_path: Path, home: Home, capsys) -> N
         assert q.finish(j.id, c.run_id, reply["summary"])
     assert main(["show", str(j.id), "--home", str(home.root)]) == 0
     text = capsys.readouterr().out
-    for word in ("shown", "done", "amg", "iterations", "final relative residual", "complete", "[grid]", "started"):
+    for word in ("shown", "done", "amg", "iterations", "final relative residual", "complete", "[grid]", "started",
+                 "balance", "relative imbalance"):
         assert word in text, word
     assert main(["log", str(j.id), "--csv", "--home", str(home.root)]) == 0
     rows = capsys.readouterr().out.strip().splitlines()

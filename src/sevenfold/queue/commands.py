@@ -263,6 +263,14 @@ def _show(args: argparse.Namespace) -> int:
     if job.error:
         t.add_row("error", f"[red]{escape(job.error)}[/red]")
     out.print(t)
+    if is_complete(out_path):
+        import zarr
+
+        from ..cli import balance_table
+
+        balance = zarr.open_group(str(out_path), mode="r").attrs.get("balance")
+        if balance:
+            out.print(balance_table(balance))
     ev = Table(title="history", title_justify="left", box=None, pad_edge=False)
     for col in ("time", "event", "detail"):
         ev.add_column(col, overflow="fold")
