@@ -24,6 +24,7 @@ from __future__ import annotations
 import time
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as sla
@@ -32,6 +33,9 @@ from ..kernels import stencil
 from .cg import Monitor, SolveResult, pcg
 
 COARSEST_CELLS = 512
+# Levels smaller than this run their kernels on one thread: there the cost of waking and
+# joining threads exceeds the work, and it grows sharply when another process holds a core.
+SERIAL_BELOW = 32_768
 SEMI_COARSENING_RATIO = 1.5
 
 
@@ -124,6 +128,14 @@ class Hierarchy:
     def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
         """Improve u for A_level u = b in place (u may start at zero)."""
         lv = self.levels[level]
+        threads = numba.get_num_threads()
+        if threads > 1 and lv.diag.size < SERIAL_BELOW:
+            numba.set_num_threads(1)
+            try:
+                self.cycle(level, b, u)
+            finally:
+                numba.set_num_threads(threads)
+            return
         if level == len(self.levels) - 1:
             u[...] = self.coarsest.solve(b.ravel()).reshape(lv.shape)
             return
