@@ -132,18 +132,24 @@ def _os_error(exc: BaseException) -> OSError | None:
 
 def execute(request: dict[str, Any], home: Home, state: ChildState) -> dict[str, Any]:
     """Run the job a request names; the reply says done (with a summary), failed or cancelled."""
-    from ..runner import run_job
-
     job_id, run_id, attempt = request["job"], request["run"], request["attempt"]
-    output = Path(request["output"])
     record = {"job": job_id, "run": run_id, "attempt": attempt, "worker": request.get("worker"),
               "pid": os.getpid(), "queue": str(home.root)}
+    return run_recorded(home.job_file(job_id), Path(request["output"]),
+                        QueueMonitor(home.cancel_flag(job_id), state), record)
+
+
+def run_recorded(job_file: Path, output: Path, monitor: Any, record: dict[str, Any],
+                 spec: Any = None) -> dict[str, Any]:
+    """Run a job with its run record beside the output; a reply: done, failed or cancelled.
+
+    Shared by the slot children and the cluster tasks (:mod:`sevenfold.queue.cluster`).
+    """
+    from ..runner import run_job
+
     try:
         append_run(output, {"event": "start", **record, "time": time.time()})
-        result = run_job(
-            home.job_file(job_id), output, QueueMonitor(home.cancel_flag(job_id), state),
-            extra_attrs={"queue": record},
-        )
+        result = run_job(job_file, output, monitor, spec=spec, extra_attrs={"queue": record})
         append_run(output, {"event": "done", **record, "time": time.time()})
     except Cancelled as exc:
         return {"status": "cancelled", "error": str(exc)}

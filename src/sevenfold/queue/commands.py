@@ -407,10 +407,21 @@ def _worker(args: argparse.Namespace) -> int:
     from .worker import Worker, WorkerOptions
 
     out, _ = _consoles()
+    say = lambda text: out.print(text, markup=False, highlight=False, soft_wrap=True)  # noqa: E731
+    if args.cluster is not None:
+        from .cluster import ClusterOptions, ClusterWorker
+
+        home = locate(args.home)
+        cluster = ClusterWorker(home, ClusterOptions(
+            address=args.cluster, slots=args.slots, threads=args.threads or 1, drain=args.drain,
+            memory_bytes=args.memory, time_limit=args.time_limit), say=say)
+        return cluster.run(handle_signals=True)
+    if args.threads is not None:
+        raise QueueError("--threads goes with --cluster; a local worker splits the cores between its slots")
     home = locate(args.home)
-    options = WorkerOptions(slots=args.slots, drain=args.drain, memory_bytes=args.memory,
+    options = WorkerOptions(slots=args.slots or 1, drain=args.drain, memory_bytes=args.memory,
                             time_limit=args.time_limit)
-    worker = Worker(home, options, say=lambda text: out.print(text, markup=False, highlight=False, soft_wrap=True))
+    worker = Worker(home, options, say=say)
     return worker.run(handle_signals=True)
 
 
@@ -460,10 +471,17 @@ def register(sub: argparse._SubParsersAction) -> None:
     r.set_defaults(func=_retry)
 
     wk = sub.add_parser("worker", parents=[home], help="run queued jobs until stopped")
-    wk.add_argument("--slots", type=_positive_int, default=1, help="jobs at once; the cores are split between them")
+    wk.add_argument("--slots", type=_positive_int, default=None,
+                    help="jobs at once (default 1; the cores are split between them); with --cluster: "
+                         "jobs in flight (default: what the cluster's workers run at once)")
     wk.add_argument("--drain", action="store_true", help="stop once nothing is queued or running")
     wk.add_argument("--memory", type=_gib, metavar="GB",
                     help="GiB the running jobs may use together by estimate (default: available at start)")
     wk.add_argument("--time-limit", type=seconds_arg, metavar="T",
                     help="limit for jobs submitted without one (90, 15m, 2h)")
+    wk.add_argument("--cluster", metavar="ADDRESS",
+                    help="run the jobs as tasks on the Dask scheduler at ADDRESS (tcp://host:8786); "
+                         "needs pip install 'sevenfold[cluster]'")
+    wk.add_argument("--threads", type=_positive_int, default=None, metavar="N",
+                    help="with --cluster: threads per job on the Dask worker (default 1)")
     wk.set_defaults(func=_worker)

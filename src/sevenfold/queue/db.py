@@ -592,6 +592,20 @@ class Queue:
 
         return self.write(fn)
 
+    def note_attempt(self, job_id: int, run_id: str, attempt: int, detail: str) -> bool:
+        """The run started again (a cluster task rerun after its Dask worker was lost)."""
+        now = time.time()
+
+        def fn(c: sqlite3.Connection) -> bool:
+            cur = c.execute("UPDATE jobs SET attempts = ? WHERE id = ? AND run_id = ? AND state = 'running' "
+                            "AND attempts < ?", (attempt, job_id, run_id, attempt))
+            if cur.rowcount == 0:
+                return False
+            _event(c, job_id, now, "restarted", detail)
+            return True
+
+        return self.write(fn)
+
     def set_pid(self, job_id: int, run_id: str, pid: int) -> None:
         """Record the process running the job's current run."""
         self.write(lambda c: c.execute("UPDATE jobs SET pid = ? WHERE id = ? AND run_id = ?",
