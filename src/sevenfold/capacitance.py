@@ -65,13 +65,9 @@ class _Solver:
 
             self.lu = sla.splu(A.tocsc(), permc_spec="MMD_AT_PLUS_A")
         else:
-            import pyamg
+            from .solvers.amg import build_hierarchy
 
-            if solver.amg == "classical":
-                ml = pyamg.ruge_stuben_solver(A)
-            else:
-                ml = pyamg.smoothed_aggregation_solver(A, symmetry="hermitian")
-            self.M = ml.aspreconditioner(cycle="V")
+            self.M = build_hierarchy(A, solver.amg).aspreconditioner(cycle="V")
 
     def solve(self, b: np.ndarray) -> tuple[np.ndarray, int]:
         if self.method == "direct":
