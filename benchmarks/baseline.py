@@ -7,7 +7,7 @@ value when its centre lies in the box (boundary included), later boxes winning. 
 face is held at 1 and x_max at 0, half a cell from the boundary cells' centres; the other
 faces are insulated. Equations are written per unit cell volume, as sevenfold writes them.
 
-    python benchmarks/baseline.py --cells 128 --out sol.npy
+    python benchmarks/baseline.py --cells 128 --out sol.npy [--pattern layered]
 
 prints one JSON line of timings (seconds), iterations and peak RSS (bytes).
 """
@@ -33,19 +33,54 @@ BOXES: tuple[tuple[tuple[float, float, float], tuple[float, float, float], float
     ((0.375, 0.125, 0.125), (0.625, 0.375, 0.375), K_LOW),  # inclusion between the walls
     ((0.375, 0.625, 0.5), (0.625, 0.875, 0.875), K_LOW),    # inclusion between the walls
 )
+Box = tuple[tuple[float, float, float], tuple[float, float, float], float]
+PATTERNS = ("walls", "constant", "layered", "inclusions")
+INCLUSIONS = 60
+INCLUSION_SEED = 20261201
+
+
+def pattern_boxes(pattern: str) -> tuple[Box, ...]:
+    """The coefficient boxes of a named pattern (k = 1 outside them, 1e-3 inside).
+
+    walls: :data:`BOXES`. constant: none. layered: five 1000:1 layers across x with edges off
+    the dyadic planes, shifted between the halves y < 0.5 and y > 0.5 (a fault), so no layer
+    lines up with coarse cells and every path from x_min to x_max crosses them. inclusions:
+    :data:`INCLUSIONS` random boxes (seed :data:`INCLUSION_SEED`), edges rounded to 1e-4.
+    """
+    if pattern == "walls":
+        return BOXES
+    if pattern == "constant":
+        return ()
+    if pattern == "layered":
+        layers = ((0.11, 0.17), (0.29, 0.36), (0.47, 0.55), (0.66, 0.71), (0.83, 0.9))
+        out: list[Box] = []
+        for (y0, y1), shift in (((0.0, 0.5), 0.0), ((0.5, 1.0), 0.043)):
+            for x0, x1 in layers:
+                out.append(((round(x0 + shift, 4), y0, 0.0), (round(x1 + shift, 4), y1, 1.0), K_LOW))
+        return tuple(out)
+    if pattern == "inclusions":
+        rng = np.random.default_rng(INCLUSION_SEED)
+        centre = rng.uniform(0.05, 0.95, (INCLUSIONS, 3))
+        half = rng.uniform(0.02, 0.09, (INCLUSIONS, 3))
+        lo = np.round(np.clip(centre - half, 0.0, 1.0), 4)
+        hi = np.round(np.clip(centre + half, 0.0, 1.0), 4)
+        return tuple((tuple(map(float, a)), tuple(map(float, b)), K_LOW) for a, b in zip(lo, hi))
+    raise ValueError(f"unknown pattern {pattern!r}; one of {', '.join(PATTERNS)}")
+
+
 U_X_MIN = 1.0
 U_X_MAX = 0.0
 RTOL = 1e-8
 MAX_ITERATIONS = 500
 
 
-def coefficient(n: int) -> np.ndarray:
+def coefficient(n: int, boxes: tuple[Box, ...] = BOXES) -> np.ndarray:
     """k on the n^3 cells of the unit cube, indexed [x, y, z]."""
     h = 1.0 / n
     c = (np.arange(n) + 0.5) * h
     x, y, z = c[:, None, None], c[None, :, None], c[None, None, :]
     k = np.full((n, n, n), K_BACKGROUND)
-    for lo, hi, value in BOXES:
+    for lo, hi, value in boxes:
         inside = ((lo[0] <= x) & (x <= hi[0])) & ((lo[1] <= y) & (y <= hi[1])) & ((lo[2] <= z) & (z <= hi[2]))
         k[np.broadcast_to(inside, k.shape)] = value
     return k
@@ -109,12 +144,13 @@ def main(argv: list[str] | None = None) -> None:
     p.add_argument("--cells", type=int, default=128, help="cells along each axis")
     p.add_argument("--out", default="sol.npy", help="where to np.save the (n, n, n) solution")
     p.add_argument("--rtol", type=float, default=RTOL)
+    p.add_argument("--pattern", default="walls", choices=PATTERNS, help="coefficient pattern (default walls)")
     args = p.parse_args(argv)
     n = args.cells
     h = 1.0 / n
 
     t0 = time.perf_counter()
-    k = coefficient(n)
+    k = coefficient(n, pattern_boxes(args.pattern))
     t1 = time.perf_counter()
     A, b = assemble(k, (h, h, h))
     t2 = time.perf_counter()

@@ -1,8 +1,13 @@
 """Speed benchmarks of sevenfold against the plain numpy + scipy + pyamg script (baseline.py).
 
-    python benchmarks/run.py [--sizes 64 128] [--quick]
+    python benchmarks/run.py [--sizes 64 128 256] [--big 512] [--quick]     # the speed suite
+    python benchmarks/run.py --suite engine [--sizes 64 128] [--quick]      # the engine comparison
 
-One invocation, same problems and tolerance on both sides:
+``--suite speed`` (the default) is benchmarks/speed.py: method auto on constant, layered and
+inclusion patterns, 512^3 for sevenfold alone; writes benchmarks/RESULTS.md and speed.png.
+
+``--suite engine`` compares the engines with amg on both sides and writes
+benchmarks/RESULTS_ENGINE.md. One invocation, same problems and tolerance on both sides:
 
 1. writes sevenfold job files matching baseline.py (same grid, coefficient boxes, faces, rtol);
 2. times assembly alone, warm, interleaved, best of many, in this process: sevenfold's
@@ -12,7 +17,7 @@ One invocation, same problems and tolerance on both sides:
    alternating, best wall time of ``--runs``, with each child's peak RSS from /usr/bin/time;
 4. checks that the solutions agree, and the residual of sevenfold's solution in the
    baseline's system;
-5. writes benchmarks/RESULTS.md (``--quick`` prints it unless ``--results`` is given).
+5. writes benchmarks/RESULTS_ENGINE.md (``--quick`` prints it unless ``--results`` is given).
 """
 
 from __future__ import annotations
@@ -541,23 +546,33 @@ def report(
 # ---------------------------------------------------------------- main
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description="sevenfold speed benchmarks against benchmarks/baseline.py")
-    p.add_argument("--sizes", type=int, nargs="+", help="cells along each axis (default 64 128; --quick 32 64)")
+    p.add_argument("--suite", choices=("speed", "engine"), default="speed",
+                   help="speed (default): method auto, three patterns, RESULTS.md and speed.png; "
+                        "engine: amg on both sides, assembly throughput, RESULTS_ENGINE.md")
+    p.add_argument("--sizes", type=int, nargs="+",
+                   help="cells along each axis (speed: 64 128 256, --quick 64; engine: 64 128, --quick 32 64)")
+    p.add_argument("--big", type=int, help="speed: the size run by sevenfold alone, layered (default 512; 0 skips)")
     p.add_argument("--quick", action="store_true",
-                   help="small sizes, assembly at 64^3, one run; prints the report unless --results")
+                   help="speed: 64^3 only, no big run; engine: small sizes, assembly at 64^3, one run, "
+                        "prints the report unless --results")
     p.add_argument("--assembly-cells", type=int, help="cells per axis of the assembly timing (default 128)")
     p.add_argument("--repeats", type=int, help="rounds of assembly timings, best kept (default 7)")
     p.add_argument("--runs", type=int, help="whole-process runs per side and size, best kept (default 3)")
-    p.add_argument("--results", help="where to write the report (default benchmarks/RESULTS.md)")
+    p.add_argument("--results", help="where to write the report (default benchmarks/RESULTS.md; engine: RESULTS_ENGINE.md)")
     p.add_argument("--keep", action="store_true", help="keep the temporary folder of jobs and results")
     args = p.parse_args(argv)
+    command = "python benchmarks/run.py" + (" " + " ".join(argv if argv is not None else sys.argv[1:])
+                                            if (argv if argv is not None else sys.argv[1:]) else "")
+    if args.suite == "speed":
+        import speed
+
+        args.repeats = args.repeats or 10
+        return speed.main(args, command)
     sizes = args.sizes or ([32, 64] if args.quick else [64, 128])
     asm_n = args.assembly_cells or (64 if args.quick else ASSEMBLY_TARGET_CELLS)
     repeats = args.repeats or (3 if args.quick else 7)
     runs = args.runs or (1 if args.quick else 3)
-    results = Path(args.results) if args.results else (None if args.quick else HERE / "RESULTS.md")
-
-    command = "python benchmarks/run.py" + (" " + " ".join(argv if argv is not None else sys.argv[1:])
-                                            if (argv if argv is not None else sys.argv[1:]) else "")
+    results = Path(args.results) if args.results else (None if args.quick else HERE / "RESULTS_ENGINE.md")
     load: dict[str, object] = {"start": "%.2f %.2f %.2f" % os.getloadavg(), "others": other_processes()}
     info = machine()
     folder = Path(tempfile.mkdtemp(prefix="sevenfold-bench-"))
