@@ -27,19 +27,29 @@ def estimate_bytes(cells: int, unknowns: int, method: str, derived_arrays: int =
     return int(total)
 
 
-def available_bytes() -> int:
-    """Memory available to a new process (MemAvailable where the kernel reports it)."""
+def _meminfo(key: str, pages: str) -> int:
+    """A /proc/meminfo entry in bytes, else the sysconf page count ``pages`` times the page size."""
     try:
         with open("/proc/meminfo") as fh:
             for line in fh:
-                if line.startswith("MemAvailable:"):
+                if line.startswith(key + ":"):
                     return int(line.split()[1]) * 1024
     except OSError:
         pass
     try:
-        return os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+        return os.sysconf(pages) * os.sysconf("SC_PAGE_SIZE")
     except (ValueError, OSError, AttributeError):
         return 2**62
+
+
+def available_bytes() -> int:
+    """Memory available to a new process (MemAvailable where the kernel reports it)."""
+    return _meminfo("MemAvailable", "SC_AVPHYS_PAGES")
+
+
+def total_bytes() -> int:
+    """The machine's physical memory in bytes."""
+    return _meminfo("MemTotal", "SC_PHYS_PAGES")
 
 
 def human(nbytes: float) -> str:

@@ -61,6 +61,7 @@ def _read(job_file: Path) -> tuple[str, dict[str, Any]]:
 
 def _check(variant: Variant, job_file: Path, source: str):
     """Validate one job table through the engine; returns its plan."""
+    from ..memory import total_bytes
     from ..runner import plan_job, prepare_problem, refuse_if_too_large
     from ..spec import parse_job
 
@@ -77,21 +78,6 @@ def _check(variant: Variant, job_file: Path, source: str):
             if name is not None and not _resolve(name, job_file).exists():
                 raise JobError(f"file {str(_resolve(name, job_file))!r} does not exist", f"{key}.file", source)
     return plan
-
-
-def total_bytes() -> int:
-    """The machine's physical memory in bytes."""
-    try:
-        with open("/proc/meminfo") as fh:
-            for line in fh:
-                if line.startswith("MemTotal:"):
-                    return int(line.split()[1]) * 1024
-    except OSError:
-        pass
-    try:
-        return os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
-    except (ValueError, OSError, AttributeError):
-        return 2**62
 
 
 def _resolve(name: str, job_file: Path) -> Path:
