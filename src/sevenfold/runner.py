@@ -37,7 +37,6 @@ class Plan:
     job_file: Path
     output: Path
     cells: int
-    unknowns_at_most: int
     method: str
     memory_bytes: int
     available_bytes: int
@@ -121,7 +120,7 @@ def plan_job(job_file: str | Path, output: str | Path | None = None, spec: JobSp
     except JobError as exc:
         raise exc.located(str(job_file)) from None
     return Plan(
-        spec, job_file, out, cells, cells, method,
+        spec, job_file, out, cells, method,
         estimate_bytes(cells, cells, method, derived_arrays(spec)), available_bytes()
     )
 
