@@ -84,6 +84,7 @@ class Case:
     base: dict[str, float] = field(default_factory=dict)  # baseline's JSON line
     same_k: bool | None = None
     difference: float = float("nan")
+    residual_in_baseline: float = float("nan")  # sevenfold's solution in the baseline's system
     apply: float = float("nan")  # best seconds of one operator application
     copy: float = float("nan")  # best seconds of np.copyto of n^3 float64
 
@@ -169,7 +170,11 @@ def run_case(folder: Path, pattern: str, n: int, with_baseline: bool, repeats: i
         u_s = np.asarray(group[group.attrs["solution"]][...])
         u_b = np.load(npy_path)
         case.difference = float(np.abs(u_s - u_b).max() / np.abs(u_b).max())
-        del u_s, u_b
+        del u_b
+        h = 1.0 / n
+        A, b = baseline.assemble(baseline.coefficient(n, baseline.pattern_boxes(pattern)), (h, h, h))
+        case.residual_in_baseline = float(np.linalg.norm(b - A @ u_s.ravel()) / np.linalg.norm(b))
+        del A, b, u_s
         npy_path.unlink()
     del group
     shutil.rmtree(zarr_path, ignore_errors=True)
@@ -309,6 +314,11 @@ def report(command: str, info: dict[str, str], cases: list[Case], fft_rows: list
         notes = [c for c in rows if c.notes]
         for c in notes:
             w(f"- {c.n}^3: {c.notes}")
+        for c in rows:
+            if c.baseline:
+                w(f"- {c.n}^3: relative residual in the baseline's own matrix and right-hand side: "
+                  f"sevenfold's solution {c.residual_in_baseline:.1e}, the baseline's "
+                  f"{float(c.base['relative_residual']):.1e} (both asked for {baseline.RTOL:g})")
         same = [c for c in rows if c.same_k is not None]
         if same:
             w(f"- same coefficient array on both sides: "
@@ -376,6 +386,21 @@ def plot(cases: list[Case], path: Path) -> None:
     plt.close(fig)
 
 
+def revision() -> str:
+    """The repository's commit at the start, and whether src/ differs from it."""
+    import subprocess
+
+    root = HERE.parent
+    try:
+        head = subprocess.run(["git", "-C", str(root), "rev-parse", "--short", "HEAD"], capture_output=True,
+                              text=True, check=True).stdout.strip()
+        dirty = subprocess.run(["git", "-C", str(root), "status", "--porcelain", "src"], capture_output=True,
+                               text=True, check=True).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        return "unknown"
+    return f"{head} ({'src/ modified in the work tree' if dirty else 'src/ as committed'})"
+
+
 def main(args, command: str) -> int:
     """Run the speed suite with parsed ``args`` (sizes, big, quick, repeats, results, keep)."""
     sizes = args.sizes or ([64] if args.quick else [64, 128, 256])
@@ -383,6 +408,7 @@ def main(args, command: str) -> int:
     results = Path(args.results) if args.results else HERE / "RESULTS.md"
     load: dict = {"start": "%.2f %.2f %.2f" % os.getloadavg(), "others": engine.other_processes()}
     info = engine.machine()
+    info["sevenfold revision"] = revision()
     folder = Path(tempfile.mkdtemp(prefix="sevenfold-speed-"))
     cases: list[Case] = []
     fft_rows: list = []
