@@ -16,7 +16,7 @@ import sys
 import tempfile
 from pathlib import Path
 
-from sevenfold.runner import plan_job, prepare_problem, settle_plan
+from sevenfold.runner import plan_job, prepare_problem
 
 JOB = """
 name = "memory-{method}-{n}"
@@ -69,7 +69,7 @@ def peak_bytes(job: Path) -> int:
 
 def estimate(job: Path) -> tuple[str, int]:
     plan = plan_job(job)
-    plan = settle_plan(plan, prepare_problem(plan))
+    plan, _ = prepare_problem(plan)
     return plan.method, plan.memory_bytes
 
 

@@ -57,11 +57,10 @@ def balance_table(balance: dict, title: str = "balance") -> Table:
 
 def _check(args: argparse.Namespace) -> int:
     from .memory import human
-    from .runner import plan_job, prepare_problem, settle_plan
+    from .runner import plan_job, prepare_problem
 
     plan = plan_job(args.job)
-    problem = prepare_problem(plan)
-    plan = settle_plan(plan, problem)  # the method the built problem is really solved with
+    plan, problem = prepare_problem(plan)  # settled: the method the built problem is solved with
     spec = plan.spec
     table = Table(show_header=False, box=None)
     nx, ny, nz = spec.grid.cells
@@ -118,7 +117,7 @@ def _capacitance(args: argparse.Namespace) -> int:
                        "physics", str(plan.job_file))
     names = [h.name or f"hold {i}" for i, h in enumerate(spec.hold)]
     try:
-        problem = prepare_problem(plan)
+        _, problem = prepare_problem(plan)
         res = capacitance_matrix(problem, names, spec.solver)
     except JobError as exc:
         raise exc if exc.source else exc.located(str(plan.job_file))

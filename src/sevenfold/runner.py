@@ -136,24 +136,22 @@ def refuse_if_too_large(plan: Plan) -> None:
         )
 
 
-def prepare_problem(plan: Plan) -> Problem:
+def prepare_problem(plan: Plan) -> tuple[Plan, Problem]:
     """Load the files a job names and discretise it; every input error surfaces here,
-    including a method the problem does not allow (``fft`` on an ineligible problem)."""
+    including a method the problem does not allow (``fft`` on an ineligible problem).
+
+    Returns the plan settled on the built problem (the method it is really solved with, and
+    that method's memory) together with the problem.
+    """
     refuse_if_too_large(plan)
     try:
         arrays = _load_files(plan.spec, plan.job_file)
         problem = build_problem(plan.spec, arrays["material"], arrays["source"])
-        method_for(plan.spec.solver, problem)
-        return problem
+        method = method_for(plan.spec.solver, problem)
     except JobError as exc:
         raise exc.located(str(plan.job_file)) if not exc.source else exc
-
-
-def settle_plan(plan: Plan, problem: Problem) -> Plan:
-    """The plan once the problem is built: the method it is really solved with, and its memory."""
-    method = method_for(plan.spec.solver, problem)
     memory = estimate_bytes(plan.cells, problem.unknowns, method, derived_arrays(plan.spec))
-    return replace(plan, method=method, memory_bytes=memory)
+    return replace(plan, method=method, memory_bytes=memory), problem
 
 
 def derived_arrays(spec: JobSpec) -> int:
@@ -203,8 +201,7 @@ def run_job(
     job_file = Path(job_file)
     plan = plan_job(job_file, output, spec)
     spec = plan.spec
-    problem = prepare_problem(plan)
-    plan = settle_plan(plan, problem)
+    plan, problem = prepare_problem(plan)
     t_build = time.perf_counter()
 
     log = ResidualLog(log_path(plan.output))

@@ -71,7 +71,8 @@ def _check(variant: Variant, job_file: Path, source: str):
     refuse_if_too_large(dataclasses.replace(plan, available_bytes=total_bytes()))
     if plan.cells <= FULL_CHECK_CELLS:
         # The memory check belongs to the worker that will run the job, not to this machine now.
-        prepare_problem(dataclasses.replace(plan, available_bytes=2**62))
+        settled, _ = prepare_problem(dataclasses.replace(plan, available_bytes=2**62))
+        plan = dataclasses.replace(settled, available_bytes=plan.available_bytes)  # fft known now
     else:
         for key in FILE_KEYS:
             name = getattr(spec, key).file
