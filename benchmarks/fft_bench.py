@@ -21,9 +21,7 @@ one run, never times across runs.
 from __future__ import annotations
 
 import argparse
-import datetime
 import os
-import platform
 import sys
 import time
 from dataclasses import dataclass
@@ -38,6 +36,9 @@ sys.path.insert(0, str(HERE.parent / "src"))
 
 from sevenfold.problem import build_problem  # noqa: E402
 from sevenfold.solvers.fft import default_workers, fft_eligibility, residual_norm, solve_fft  # noqa: E402
+
+sys.path.insert(0, str(HERE))
+from run import machine  # noqa: E402  (one description of the machine for every RESULTS file)
 from sevenfold.spec import parse_job  # noqa: E402
 
 TARGET = 1.5  # fft path / bare transform pair
@@ -115,37 +116,6 @@ def bench(n: int, kind: str, repeats: int, workers: int) -> Row:
         fft_eligibility(problem)
         eligibility.append(time.perf_counter() - t)
     return Row(n, kind, workers, pair, fft, setups[best], residual, min(residual_check), min(eligibility))
-
-
-def machine() -> dict[str, str]:
-    cpu = "unknown"
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                cpu = line.split(":", 1)[1].strip()
-                break
-    except OSError:
-        pass
-    mem = "unknown"
-    try:
-        for line in Path("/proc/meminfo").read_text().splitlines():
-            if line.startswith("MemTotal:"):
-                mem = f"{int(line.split()[1]) / 2**20:.1f} GiB"
-    except OSError:
-        pass
-    import sevenfold
-
-    return {
-        "date": datetime.datetime.now().astimezone().strftime("%Y-%m-%d %H:%M %Z"),
-        "cpu": cpu,
-        "cores": f"{os.cpu_count()} (usable by this process: {len(os.sched_getaffinity(0))})",
-        "memory": mem,
-        "os": platform.platform(),
-        "python": platform.python_version(),
-        "numpy": np.__version__,
-        "scipy": scipy.__version__,
-        "sevenfold": sevenfold.__version__,
-    }
 
 
 def load_average() -> str:
