@@ -263,3 +263,19 @@ def test_amg_gives_the_same_answer_twice() -> None:
     state = np.random.get_state()
     solve_amg(system.matrix, system.rhs, 1e-10, 200)
     assert np.array_equal(np.random.get_state()[1], state[1])  # the caller's random state is left alone
+
+
+def test_a_solve_that_stops_improving_fails_as_stagnated() -> None:
+    """rtol 1e-30 lies below rounding: once the residual stops falling for the window, the
+    job fails with its history kept, rather than running to max_iterations."""
+    from sevenfold.solvers.cg import pcg
+
+    system = assemble(build_problem(make_spec(
+        grid={"cells": [6, 5, 4], "size": [1.0, 1.0, 1.0]}, source={"value": 1.0},
+        boundary={"x_min": {"type": "dirichlet", "value": 0.0}})))
+    A = system.matrix
+    with pytest.raises(SolverError, match="stagnated: no progress over the last 8 iterations") as info:
+        pcg(A, system.rhs, lambda r: r / A.diagonal(), 1e-30, 10_000, stagnation_window=8)
+    history = info.value.history
+    assert 8 < len(history) < 10_000
+    assert min(history) < 1e-12  # it did converge as far as rounding allows first
