@@ -55,9 +55,8 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
     name = result.solution
     u = result.array(name)
     units = result.units(name)
-    grid = result.spec.grid
-    h, o, n = grid.cell_spacing, grid.origin, grid.cells
-    edges = [o[a] + np.arange(n[a] + 1) * h[a] for a in range(3)]
+    edges = [result.edges(a) for a in range(3)]
+    n = [e.size - 1 for e in edges]
     centres = [0.5 * (e[1:] + e[:-1]) for e in edges]
     mids = [c // 2 for c in n]
     planes = [
