@@ -55,9 +55,28 @@ def balance_table(balance: dict, title: str = "balance") -> Table:
     return table
 
 
+def headline_table(headline: dict, title: str = "headline numbers") -> Table:
+    """A result's headline numbers (``attrs["headline"]``) as a two-column table."""
+    from .headline import headline_rows
+
+    table = Table(title=title, box=None, title_justify="left", show_header=False)
+    table.add_column("quantity", no_wrap=True)
+    table.add_column("value", overflow="fold")
+    for label, text in headline_rows(headline):
+        table.add_row(escape(label), escape(text))
+    return table
+
+
+def warn(text: str) -> None:
+    """One warning line (the cautions channel): printed, never a refusal."""
+    out.print(f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True)
+
+
 def _check(args: argparse.Namespace) -> int:
+    from .cautions import job_warnings
     from .memory import human
     from .runner import plan_job, prepare_problem
+    from .units import unit_notes
 
     plan = plan_job(args.job)
     plan, problem = prepare_problem(plan)  # settled: the method the built problem is solved with
@@ -80,9 +99,12 @@ def _check(args: argparse.Namespace) -> int:
         ("method", f"{plan.method}" + (" (chosen by auto)" if spec.solver.method == "auto" else "")),
         ("memory", f"about {human(plan.memory_bytes)} of {human(plan.available_bytes)} available"),
         ("output", str(plan.output)),
+        *(("units", note) for note in unit_notes(spec)),
     ):
-        table.add_row(key, value)
+        table.add_row(key, escape(value))
     out.print(table)
+    for w in job_warnings(spec, problem):
+        warn(w)
     out.print("[green]valid[/green]: the job file, its regions, files and boundary data all check out")
     return EXIT_OK
 
@@ -96,7 +118,9 @@ def _run(args: argparse.Namespace) -> int:
         TimeElapsedColumn(), console=out, transient=False, disable=args.quiet,
     ) as progress:
         task = progress.add_task(plan.spec.name, total=-math.log10(plan.spec.solver.rtol), info="building")
-        result = run_job(args.job, args.output, ProgressMonitor(progress, task, plan.spec.solver.rtol), plan.spec)
+        result = run_job(args.job, args.output, ProgressMonitor(progress, task, plan.spec.solver.rtol), plan.spec,
+                         on_warning=lambda text: progress.console.print(
+                             f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True))
     s = result.solve
     out.print(
         f"{'converged' if s.converged else 'stopped'}: {s.method}, {s.iterations} iterations, "
@@ -106,6 +130,8 @@ def _run(args: argparse.Namespace) -> int:
     )
     if result.balance is not None:
         out.print(balance_table(result.balance.to_dict()))
+    if result.headline is not None:
+        out.print(headline_table(result.headline))
     out.print(f"result: {escape(str(result.output))}")
     out.print(f"residuals: {escape(str(result.residual_log))}")
     if result.probes_csv is not None:
