@@ -186,7 +186,7 @@ def _converge(args: argparse.Namespace) -> int:
     def progress(level: int, cells) -> None:
         out.print(f"level {level}: {cells[0]} x {cells[1]} x {cells[2]} cells ...")
 
-    study = run_study(args.job, args.levels, args.ratio, args.folder, progress=progress)
+    study = run_study(args.job, args.levels, args.ratio, args.folder, progress=progress, datum=args.datum)
     levels = Table(title="levels", title_justify="left", box=None)
     for col in ("level", "cells", "h (m)", "ratio per axis"):
         levels.add_column(col)
@@ -194,14 +194,35 @@ def _converge(args: argparse.Namespace) -> int:
         levels.add_row(str(i), " x ".join(map(str, lv.cells)), f"{lv.h:.4g}",
                        "-" if i == 0 else ", ".join(f"{r:.4g}" for r in lv.ratios))
     out.print(levels)
+    if study.levels and study.levels[0].selected:
+        sel = Table(title="selected volume per level (m^3; cells whose centre lies in the shape)",
+                    title_justify="left", box=None)
+        sel.add_column("region")
+        sel.add_column("shape", justify="right")
+        for i in range(len(study.levels)):
+            sel.add_column(f"level {i}", justify="right")
+        for label, first in study.levels[0].selected.items():
+            sel.add_row(escape(label), f"{first['shape_volume']:.4g}",
+                        *(f"{lv.selected[label]['volume']:.4g}" if label in lv.selected else "-"
+                          for lv in study.levels))
+        out.print(sel)
+    for change in study.geometry_changes:
+        warn(change)
     table = Table(title="Grid Convergence Index on the finest level (Roache; Fs = 1.25)",
                   title_justify="left", box=None)
-    for col in ("quantity", "finest", "order p", "extrapolated", "GCI", "GCI %", "convergence"):
-        table.add_column(col, justify="left" if col in ("quantity", "convergence") else "right")
+    for col in ("quantity", "finest", "order p", "extrapolated", "GCI", "GCI %", "% of", "convergence"):
+        table.add_column(col, justify="left" if col in ("quantity", "convergence", "% of") else "right",
+                         no_wrap=col == "quantity")
     for key, r in study.results.items():
+        of = "range" if r.relative_to.startswith("range") else "datum" if "datum" in r.relative_to else "|f1|"
         table.add_row(escape(key), f"{r.f1:.6g}", f"{r.order:.3f}", f"{r.extrapolated:.6g}",
-                      f"{r.gci:.3g}", f"{100 * r.gci_relative:.3g}", r.convergence)
+                      f"{r.gci:.3g}", f"{100 * r.gci_relative:.3g}", of, r.convergence)
     out.print(table)
+    units = study.solution_units
+    scale = (f"|f1 - {study.datum:g} {units}| (--datum)" if study.datum is not None else
+             f"the range of the solution on the finest level, {study.levels[-1].solution_range:.4g} {units}")
+    out.print(f"GCI % of values of the solution (maximum, probes) is relative to {scale}; of flows and "
+              "charges, to |f1|", soft_wrap=True)
     png = plot_study(study, Path(study.folder) / "convergence.png")
     out.print(f"study: {escape(study.folder)} (study.json, level-*.zarr); figure: {escape(str(png))}")
     return EXIT_OK
@@ -259,6 +280,9 @@ def parser() -> argparse.ArgumentParser:
     cv.add_argument("--levels", type=int, default=3, help="number of grids, at least 3 (default 3)")
     cv.add_argument("--ratio", type=float, default=2.0, help="refinement ratio between levels (default 2)")
     cv.add_argument("--folder", help="where the levels go (default <output stem>.converge)")
+    cv.add_argument("--datum", type=float, metavar="VALUE",
+                    help="measure the relative GCI of solution values (maximum, probes) against their "
+                         "distance from VALUE (solution units, SI) instead of the solution's range")
     cv.set_defaults(func=_converge)
 
     rp = sub.add_parser("report", help="PNG figures and a one-page HTML summary of a result")
