@@ -38,6 +38,12 @@ class ProgressMonitor:
             info=f"iteration {iteration:4d}  residual {relative_residual:.2e}",
         )
 
+    def switched(self, info: dict) -> None:
+        """``auto`` changed method mid-solve: a marked line above the bar."""
+        from .queue.watch import switch_text
+
+        self.progress.console.print(f"[yellow]***[/yellow] {escape(switch_text(info))}", soft_wrap=True)
+
     def stop_requested(self) -> bool:
         return False
 
@@ -122,8 +128,10 @@ def _run(args: argparse.Namespace) -> int:
                          on_warning=lambda text: progress.console.print(
                              f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True))
     s = result.solve
+    switched = (f" (auto switched from {s.switch['from']} after {s.switch['after_iterations']} "
+                f"{s.switch['from']} iterations)" if s.switch else "")
     out.print(
-        f"{'converged' if s.converged else 'stopped'}: {s.method}, {s.iterations} iterations, "
+        f"{'converged' if s.converged else 'stopped'}: {s.method}{switched}, {s.iterations} iterations, "
         f"relative residual {s.final_relative_residual:.2e}, job {result.seconds['job']:.2f} s "
         f"(assembly {result.seconds['assemble']:.2f} s, setup {s.setup_seconds:.2f} s, "
         f"solve {s.solve_seconds:.2f} s, write {result.seconds['write']:.2f} s)"

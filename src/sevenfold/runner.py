@@ -203,12 +203,19 @@ def _load_files(spec: JobSpec, job_file: Path, shape: tuple[int, int, int]) -> d
 class _Logged:
     """Forwards progress to the residual log and to the caller's monitor."""
 
-    def __init__(self, log: ResidualLog, inner: Monitor) -> None:
-        self.log, self.inner = log, inner
+    def __init__(self, log: ResidualLog, inner: Monitor, method: str | None = None) -> None:
+        self.log, self.inner, self.method = log, inner, method
 
     def iteration(self, iteration: int, relative_residual: float, elapsed: float) -> None:
-        self.log.iteration(iteration, relative_residual, elapsed)
+        self.log.iteration(iteration, relative_residual, elapsed, self.method)
         self.inner.iteration(iteration, relative_residual, elapsed)
+
+    def switched(self, info: dict[str, Any]) -> None:
+        """``auto`` left one method for another: mark it in the log and tell the caller."""
+        self.log.switch(**info)
+        self.method = info.get("to", self.method)
+        if hasattr(self.inner, "switched"):
+            self.inner.switched(info)  # type: ignore[attr-defined]
 
     def stop_requested(self) -> bool:
         return self.inner.stop_requested()
@@ -242,7 +249,8 @@ def run_job(
     physics = PHYSICS[spec.physics]
     try:
         log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
-        u, result = solve_problem(problem, spec.solver, plan.method, _Logged(log, monitor or QuietMonitor()))
+        u, result = solve_problem(problem, spec.solver, plan.method,
+                                  _Logged(log, monitor or QuietMonitor(), plan.method))
         log.end(converged=True, iterations=result.iterations,
                 final_relative_residual=result.final_relative_residual)
     except SolverError as exc:
