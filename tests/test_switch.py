@@ -86,3 +86,7 @@ def test_show_and_log_of_a_switched_job(tmp_path: Path, slow_gmg, capsys) -> Non
     assert main(["log", str(j.id), "--home", str(home.root)]) == 0
     rows = capsys.readouterr().out.splitlines()
     assert sum("auto switched from gmg to amg" in r for r in rows) == 1
+    assert main(["watch", str(j.id), "--lines", "--home", str(home.root)]) == 0
+    text = capsys.readouterr().out
+    assert sum("*** auto switched from gmg to amg after 2 gmg iterations" in r for r in text.splitlines()) == 1
+    assert f"amg-sa {summary['iterations']} iterations (auto switched from gmg" in " ".join(text.split())

@@ -36,7 +36,7 @@ from typing import Any
 
 import numpy as np
 
-from .balance import Balance
+from .balance import Balance, _slabs  # x slabs bound the temporaries on large grids
 from .derived import flux
 from .grid import FACE_AXIS, Grid
 from .operator import conductances
@@ -46,7 +46,6 @@ from .spec import FACES, JobSpec
 from .volumes import geometry_changed, selection, true_volume
 
 SECONDS_PER_DAY = 86_400.0
-_SLAB_CELLS = 1 << 22
 
 
 def _at(grid: Grid, flat_index: int) -> list[float]:
@@ -119,12 +118,6 @@ def thermal_resistances(spec: JobSpec, problem: Problem, regions: list[dict[str,
             "resistance": (hot["mean"] - reference) / q if flows else None,
         })
     return out
-
-
-def _slabs(n: int, per_slab: int):
-    step = max(1, _SLAB_CELLS // max(per_slab, 1))
-    for i0 in range(0, n, step):
-        yield i0, min(n, i0 + step)
 
 
 def stored_energy(problem: Problem, u: np.ndarray) -> float:
@@ -259,8 +252,9 @@ def headline_rows(h: dict[str, Any]) -> list[tuple[str, str]]:
     for t in h.get("thermal_resistances", []):
         r = t["resistance"]
         text = (f"{_num(r, 4)} K/W" if r is not None else "- (no heat leaves there)")
-        rows.append((f"R {t['source']} -> {t['sink']}",
-                     f"{text}: ({_num(t['source_mean'])} - {_num(t['reference'])}) K / {_num(t['heat_flow'], 4)} W"))
+        rows.append((f"R to {t['sink']}",
+                     f"{text} from {t['source']}: ({_num(t['source_mean'])} - {_num(t['reference'])}) K / "
+                     f"{_num(t['heat_flow'], 4)} W"))
     pf = h.get("peak_field")
     if pf:
         mark = " [grid dependent: next to an electrode edge]" if pf["grid_dependent"] else ""
