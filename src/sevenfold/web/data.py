@@ -97,6 +97,7 @@ class LogFollower:
     def _reset(self, inode: int | None) -> None:
         self.inode = inode
         self.offset = 0
+        self.mtime = 0.0
         self.starts = 0
         self.skipped = 0
         self._clear_run()
@@ -107,7 +108,6 @@ class LogFollower:
         self.stride = 1
         self.points: list[tuple[int, float]] = []
         self.tail: deque[tuple[int, float, float]] = deque(maxlen=RATE_WINDOW + 1)
-        self.mtime = 0.0
 
     def update(self) -> None:
         """Read what was appended since the last look (the log may be replaced by a new run)."""
