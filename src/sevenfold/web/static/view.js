@@ -149,9 +149,14 @@
     }
     let x0 = Math.min(...pts.map((p) => p[0])), x1 = Math.max(...pts.map((p) => p[0]));
     let y0 = Math.min(...pts.map((p) => ty(p[1]))), y1 = Math.max(...pts.map((p) => ty(p[1])));
-    if (opt.hline !== undefined && opt.hline !== null && (!opt.logY || opt.hline > 0)) {
-      y0 = Math.min(y0, ty(opt.hline)); y1 = Math.max(y1, ty(opt.hline));
+    // a target line (rtol) widens the axis only when it is near the data: a solve far from
+    // its target keeps a readable plot and the label says where the target is
+    let hline = opt.hline, hlabel = opt.hlineLabel || "";
+    if (hline !== undefined && hline !== null && opt.logY && hline > 0 && ty(hline) < y0 - 4) {
+      hlabel += " (below the plot)"; hline = null;
     }
+    const hasLine = hline !== undefined && hline !== null && (!opt.logY || hline > 0);
+    if (hasLine) { y0 = Math.min(y0, ty(hline)); y1 = Math.max(y1, ty(hline)); }
     let yt;
     if (opt.logY) {
       y0 = Math.floor(y0); y1 = Math.ceil(y1); if (y1 === y0) y1 += 1;
@@ -180,16 +185,19 @@
       out.push(`<text class="tick" x="${x}" y="${H - B + 16}" text-anchor="middle">${esc(label)}</text>`);
     });
     out.push(`<rect class="frame" x="${L}" y="${T}" width="${W - L - R}" height="${H - T - B}"/>`);
-    if (opt.hline !== undefined && opt.hline !== null && (!opt.logY || opt.hline > 0)) {
-      const y = Y(opt.hline).toFixed(1);
+    if (hasLine) {
+      const y = Y(hline).toFixed(1);
       out.push(`<line class="hline" x1="${L}" x2="${W - R}" y1="${y}" y2="${y}"/>`);
-      out.push(`<text class="tick" x="${W - R - 4}" y="${y - 5}" text-anchor="end">${esc(opt.hlineLabel || "")}</text>`);
+      out.push(`<text class="tick" x="${L + 6}" y="${y - 5}">${esc(hlabel)}</text>`);
+    } else if (hlabel) {
+      out.push(`<text class="tick" x="${L + 6}" y="${H - B - 6}">${esc(hlabel)}</text>`);
     }
     series.forEach((s, i) => {
       const color = COLORS[i % COLORS.length];
       const good = s.points.filter((p) => p[1] !== null && isFinite(p[1]) && (!opt.logY || p[1] > 0));
       const d = good.map((p) => `${X(p[0]).toFixed(1)},${Y(p[1]).toFixed(1)}`).join(" ");
-      out.push(`<polyline class="series" data-points="${good.length}" stroke="${color}" points="${d}"/>`);
+      const lastX = good.length ? good[good.length - 1][0] : "";
+      out.push(`<polyline class="series" data-points="${good.length}" data-last="${lastX}" stroke="${color}" points="${d}"/>`);
       if (opt.markers || good.length <= 60)
         good.forEach((p) => out.push(`<circle cx="${X(p[0]).toFixed(1)}" cy="${Y(p[1]).toFixed(1)}" r="3" fill="${color}"><title>${esc(s.name ? s.name + ": " : "")}${esc(opt.xCategories ? opt.xCategories[p[0]] : num(p[0]))}, ${esc(num(p[1]))}</title></circle>`));
     });
