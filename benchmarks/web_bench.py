@@ -11,7 +11,8 @@ starts it (``sevenfold view --port 0``, its own process):
    full JSON, the same JSON when nothing changed, a running job's JSON, a done job's
    JSON, and the script. Baseline in the same run: ``sevenfold list --json`` on the same
    queue (what the terminal gives), reported as a ratio. With chromium, the time from
-   navigation to the table holding every row, in a real browser (5 loads);
+   navigation to the table's first screen drawn (200 rows; the page draws more as one
+   scrolls), in a real browser (5 loads after a first one);
 2. load: 20 clients poll the view (queue and one job each, every second, as the pages
    do) for ``--load-seconds`` while one worker drains 30 small jobs and ``list``/``show``
    run meanwhile; counts requests, failures, response times, commands that saw
@@ -142,7 +143,8 @@ def browser_load(base: str, token: str, n: int) -> dict | str:
             for _ in range(6):
                 t0 = time.perf_counter()
                 page.goto(f"{base}/?token={token}")
-                page.locator(f"#rows tr:nth-child({n})").wait_for(timeout=60_000)  # every row drawn
+                # the first screen: counts and the first rows drawn (more follow as one scrolls)
+                page.locator(f"#rows tr:nth-child({min(n, 200)})").wait_for(timeout=60_000)
                 times.append(time.perf_counter() - t0)
             b.close()
     except Exception as exc:
@@ -242,7 +244,7 @@ def write(results: Path, m: dict, pages: dict, ld: dict) -> None:
     lines += ["## Targets", "", "| target | measured | verdict |", "|---|---|---|",
               f"| a page with {pages['jobs']:,} jobs loads in under {PAGE_TARGET:g} s | HTTP: page + all rows "
               f"median {ms(http['queue page (HTML)']['median'] + http['queue JSON, all rows']['median'])}, "
-              f"worst {ms(slowest)}; browser, navigation to {pages['jobs']:,} rows drawn: "
+              f"worst {ms(slowest)}; browser, navigation to the first 200 rows drawn: "
               + (f"median {ms(b['median'])}, max {ms(b['max'])}" if isinstance(b, dict) else b)
               + f" | {'met' if (isinstance(b, dict) and b['max'] < PAGE_TARGET and slowest < PAGE_TARGET) else 'see numbers'} |",
               f"| 20 clients polling for {ld['seconds']:.0f} s while a worker drains 30 jobs: nothing lost, "

@@ -286,3 +286,31 @@ def test_static_files_are_served_from_the_package(client) -> None:
     assert js.status_code == 200 and "function plot(" in js.text
     assert "http://" not in js.text and "https://" not in js.text  # nothing fetched from elsewhere
     assert client.get("/static/view.css").status_code == 200
+
+
+def test_the_view_listens_on_loopback_and_refuses_a_busy_port(tmp_path: Path) -> None:
+    import socket
+    import subprocess
+    import sys
+
+    from sevenfold.web.serve import is_loopback
+
+    assert is_loopback("127.0.0.1") and is_loopback("localhost") and is_loopback("::1")
+    assert not is_loopback("0.0.0.0") and not is_loopback("192.0.2.7")
+    with socket.socket() as taken:
+        taken.bind(("127.0.0.1", 0))
+        taken.listen(1)
+        port = taken.getsockname()[1]
+        proc = subprocess.run([sys.executable, "-m", "sevenfold.cli", "view", "--home", str(tmp_path),
+                               "--port", str(port)], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 2 and f"cannot listen on 127.0.0.1:{port}" in proc.stderr
+    assert "choose another --port" in proc.stderr and "Traceback" not in proc.stderr
+
+
+def test_on_loopback_only_this_machines_names_are_served(queue_home) -> None:
+    home, _ = queue_home
+    app = create_app(home.root, TOKEN, ["127.0.0.1", "localhost"])
+    assert TestClient(app, base_url="http://127.0.0.1:8765").get("/api/queue").status_code == 200
+    assert TestClient(app, base_url="http://localhost:9999").get("/api/queue").status_code == 200
+    # a name of another site made to point at 127.0.0.1 (DNS rebinding) reads nothing
+    assert TestClient(app, base_url="http://attacker.example:8765").get("/api/queue").status_code == 400

@@ -2,7 +2,7 @@
 
 Nothing may be lost (every job done, started exactly once), no request may fail, and the
 queue's own commands, run meanwhile as users run them, never see "database is locked".
-The clients poll for ``SEVENFOLD_WEB_LOAD_SECONDS`` (default 20 s here, to keep CI short;
+The clients poll for ``SEVENFOLD_WEB_LOAD_SECONDS`` (default 15 s here, to keep CI short;
 ``benchmarks/web_bench.py`` runs the full minute) or until the worker is done, whichever
 is later.
 """
@@ -20,7 +20,7 @@ from sevenfold.queue.files import read_runs
 from queue_support import WorkerProcess, cli, make_home, small_job, submit
 from web_support import Pollers, ViewProcess
 
-SECONDS = float(os.environ.get("SEVENFOLD_WEB_LOAD_SECONDS", "20"))
+SECONDS = float(os.environ.get("SEVENFOLD_WEB_LOAD_SECONDS", "15"))
 
 
 def test_twenty_polling_clients_while_a_worker_drains_thirty_jobs(tmp_path: Path, warm_cache: Path) -> None:

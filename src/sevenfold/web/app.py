@@ -13,6 +13,7 @@ from __future__ import annotations
 import html
 import secrets
 import string
+import threading
 from importlib import resources
 from pathlib import Path
 from typing import Any, Callable
@@ -20,11 +21,13 @@ from typing import Any, Callable
 from starlette.applications import Starlette
 from starlette.middleware import Middleware
 from starlette.middleware.gzip import GZipMiddleware
+from starlette.middleware.trustedhost import TrustedHostMiddleware
 from starlette.requests import Request
 from starlette.responses import HTMLResponse, JSONResponse, Response
 from starlette.routing import Mount, Route
 from starlette.staticfiles import StaticFiles
 
+from ..errors import QueueError
 from ..queue.commands import duration, public, show_rows
 from ..queue.db import STATES, Job, Queue, stamp
 from .data import Logs, NoQueue, NotFound, Reader, Results, now
@@ -78,12 +81,19 @@ class BadRequest(Exception):
     pass
 
 
-def create_app(home_root: str | Path, token: str | None = None) -> Starlette:
-    """The view of the queue in ``home_root``; actions need ``token`` (a random one if None)."""
+def create_app(home_root: str | Path, token: str | None = None,
+               allowed_hosts: list[str] | None = None) -> Starlette:
+    """The view of the queue in ``home_root``; actions need ``token`` (a random one if None).
+
+    ``allowed_hosts``: the host names requests may address (others get 400), so a web page
+    whose name is made to point at 127.0.0.1 cannot read the queue; None allows any.
+    """
     reader = Reader(Path(home_root))
     logs, results = Logs(), Results()
     token = token or secrets.token_urlsafe(24)
     template = _page_template()
+    rows_cache: dict[tuple, list[dict[str, Any]]] = {}  # (version, state, batch) -> the queue's rows
+    rows_lock = threading.Lock()
 
     def page(kind: str, title: str, data: dict[str, Any], status: int = 200) -> HTMLResponse:
         attrs = " ".join(f'data-{k}="{html.escape(str(v), quote=True)}"' for k, v in data.items())
@@ -105,6 +115,9 @@ def create_app(home_root: str | Path, token: str | None = None) -> Starlette:
                 return JSONResponse({"error": str(exc)}, status_code=404)
             except BadRequest as exc:
                 return JSONResponse({"error": str(exc)}, status_code=400)
+            except (QueueError, OSError) as exc:  # the database or a file could not be read now
+                return JSONResponse({"error": f"could not read the queue: {exc}"}, status_code=503,
+                                    headers={"Cache-Control": "no-store"})
             if isinstance(body, Response):
                 return body
             return JSONResponse(body, headers={"Cache-Control": "no-store"})
@@ -160,8 +173,16 @@ def create_app(home_root: str | Path, token: str | None = None) -> Starlette:
             "jobs": None,
         }
         if request.query_params.get("since") != version:
-            jobs = q.jobs(state=state, batch=batch)
-            out["jobs"] = [_row(j, t, live.get(j.id)) for j in jobs]
+            key = (version, state, batch)
+            with rows_lock:
+                rows = rows_cache.get(key)
+            if rows is None:  # the first client to see a change builds the rows for all
+                rows = [_row(j, t, live.get(j.id)) for j in q.jobs(state=state, batch=batch)]
+                with rows_lock:
+                    rows_cache[key] = rows
+                    while len(rows_cache) > 8:
+                        rows_cache.pop(next(iter(rows_cache)))
+            out["jobs"] = rows
         return out
 
     def job_data(request: Request) -> dict[str, Any]:
@@ -277,7 +298,10 @@ def create_app(home_root: str | Path, token: str | None = None) -> Starlette:
         Route("/figures/{id:int}/{kind:str}.png", figure),
         Mount("/static", StaticFiles(directory=str(_package_dir("static"))), name="static"),
     ]
-    app = Starlette(routes=routes, middleware=[Middleware(GZipMiddleware, minimum_size=2000)])
+    middleware = [Middleware(GZipMiddleware, minimum_size=2000)]
+    if allowed_hosts:
+        middleware.insert(0, Middleware(TrustedHostMiddleware, allowed_hosts=allowed_hosts))
+    app = Starlette(routes=routes, middleware=middleware)
     app.state.token = token
     app.state.reader = reader
     return app

@@ -53,7 +53,9 @@ def serve(home: str | None, host: str, port: int) -> int:
 
     root = home_root(home)
     token = secrets.token_urlsafe(24)
-    app = create_app(root, token)
+    # on 127.0.0.1 only names of this machine may be asked for (an SSH tunnel keeps them)
+    hosts = ["127.0.0.1", "localhost"] if host in ("127.0.0.1", "localhost") else None
+    app = create_app(root, token, hosts)
     sock = bind(host, port)
     bound_port = sock.getsockname()[1]
     shown = f"[{host}]" if ":" in host else host

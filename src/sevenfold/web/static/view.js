@@ -5,6 +5,7 @@
 (function () {
   const TOKEN = new URLSearchParams(location.search).get("token") || "";
   const MAX_POINTS = 2000;
+  const PAGE_ROWS = 200;
   const body = document.body;
   const main = document.getElementById("main");
   const STATES = ["queued", "running", "done", "failed", "cancelled"];
@@ -228,14 +229,16 @@
         <span id="counts"></span><span id="workers" class="muted"></span>
       </section>
       <p id="message" class="message"></p>
-      <table class="jobs"><thead><tr>
+      <table class="jobs"><colgroup><col class="c-id"><col class="c-name"><col class="c-state"><col class="c-batch">
+        <col class="c-prio"><col class="c-tries"><col class="c-time"><col class="c-ran"><col class="c-method">
+        <col class="c-iters"><col class="c-res"><col class="c-note">${TOKEN ? '<col class="c-act">' : ""}</colgroup><thead><tr>
         <th>id</th><th>name</th><th>state</th><th>batch</th><th>prio</th><th>tries</th><th>submitted</th>
         <th>ran</th><th>method</th><th>iters</th><th>residual</th><th>note</th>${TOKEN ? "<th></th>" : ""}
       </tr></thead><tbody id="rows"></tbody></table>`;
     const sel = document.getElementById("f-state"), inp = document.getElementById("f-batch");
     sel.value = state; inp.value = batch;
     function filtersChanged() {
-      state = sel.value; batch = inp.value.trim(); version = null;
+      state = sel.value; batch = inp.value.trim(); version = null; shown = PAGE_ROWS;
       const q = new URLSearchParams();
       if (state) q.set("state", state);
       if (batch) q.set("batch", batch);
@@ -259,6 +262,24 @@
         `<td class="num res">${sci(j.residual)}</td><td class="note" title="${esc(note)}">${esc(note && note.length > 80 ? note.slice(0, 77) + "…" : note)}</td>` +
         (TOKEN ? `<td>${actionButtons(j)}</td>` : "") + "</tr>";
     }
+    // Rows are drawn PAGE_ROWS at a time, more as the last one scrolls into view: a queue of
+    // thousands of jobs still draws its first screen at once, and redraws stay cheap.
+    let jobs = [], shown = PAGE_ROWS;
+    const more = new IntersectionObserver((entries) => {
+      if (entries.some((e) => e.isIntersecting) && shown < jobs.length) { shown += PAGE_ROWS; draw(); }
+    });
+    function draw() {
+      more.disconnect();
+      if (!jobs.length) {
+        rows.innerHTML = `<tr><td colspan="13" class="muted">no jobs${state || batch ? " match these filters" : ""}</td></tr>`;
+        return;
+      }
+      const rest = jobs.length - shown;
+      rows.innerHTML = jobs.slice(0, shown).map(row).join("") + (rest > 0
+        ? `<tr id="more-rows"><td colspan="13" class="muted">${rest} more job(s) below: scroll on to show them</td></tr>` : "");
+      const m = document.getElementById("more-rows");
+      if (m) more.observe(m);
+    }
     const poll = poller(async () => {
       const q = new URLSearchParams();
       if (state) q.set("state", state);
@@ -272,8 +293,8 @@
         : "· no worker running";
       if (d.jobs) {
         version = d.version;
-        rows.innerHTML = d.jobs.length ? d.jobs.map(row).join("")
-          : `<tr><td colspan="13" class="muted">no jobs${state || batch ? " match these filters" : ""}</td></tr>`;
+        jobs = d.jobs;
+        draw();
       }
       for (const id in d.live) {
         const tr = document.getElementById("job-" + id);
