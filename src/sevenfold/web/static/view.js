@@ -133,11 +133,24 @@
     const raw = (hi - lo) / n, mag = Math.pow(10, Math.floor(Math.log10(raw)));
     const step = [1, 2, 5, 10].map((m) => m * mag).find((s) => s >= raw) || 10 * mag;
     const ticks = [];
-    for (let t = Math.ceil(lo / step) * step; t <= hi + step * 1e-9; t += step) ticks.push(+t.toPrecision(12));
+    const first = Math.floor(lo / step + 1e-9) * step, last = Math.ceil(hi / step - 1e-9) * step;
+    for (let t = first; t <= last + step * 1e-9; t += step) ticks.push(+t.toPrecision(12));
     return ticks;
   }
   function plot(svg, series, opt) {
-    const W = 640, H = 300, L = 72, R = 16, T = 14, B = 42;
+    const W = 640, H = 300, L = 72, R = 16, B = 42;
+    // a legend (several series) goes in rows above the frame: it never hides a point
+    const legend = [];
+    if (series.length > 1) {
+      let x = L, row = 0;
+      series.forEach((s, i) => {
+        const w = 22 + 6.4 * String(s.name).length;
+        if (x + w > W - R && x > L) { x = L; row += 1; }
+        legend.push({ x, row, i, name: s.name });
+        x += w;
+      });
+    }
+    const T = 14 + (legend.length ? 15 * (legend[legend.length - 1].row + 1) : 0);
     const ty = (y) => (opt.logY ? Math.log10(y) : y);
     const pts = [];
     series.forEach((s) => s.points.forEach((p) => {
@@ -202,13 +215,11 @@
       if (opt.markers || good.length <= 60)
         good.forEach((p) => out.push(`<circle cx="${X(p[0]).toFixed(1)}" cy="${Y(p[1]).toFixed(1)}" r="3" fill="${color}"><title>${esc(s.name ? s.name + ": " : "")}${esc(opt.xCategories ? opt.xCategories[p[0]] : num(p[0]))}, ${esc(num(p[1]))}</title></circle>`));
     });
-    if (series.length > 1) {
-      series.forEach((s, i) => {
-        const y = T + 12 + i * 15;
-        out.push(`<rect x="${W - R - 176}" y="${y - 8}" width="10" height="10" fill="${COLORS[i % COLORS.length]}"/>`);
-        out.push(`<text class="legend" x="${W - R - 162}" y="${y + 1}">${esc(s.name)}</text>`);
-      });
-    }
+    legend.forEach((e) => {
+      const y = 8 + e.row * 15;
+      out.push(`<rect x="${e.x}" y="${y}" width="10" height="10" fill="${COLORS[e.i % COLORS.length]}"/>`);
+      out.push(`<text class="legend" x="${e.x + 14}" y="${y + 9}">${esc(e.name)}</text>`);
+    });
     out.push(`<text class="label" x="${(L + W - R) / 2}" y="${H - 6}" text-anchor="middle">${esc(opt.xLabel || "")}</text>`);
     out.push(`<text class="label" transform="translate(14 ${(T + H - B) / 2}) rotate(-90)" text-anchor="middle">${esc(opt.yLabel || "")}</text>`);
     svg.innerHTML = out.join("");
@@ -396,7 +407,7 @@
         <label>against <select id="f-x"></select></label>
       </section>
       ${svgBox("batchplot")}
-      <table class="jobs" id="batch-table"></table>`;
+      <table class="jobs auto" id="batch-table"></table>`;
     const qs = document.getElementById("f-q"), xs = document.getElementById("f-x");
     function changed() {
       quantity = qs.value; xkey = xs.value;
