@@ -57,6 +57,7 @@ def serve(home: str | None, host: str, port: int) -> int:
     hosts = ["127.0.0.1", "localhost"] if host in ("127.0.0.1", "localhost") else None
     app = create_app(root, token, hosts)
     sock = bind(host, port)
+    from .. import export, store  # noqa: F401  (zarr and pydantic: imported now, not on the first page)
     bound_port = sock.getsockname()[1]
     shown = f"[{host}]" if ":" in host else host
     if not root.is_dir():
