@@ -69,7 +69,7 @@
   // Calls fn every `interval` ms (one call at a time), slower while the tab is hidden and
   // after errors (up to 15 s), so a page left open overnight neither floods nor gives up.
   function poller(fn, interval) {
-    let delay = interval, timer = null, busy = false, again = false;
+    let delay = interval, timer = null, busy = false, again = false, outage = false;
     async function tick() {
       clearTimeout(timer);
       if (busy) { again = true; return; }
@@ -77,9 +77,11 @@
       try {
         await fn();
         setStatus("live · " + new Date().toLocaleTimeString());
+        if (outage) { say(""); outage = false; }
         delay = interval;
       } catch (e) {
         setStatus((e.status === 503 ? "" : "connection: ") + e.message + " · retrying", true);
+        if (e.status === 503) { say(e.message + " (this page keeps looking)", true); outage = true; }
         delay = Math.min(Math.max(delay * 2, 2000), 15000);
       }
       busy = false;
