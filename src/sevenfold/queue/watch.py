@@ -80,12 +80,13 @@ class Progress:
     history: list[float]
     seconds: list[float]
     ended: dict[str, Any] | None
+    first: int = 0  # the iteration of history[0]: a viewer may keep only the last few
     switches: tuple[dict[str, Any], ...] = ()
     rows: tuple[dict[str, Any], ...] = ()
 
     @property
     def iteration(self) -> int | None:
-        return len(self.history) - 1 if self.history else None
+        return self.first + len(self.history) - 1 if self.history else None
 
     @property
     def method(self) -> str | None:
@@ -126,7 +127,7 @@ def read_progress(output: str | Path, since: float | None = None) -> Progress:
             history.append(float(rec["relative_residual"]))
             seconds.append(float(rec.get("seconds", 0.0)))
             rows.append(rec)
-    return Progress(started, history, seconds, ended, tuple(switches), tuple(rows))
+    return Progress(started, history, seconds, ended, switches=tuple(switches), rows=tuple(rows))
 
 
 def switch_text(switch: dict[str, Any]) -> str:
@@ -172,13 +173,14 @@ def describe(p: Progress) -> str:
         if left is None and f is not None:
             parts.append(f"not approaching rtol {p.rtol:.0e} at this rate")
         elif left is not None and left > 0:
-            per = _seconds_per_iteration(p)
+            per = seconds_per_iteration(p)
             eta = f", about {left * per:.0f} s" if per is not None else ""
             parts.append(f"about {left} more to rtol {p.rtol:.0e}{eta}")
     return ", ".join(parts)
 
 
-def _seconds_per_iteration(p: Progress) -> float | None:
+def seconds_per_iteration(p: Progress) -> float | None:
+    """Mean seconds per iteration over the last :data:`RATE_WINDOW` iterations."""
     w = min(RATE_WINDOW, len(p.seconds) - 1)
     if w < 1:
         return None
