@@ -90,3 +90,14 @@ def test_show_and_log_of_a_switched_job(tmp_path: Path, slow_gmg, capsys) -> Non
     text = capsys.readouterr().out
     assert sum("*** auto switched from gmg to amg after 2 gmg iterations" in r for r in text.splitlines()) == 1
     assert f"amg-sa {summary['iterations']} iterations (auto switched from gmg" in " ".join(text.split())
+
+
+def test_the_web_view_follows_a_switch(tmp_path: Path, slow_gmg) -> None:
+    from sevenfold.web.data import LogFollower
+
+    result = run_job(_job(tmp_path, "web-switch"))
+    follower = LogFollower(result.residual_log)
+    follower.update()
+    p = follower.progress()
+    assert follower.skipped == 0 and p.iteration == result.solve.iterations and p.method == "amg"
+    assert describe(p).startswith("auto switched from gmg to amg")
