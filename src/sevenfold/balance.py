@@ -1,8 +1,8 @@
 """The balance of a solved problem: sources, flows out through the six faces, flows into holds.
 
 Every flow is computed from the same discrete fluxes the operator uses, so that summing the
-free cells' equations gives ``source = sum(face outflows) + sum(hold inflows)`` up to the
-solver's residual (the imbalance is the volume-weighted sum of the residuals b - A u).
+free cells' equations gives ``source = sum(face outflows) + sum(hold inflows)
++ sum(exchange outflows)`` up to the solver's residual (the imbalance is the volume-weighted sum of the residuals b - A u).
 
 * Source: sum of f V over the cells not in a hold. Held cells' sources are not part of the
   equations and are left out. For a pure-Neumann problem, f is the rounding-adjusted source
@@ -10,6 +10,11 @@ solver's residual (the imbalance is the volume-weighted sum of the residuals b -
   its equation is implied by the others because the adjusted sources balance exactly.
 * Face outflow (positive leaving the domain), for every boundary cell of the face, held or
   free: ``-(G (value - u_P) + q) A``.
+* Patch outflow: the part of its face's outflow through the boundary faces a ``[[patch]]``
+  owns (where patches overlap, the later one). Face lines include their patches, so the
+  patch lines are a breakdown and take no part in the imbalance.
+* Exchange outflow (positive leaving the domain into the reference): ``c V (u_P - reference)``
+  summed over the free cells of an ``[[exchange]]``.
 * Hold inflow (positive into the hold): the flux from every neighbouring cell that is not in
   the same hold, ``T_PN (u_N - u_P)`` with the operator's face conductance T, minus what the hold's own cells
   lose through boundary faces. That is what the agent keeping the hold at its value must
@@ -26,6 +31,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from .conditions import exchange_outflow
 from .grid import FACE_AXIS, Grid
 from .operator import conductances
 from .problem import Problem
@@ -48,6 +54,25 @@ class HoldFlow:
 
 
 @dataclass(frozen=True)
+class PatchFlow:
+    """One ``[[patch]]``: outflow through the boundary faces it owns (a part of its face's line)."""
+
+    name: str
+    face: str
+    area: float  # m^2 of the faces the patch selects
+    outflow: float  # amount per time leaving the domain, positive out
+
+
+@dataclass(frozen=True)
+class ExchangeFlow:
+    """One ``[[exchange]]``: the amount its free cells send into its reference."""
+
+    name: str
+    cells: int
+    outflow: float  # amount per time leaving the domain into the reference, positive out
+
+
+@dataclass(frozen=True)
 class Balance:
     """Sources, face outflows and hold inflows of one solution, in ``units``."""
 
@@ -58,6 +83,8 @@ class Balance:
     imbalance: float = 0.0  # source - sum(faces) - sum(hold inflows)
     scale: float = 0.0  # the largest term's magnitude
     relative_imbalance: float = 0.0  # |imbalance| / scale (0 when every term is 0)
+    patches: list[PatchFlow] = field(default_factory=list)  # a breakdown of the faces' lines
+    exchanges: list[ExchangeFlow] = field(default_factory=list)
 
     def to_dict(self) -> dict:
         """JSON-friendly form for the result attributes."""
@@ -155,10 +182,25 @@ def compute_balance(problem: Problem, u: np.ndarray, units: str = "1",
         value = float(values[i]) if values is not None and i < len(values) else float("nan")
         holds.append(HoldFlow(i, name, value, int(cells[i]), float(inflow[i]),
                               -float(inflow[i]) if charges else None))
-    imbalance = source - sum(faces.values()) - float(inflow.sum())
-    scale = max([abs(source), *map(abs, faces.values()), *map(abs, inflow)], default=0.0)
+    patches, exchanges = placed_flows(problem, u)
+    exchanged = [e.outflow for e in exchanges]
+    imbalance = source - sum(faces.values()) - float(inflow.sum()) - sum(exchanged)
+    scale = max([abs(source), *map(abs, faces.values()), *map(abs, inflow), *map(abs, exchanged)],
+                default=0.0)
     relative = abs(imbalance) / scale if scale > 0 else 0.0
-    return Balance(units, source, faces, holds, imbalance, scale, relative)
+    return Balance(units, source, faces, holds, imbalance, scale, relative, patches, exchanges)
+
+
+def placed_flows(problem: Problem, u: np.ndarray) -> tuple[list[PatchFlow], list[ExchangeFlow]]:
+    """Each patch's outflow through the faces it owns (later patches own overlaps; the faces'
+    own lines include their patches) and each exchange's outflow into its reference."""
+    patches = []
+    for p in problem.patches:
+        out = face_outflow_density(problem, u, p.face) * problem.grid.face_areas(FACE_AXIS[p.face][0])
+        patches.append(PatchFlow(p.name, p.face, p.area, float(out[p.owned].sum())))
+    exchanges = [ExchangeFlow(e.name, int(np.count_nonzero(~problem.held.reshape(-1)[e.cells])),
+                              exchange_outflow(e, u, problem.held)) for e in problem.exchanges]
+    return patches, exchanges
 
 
 def balance_rows(balance: dict) -> list[tuple[str, float]]:
@@ -169,6 +211,10 @@ def balance_rows(balance: dict) -> list[tuple[str, float]]:
     rows: list[tuple[str, float]] = [("source (free cells)", balance["source"])]
     for face, v in balance["faces"].items():
         rows.append((f"out through {face}", v))
+        rows.extend((f"  of which through patch {p['name']}", p["outflow"])
+                    for p in balance.get("patches", []) if p["face"] == face)
+    for e in balance.get("exchanges", []):
+        rows.append((f"out into exchange {e['name']}", e["outflow"]))
     for h in balance["holds"]:
         if h.get("charge") is not None:
             rows.append((f"charge on {h['name']} ({h['value']:g})", h["charge"]))

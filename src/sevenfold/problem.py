@@ -15,6 +15,8 @@ import numpy as np
 
 from . import fields
 from .boundary import FaceTerms, face_terms
+from .conditions import (ContactTerms, ExchangeTerms, PatchTerms, apply_patches, build_contacts,
+                         build_exchanges)
 from .errors import JobError
 from .grid import FACE_AXIS, Grid, grid_from_spec
 from .physics import PHYSICS
@@ -38,6 +40,11 @@ class Problem:
     # Which [[hold]] holds each cell (the last listed that covers it), -1 elsewhere; the cell
     # pinned in a pure-Neumann problem is held but belongs to no hold. None: not recorded.
     hold_index: np.ndarray | None = None
+    # [[patch]], [[exchange]] and [[contact]] tables as discretised (see conditions.py); the
+    # patches are already part of ``faces``, kept here for the balance and the report.
+    patches: tuple[PatchTerms, ...] = ()
+    exchanges: tuple[ExchangeTerms, ...] = ()
+    contacts: tuple[ContactTerms, ...] = ()
 
     @property
     def unknowns(self) -> int:
@@ -68,7 +75,9 @@ def build_problem(
     physics = PHYSICS[spec.physics]
     k = fields.coefficient(spec.material, grid, physics.coefficient_scale, coefficient_file)
     f = fields.source(spec.source, grid, source_file)
-    faces = face_terms(spec.boundary, grid, k)
+    faces, patches = apply_patches(spec.patch, grid, k, face_terms(spec.boundary, grid, k))
+    placed = dict(patches=patches, exchanges=build_exchanges(spec.exchange, grid),
+                  contacts=build_contacts(spec.contact, grid))
 
     held = np.zeros(grid.shape, dtype=np.bool_)
     held_value = np.zeros(grid.shape, dtype=np.float64)
@@ -80,9 +89,11 @@ def build_problem(
     if held.all():
         raise JobError("every cell is held; nothing is left to solve", "hold")
 
-    fixed = held.any() or any(t.kind != "neumann" for t in faces.values())
+    # fixed by a hold, a face or patch with a conductance (dirichlet, robin), or an exchange
+    fixed = (held.any() or any(t.conductance.any() for t in faces.values())
+             or any(e.conductance.any() for e in placed["exchanges"]))
     if fixed:
-        return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index)
+        return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index, **placed)
 
     inflow = neumann_inflow(faces, grid)
     generated = grid.integrate(f)
@@ -98,7 +109,8 @@ def build_problem(
         )
     f = f - imbalance / float(np.prod(grid.extent))
     held[0, 0, 0] = True  # pin: with a balanced right-hand side the pinned equation holds too
-    return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True, hold_index=hold_index)
+    return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True, hold_index=hold_index,
+                   **placed)
 
 
 def complete_field(problem: Problem, u: np.ndarray) -> np.ndarray:

@@ -527,6 +527,113 @@ class HoldSpec(_Shaped):
     _v = field_validator("value", mode="before")(lambda cls, v: _number(v))
 
 
+# ---------------------------------------------------------------- patches, exchanges, contacts
+def _not_negative(v: Any, what: str) -> Any:
+    if isinstance(v, float) and v < 0:
+        raise ValueError(f"{what} must not be negative, got {v}")
+    return v
+
+
+def _unique_names(items: tuple[Any, ...], table: str) -> None:
+    seen: set[str] = set()
+    for i, item in enumerate(items):
+        if item.name is None:
+            continue
+        if item.name in seen:
+            raise ValueError(f"{table}.{i}.name: {item.name!r} is used by an earlier {table}")
+        seen.add(item.name)
+
+
+# The keys each condition type takes, on a face or a patch.
+CONDITION_KEYS = {"dirichlet": ("value",), "neumann": ("flux", "total"), "robin": ("coefficient", "reference")}
+
+
+class PatchSpec(_Frozen):
+    """A condition on part of one face: the boundary faces of ``face`` whose centres lie in
+    ``box``. The keys are those of ``boundary.<face>``; a neumann patch may give ``total`` (an
+    amount per unit time into the domain over the whole patch) instead of ``flux``. A robin
+    ``coefficient`` of 0 is accepted (insulated there)."""
+
+    face: str
+    box: Box
+    type: Literal["dirichlet", "neumann", "robin"]
+    name: str | None = None
+    value: Scalar | None = None
+    flux: Scalar | None = None
+    total: float | None = None
+    coefficient: Scalar | None = None
+    reference: Scalar | None = None
+
+    _s = field_validator("value", "flux", "coefficient", "reference", mode="before")(
+        lambda cls, v: _scalar(v))
+    _t = field_validator("total", mode="before")(lambda cls, v: _number(v))
+
+    @field_validator("face")
+    @classmethod
+    def _face(cls, v: str) -> str:
+        if v not in FACES:
+            raise ValueError(f"unknown face {v!r}; expected one of {', '.join(FACES)}")
+        return v
+
+    @model_validator(mode="after")
+    def _keys(self) -> "PatchSpec":
+        own = CONDITION_KEYS[self.type]
+        for key in ("value", "flux", "total", "coefficient", "reference"):
+            if getattr(self, key) is not None and key not in own:
+                raise ValueError(f"a {self.type} patch takes {' and '.join(own)}, not {key}")
+        if self.type == "dirichlet" and self.value is None:
+            raise ValueError("a dirichlet patch needs value")
+        if self.type == "robin" and (self.coefficient is None or self.reference is None):
+            raise ValueError("a robin patch needs coefficient and reference")
+        if self.flux is not None and self.total is not None:
+            raise ValueError("give flux (per unit area) or total (over the patch), not both")
+        _not_negative(self.coefficient, "coefficient")
+        return self
+
+
+class ExchangeSpec(_Shaped):
+    """Cells inside the shape exchange with a ``reference``: each gains
+    coefficient * V * (reference - u) per unit time. ``coefficient`` is per unit volume;
+    ``conductance`` instead gives the whole region's, spread over its cells by volume."""
+
+    coefficient: Scalar | None = None
+    conductance: float | None = None
+    reference: Scalar
+    name: str | None = None
+
+    _s = field_validator("coefficient", "reference", mode="before")(lambda cls, v: _scalar(v))
+    _g = field_validator("conductance", mode="before")(lambda cls, v: _positive(v, "conductance"))
+
+    @model_validator(mode="after")
+    def _one_amount(self) -> "ExchangeSpec":
+        given = [k for k in ("coefficient", "conductance") if getattr(self, k) is not None]
+        if len(given) != 1:
+            raise ValueError("give exactly one of coefficient (per unit volume) or conductance "
+                             "(for the whole region)" + (", not both" if given else ""))
+        if isinstance(self.coefficient, float) and not self.coefficient > 0:
+            raise ValueError(f"coefficient must be positive, got {self.coefficient}")
+        return self
+
+
+class ContactSpec(_Frozen):
+    """A resistance per unit area on the interior cell faces lying on the plane ``axis`` =
+    ``at`` (a cell edge), optionally only those whose centres lie in ``box``; it acts in
+    series with the conductance between the two cells."""
+
+    axis: Literal["x", "y", "z"]
+    at: float
+    resistance: float
+    box: Box | None = None
+    name: str | None = None
+
+    _a = field_validator("at", mode="before")(lambda cls, v: _number(v))
+
+    @field_validator("resistance", mode="before")
+    @classmethod
+    def _resistance(cls, v: Any) -> Any:
+        return _not_negative(_number(v), "resistance")
+
+
 # ---------------------------------------------------------------- solver, output
 class SolverSpec(_Frozen):
     method: Literal["auto", "gmg", "amg", "direct", "fft"] = "auto"
@@ -646,6 +753,9 @@ class JobSpec(_Frozen):
     solver: SolverSpec = SolverSpec()
     output: OutputSpec = OutputSpec()
     probe: tuple[ProbeSpec, ...] = ()
+    patch: tuple[PatchSpec, ...] = ()
+    exchange: tuple[ExchangeSpec, ...] = ()
+    contact: tuple[ContactSpec, ...] = ()
 
     @field_validator("name")
     @classmethod
@@ -666,6 +776,9 @@ class JobSpec(_Frozen):
                 )
         if len(set(self.output.fields)) != len(self.output.fields):
             raise ValueError("output.fields: a field is listed twice")
+        _unique_names(self.patch, "patch")
+        _unique_names(self.exchange, "exchange")
+        _unique_names(self.contact, "contact")
         bounds = [self.grid.bounds(a) for a in range(3)]
         seen: set[str] = set()
         for i, probe in enumerate(self.probe):
