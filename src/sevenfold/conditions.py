@@ -26,7 +26,7 @@ from .boundary import FaceTerms, boundary_cells, condition_terms
 from .errors import JobError
 from .fields import _values, region_masks
 from .grid import FACE_AXIS, Grid
-from .spec import Box, ContactSpec, ExchangeSpec, PatchSpec
+from .spec import ContactSpec, ExchangeSpec, FaceBox, PatchSpec
 
 # Coordinates within this fraction of the box's extent count as equal (rounding of edges).
 ROUNDING = 1e-9
@@ -76,7 +76,7 @@ def _within(c: np.ndarray, lo: float, hi: float, tol: float) -> np.ndarray:
     return (lo - tol <= c) & (c <= hi + tol)
 
 
-def face_selection(grid: Grid, face: str, box: Box) -> np.ndarray:
+def face_selection(grid: Grid, face: str, box: FaceBox) -> np.ndarray:
     """The boundary faces of ``face`` whose centres lie in ``box`` (within rounding), 2D."""
     coords = grid.face_mesh(face)
     inside = np.ones((1, 1), dtype=bool)

@@ -544,6 +544,23 @@ def _unique_names(items: tuple[Any, ...], table: str) -> None:
         seen.add(item.name)
 
 
+class FaceBox(_Frozen):
+    """A box selecting face centres: it may be flat (min = max) along an axis, e.g. on the
+    plane of a face; not inverted."""
+
+    min: Vector3
+    max: Vector3
+
+    _v = field_validator("min", "max", mode="before")(lambda cls, v: _vector(v))
+
+    @model_validator(mode="after")
+    def _ordered(self) -> "FaceBox":
+        for axis, lo, hi in zip("xyz", self.min, self.max):
+            if lo > hi:
+                raise ValueError(f"box is inverted along {axis}: min {lo} > max {hi}")
+        return self
+
+
 # The keys each condition type takes, on a face or a patch.
 CONDITION_KEYS = {"dirichlet": ("value",), "neumann": ("flux", "total"), "robin": ("coefficient", "reference")}
 
@@ -555,7 +572,7 @@ class PatchSpec(_Frozen):
     ``coefficient`` of 0 is accepted (insulated there)."""
 
     face: str
-    box: Box
+    box: FaceBox
     type: Literal["dirichlet", "neumann", "robin"]
     name: str | None = None
     value: Scalar | None = None
@@ -623,7 +640,7 @@ class ContactSpec(_Frozen):
     axis: Literal["x", "y", "z"]
     at: float
     resistance: float
-    box: Box | None = None
+    box: FaceBox | None = None
     name: str | None = None
 
     _a = field_validator("at", mode="before")(lambda cls, v: _number(v))

@@ -11,6 +11,7 @@ value and the GCI (see gci.py) of each quantity:
 
 * ``<solution>_max``: the largest cell value of the solution,
 * ``outflow_<face>``: each face's outflow (faces with no flow on any level are left out),
+* ``outflow_patch_<name>``, ``outflow_exchange_<name>``: each patch's and exchange's outflow,
 * ``inflow_<hold>`` or ``charge_<hold>``: each hold's inflow (an electrode's charge),
 * ``probe_<name>``: each point probe's value.
 
@@ -141,6 +142,10 @@ def quantities(result: JobResult) -> dict[str, float]:
     assert bal is not None
     for face, v in bal.faces.items():
         values[f"outflow_{face}"] = v
+    for p in bal.patches:
+        values[f"outflow_patch_{p.name.replace(' ', '_')}"] = p.outflow
+    for e in bal.exchanges:
+        values[f"outflow_exchange_{e.name.replace(' ', '_')}"] = e.outflow
     for h in bal.holds:
         key = "charge" if h.charge is not None else "inflow"
         values[f"{key}_{h.name.replace(' ', '_')}"] = h.charge if h.charge is not None else h.inflow
