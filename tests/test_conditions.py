@@ -312,3 +312,142 @@ def test_solvers_agree_with_patches_exchange_and_contacts() -> None:
     for method in ("gmg", "amg"):
         u, _ = _solve(spec, method, rtol=1e-11)
         np.testing.assert_allclose(u, u_direct, rtol=0, atol=1e-7 * np.ptp(u_direct))
+
+
+# ---------------------------------------------------------------- converge and report
+WALL_JOB = """
+name = "wall"
+physics = "heat"
+[grid]
+cells = [2, 2, "edges"]
+size = [0.02, 0.01, "edges"]
+[grid.edges.z]
+start = 0.0
+segments = [{ length = 0.0016, cells = 2, growth = 1.3 }, { length = 0.003, cells = 3 },
+            { length = 0.001, cells = 2, growth = 0.8 }]
+[material]
+value = 200.0
+[[material.region]]
+box = { min = [0.0, 0.0, 0.0016], max = [0.02, 0.01, 0.0046] }
+value = 15.0
+[[material.region]]
+box = { min = [0.0, 0.0, 0.0046], max = [0.02, 0.01, 0.0056] }
+value = 1.2
+[boundary]
+z_min = { type = "dirichlet", value = 350.0 }
+z_max = { type = "neumann" }
+[[patch]]
+name = "cold"
+face = "z_max"
+box = { min = [0.0, 0.0, 0.0056], max = [0.02, 0.01, 0.0056] }
+type = "dirichlet"
+value = 300.0
+[[contact]]
+name = "bond"
+axis = "z"
+at = 0.0016
+resistance = 2.5e-4
+[[contact]]
+axis = "z"
+at = 0.0046
+resistance = 7.0e-5
+[solver]
+method = "direct"
+"""
+
+
+def test_converge_keeps_patches_and_contacts_on_a_graded_grid(tmp_path) -> None:
+    """Each level splits every cell in two, so the contact planes stay cell edges and the patch
+    keeps its faces; the composite wall's heat flow is exact on every level (series closed
+    form, as above), so the study finds the patch's outflow unchanged between levels."""
+    from sevenfold.study import run_study
+
+    job = tmp_path / "wall.toml"
+    job.write_text(WALL_JOB)
+    study = run_study(job, levels=3, ratio=2.0, folder=tmp_path / "study")
+    assert [lv.cells[2] for lv in study.levels] == [7, 14, 28]
+    resistance = 0.0016 / 200 + 2.5e-4 + 0.003 / 15 + 7.0e-5 + 0.001 / 1.2
+    flow = 50.0 / resistance * 0.02 * 0.01
+    for lv in study.levels:
+        assert lv.values["outflow_patch_cold"] == pytest.approx(flow, rel=1e-9)
+        assert lv.values["outflow_z_max"] == pytest.approx(flow, rel=1e-9)
+    assert study.results["outflow_patch_cold"].f1 == pytest.approx(flow, rel=1e-9)
+
+
+def test_converge_with_a_total_patch_and_an_exchange(tmp_path) -> None:
+    """A uniform grid refined by 2: the total patch's outflow is the total on every level and
+    the exchange's outflow converges (observed order near 2: a second-order scheme)."""
+    from sevenfold.study import run_study
+
+    job = tmp_path / "spot.toml"
+    job.write_text("""
+name = "spot"
+[grid]
+cells = [4, 4, 4]
+size = [1.0, 1.0, 1.0]
+[material]
+value = 1.0
+[boundary]
+z_min = { type = "dirichlet", value = 0.0 }
+[[patch]]
+name = "heater"
+face = "z_max"
+box = { min = [0.25, 0.25, 1.0], max = [0.75, 0.75, 1.0] }
+type = "neumann"
+total = 5.0
+[[exchange]]
+name = "sink"
+box = { min = [0.0, 0.0, 0.5], max = [1.0, 1.0, 1.0] }
+conductance = 20.0
+reference = 0.0
+[solver]
+method = "direct"
+""")
+    study = run_study(job, levels=3, ratio=2.0, folder=tmp_path / "study")
+    for lv in study.levels:
+        assert lv.values["outflow_patch_heater"] == pytest.approx(-5.0, rel=1e-12)
+    r = study.results["outflow_exchange_sink"]
+    assert 0 < r.f1 < 5.0 and r.order == pytest.approx(2.0, abs=0.5)
+
+
+def test_report_draws_patches_and_exchanges(tmp_path) -> None:
+    from sevenfold.report import placed_outlines, write_report
+    from sevenfold.runner import run_job
+
+    job = tmp_path / "spread.toml"
+    job.write_text("""
+name = "spread"
+physics = "heat"
+[grid]
+cells = [8, 16, 4]
+size = [0.04, 0.04, 0.004]
+[material]
+value = 390.0
+[boundary]
+z_min = { type = "robin", coefficient = 2500.0, reference = 300.0 }
+[[patch]]
+name = "module"
+face = "z_max"
+box = { min = [0.01, 0.01, 0.004], max = [0.03, 0.03, 0.004] }
+type = "neumann"
+total = 20.0
+[[exchange]]
+name = "channel"
+cylinder = { center = [0.02, 0.02, 0.002], radius = 0.0015, axis = "x", length = 0.04 }
+coefficient = 1e5
+reference = 290.0
+""")
+    result = run_job(job)
+    index = write_report(result.output, tmp_path / "report")
+    page = index.read_text()
+    assert "of which through patch module" in page and "out into exchange channel" in page
+    spec = result.plan.spec
+    # on the z mid-plane: the module patch seen from above (a rectangle) and the channel cut
+    # along its axis (a rectangle); on the x mid-plane: the patch as a segment on z = top and
+    # the channel as a circle
+    z_plane = placed_outlines(spec, 2, 0.002, result_bounds := [(0.0, 0.04), (0.0, 0.04), (0.0, 0.004)])
+    kinds = {(o.label, o.kind) for o in z_plane}
+    assert kinds == {("module", "rectangle"), ("channel", "rectangle")}
+    x_plane = placed_outlines(spec, 0, 0.02, result_bounds)
+    assert {(o.label, o.kind) for o in x_plane} == {("module", "segment"), ("channel", "circle")}
+    assert (tmp_path / "report" / "slices.png").stat().st_size > 10_000
