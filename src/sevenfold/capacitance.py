@@ -7,7 +7,8 @@ matrix: C[i, i] > 0, C[i, j] <= 0 for j != i, and C is symmetric (reciprocity).
 
 For the unit solves the job's free charge is set to zero, Dirichlet faces are grounded
 (0 V: together they act as one further conductor at 0 V, whose charge ``ground[i]`` is
-reported), Robin faces take reference 0 V and Neumann faces carry no flux. With no grounded
+reported), Robin faces and [[exchange]] regions take reference 0 V and Neumann faces carry
+no flux (an exchange's charge is not part of ``ground``). With no grounded
 face, each row of C sums to zero (charge conservation).
 
 The matrix is assembled once and factored (or given its multigrid hierarchy) once; each
@@ -47,7 +48,8 @@ def unit_problem(problem: Problem) -> Problem:
         name: dataclasses.replace(t, value=np.zeros_like(t.value), flux=np.zeros_like(t.flux))
         for name, t in problem.faces.items()
     }
-    return dataclasses.replace(problem, source=np.zeros_like(problem.source), faces=faces)
+    return dataclasses.replace(problem, source=np.zeros_like(problem.source), faces=faces,
+                               exchanges=tuple(e.grounded() for e in problem.exchanges))
 
 
 class _Solver:
