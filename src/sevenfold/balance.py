@@ -70,6 +70,7 @@ class ExchangeFlow:
     name: str
     cells: int
     outflow: float  # amount per time leaving the domain into the reference, positive out
+    acting: int | None = None  # a drain (only = "outflow"): its free cells that act
 
 
 @dataclass(frozen=True)
@@ -198,8 +199,12 @@ def placed_flows(problem: Problem, u: np.ndarray) -> tuple[list[PatchFlow], list
     for p in problem.patches:
         out = face_outflow_density(problem, u, p.face) * problem.grid.face_areas(FACE_AXIS[p.face][0])
         patches.append(PatchFlow(p.name, p.face, p.area, float(out[p.owned].sum())))
-    exchanges = [ExchangeFlow(e.name, int(np.count_nonzero(~problem.held.reshape(-1)[e.cells])),
-                              exchange_outflow(e, u, problem.held)) for e in problem.exchanges]
+    exchanges = []
+    for e in problem.exchanges:
+        free = ~problem.held.reshape(-1)[e.cells]
+        acting = int(np.count_nonzero(free & (e.effective > 0))) if e.outflow_only else None
+        exchanges.append(ExchangeFlow(e.name, int(np.count_nonzero(free)),
+                                      exchange_outflow(e, u, problem.held), acting))
     return patches, exchanges
 
 
@@ -214,7 +219,10 @@ def balance_rows(balance: dict) -> list[tuple[str, float]]:
         rows.extend((f"  of which through patch {p['name']}", p["outflow"])
                     for p in balance.get("patches", []) if p["face"] == face)
     for e in balance.get("exchanges", []):
-        rows.append((f"out into exchange {e['name']}", e["outflow"]))
+        acting = e.get("acting")
+        rows.append((f"out into exchange {e['name']}"
+                     + (f" (drain: {acting} of {e['cells']} cells acting)" if acting is not None else ""),
+                     e["outflow"]))
     for h in balance["holds"]:
         if h.get("charge") is not None:
             rows.append((f"charge on {h['name']} ({h['value']:g})", h["charge"]))

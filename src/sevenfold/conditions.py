@@ -8,6 +8,8 @@
 * ``[[exchange]]``: every cell P inside a shape gains ``c V_P (reference - u_P)`` per unit
   time: ``c V_P`` joins the diagonal and ``c V_P reference`` the right-hand side of free cells
   (held cells stay identity rows). The operator stays symmetric positive definite.
+  With ``only = "outflow"`` (a drain) a cell acts only while u > reference: a nonlinear
+  switch, settled by repeated solves (:func:`settle_drains`).
 * ``[[contact]]``: a resistance per unit area R on the interior cell faces lying on a plane
   (a cell edge): the face's conductance T becomes 1 / (1/T + R/A), A the face's area
   (resistances in series; Incropera and DeWitt, thermal contact resistance, from memory).
@@ -18,7 +20,8 @@ Amounts per unit time are in the physics' amount units (W, C, m^3/s). Nothing he
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
+from typing import Callable
 
 import numpy as np
 
@@ -54,10 +57,17 @@ class ExchangeTerms:
     cells: np.ndarray
     conductance: np.ndarray
     reference: np.ndarray
+    outflow_only: bool = False  # a drain: acts only where u > reference
+    active: np.ndarray | None = None  # a drain's cells acting in this solve; None: all
+
+    @property
+    def effective(self) -> np.ndarray:
+        """The conductance of each cell as the operator uses it (0 where a drain is idle)."""
+        return self.conductance if self.active is None else np.where(self.active, self.conductance, 0.0)
 
     def grounded(self) -> "ExchangeTerms":
         """The same exchange with reference 0 (for unit-potential solves)."""
-        return ExchangeTerms(self.name, self.cells, self.conductance, np.zeros_like(self.reference))
+        return replace(self, reference=np.zeros_like(self.reference))
 
 
 @dataclass(frozen=True)
@@ -159,7 +169,8 @@ def build_exchanges(exchanges: tuple[ExchangeSpec, ...], grid: Grid) -> tuple[Ex
         if not np.all(np.isfinite(reference)):
             raise JobError("evaluates to NaN or infinity in the region", f"{where}.reference")
         out.append(ExchangeTerms(e.name or f"exchange {i}", np.flatnonzero(m),
-                                 coefficient * np.broadcast_to(volumes, grid.shape)[m], reference))
+                                 coefficient * np.broadcast_to(volumes, grid.shape)[m], reference,
+                                 outflow_only=e.only == "outflow"))
     return tuple(out)
 
 
@@ -175,14 +186,57 @@ def add_exchanges(exchanges: tuple[ExchangeTerms, ...], held: np.ndarray, diag: 
     for e in exchanges:
         free = ~flat_held[e.cells]
         cells = e.cells[free]  # unique within one exchange, so fancy-index += is exact
-        flat_diag[cells] += e.conductance[free]
-        flat_b[cells] += e.conductance[free] * e.reference[free]
+        g = e.effective[free]
+        flat_diag[cells] += g
+        flat_b[cells] += g * e.reference[free]
 
 
 def exchange_outflow(e: ExchangeTerms, u: np.ndarray, held: np.ndarray) -> float:
     """Amount per unit time leaving the free cells of ``e`` into its reference."""
     free = ~held.reshape(-1)[e.cells]
-    return float(np.sum(e.conductance[free] * (u.reshape(-1)[e.cells[free]] - e.reference[free])))
+    return float(np.sum(e.effective[free] * (u.reshape(-1)[e.cells[free]] - e.reference[free])))
+
+
+# Rounds of the drains' fixed-point iteration before giving up.
+DRAIN_ROUNDS = 50
+
+
+def settle_drains(problem, solve: Callable):
+    """Solve ``problem`` (by ``solve(problem) -> (u, record)``) with every outflow-only
+    exchange acting exactly where u > reference: start with every drain cell acting, solve,
+    let act the cells where the solution lies above the reference, and repeat until the set
+    of acting cells no longer changes (a primal-dual active-set iteration; the operator stays
+    an M-matrix, and for those it settles in finitely many rounds: Hintermueller, Ito and
+    Kunisch, SIAM J. Optim. 13, 2002, from memory). A cell within rounding of its reference
+    keeps its state. Returns (the problem as finally solved, u, record, rounds); rounds is 0
+    when there is no drain. Raises SolverError when the set has not settled in DRAIN_ROUNDS.
+    """
+    from .errors import SolverError
+
+    if not any(e.outflow_only for e in problem.exchanges):
+        u, record = solve(problem)
+        return problem, u, record, 0
+    current = problem
+    for rounds in range(1, DRAIN_ROUNDS + 1):
+        u, record = solve(current)
+        flat = u.reshape(-1)
+        tol = 1e-10 * float(np.abs(u).max() or 1.0)
+        changed, new = False, []
+        for e in current.exchanges:
+            if e.outflow_only:
+                above = flat[e.cells] - e.reference
+                was = np.ones(e.cells.size, bool) if e.active is None else e.active
+                act = np.where(np.abs(above) <= tol, was, above > 0)
+                changed |= not np.array_equal(act, was)
+                e = replace(e, active=act)
+            new.append(e)
+        current = replace(current, exchanges=tuple(new))
+        if not changed:
+            note = f"outflow-only exchanges settled after {rounds} solves"
+            record.notes = f"{record.notes}; {note}" if record.notes else note
+            return current, u, record, rounds
+    raise SolverError(f"the cells of the outflow-only exchanges (only = \"outflow\") did not settle "
+                      f"in {DRAIN_ROUNDS} solves; check the exchanges' references")
 
 
 def build_contacts(contacts: tuple[ContactSpec, ...], grid: Grid) -> tuple[ContactTerms, ...]:

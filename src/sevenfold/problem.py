@@ -89,8 +89,13 @@ def build_problem(
         raise JobError("every cell is held; nothing is left to solve", "hold")
 
     # fixed by a hold, a face or patch with a conductance (dirichlet, robin), or an exchange
+    # (a drain, acting only where u > reference, may end up idle: it fixes nothing)
     fixed = (held.any() or any(t.conductance.any() for t in faces.values())
-             or any(e.conductance.any() for e in placed["exchanges"]))
+             or any(e.conductance.any() for e in placed["exchanges"] if not e.outflow_only))
+    if not fixed and any(e.outflow_only for e in placed["exchanges"]):
+        raise JobError("an exchange with only = \"outflow\" may stop acting, so it cannot be the only "
+                       "condition that fixes u; add a dirichlet or robin face, a hold, or an exchange "
+                       "that acts both ways", "exchange")
     if fixed:
         return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index, **placed)
 

@@ -616,12 +616,14 @@ class PatchSpec(_Frozen):
 class ExchangeSpec(_Shaped):
     """Cells inside the shape exchange with a ``reference``: each gains
     coefficient * V * (reference - u) per unit time. ``coefficient`` is per unit volume;
-    ``conductance`` instead gives the whole region's, spread over its cells by volume."""
+    ``conductance`` instead gives the whole region's, spread over its cells by volume.
+    ``only = "outflow"`` (a drain) acts only where u > reference (solved by iteration)."""
 
     coefficient: Scalar | None = None
     conductance: float | None = None
     reference: Scalar
     name: str | None = None
+    only: Literal["outflow"] | None = None  # "outflow": acts only in cells where u > reference
 
     _s = field_validator("coefficient", "reference", mode="before")(lambda cls, v: _scalar(v))
     _g = field_validator("conductance", mode="before")(lambda cls, v: _positive(v, "conductance"))
