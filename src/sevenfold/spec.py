@@ -549,17 +549,12 @@ def _unique_names(items: tuple[Any, ...], table: str) -> None:
         seen.add(item.name)
 
 
-class FaceBox(_Frozen):
+class FaceBox(Box):
     """A box selecting face centres: it may be flat (min = max) along an axis, e.g. on the
     plane of a face; not inverted."""
 
-    min: Vector3
-    max: Vector3
-
-    _v = field_validator("min", "max", mode="before")(lambda cls, v: _vector(v))
-
     @model_validator(mode="after")
-    def _ordered(self) -> "FaceBox":
+    def _ordered(self) -> "FaceBox":  # replaces Box's check, which refuses flat boxes
         for axis, lo, hi in zip("xyz", self.min, self.max):
             if lo > hi:
                 raise ValueError(f"box is inverted along {axis}: min {lo} > max {hi}")
