@@ -255,6 +255,12 @@ def test_composite_wall_with_two_contact_resistances() -> None:
     area = 0.02 * 0.01
     assert bal.faces["z_max"] == pytest.approx((T0 - T1) / (resistance / area), rel=1e-9)
     assert -bal.faces["z_min"] == pytest.approx((T0 - T1) / (resistance / area), rel=1e-9)
+    # the derived heat flux sees the contacts too: q'' along +z on every cell (1D conduction)
+    from sevenfold.derived import flux
+
+    qx, qy, qz = flux(problem, u)
+    np.testing.assert_allclose(qz, q, rtol=1e-9)
+    assert np.abs(qx).max() < 1e-9 * q and np.abs(qy).max() < 1e-9 * q
 
 
 @pytest.mark.parametrize("method", ["gmg", "amg"])
@@ -528,3 +534,14 @@ def test_a_drain_through_the_runner_with_gmg(tmp_path) -> None:
 def test_a_drain_alone_cannot_fix_the_problem() -> None:
     with pytest.raises(JobError, match="cannot be the only condition"):
         build_problem(make_spec(**{**DRAIN, "boundary": {}}))
+
+
+def test_check_lists_what_each_table_selected(tmp_path, capsys) -> None:
+    from sevenfold.cli import main
+
+    job = tmp_path / "wall.toml"
+    job.write_text(WALL_JOB)
+    assert main(["check", str(job)]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    assert "cold: 4 faces of z_max, 0.0002 m^2" in text
+    assert "bond: 4 faces on z = 0.0016, 0.0002 m^2" in text

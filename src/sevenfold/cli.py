@@ -57,6 +57,7 @@ def balance_table(balance: dict, title: str = "balance") -> Table:
 
 def _check(args: argparse.Namespace) -> int:
     from .memory import human
+    from .conditions import placed_rows
     from .runner import plan_job, prepare_problem
 
     plan = plan_job(args.job)
@@ -76,6 +77,7 @@ def _check(args: argparse.Namespace) -> int:
         ("box", " x ".join(f"[{o:.4g}, {o + e:.4g}]" for o, e in zip(grid.origin, grid.extent)) + " m"),
         ("cell widths", " x ".join(widths(a) for a in range(3)) + " m"),
         ("coefficient", "directional (kx, ky, kz)" if not problem.isotropic else "one value for every direction"),
+        *placed_rows(problem),
         ("unknowns", f"{problem.unknowns:,}" + (" (pure Neumann: one cell pinned, mean(u) = 0)" if problem.gauge_mean_zero else "")),
         ("method", f"{plan.method}" + (" (chosen by auto)" if spec.solver.method == "auto" else "")),
         ("memory", f"about {human(plan.memory_bytes)} of {human(plan.available_bytes)} available"),
@@ -115,6 +117,7 @@ def _run(args: argparse.Namespace) -> int:
 
 def _capacitance(args: argparse.Namespace) -> int:
     from .capacitance import capacitance_matrix
+    from .conditions import placed_rows
     from .runner import plan_job, prepare_problem
 
     plan = plan_job(args.job)

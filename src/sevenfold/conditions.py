@@ -293,3 +293,23 @@ def apply_contacts(contacts: tuple[ContactTerms, ...], grid: Grid, t: tuple[np.n
             face = t[c.axis][:stop - start, c.index, :] if c.axis == 1 else t[2][:stop - start, :, c.index]
             sel, ra = sel[start:stop], ra[start:stop]
         face[sel] = face[sel] / (1.0 + face[sel] * ra[sel])  # 1 / (1/T + R/A)
+
+
+def placed_rows(problem) -> list[tuple[str, str]]:
+    """(key, text) lines for ``sevenfold check``: what each patch, exchange and contact
+    selected on this grid, so a user can see a box catch the faces or cells meant."""
+    grid = problem.grid
+    rows = []
+    for p in problem.patches:
+        rows.append(("patch", f"{p.name}: {int(p.selected.sum()):,} faces of {p.face}, {p.area:.4g} m^2"
+                     + ("" if p.owned.any() else " (all overridden by later patches)")))
+    for e in problem.exchanges:
+        volume = float(grid.cell_volumes().reshape(-1)[e.cells].sum())
+        rows.append(("exchange", f"{e.name}: {e.cells.size:,} cells, {volume:.4g} m^3"
+                     + (", drain (only outflow)" if e.outflow_only else "")))
+    for c in problem.contacts:
+        at = float(grid.edges[c.axis][c.index + 1])
+        area = float(grid.face_areas(c.axis)[c.selected].sum())
+        rows.append(("contact", f"{c.name}: {int(c.selected.sum()):,} faces on {'xyz'[c.axis]} = {at:.6g}, "
+                     f"{area:.4g} m^2"))
+    return rows
