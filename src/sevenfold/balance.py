@@ -26,6 +26,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from .electrodes import hold_potentials
 from .grid import FACE_AXIS, Grid
 from .operator import conductances
 from .problem import Problem
@@ -45,6 +46,7 @@ class HoldFlow:
     cells: int
     inflow: float  # amount per time into the hold, positive in (units of the physics' amount)
     charge: float | None = None  # electrostatics: -inflow (C)
+    floating: bool = False  # a floating electrode: ``value`` is its solved potential
 
 
 @dataclass(frozen=True)
@@ -149,12 +151,14 @@ def compute_balance(problem: Problem, u: np.ndarray, units: str = "1",
             inflow -= np.bincount(idx[idx >= 0], weights=out[idx >= 0], minlength=count)[:count]
 
     cells = np.bincount(index[index >= 0].ravel(), minlength=count) if count else np.zeros(0, int)
+    floating = hold_potentials(problem, u)
     holds = []
     for i in range(count):
         name = (names[i] if names is not None and i < len(names) else None) or f"hold {i}"
-        value = float(values[i]) if values is not None and i < len(values) else float("nan")
+        given = values[i] if values is not None and i < len(values) else None
+        value = floating.get(i, float(given) if given is not None else float("nan"))
         holds.append(HoldFlow(i, name, value, int(cells[i]), float(inflow[i]),
-                              -float(inflow[i]) if charges else None))
+                              -float(inflow[i]) if charges else None, i in floating))
     imbalance = source - sum(faces.values()) - float(inflow.sum())
     scale = max([abs(source), *map(abs, faces.values()), *map(abs, inflow)], default=0.0)
     relative = abs(imbalance) / scale if scale > 0 else 0.0
@@ -170,7 +174,9 @@ def balance_rows(balance: dict) -> list[tuple[str, float]]:
     for face, v in balance["faces"].items():
         rows.append((f"out through {face}", v))
     for h in balance["holds"]:
-        if h.get("charge") is not None:
+        if h.get("floating"):
+            rows.append((f"charge on {h['name']} (floating, solved {h['value']:.6g})", h["charge"]))
+        elif h.get("charge") is not None:
             rows.append((f"charge on {h['name']} ({h['value']:g})", h["charge"]))
         else:
             rows.append((f"into {h['name']} ({h['value']:g})", h["inflow"]))

@@ -15,6 +15,7 @@ import numpy as np
 
 from . import fields
 from .boundary import FaceTerms, face_terms
+from .electrodes import floating_charges
 from .errors import JobError
 from .grid import FACE_AXIS, Grid, grid_from_spec
 from .physics import PHYSICS
@@ -38,6 +39,8 @@ class Problem:
     # Which [[hold]] holds each cell (the last listed that covers it), -1 elsewhere; the cell
     # pinned in a pure-Neumann problem is held but belongs to no hold. None: not recorded.
     hold_index: np.ndarray | None = None
+    # Floating electrodes: (hold index, charge in C), held at 0 V here (electrodes.py)
+    floating: tuple[tuple[int, float], ...] = ()
 
     @property
     def unknowns(self) -> int:
@@ -75,14 +78,15 @@ def build_problem(
     hold_index = np.full(grid.shape, -1, dtype=np.int32)
     for i, (hold, m) in enumerate(zip(spec.hold, fields.region_masks(spec.hold, grid, "hold"))):
         held |= m
-        held_value[m] = hold.value
+        held_value[m] = hold.value if hold.value is not None else 0.0  # floating: 0 V, see electrodes.py
         hold_index[m] = i
     if held.all():
         raise JobError("every cell is held; nothing is left to solve", "hold")
 
+    floating = floating_charges(spec, hold_index, faces)
     fixed = held.any() or any(t.kind != "neumann" for t in faces.values())
     if fixed:
-        return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index)
+        return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index, floating=floating)
 
     inflow = neumann_inflow(faces, grid)
     generated = grid.integrate(f)
