@@ -29,6 +29,7 @@ import numpy as np
 from .electrodes import hold_potentials
 from .grid import FACE_AXIS, Grid
 from .operator import conductances
+from .wells import WellFlow, well_flows
 from .problem import Problem
 from .spec import FACES
 
@@ -57,9 +58,10 @@ class Balance:
     source: float
     faces: dict[str, float]  # outflow per face, positive leaving the domain
     holds: list[HoldFlow] = field(default_factory=list)
-    imbalance: float = 0.0  # source - sum(faces) - sum(hold inflows)
+    imbalance: float = 0.0  # source + sum(well rates) - sum(faces) - sum(hold inflows)
     scale: float = 0.0  # the largest term's magnitude
     relative_imbalance: float = 0.0  # |imbalance| / scale (0 when every term is 0)
+    wells: list[WellFlow] = field(default_factory=list)  # rate INTO the aquifer, bore head (wells.py)
 
     def to_dict(self) -> dict:
         """JSON-friendly form for the result attributes."""
@@ -159,10 +161,12 @@ def compute_balance(problem: Problem, u: np.ndarray, units: str = "1",
         value = floating.get(i, float(given) if given is not None else float("nan"))
         holds.append(HoldFlow(i, name, value, int(cells[i]), float(inflow[i]),
                               -float(inflow[i]) if charges else None, i in floating))
-    imbalance = source - sum(faces.values()) - float(inflow.sum())
-    scale = max([abs(source), *map(abs, faces.values()), *map(abs, inflow)], default=0.0)
+    wells = well_flows(problem.wells, u)
+    imbalance = source + sum(w.rate for w in wells) - sum(faces.values()) - float(inflow.sum())
+    scale = max([abs(source), *map(abs, faces.values()), *map(abs, inflow), *(abs(w.rate) for w in wells)],
+                default=0.0)
     relative = abs(imbalance) / scale if scale > 0 else 0.0
-    return Balance(units, source, faces, holds, imbalance, scale, relative)
+    return Balance(units, source, faces, holds, imbalance, scale, relative, wells)
 
 
 def balance_rows(balance: dict) -> list[tuple[str, float]]:
@@ -180,5 +184,8 @@ def balance_rows(balance: dict) -> list[tuple[str, float]]:
             rows.append((f"charge on {h['name']} ({h['value']:g})", h["charge"]))
         else:
             rows.append((f"into {h['name']} ({h['value']:g})", h["inflow"]))
+    for w in balance.get("wells", ()):
+        given = "given rate" if w["given"] == "rate" else "given head"
+        rows.append((f"from well {w['name']} ({given}; bore head {w['head']:.6g} m)", w["rate"]))
     rows.append(("imbalance", balance["imbalance"]))
     return rows

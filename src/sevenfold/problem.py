@@ -16,6 +16,7 @@ import numpy as np
 from . import fields
 from .boundary import FaceTerms, face_terms
 from .electrodes import floating_charges
+from .wells import Well, place_wells, total_rate
 from .errors import JobError
 from .grid import FACE_AXIS, Grid, grid_from_spec
 from .physics import PHYSICS
@@ -41,6 +42,7 @@ class Problem:
     hold_index: np.ndarray | None = None
     # Floating electrodes: (hold index, charge in C), held at 0 V here (electrodes.py)
     floating: tuple[tuple[int, float], ...] = ()
+    wells: tuple[Well, ...] = ()  # [[well]] tables placed on the grid (wells.py)
 
     @property
     def unknowns(self) -> int:
@@ -84,14 +86,16 @@ def build_problem(
         raise JobError("every cell is held; nothing is left to solve", "hold")
 
     floating = floating_charges(spec, hold_index, faces)
-    fixed = held.any() or any(t.kind != "neumann" for t in faces.values())
+    wells = place_wells(spec.well, grid, k, held)
+    fixed = held.any() or any(t.kind != "neumann" for t in faces.values()) or any(w.head is not None for w in wells)
     if fixed:
-        return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index, floating=floating)
+        return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index, floating=floating, wells=wells)
 
     inflow = neumann_inflow(faces, grid)
-    generated = grid.integrate(f)
+    generated = grid.integrate(f) + total_rate(wells)  # rate wells are sources too
     imbalance = generated + inflow
-    scale = grid.integrate(np.abs(f)) + neumann_inflow(faces, grid, absolute=True)
+    scale = (grid.integrate(np.abs(f)) + neumann_inflow(faces, grid, absolute=True)
+             + total_rate(wells, absolute=True))
     if abs(imbalance) > BALANCE_RTOL * scale:
         units = physics.amount_units
         raise JobError(
@@ -102,7 +106,8 @@ def build_problem(
         )
     f = f - imbalance / float(np.prod(grid.extent))
     held[0, 0, 0] = True  # pin: with a balanced right-hand side the pinned equation holds too
-    return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True, hold_index=hold_index)
+    return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True, hold_index=hold_index,
+                   wells=wells)
 
 
 def complete_field(problem: Problem, u: np.ndarray) -> np.ndarray:

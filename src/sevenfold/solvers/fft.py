@@ -66,6 +66,8 @@ def fft_eligibility(problem: Problem) -> str | None:
         return f"k varies (min {k_min:.6g}, max {k_max:.6g})"
     if not problem.gauge_mean_zero and problem.held.any():
         return f"holds present ({int(np.count_nonzero(problem.held)):,} held cells)"
+    if problem.wells:
+        return f"wells present ({len(problem.wells)})"
     robin = [name for name, t in problem.faces.items() if t.kind == "robin"]
     if robin:
         return f"a robin face ({', '.join(robin)})"
