@@ -50,7 +50,8 @@ def residual_figure(result: StoredResult, target: Path) -> Path:
 
 
 def slice_figure(result: StoredResult, target: Path) -> Path:
-    """The solution on the three mid-planes (x, y and z), one shared colour scale."""
+    """The solution on the three mid-planes (x, y and z), one shared colour scale; wells drawn
+    on them (draw_wells)."""
     plt = _plt()
     name = result.solution
     u = result.array(name)
@@ -70,8 +71,9 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
         hi = lo + (abs(lo) * 1e-6 or 1e-12)
     fig, axes = plt.subplots(1, 3, figsize=SIZES["slices.png"], dpi=DPI, layout="constrained")
     mesh = None
-    for ax, (data, a, b, title) in zip(axes, planes):
+    for n, (ax, (data, a, b, title)) in enumerate(zip(axes, planes)):
         mesh = ax.pcolormesh(edges[a], edges[b], data.T, vmin=lo, vmax=hi, cmap="viridis", shading="flat")
+        draw_wells(ax, result.spec.well, n, edges[n][mids[n]:mids[n] + 2])
         extent = (edges[a][-1] - edges[a][0], edges[b][-1] - edges[b][0])
         ratio = extent[1] / extent[0]
         ax.set_aspect("equal" if 0.25 <= ratio <= 4 else "auto")
@@ -83,6 +85,25 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
     fig.savefig(target)
     plt.close(fig)
     return target
+
+
+def draw_wells(ax, wells, normal: int, cell: np.ndarray) -> None:
+    """Each [[well]] on a mid-plane slice whose normal is axis ``normal``: on the z plane a
+    marker at (x, y); on the x and y planes its screen, a vertical bar from bottom to top. A
+    well whose column the plane cuts is drawn solid, one projected onto the plane dashed."""
+    for w in wells:
+        if normal == 2:
+            ax.plot([w.x], [w.y], marker="v", ms=8, mfc="white", mec="black", ls="none")
+            ax.annotate(w.name, (w.x, w.y), xytext=(4, 4), textcoords="offset points", fontsize=8,
+                        color="white")
+            continue
+        across = w.x if normal == 0 else w.y  # its coordinate along the plane's normal
+        along = w.y if normal == 0 else w.x  # and along the plane's horizontal axis
+        cut = cell[0] <= across <= cell[1]
+        ax.plot([along, along], [w.bottom, w.top], color="white", lw=2.5, ls="-" if cut else "--")
+        ax.plot([along, along], [w.bottom, w.top], color="black", lw=0.8, ls="-" if cut else "--")
+        ax.annotate(w.name, (along, w.top), xytext=(3, 3), textcoords="offset points", fontsize=8,
+                    color="white")
 
 
 def line_probes(result: StoredResult) -> list[str]:
@@ -134,7 +155,9 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
     folder = Path(folder) if folder is not None else path.with_name(path.stem + ".report")
     folder.mkdir(parents=True, exist_ok=True)
     figures = [("residual history", residual_figure(result, folder / "residuals.png")),
-               ("mid-plane slices", slice_figure(result, folder / "slices.png"))]
+               ("mid-plane slices" + (" (wells: triangles on the z plane, screens as bars on the others, dashed "
+                                      "where projected onto the plane)" if result.spec.well else ""),
+                slice_figure(result, folder / "slices.png"))]
     if line_probes(result):
         figures.append(("probe lines", probe_figure(result, folder / "probes.png")))
 
