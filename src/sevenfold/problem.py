@@ -20,7 +20,6 @@ from .wells import Well, place_wells, total_rate
 from .errors import JobError
 from .grid import FACE_AXIS, Grid, grid_from_spec
 from .physics import PHYSICS
-from .shapes import mask
 from .spec import JobSpec
 
 BALANCE_RTOL = 1e-6

@@ -227,7 +227,11 @@ def _edge_list(v: Any) -> Any:
             raise ValueError("must be a list of edges, a .npy path or a table of segments")
         return v
     if isinstance(v, dict):
-        return v
+        try:  # validated here so that errors name the segment's own keys
+            return SegmentedAxis.model_validate(v)
+        except ValidationError as exc:
+            err = exc.errors()[0]
+            raise ValueError(f"{_where(tuple(err['loc']))}: {_reason(err)}") from None
     if not isinstance(v, (list, tuple)) or len(v) < 2:
         raise ValueError("must be a list of at least two edge coordinates, a .npy path or a table of segments")
     out = []
@@ -437,8 +441,9 @@ class MaterialSpec(_FieldSpec):
     file: str | tuple[str, str, str] | None = None  # type: ignore[assignment]
     region: tuple[MaterialRegion, ...] = ()
 
-    _c = field_validator("value", mode="before")(lambda cls, v: _coefficient(v))
-    _e3 = field_validator("expression", mode="before")(
+    # named as _FieldSpec's validators so that these replace them
+    _s = field_validator("value", mode="before")(lambda cls, v: _coefficient(v))
+    _e = field_validator("expression", mode="before")(
         lambda cls, v: tuple(_expression(c) for c in _per_axis_strings(v, "expression"))
         if isinstance(v, (list, tuple)) else (_expression(v) if isinstance(v, str) else v))
     _f3 = field_validator("file", mode="before")(lambda cls, v: _per_axis_strings(v, "file"))
