@@ -171,3 +171,11 @@ def test_floating_electrode_on_a_graded_grid_in_run_and_converge(tmp_path: Path,
     assert "charge on island (floating, solved" in out
     study = run_study(job, levels=3, ratio=2.0, folder=tmp_path / "study")
     assert "potential_island" in study.results and "charge_island" not in study.results
+
+
+def test_check_shows_where_each_well_landed(wellfield: Path, capsys) -> None:
+    assert main(["check", str(wellfield / "wellfield.toml")]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    # pw1 at x = 61 lies in the 2 m cell [60, 62] (column 10 of x), y = 21 in [20, 25] (4):
+    # r_e = 0.14 sqrt(2^2 + 5^2) for a rectangular cell (Peaceman 1983, from memory) = 0.754 m
+    assert "well pw1 3 cell(s) of column (10, 4), screened 8 m; Peaceman radius 0.754 m" in text

@@ -29,9 +29,9 @@ import numpy as np
 from .electrodes import hold_potentials
 from .grid import FACE_AXIS, Grid
 from .operator import conductances
-from .wells import WellFlow, well_flows
 from .problem import Problem
 from .spec import FACES
+from .wells import WellFlow, well_flows
 
 # Cells per slab when summing face fluxes: bounds the temporaries on large grids.
 _SLAB_CELLS = 1 << 22

@@ -82,6 +82,9 @@ def _check(args: argparse.Namespace) -> int:
         ("output", str(plan.output)),
     ):
         table.add_row(key, value)
+    for w in problem.wells:  # where each well landed: its screened cells and Peaceman radius
+        table.add_row(f"well {escape(w.name)}", f"{w.k.size} cell(s) of column ({w.i}, {w.j}), screened "
+                      f"{float(w.length.sum()):.4g} m; Peaceman radius {float(w.r_e.min()):.3g} m")
     out.print(table)
     out.print("[green]valid[/green]: the job file, its regions, files and boundary data all check out")
     return EXIT_OK

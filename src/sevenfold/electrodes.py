@@ -41,7 +41,7 @@ def floating_charges(spec, hold_index: np.ndarray, faces: dict) -> Floating:
         if not np.any(hold_index == i):
             raise JobError("this floating electrode has no cell of its own (later holds cover it)", f"hold.{i}")
     held = any(h.value is not None for h in spec.hold)
-    grounded = any(t.kind != "neumann" for t in faces.values())
+    grounded = any(np.any(t.conductance) for t in faces.values())  # a dirichlet or robin face (or part)
     if not (held or grounded):
         i = floating[0][0]
         raise JobError("a floating electrode needs a conductor at a known potential to refer to: "

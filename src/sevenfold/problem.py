@@ -16,11 +16,11 @@ import numpy as np
 from . import fields
 from .boundary import FaceTerms, face_terms
 from .electrodes import floating_charges
-from .wells import Well, place_wells, total_rate
 from .errors import JobError
 from .grid import FACE_AXIS, Grid, grid_from_spec
 from .physics import PHYSICS
 from .spec import JobSpec
+from .wells import Well, place_wells, total_rate
 
 BALANCE_RTOL = 1e-6
 
