@@ -179,3 +179,26 @@ def test_check_shows_where_each_well_landed(wellfield: Path, capsys) -> None:
     # pw1 at x = 61 lies in the 2 m cell [60, 62] (column 10 of x), y = 21 in [20, 25] (4):
     # r_e = 0.14 sqrt(2^2 + 5^2) for a rectangular cell (Peaceman 1983, from memory) = 0.754 m
     assert "well pw1 3 cell(s) of column (10, 4), screened 8 m; Peaceman radius 0.754 m" in text
+
+
+def test_a_sweep_over_a_floating_charge(tmp_path: Path) -> None:
+    """[sweep] "hold.1.charge": the island's potential rises by Q / C_island per coulomb, C_island
+    the series sum of its two gaps' capacitances (eps0 er A / gap; exact in 1D)."""
+    from scipy.constants import epsilon_0
+
+    text = ISLAND.format(charge=0.0, method="direct") + '[sweep]\n"hold.1.charge" = [0.0, 1.0e-12]\n'
+    job = tmp_path / "island.toml"
+    job.write_text(text)
+    variants, _ = expand(tomllib.loads(text), str(job))
+    potentials = []
+    for v in variants:
+        spec = parse_job(v.table, str(job))
+        res = run_job(job, tmp_path / f"{spec.name}.zarr", spec=spec)
+        potentials.append(res.balance.holds[1].value)
+        assert res.balance.holds[1].charge == pytest.approx(v.values["hold.1.charge"], abs=1e-20)
+    result = open_result(tmp_path / f"{parse_job(variants[0].table).name}.zarr")
+    ez = result.edges(2)
+    z_d = 0.5 * (ez[-2] + ez[-1])
+    area = 0.02 * 0.01
+    c_island = epsilon_0 * 3.0 * area * (1.0 / 0.0025 + 1.0 / (z_d - 0.0025))
+    assert potentials[1] - potentials[0] == pytest.approx(1.0e-12 / c_island, rel=1e-9)
