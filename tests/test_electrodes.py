@@ -120,7 +120,7 @@ def test_one_electrode_without_a_grounded_face_is_refused() -> None:
         capacitance_matrix(build_problem(spec), ["plate"], SolverSpec(method="direct"))
 
 
-def thin_plates(toml: bool = False):
+def thin_plates():
     """Parallel plates in a 2D section: one cell along y (thickness T, insulated across),
     electrodes the first and last x layers, relative permittivity 4."""
     return make_spec(physics="electrostatics", grid={"cells": [10, 1, 6], "size": [0.01, 0.003, 0.006]},
