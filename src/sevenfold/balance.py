@@ -179,7 +179,7 @@ def balance_rows(balance: dict) -> list[tuple[str, float]]:
         rows.append((f"out through {face}", v))
     for h in balance["holds"]:
         if h.get("floating"):
-            rows.append((f"charge on {h['name']} (floating, solved {h['value']:.6g})", h["charge"]))
+            rows.append((f"charge on {h['name']} (floating, solved {h['value']:.6g} V)", h["charge"]))
         elif h.get("charge") is not None:
             rows.append((f"charge on {h['name']} ({h['value']:g})", h["charge"]))
         else:
