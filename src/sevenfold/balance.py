@@ -32,10 +32,12 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 
 from .conditions import exchange_outflow
+from .electrodes import hold_potentials
 from .grid import FACE_AXIS, Grid
 from .operator import conductances
 from .problem import Problem
 from .spec import FACES
+from .wells import WellFlow, well_flows
 
 # Cells per slab when summing face fluxes: bounds the temporaries on large grids.
 _SLAB_CELLS = 1 << 22
@@ -51,6 +53,7 @@ class HoldFlow:
     cells: int
     inflow: float  # amount per time into the hold, positive in (units of the physics' amount)
     charge: float | None = None  # electrostatics: -inflow (C)
+    floating: bool = False  # a floating electrode: ``value`` is its solved potential
 
 
 @dataclass(frozen=True)
@@ -81,11 +84,12 @@ class Balance:
     source: float
     faces: dict[str, float]  # outflow per face, positive leaving the domain
     holds: list[HoldFlow] = field(default_factory=list)
-    imbalance: float = 0.0  # source - sum(faces) - sum(hold inflows)
+    imbalance: float = 0.0  # source + sum(well rates) - sum(faces) - sum(hold inflows)
     scale: float = 0.0  # the largest term's magnitude
     relative_imbalance: float = 0.0  # |imbalance| / scale (0 when every term is 0)
     patches: list[PatchFlow] = field(default_factory=list)  # a breakdown of the faces' lines
     exchanges: list[ExchangeFlow] = field(default_factory=list)
+    wells: list[WellFlow] = field(default_factory=list)  # rate INTO the aquifer, bore head (wells.py)
 
     def to_dict(self) -> dict:
         """JSON-friendly form for the result attributes."""
@@ -177,19 +181,24 @@ def compute_balance(problem: Problem, u: np.ndarray, units: str = "1",
             inflow -= np.bincount(idx[idx >= 0], weights=out[idx >= 0], minlength=count)[:count]
 
     cells = np.bincount(index[index >= 0].ravel(), minlength=count) if count else np.zeros(0, int)
+    floating = hold_potentials(problem, u)
     holds = []
     for i in range(count):
         name = (names[i] if names is not None and i < len(names) else None) or f"hold {i}"
-        value = float(values[i]) if values is not None and i < len(values) else float("nan")
+        given = values[i] if values is not None and i < len(values) else None
+        value = floating.get(i, float(given) if given is not None else float("nan"))
         holds.append(HoldFlow(i, name, value, int(cells[i]), float(inflow[i]),
-                              -float(inflow[i]) if charges else None))
+                              -float(inflow[i]) if charges else None, i in floating))
     patches, exchanges = placed_flows(problem, u)
     exchanged = [e.outflow for e in exchanges]
-    imbalance = source - sum(faces.values()) - float(inflow.sum()) - sum(exchanged)
-    scale = max([abs(source), *map(abs, faces.values()), *map(abs, inflow), *map(abs, exchanged)],
-                default=0.0)
+    wells = well_flows(problem.wells, u)
+    rates = [w.rate for w in wells]
+    imbalance = source + sum(rates) - sum(faces.values()) - float(inflow.sum()) - sum(exchanged)
+    scale = max([abs(source), *map(abs, faces.values()), *map(abs, inflow), *map(abs, exchanged),
+                 *map(abs, rates)], default=0.0)
     relative = abs(imbalance) / scale if scale > 0 else 0.0
-    return Balance(units, source, faces, holds, imbalance, scale, relative, patches, exchanges)
+    return Balance(units, source, faces, holds, imbalance, scale, relative,
+                   patches=patches, exchanges=exchanges, wells=wells)
 
 
 def placed_flows(problem: Problem, u: np.ndarray) -> tuple[list[PatchFlow], list[ExchangeFlow]]:
@@ -224,9 +233,14 @@ def balance_rows(balance: dict) -> list[tuple[str, float]]:
                      + (f" (drain: {acting} of {e['cells']} cells acting)" if acting is not None else ""),
                      e["outflow"]))
     for h in balance["holds"]:
-        if h.get("charge") is not None:
+        if h.get("floating"):
+            rows.append((f"charge on {h['name']} (floating, solved {h['value']:.6g} V)", h["charge"]))
+        elif h.get("charge") is not None:
             rows.append((f"charge on {h['name']} ({h['value']:g})", h["charge"]))
         else:
             rows.append((f"into {h['name']} ({h['value']:g})", h["inflow"]))
+    for w in balance.get("wells", ()):
+        given = "given rate" if w["given"] == "rate" else "given head"
+        rows.append((f"from well {w['name']} ({given}; bore head {w['head']:.6g} m)", w["rate"]))
     rows.append(("imbalance", balance["imbalance"]))
     return rows

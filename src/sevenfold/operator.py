@@ -20,6 +20,7 @@ from .kernels.assembly import fill_rows, number_rows, row_lengths
 from .kernels.stencil import fine_stencil, transmissibility
 from .problem import Problem, complete_field
 from .spec import FACES
+from .wells import add_wells
 
 INT32_MAX = np.iinfo(np.int32).max
 
@@ -81,6 +82,8 @@ def face_arrays(problem: Problem) -> FaceArrays:
     fine_stencil(tx, ty, tz, problem.held, problem.held_value, problem.source, dx, dy, dz,
                  face_diag, face_rhs, diag, b)
     add_exchanges(problem.exchanges, problem.held, diag, b)
+    if problem.wells:
+        add_wells(problem.wells, problem.held, diag, b)  # rates to b; a head well's index to diag and b
     return FaceArrays(tx, ty, tz, diag, b)
 
 

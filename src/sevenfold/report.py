@@ -137,7 +137,7 @@ def _draw_outlines(ax, outlines: list[Outline]) -> None:
 def slice_figure(result: StoredResult, target: Path) -> Path:
     """The solution on the three mid-planes (x, y and z), one shared colour scale; patches
     (magenta: a bar on the box's edge where one crosses the slice, dashed where seen through
-    it) and exchanges (red) are outlined."""
+    it) and exchanges (red) are outlined, and wells drawn (draw_wells)."""
     plt = _plt()
     name = result.solution
     u = result.group[name]  # read plane by plane below: never the whole field
@@ -160,6 +160,7 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
     for normal, (ax, (data, a, b, title)) in enumerate(zip(axes, planes)):
         mesh = ax.pcolormesh(edges[a], edges[b], data.T, vmin=lo, vmax=hi, cmap="viridis", shading="flat")
         _draw_outlines(ax, placed_outlines(result.spec, normal, float(centres[normal][mids[normal]]), bounds))
+        draw_wells(ax, result.spec.well, normal, edges[normal][mids[normal]:mids[normal] + 2])
         ax.set_xlim(bounds[a])
         ax.set_ylim(bounds[b])
         extent = (edges[a][-1] - edges[a][0], edges[b][-1] - edges[b][0])
@@ -173,6 +174,25 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
     fig.savefig(target)
     plt.close(fig)
     return target
+
+
+def draw_wells(ax, wells, normal: int, cell: np.ndarray) -> None:
+    """Each [[well]] on a mid-plane slice whose normal is axis ``normal``: on the z plane a
+    marker at (x, y); on the x and y planes its screen, a vertical bar from bottom to top. A
+    well whose column the plane cuts is drawn solid, one projected onto the plane dashed."""
+    for w in wells:
+        if normal == 2:
+            ax.plot([w.x], [w.y], marker="v", ms=8, mfc="white", mec="black", ls="none")
+            ax.annotate(w.name, (w.x, w.y), xytext=(4, 4), textcoords="offset points", fontsize=8,
+                        color="white")
+            continue
+        across = w.x if normal == 0 else w.y  # its coordinate along the plane's normal
+        along = w.y if normal == 0 else w.x  # and along the plane's horizontal axis
+        cut = cell[0] <= across <= cell[1]
+        ax.plot([along, along], [w.bottom, w.top], color="white", lw=2.5, ls="-" if cut else "--")
+        ax.plot([along, along], [w.bottom, w.top], color="black", lw=0.8, ls="-" if cut else "--")
+        ax.annotate(w.name, (along, w.top), xytext=(3, 3), textcoords="offset points", fontsize=8,
+                    color="white")
 
 
 def line_probes(result: StoredResult) -> list[str]:
@@ -224,7 +244,9 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
     folder = Path(folder) if folder is not None else path.with_name(path.stem + ".report")
     folder.mkdir(parents=True, exist_ok=True)
     figures = [("residual history", residual_figure(result, folder / "residuals.png")),
-               ("mid-plane slices", slice_figure(result, folder / "slices.png"))]
+               ("mid-plane slices" + (" (wells: triangles on the z plane, screens as bars on the others, dashed "
+                                      "where projected onto the plane)" if result.spec.well else ""),
+                slice_figure(result, folder / "slices.png"))]
     if line_probes(result):
         figures.append(("probe lines", probe_figure(result, folder / "probes.png")))
 

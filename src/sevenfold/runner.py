@@ -282,6 +282,7 @@ def run_job(
         "seconds": seconds,
         **(extra_attrs or {}),
         "balance": balance.to_dict(),
+        "floating": {h.name: h.value for h in balance.holds if h.floating},  # solved potentials (V)
         "probes": [{"name": p.name, "kind": p.kind, "samples": len(p.values),
                     "min": float(p.values.min()), "max": float(p.values.max())} for p in probes],
     }

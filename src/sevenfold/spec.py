@@ -523,13 +523,88 @@ class BoundarySpec(_Frozen):
 class HoldSpec(_Shaped):
     """Cells whose centres fall inside the shape are held at ``value``.
 
-    ``name`` labels the hold in the balance report and the capacitance matrix.
+    ``name`` labels the hold in the balance report and the capacitance matrix. In
+    electrostatics a hold may give ``charge`` (C) instead of ``value``: a floating electrode,
+    whose potential is solved for (see electrodes.py).
     """
 
-    value: float
+    value: float | None = None
+    charge: float | None = None
     name: str | None = None
 
-    _v = field_validator("value", mode="before")(lambda cls, v: _number(v))
+    _v = field_validator("value", "charge", mode="before")(lambda cls, v: _number(v))
+
+    @model_validator(mode="after")
+    def _value_or_charge(self) -> "HoldSpec":
+        if (self.value is None) == (self.charge is None):
+            raise ValueError("give exactly one of value (held) or charge (a floating electrode)")
+        return self
+
+
+class WellSpec(_Frozen):
+    """A vertical well at (``x``, ``y``) screened from ``bottom`` to ``top`` (z, metres), with
+    bore ``radius`` (m), pumped at ``rate`` (m^3/s INTO the aquifer: negative extracts) or
+    held at a well-bore ``head`` (m). Groundwater only; see wells.py."""
+
+    name: str
+    x: float
+    y: float
+    top: float
+    bottom: float
+    radius: float
+    rate: float | None = None
+    head: float | None = None
+
+    _n = field_validator("x", "y", "top", "bottom", "radius", "rate", "head", mode="before")(
+        lambda cls, v: _number(v))
+
+    @field_validator("name")
+    @classmethod
+    def _name(cls, v: str) -> str:
+        if not _PROBE_NAME.match(v):
+            raise ValueError("name may use only letters, digits, '_' and '-'")
+        return v
+
+    @field_validator("radius")
+    @classmethod
+    def _radius(cls, v: float) -> float:
+        if not v > 0:
+            raise ValueError(f"radius must be positive, got {v:g} m")
+        return v
+
+    @model_validator(mode="after")
+    def _screen(self) -> "WellSpec":
+        if not self.top > self.bottom:
+            raise ValueError(f"top ({self.top:g} m) must be above bottom ({self.bottom:g} m)")
+        if (self.rate is None) == (self.head is None):
+            raise ValueError("give exactly one of rate (m^3/s, negative extracts) or head (m)")
+        return self
+
+
+def check_wells_and_electrodes(job: "JobSpec") -> None:
+    """Model-level checks of ``[[well]]`` and floating ``[[hold]]`` tables (messages start with
+    the key: a model-level error has no location of its own)."""
+    for i, hold in enumerate(job.hold):
+        if hold.charge is not None and job.physics != "electrostatics":
+            raise ValueError(f"hold.{i}.charge: a floating electrode (charge instead of value) needs "
+                             f"physics = 'electrostatics', this job is {job.physics!r}; give value")
+    if job.well and job.physics != "groundwater":
+        raise ValueError(f"well: wells need physics = 'groundwater', this job is {job.physics!r}")
+    seen: set[str] = set()
+    for i, well in enumerate(job.well):
+        if well.name in seen:
+            raise ValueError(f"well.{i}.name: {well.name!r} is used by an earlier well")
+        seen.add(well.name)
+        for axis, key, values in ((0, "x", (well.x,)), (1, "y", (well.y,)), (2, "top", (well.bottom, well.top))):
+            ab = job.grid.bounds(axis)
+            if ab is None:
+                continue  # an axis read from a file: checked when the wells are placed
+            a, b = ab
+            slack = 1e-9 * (b - a)
+            if any(not (a - slack <= c <= b + slack) for c in values):
+                what = f"{key} = {values[0]:g}" if axis < 2 else f"screen [{well.bottom:g}, {well.top:g}]"
+                raise ValueError(f"well.{i}: {well.name!r} has {what} m outside the box "
+                                 f"[{a:g}, {b:g}] along {'xyz'[axis]}; wells must lie inside the grid")
 
 
 # ---------------------------------------------------------------- patches, exchanges, contacts
@@ -775,6 +850,12 @@ class JobSpec(_Frozen):
     patch: tuple[PatchSpec, ...] = ()
     exchange: tuple[ExchangeSpec, ...] = ()
     contact: tuple[ContactSpec, ...] = ()
+    well: tuple[WellSpec, ...] = ()
+
+    @model_validator(mode="after")
+    def _wells_and_electrodes(self) -> "JobSpec":
+        check_wells_and_electrodes(self)
+        return self
 
     @field_validator("name")
     @classmethod

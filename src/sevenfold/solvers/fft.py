@@ -73,6 +73,8 @@ def fft_eligibility(problem: Problem) -> str | None:
     mixed = [name for name, t in problem.faces.items() if t.kind == "mixed"]
     if mixed:
         return f"patches of another type on part of a face ({', '.join(mixed)})"
+    if problem.wells:
+        return f"wells present ({len(problem.wells)})"
     robin = [name for name, t in problem.faces.items() if t.kind == "robin"]
     if robin:
         return f"a robin face ({', '.join(robin)})"
