@@ -61,7 +61,7 @@ def plausibility_warnings(spec: JobSpec, problem: Problem) -> list[str]:
                        "m/s (coarse gravel is about 1e-2 m/s); values are m/s: for m/day set "
                        "units.hydraulic_conductivity = \"m/day\"")
     elif spec.physics == "heat":
-        hot = [h.value for h in spec.hold if h.value > KELVIN_LIKE]
+        hot = [h.value for h in spec.hold if h.value is not None and h.value > KELVIN_LIKE]
         if hot:
             lo, hi = CELSIUS_LIKE
             for face in FACES:

@@ -24,7 +24,8 @@ Per physics:
   ``1/2 A F^2 h / (2 k)`` with F the face's flux density: the discrete form of
   ``1/2 integral eps |E|^2`` (J);
 * groundwater: the flow through each face (positive leaving) and into each hold (positive
-  into it, a well's discharge) in m^3/s and m^3/day.
+  into it, a well's discharge), through each patch and into each exchange (positive
+  leaving), and each ``[[well]]``'s rate into the aquifer, in m^3/s and m^3/day.
 
 Everything is JSON-friendly (the result's ``headline`` attribute). Nothing here does I/O.
 """
@@ -203,6 +204,10 @@ def flows(balance: Balance, spec: JobSpec) -> list[dict[str, Any]]:
         name = spec.hold[h.index].name if h.index < len(spec.hold) else None
         out.append({"where": f"into {region_label('hold', h.index, name)}", "m3_per_s": h.inflow,
                     "m3_per_day": h.inflow * SECONDS_PER_DAY})
+    for label, q in ([(f"of which out through patch {p.name!r}", p.outflow) for p in balance.patches]
+                     + [(f"out into exchange {e.name!r}", e.outflow) for e in balance.exchanges]
+                     + [(f"into the aquifer from well {w.name!r}", w.rate) for w in balance.wells]):
+        out.append({"where": label, "m3_per_s": q, "m3_per_day": q * SECONDS_PER_DAY})
     return out
 
 

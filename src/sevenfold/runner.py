@@ -15,6 +15,7 @@ import numpy as np
 
 from .balance import Balance, compute_balance
 from .cautions import job_warnings
+from .conditions import settle_drains
 from .derived import derived_fields
 from .errors import JobError, SolverError
 from .grid import Grid, grid_from_spec
@@ -249,8 +250,13 @@ def run_job(
     physics = PHYSICS[spec.physics]
     try:
         log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
-        u, result = solve_problem(problem, spec.solver, plan.method,
-                                  _Logged(log, monitor or QuietMonitor(), plan.method))
+        logged = _Logged(log, monitor or QuietMonitor(), plan.method)
+
+        def solve_once(p: Problem):
+            logged.method = plan.method  # each drain round starts with the planned method again
+            return solve_problem(p, spec.solver, plan.method, logged)
+
+        problem, u, result, drain_rounds = settle_drains(problem, solve_once)
         log.end(converged=True, iterations=result.iterations,
                 final_relative_residual=result.final_relative_residual)
     except SolverError as exc:
@@ -293,10 +299,12 @@ def run_job(
                   "source": physics.source_units, "length": "m"},
         "gauge": "mean zero (pure Neumann problem)" if problem.gauge_mean_zero else "none",
         "job": spec.model_dump(mode="json"),
-        "solver": {**result.summary(), "rtol": spec.solver.rtol, "unknowns": problem.unknowns},
+        "solver": {**result.summary(), "rtol": spec.solver.rtol, "unknowns": problem.unknowns,
+                   **({"drain_solves": drain_rounds} if drain_rounds else {})},
         "seconds": seconds,
         **(extra_attrs or {}),
         "balance": balance.to_dict(),
+        "floating": {h.name: h.value for h in balance.holds if h.floating},  # solved potentials (V)
         "headline": headline,
         "warnings": list(warnings),
         "input_units": list(unit_notes(spec)),

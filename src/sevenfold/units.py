@@ -16,15 +16,21 @@ Which keys each one converts (and nothing else):
 * ``length``: ``grid.size``, ``grid.spacing``, ``grid.origin``, ``grid.edges.x/y/z`` (edge
   lists; segments' ``start``, ``length``, ``first``, ``last``); every shape (``box.min/max``,
   ``sphere.center/radius``, ``cylinder.center/radius/length``) of ``material.region``,
-  ``source.region`` and ``hold``; ``probe.point`` and ``probe.line.start/end``; and in every
+  ``source.region``, ``hold`` and ``exchange``; ``patch.box``, ``contact.box``, ``contact.at``;
+  ``well.x/y/top/bottom/radius``; ``probe.point`` and ``probe.line.start/end``; and in every
   expression the coordinates x, y, z mean that unit (``x`` is rewritten to ``(x * 1000.0)``
   for mm). Coefficients, sources and fluxes keep their SI units per metre.
 * ``temperature``: ``boundary.<face>.value`` of dirichlet faces, ``boundary.<face>.reference``
-  of robin faces, ``hold.value``; expressions become ``(expr) + 273.15``. Conductivity,
+  of robin faces, the same of dirichlet and robin patches, ``hold.value``,
+  ``exchange.reference``; expressions become ``(expr) + 273.15``. Conductivity,
   Robin coefficients and fluxes are per kelvin and need no change.
 * ``hydraulic_conductivity``: ``material.value``, ``material.expression`` and
   ``material.region.value`` (numbers, expressions and [kx, ky, kz] lists).
-* ``recharge``: ``boundary.<face>.flux`` of neumann faces (a flux per unit area, m/s).
+* ``recharge``: ``boundary.<face>.flux`` of neumann faces and ``patch.flux`` of neumann
+  patches (a flux per unit area, m/s).
+
+Everything else stays SI: totals, rates, exchange coefficients and conductances, contact
+resistances, and groundwater heads (``well.head``, dirichlet values, hold values).
 
 A year is the Julian year, 365.25 days. Arrays read from files (``material.file``, a
 ``.npy`` of edges) cannot be converted here: under a non-SI unit for them the job is refused.
@@ -116,10 +122,17 @@ def _regions(table: dict[str, Any]) -> list[tuple[str, dict[str, Any]]]:
         regions = sub.get("region") if isinstance(sub, dict) else None
         if isinstance(regions, list):
             out += [(f"{section}.region.{i}", r) for i, r in enumerate(regions) if isinstance(r, dict)]
-    holds = table.get("hold")
-    if isinstance(holds, list):
-        out += [(f"hold.{i}", h) for i, h in enumerate(holds) if isinstance(h, dict)]
+    for key in ("hold", "exchange"):
+        items = table.get(key)
+        if isinstance(items, list):
+            out += [(f"{key}.{i}", h) for i, h in enumerate(items) if isinstance(h, dict)]
     return out
+
+
+def _items(table: dict[str, Any], key: str) -> list[tuple[str, dict[str, Any]]]:
+    """(dotted key, table) of each entry of an array of tables (``[[patch]]``, ...)."""
+    items = table.get(key)
+    return [(f"{key}.{i}", t) for i, t in enumerate(items) if isinstance(t, dict)] if isinstance(items, list) else []
 
 
 def _expression_sites(table: dict[str, Any]) -> list[tuple[dict[str, Any], str, str]]:
@@ -143,6 +156,10 @@ def _expression_sites(table: dict[str, Any]) -> list[tuple[dict[str, Any], str, 
                 for key in ("value", "flux", "coefficient", "reference"):
                     if key in cond:
                         out.append((cond, key, f"boundary.{face}.{key}"))
+    for where, t in _items(table, "patch") + _items(table, "exchange"):
+        for key in ("value", "flux", "coefficient", "reference"):
+            if key in t:
+                out.append((t, key, f"{where}.{key}"))
     return out
 
 
@@ -187,6 +204,18 @@ def _lengths(table: dict[str, Any], unit: str, factor: float) -> list[str]:
                     if key in s:
                         s[key] = conv.value(s[key])
                 conv.keys.append(f"{where}.{shape}")
+    for where, t in _items(table, "patch") + _items(table, "contact"):
+        box = t.get("box")
+        if isinstance(box, dict):
+            for key in ("min", "max"):
+                if key in box:
+                    box[key] = conv.value(box[key])
+            conv.keys.append(f"{where}.box")
+        if where.startswith("contact"):
+            conv.at(t, "at", f"{where}.at")
+    for where, t in _items(table, "well"):
+        for key in ("x", "y", "top", "bottom", "radius"):
+            conv.at(t, key, f"{where}.{key}")
     probes = table.get("probe")
     if isinstance(probes, list):
         for i, p in enumerate(probes):
@@ -222,6 +251,13 @@ def _temperatures(table: dict[str, Any], factor: float, offset: float) -> list[s
     if isinstance(holds, list):
         for i, h in enumerate(holds):
             conv.at(h, "value", f"hold.{i}.value")
+    for where, t in _items(table, "patch"):
+        if t.get("type") == "dirichlet":
+            conv.at(t, "value", f"{where}.value")
+        elif t.get("type") == "robin":
+            conv.at(t, "reference", f"{where}.reference")
+    for where, t in _items(table, "exchange"):
+        conv.at(t, "reference", f"{where}.reference")
     return conv.keys
 
 
@@ -249,6 +285,9 @@ def _recharges(table: dict[str, Any], factor: float) -> list[str]:
             cond = boundary.get(face)
             if isinstance(cond, dict) and cond.get("type") == "neumann":
                 conv.at(cond, "flux", f"boundary.{face}.flux")
+    for where, t in _items(table, "patch"):
+        if t.get("type") == "neumann":
+            conv.at(t, "flux", f"{where}.flux")
     return conv.keys
 
 
