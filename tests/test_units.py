@@ -198,3 +198,29 @@ def test_convert_units_without_a_units_table_returns_the_table() -> None:
     assert same is table and notes == ()
     si, notes = convert_units(dict(copy.deepcopy(table), units={"length": "m"}))
     assert "units" not in si and notes == ()
+
+
+def test_patches_exchanges_contacts_and_wells_are_converted() -> None:
+    heat = make_spec(physics="heat", units={"length": "mm", "temperature": "degC"},
+                     grid={"cells": [4, 4, 4], "size": [100, 100, 100]},
+                     boundary={"x_min": {"type": "dirichlet", "value": 20.0}},
+                     patch=[{"face": "z_max", "box": {"min": [0, 0, 100], "max": [50, 50, 100]},
+                             "type": "robin", "coefficient": 10.0, "reference": 30.0}],
+                     exchange=[{"name": "ch", "cylinder": {"center": [50, 50, 50], "radius": 10, "axis": "x",
+                                                         "length": 100}, "coefficient": 1e4, "reference": 15.0}],
+                     contact=[{"axis": "z", "at": 50, "resistance": 1e-4}])
+    assert heat.patch[0].box.max == pytest.approx((0.05, 0.05, 0.1))
+    assert heat.patch[0].reference == pytest.approx(303.15) and heat.patch[0].coefficient == 10.0
+    assert heat.exchange[0].cylinder.radius == pytest.approx(0.01) and heat.exchange[0].reference == pytest.approx(288.15)
+    assert heat.exchange[0].coefficient == 1e4 and heat.contact[0].at == pytest.approx(0.05)
+    assert heat.contact[0].resistance == 1e-4
+    water = make_spec(physics="groundwater", units={"length": "cm", "recharge": "mm/day"},
+                      grid={"cells": [4, 4, 4], "size": [1000, 1000, 1000]},
+                      boundary={"x_min": {"type": "dirichlet", "value": 10.0}},
+                      patch=[{"face": "z_max", "box": {"min": [0, 0, 1000], "max": [500, 1000, 1000]},
+                              "type": "neumann", "flux": 2.0}],
+                      well=[{"name": "w", "x": 370, "y": 370, "top": 900, "bottom": 300, "radius": 10,
+                             "head": 9.0}])
+    assert water.patch[0].flux == pytest.approx(2e-3 / 86400)
+    w = water.well[0]
+    assert (w.x, w.top, w.bottom, w.radius) == pytest.approx((3.7, 9.0, 3.0, 0.1)) and w.head == 9.0
