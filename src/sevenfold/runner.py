@@ -194,8 +194,11 @@ def run_job(
 ) -> JobResult:
     """Run one job to a finished result, or raise JobError / SolverError / Cancelled.
 
-    A failed or interrupted job leaves no result at ``output``, only its residual log.
-    ``extra_attrs`` are added to the result's attributes (the queue records its run there).
+    A solve that stops short with a usable iterate (maximum iterations, stagnation, the
+    accuracy floor) still writes its result, complete and marked ``converged = false``, then
+    raises its SolverError with ``output`` set to that result. Any other failed or interrupted
+    job leaves no result at ``output``, only its residual log. ``extra_attrs`` are added to
+    the result's attributes (the queue records its run there).
     """
     t0 = time.perf_counter()
     job_file = Path(job_file)
@@ -206,14 +209,20 @@ def run_job(
 
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
+    stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written
     try:
         log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
         u, result = solve_problem(problem, spec.solver, plan.method, _Logged(log, monitor or QuietMonitor()))
         log.end(converged=True, iterations=result.iterations,
                 final_relative_residual=result.final_relative_residual)
     except SolverError as exc:
-        log.end(converged=False, error=str(exc))
-        raise
+        if exc.partial is None or exc.field is None:
+            log.end(converged=False, error=str(exc))
+            raise
+        stopped, u, result = exc, exc.field, exc.partial
+        log.end(converged=False, error=str(exc), stop=result.stop, iterations=result.iterations,
+                final_relative_residual=result.final_relative_residual,
+                best_relative_residual=result.best_relative_residual, result=str(plan.output))
     except BaseException as exc:
         log.end(converged=False, error=f"{type(exc).__name__}: {exc}")
         raise
@@ -242,6 +251,7 @@ def run_job(
     }
     seconds["job"] = time.perf_counter() - t0  # up to the write; the write adds its own below
     attrs = {
+        "converged": bool(result.converged),
         "solution": physics.solution,
         "physics": spec.physics,
         "units": {"solution": physics.solution_units, "coefficient": physics.coefficient_units,
@@ -262,4 +272,7 @@ def run_job(
         csv = write_probe_csv(probes_csv_path(plan.output), probes, physics.solution, physics.solution_units)
     seconds["write"] = time.perf_counter() - t_write
     seconds["job"] = time.perf_counter() - t0
+    if stopped is not None:
+        stopped.output = plan.output
+        raise stopped
     return JobResult(plan, result, plan.output, log_path(plan.output), seconds, balance, tuple(probes), csv)

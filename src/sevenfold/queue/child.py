@@ -156,6 +156,11 @@ def run_recorded(job_file: Path, output: Path, monitor: Any, record: dict[str, A
     except JobError as exc:
         return {"status": "failed", "kind": "input", "error": str(exc)}
     except SolverError as exc:
+        if exc.output is not None:  # stopped short: its last iterate is written, marked
+            append_run(output, {"event": "not converged", **record, "time": time.time()})
+            return {"status": "failed", "kind": "solver", "result": str(exc.output),
+                    "error": f"solver failed: {exc}; result kept, not converged "
+                             f"(converged = false): {exc.output}"}
         return {"status": "failed", "kind": "solver", "error": f"solver failed: {exc}"}
     except MemoryError:
         return {"status": "failed", "kind": "memory", "error": "ran out of memory"}

@@ -243,7 +243,9 @@ def _show(args: argparse.Namespace) -> int:
         beat = f", last heartbeat {duration(now - job.heartbeat)} ago" if job.heartbeat and job.state == "running" else ""
         row("worker", f"{job.worker}{beat}")
     out_path = Path(job.output)
-    row("output", f"{job.output} ({'complete' if is_complete(out_path) else 'not written'})")
+    attrs = _result_attrs(out_path) if is_complete(out_path) else None
+    kept = "not written" if attrs is None else "complete" if attrs.get("converged", True) else "complete, NOT converged"
+    row("output", f"{job.output} ({kept})")
     row("source", job.source)
     for i in job.inputs:
         row(i["key"], f"{i['original']} (snapshot {i['snapshot']}, sha256 {i['sha256'][:16]})")
@@ -263,12 +265,14 @@ def _show(args: argparse.Namespace) -> int:
     if job.error:
         t.add_row("error", f"[red]{escape(job.error)}[/red]")
     out.print(t)
-    if is_complete(out_path):
-        import zarr
-
+    if attrs is not None:
         from ..cli import balance_table
+        from ..store import not_converged_warning
 
-        balance = zarr.open_group(str(out_path), mode="r").attrs.get("balance")
+        warning = not_converged_warning(attrs)
+        if warning:
+            out.print(f"[yellow]warning:[/yellow] {escape(warning)}")
+        balance = attrs.get("balance")
         if balance:
             out.print(balance_table(balance))
     ev = Table(title="history", title_justify="left", box=None, pad_edge=False)
@@ -280,6 +284,12 @@ def _show(args: argparse.Namespace) -> int:
     out.print("[bold]job as it runs[/bold] (snapshot; the job file may have changed since)")
     out.print(escape(dumps(job.job_table or {})), soft_wrap=True)
     return 0
+
+
+def _result_attrs(path: Path) -> dict:
+    import zarr
+
+    return dict(zarr.open_group(str(path), mode="r").attrs)
 
 
 # ---------------------------------------------------------------- watch
