@@ -13,7 +13,6 @@ from pathlib import Path
 
 from rich.console import Console
 from rich.markup import escape
-from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
 from . import __version__
@@ -81,6 +80,8 @@ def _check(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace) -> int:
+    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+
     from .runner import plan_job, run_job
 
     plan = plan_job(args.job, args.output)
