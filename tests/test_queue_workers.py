@@ -35,6 +35,10 @@ def warm_cache(tmp_path_factory) -> Path:
     w = WorkerProcess(home, "--drain")
     assert w.wait() == 0, w.output()
     assert any(home.numba_cache.rglob("*.nbi")), "the warm-up left no compiled kernels"
+    # a first start in a new home says it compiles, before its slot is ready
+    text = w.output()
+    assert text.count("compiling the numerical kernels once") == 1, text
+    assert text.index("compiling the numerical kernels") < text.index("ready")
     return home.numba_cache
 
 
@@ -121,6 +125,7 @@ def test_a_worker_stopped_by_sigterm_puts_its_running_job_back(tmp_path: Path, w
     wait_for(lambda: iterations_logged(s["output"]) >= 3, "the solve to be iterating")
     w.proc.send_signal(signal.SIGTERM)
     assert w.wait() == 0, w.output()
+    assert "compiling" not in w.output()  # the kernels came with the home's cache
     j = job(home, s["id"])
     assert j.state == "queued" and j.attempts == 1 and j.worker is None
     with Queue(home) as q:

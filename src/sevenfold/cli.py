@@ -40,6 +40,10 @@ class ProgressMonitor:
     def stop_requested(self) -> bool:
         return False
 
+    def note(self, text: str) -> None:
+        """A line above the bar (the first run's compile notice), shown with --quiet too."""
+        self.progress.console.print(f"[yellow]{escape(text)}[/yellow]")
+
 
 def balance_table(balance: dict, title: str = "balance") -> Table:
     """A result's balance (``attrs["balance"]``) as a table: amounts and the imbalance."""

@@ -231,6 +231,11 @@ def run_job(
     plan, problem = prepare_problem(plan)
     t_build = time.perf_counter()
 
+    from .kernels.cache import cold_notice, mark_warm
+
+    compiling = cold_notice(plan.method)  # said before the kernels compile, on a first run
+    if compiling and hasattr(monitor, "note"):
+        monitor.note(compiling)
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
     stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written
@@ -298,6 +303,8 @@ def run_job(
         csv = write_probe_csv(probes_csv_path(plan.output), probes, physics.solution, physics.solution_units)
     seconds["write"] = time.perf_counter() - t_write
     seconds["job"] = time.perf_counter() - t0
+    if compiling:
+        mark_warm(plan.method, *(["amg"] if result.method.startswith("amg") else []))
     if stopped is not None:
         stopped.output = plan.output
         raise stopped
