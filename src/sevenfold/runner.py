@@ -25,6 +25,7 @@ from .problem import Problem, build_problem
 from .residual_log import ResidualLog, log_path
 from .solvers import choose_method, method_for, solve_problem
 from .solvers.cg import Monitor, QuietMonitor, SolveResult
+from .solvers.select import FieldLease
 from .spec import JobSpec, load_job
 from .store import Variable, write_probe_csv, write_result
 
@@ -241,7 +242,9 @@ def run_job(
     stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written
     try:
         log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
-        u, result = solve_problem(problem, spec.solver, plan.method, _Logged(log, monitor or QuietMonitor()))
+        # k, f and the held values are dropped while the solve runs and rebuilt after it
+        lease = FieldLease(problem, lambda: prepare_problem(plan)[1])
+        u, result = solve_problem(problem, spec.solver, plan.method, _Logged(log, monitor or QuietMonitor()), lease)
         log.end(converged=True, iterations=result.iterations,
                 final_relative_residual=result.final_relative_residual)
     except SolverError as exc:

@@ -78,6 +78,53 @@ def solve(A, b, solver: SolverSpec, monitor: Monitor | None = None) -> SolveResu
     return solve_amg(A, b, solver.rtol, solver.max_iterations, solver.amg, monitor, solver.stagnation_window)
 
 
+class FieldLease:
+    """The cell fields a problem's operator is built from, lent to a solve that lets them go
+    once its operator exists, and gets them back rebuilt when something needs them again.
+
+    ``coefficient``, ``source``, ``held_value`` and ``hold_index`` are 28 bytes per cell of an
+    isotropic job (44 with directional k): once the face arrays (gmg) or the CSR matrix
+    (amg, direct) are built, the solve needs none of them, so :meth:`release` drops them from
+    the problem (at the solve's first iteration report) and :meth:`restore` puts back the
+    arrays ``rebuild`` makes (the same job built again, deterministic) for ``complete_field``,
+    a fallback to amg, the balance and the derived fields. ``held`` and the face terms stay.
+    The Problem is frozen for everyone else; only this lease replaces its arrays.
+    """
+
+    FIELDS = ("coefficient", "source", "held_value", "hold_index")
+
+    def __init__(self, problem: Problem, rebuild) -> None:
+        self.problem, self.rebuild, self.released = problem, rebuild, False
+
+    def release(self) -> None:
+        if not self.released:
+            for name in self.FIELDS:
+                object.__setattr__(self.problem, name, None)
+            self.released = True
+
+    def restore(self) -> Problem:
+        if self.released:
+            fresh = self.rebuild()
+            for name in self.FIELDS:
+                object.__setattr__(self.problem, name, getattr(fresh, name))
+            self.released = False
+        return self.problem
+
+
+class _Releasing:
+    """Passes progress on; the first report (the operator is built by then) releases the lease."""
+
+    def __init__(self, inner: Monitor, lease: FieldLease) -> None:
+        self.inner, self.lease = inner, lease
+
+    def iteration(self, iteration: int, relative_residual: float, elapsed: float) -> None:
+        self.lease.release()
+        self.inner.iteration(iteration, relative_residual, elapsed)
+
+    def stop_requested(self) -> bool:
+        return self.inner.stop_requested()
+
+
 class _SlowMultigrid(Exception):
     def __init__(self, rate: float, iteration: int) -> None:
         self.rate, self.iteration = rate, iteration
@@ -101,47 +148,60 @@ class _RateGuard:
 
 
 def solve_assembled(problem: Problem, solver: SolverSpec, method: str,
-                    monitor: Monitor) -> tuple[np.ndarray, SolveResult]:
+                    monitor: Monitor, lease: FieldLease | None = None) -> tuple[np.ndarray, SolveResult]:
     """Assemble the CSR system and solve it with ``amg`` or ``direct``."""
     from ..operator import scatter
 
     t0 = time.perf_counter()
-    system = assemble(problem)
+    system = assemble(lease.restore() if lease else problem)
     assembly = time.perf_counter() - t0
+    if lease is not None:
+        monitor = _Releasing(monitor, lease)
     try:
         result = solve(system.matrix, system.rhs, solver.model_copy(update={"method": method}), monitor)
     except SolverError as exc:
         if exc.partial is not None:
             exc.partial.assembly_seconds = assembly
-            exc.field = scatter(system, problem, exc.partial.x)
+            exc.field = scatter(system, lease.restore() if lease else problem, exc.partial.x)
         raise
     result.assembly_seconds = assembly
-    return scatter(system, problem, result.x), result
+    return scatter(system, lease.restore() if lease else problem, result.x), result
 
 
 def solve_problem(problem: Problem, solver: SolverSpec, method: str,
-                  monitor: Monitor | None = None) -> tuple[np.ndarray, SolveResult]:
-    """u on every cell (held values in place, gauge applied) and the solve's record."""
+                  monitor: Monitor | None = None, lease: FieldLease | None = None,
+                  ) -> tuple[np.ndarray, SolveResult]:
+    """u on every cell (held values in place, gauge applied) and the solve's record.
+
+    With a ``lease`` on ``problem``'s fields, the iterative and direct methods drop them while
+    they solve; ``problem`` has them back (rebuilt) when this returns or raises.
+    """
     monitor = monitor or QuietMonitor()
     if method == "fft":
         from .fft import solve_fft
 
         return solve_fft(problem, monitor=monitor)
-    if method == "gmg":
-        from .gmg import solve_gmg
+    try:
+        if method == "gmg":
+            from .gmg import solve_gmg
 
-        guarded = solver.method == "auto"
-        try:
-            u, result = solve_gmg(problem, solver.rtol, solver.max_iterations,
-                                  _RateGuard(monitor) if guarded else monitor, solver.stagnation_window)
-        except SolverError as exc:
-            if exc.partial is not None and exc.field is None:  # the fine grid's flat iterate
-                exc.field = complete_field(problem, exc.partial.x.reshape(problem.grid.shape))
-            raise
-        except _SlowMultigrid as slow:
-            u, result = solve_assembled(problem, solver, "amg", monitor)
-            result.notes = (f"auto chose gmg, which reduced the residual only {slow.rate:.2f} per "
-                            f"iteration over {slow.iteration} iterations; solved with amg instead")
-            return u, result
-        return complete_field(problem, u), result
-    return solve_assembled(problem, solver, method, monitor)
+            guarded = solver.method == "auto"
+            watched = _RateGuard(monitor) if guarded else monitor
+            try:
+                u, result = solve_gmg(problem, solver.rtol, solver.max_iterations,
+                                      _Releasing(watched, lease) if lease else watched, solver.stagnation_window)
+            except SolverError as exc:
+                if exc.partial is not None and exc.field is None:  # the fine grid's flat iterate
+                    problem = lease.restore() if lease else problem
+                    exc.field = complete_field(problem, exc.partial.x.reshape(problem.grid.shape))
+                raise
+            except _SlowMultigrid as slow:
+                u, result = solve_assembled(problem, solver, "amg", monitor, lease)
+                result.notes = (f"auto chose gmg, which reduced the residual only {slow.rate:.2f} per "
+                                f"iteration over {slow.iteration} iterations; solved with amg instead")
+                return u, result
+            return complete_field(lease.restore() if lease else problem, u), result
+        return solve_assembled(problem, solver, method, monitor, lease)
+    finally:
+        if lease is not None:
+            lease.restore()
