@@ -139,6 +139,8 @@ def main() -> None:
     p.add_argument("--repeats", type=int, default=7)
     p.add_argument("--base", help="also measure this git revision's code (e.g. 6d2df71)")
     p.add_argument("--cold", action="store_true", help="first runs per method from an empty numba cache")
+    p.add_argument("--tree", action="append", default=[], metavar="LABEL=SRC",
+                   help="also measure an experimental copy of the package source (a src folder)")
     p.add_argument("--output", default=str(HERE / "RESULTS_START.md"))
     args = p.parse_args()
     load_start = load_average()
@@ -146,6 +148,8 @@ def main() -> None:
     py = sys.executable
     env = {**os.environ, "PYTHONPATH": str(ROOT / "src")}
     env.pop("NUMBA_CACHE_DIR", None)
+    # as installed: byte-compiled modules are written and reused (pip compiles them at install)
+    env.pop("PYTHONDONTWRITEBYTECODE", None)
     jobs = {m: write_job(work, m) for m in ("gmg", "fft", "amg", "direct")}
     jobs["direct"] = write_job(work, "direct", 16)
     sevenfold = [py, "-m", "sevenfold.cli"]
@@ -156,6 +160,9 @@ def main() -> None:
     if args.base:
         base_src = extract(args.base, work / "base")
         trees.append((args.base, {**env, "PYTHONPATH": str(base_src)}))
+    for spec in args.tree:
+        label, src = spec.split("=", 1)
+        trees.append((label, {**env, "PYTHONPATH": str(Path(src).resolve())}))
     for label, tree_env in trees:
         rows.append((label, "sevenfold check column32 (gmg)", measure(sevenfold + ["check", str(jobs["gmg"])], tree_env, args.repeats)))
         rows.append((label, "sevenfold run -q column32, gmg (warm)", measure(sevenfold + ["run", "-q", str(jobs["gmg"])], tree_env, args.repeats)))
@@ -174,9 +181,14 @@ def main() -> None:
             cold_rows.append((method, wall, cpu, warm["median"], warm["cpu"], said))
     load_end = load_average()
     text = report(rows, cold_rows, profile, args, load_start, load_end)
-    Path(args.output).write_text(text)
+    out = Path(args.output)
+    kept = out.read_text().split(NOTES, 1)[1] if out.exists() and NOTES in out.read_text() else "\n"
+    out.write_text(text + "\n" + NOTES + kept)  # the hand-written analysis below the marker stays
     print(text)
     shutil.rmtree(work, ignore_errors=True)
+
+
+NOTES = "<!-- analysis: kept by start_bench.py when it rewrites the tables above -->"
 
 
 def report(rows, cold_rows, profile, args, load_start, load_end) -> str:
@@ -189,7 +201,9 @@ def report(rows, cold_rows, profile, args, load_start, load_end) -> str:
         + f"{m['date']}. Machine: {m['cpu']}, {m['cores']} cores, {m['memory']}; {m['os']}; "
         f"Python {m['python']}, numpy {m['numpy']}, scipy {m['scipy']}, numba {m['numba']}.",
         f"Load average at start {load_start}, at end {load_end} (the machine is shared: compare "
-        "within this table; CPU seconds are inflated less than wall seconds by other processes).",
+        "within this table; CPU seconds are inflated less than wall seconds by other processes). "
+        "Byte-compiled modules are written and reused, as after `pip install` "
+        "(`PYTHONDONTWRITEBYTECODE` unset).",
         "",
         f"{args.repeats} runs each after one unmeasured run. Ratio: minimum wall time over the "
         "minimum of `python -c \"import numpy, scipy\"`.",
