@@ -62,7 +62,8 @@ def test_estimate_within_a_quarter_of_the_peak(tmp_path: Path, method: str, n: i
     assert abs(plan.memory_bytes / peak - 1.0) <= 0.25, (plan.memory_bytes / 2**20, peak / 2**20)
 
 
-def test_the_lease_drops_the_fields_during_the_solve_and_the_answer_is_unchanged(tmp_path: Path) -> None:
+def test_the_lease_drops_the_fields_during_the_solve_and_the_answer_is_unchanged(tmp_path: Path,
+                                                                                monkeypatch) -> None:
     """FieldLease: k, f, the held values and the hold index are gone while CG iterates, back
     (rebuilt, equal) afterwards, and the solution is bit for bit the one without the lease."""
     import numpy as np
@@ -99,3 +100,13 @@ def test_the_lease_drops_the_fields_during_the_solve_and_the_answer_is_unchanged
             assert np.array_equal(u, u_plain)
         else:  # another solver: the same solution to its tolerance
             assert np.abs(u - u_plain).max() <= 1e-6 * np.abs(u_plain).max()
+    # auto's fallback from gmg to amg after the fields were released: rebuilt for the assembly
+    from sevenfold.solvers import select
+
+    monkeypatch.setattr(select, "GUARD_ITERATIONS", 2)
+    monkeypatch.setattr(select, "GUARD_RATE", 0.0)
+    leased = build_problem(spec)
+    auto = spec.solver.model_copy(update={"method": "auto"})
+    u, result = solve_problem(leased, auto, "gmg", None, FieldLease(leased, lambda: build_problem(spec)))
+    assert result.method.startswith("amg") and "solved with amg instead" in result.notes
+    assert np.abs(u - u_plain).max() <= 1e-6 * np.abs(u_plain).max()

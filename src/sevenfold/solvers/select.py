@@ -174,34 +174,31 @@ def solve_problem(problem: Problem, solver: SolverSpec, method: str,
     """u on every cell (held values in place, gauge applied) and the solve's record.
 
     With a ``lease`` on ``problem``'s fields, the iterative and direct methods drop them while
-    they solve; ``problem`` has them back (rebuilt) when this returns or raises.
+    they solve; ``problem`` has them back (rebuilt) when this returns, or raises SolverError
+    with a kept iterate (other errors leave them dropped: the job ends there).
     """
     monitor = monitor or QuietMonitor()
     if method == "fft":
         from .fft import solve_fft
 
         return solve_fft(problem, monitor=monitor)
-    try:
-        if method == "gmg":
-            from .gmg import solve_gmg
+    if method == "gmg":
+        from .gmg import solve_gmg
 
-            guarded = solver.method == "auto"
-            watched = _RateGuard(monitor) if guarded else monitor
-            try:
-                u, result = solve_gmg(problem, solver.rtol, solver.max_iterations,
-                                      _Releasing(watched, lease) if lease else watched, solver.stagnation_window)
-            except SolverError as exc:
-                if exc.partial is not None and exc.field is None:  # the fine grid's flat iterate
-                    problem = lease.restore() if lease else problem
-                    exc.field = complete_field(problem, exc.partial.x.reshape(problem.grid.shape))
-                raise
-            except _SlowMultigrid as slow:
-                u, result = solve_assembled(problem, solver, "amg", monitor, lease)
-                result.notes = (f"auto chose gmg, which reduced the residual only {slow.rate:.2f} per "
-                                f"iteration over {slow.iteration} iterations; solved with amg instead")
-                return u, result
-            return complete_field(lease.restore() if lease else problem, u), result
-        return solve_assembled(problem, solver, method, monitor, lease)
-    finally:
-        if lease is not None:
-            lease.restore()
+        guarded = solver.method == "auto"
+        watched = _RateGuard(monitor) if guarded else monitor
+        try:
+            u, result = solve_gmg(problem, solver.rtol, solver.max_iterations,
+                                  _Releasing(watched, lease) if lease else watched, solver.stagnation_window)
+        except SolverError as exc:
+            if exc.partial is not None and exc.field is None:  # the fine grid's flat iterate
+                problem = lease.restore() if lease else problem
+                exc.field = complete_field(problem, exc.partial.x.reshape(problem.grid.shape))
+            raise
+        except _SlowMultigrid as slow:
+            u, result = solve_assembled(problem, solver, "amg", monitor, lease)
+            result.notes = (f"auto chose gmg, which reduced the residual only {slow.rate:.2f} per "
+                            f"iteration over {slow.iteration} iterations; solved with amg instead")
+            return u, result
+        return complete_field(lease.restore() if lease else problem, u), result
+    return solve_assembled(problem, solver, method, monitor, lease)
