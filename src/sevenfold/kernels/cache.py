@@ -19,9 +19,10 @@ import sys
 from pathlib import Path
 
 # Seconds of compiling on a first run, measured from an empty cache on the reference machine
-# (2 cores, idle; benchmarks/start_bench.py --cold, benchmarks/RESULTS_START.md). A busy
-# machine takes longer, hence "about".
-COMPILE_SECONDS = {"gmg": 12, "amg": 14, "direct": 12, "fft": 2}
+# (2 cores; CPU seconds of cold minus warm runs, benchmarks/start_bench.py --cold, in
+# benchmarks/RESULTS_START.md: gmg 14.5, amg 11.9, direct 10.2, fft 1.1). Compiling is
+# single-threaded, so an idle machine takes about that long; a busy one longer, hence "about".
+COMPILE_SECONDS = {"gmg": 15, "amg": 12, "direct": 10, "fft": 1}
 
 
 def _kernel_files() -> list[Path]:
