@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from .balance import Balance, compute_balance
+from .conditions import settle_drains
 from .derived import derived_fields
 from .errors import JobError, SolverError
 from .grid import Grid, grid_from_spec
@@ -242,9 +243,12 @@ def run_job(
     stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written
     try:
         log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
-        # k, f and the held values are dropped while the solve runs and rebuilt after it
-        lease = FieldLease(problem, lambda: prepare_problem(plan)[1])
-        u, result = solve_problem(problem, spec.solver, plan.method, _Logged(log, monitor or QuietMonitor()), lease)
+        logged = _Logged(log, monitor or QuietMonitor())
+        # k, f and the held values are dropped while each solve runs and rebuilt after it
+        # (drains change only the exchanges, which the rebuild does not touch)
+        problem, u, result, drain_rounds = settle_drains(
+            problem, lambda p: solve_problem(p, spec.solver, plan.method, logged,
+                                             FieldLease(p, lambda: prepare_problem(plan)[1])))
         log.end(converged=True, iterations=result.iterations,
                 final_relative_residual=result.final_relative_residual)
     except SolverError as exc:
@@ -292,10 +296,12 @@ def run_job(
                   "source": physics.source_units, "length": "m"},
         "gauge": "mean zero (pure Neumann problem)" if problem.gauge_mean_zero else "none",
         "job": spec.model_dump(mode="json"),
-        "solver": {**result.summary(), "rtol": spec.solver.rtol, "unknowns": problem.unknowns},
+        "solver": {**result.summary(), "rtol": spec.solver.rtol, "unknowns": problem.unknowns,
+                   **({"drain_solves": drain_rounds} if drain_rounds else {})},
         "seconds": seconds,
         **(extra_attrs or {}),
         "balance": balance.to_dict(),
+        "floating": {h.name: h.value for h in balance.holds if h.floating},  # solved potentials (V)
         "probes": [{"name": p.name, "kind": p.kind, "samples": len(p.values),
                     "min": float(p.values.min()), "max": float(p.values.max())} for p in probes],
     }

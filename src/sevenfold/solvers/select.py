@@ -171,12 +171,24 @@ def solve_assembled(problem: Problem, solver: SolverSpec, method: str,
 def solve_problem(problem: Problem, solver: SolverSpec, method: str,
                   monitor: Monitor | None = None, lease: FieldLease | None = None,
                   ) -> tuple[np.ndarray, SolveResult]:
-    """u on every cell (held values in place, gauge applied) and the solve's record.
+    """u on every cell (held values in place, gauge applied) and the solve's record; floating
+    electrodes take the potentials that give them their charges (electrodes.py).
 
     With a ``lease`` on ``problem``'s fields, the iterative and direct methods drop them while
     they solve; ``problem`` has them back (rebuilt) when this returns, or raises SolverError
-    with a kept iterate (other errors leave them dropped: the job ends there).
+    with a kept iterate (other errors leave them dropped: the job ends there). Floating
+    electrodes solve several times with their own held values: no lease there.
     """
+    if problem.floating:
+        from ..electrodes import solve_floating
+
+        return solve_floating(problem, solver, method, monitor or QuietMonitor(), _solve_fixed)
+    return _solve_fixed(problem, solver, method, monitor, lease)
+
+
+def _solve_fixed(problem: Problem, solver: SolverSpec, method: str,
+                 monitor: Monitor | None = None, lease: FieldLease | None = None,
+                 ) -> tuple[np.ndarray, SolveResult]:
     monitor = monitor or QuietMonitor()
     if method == "fft":
         from .fft import solve_fft
