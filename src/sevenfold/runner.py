@@ -241,6 +241,7 @@ def run_job(
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
     stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written
+    drain_rounds = 0  # (a solve stopped short inside the drains' rounds reports none)
     try:
         log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
         logged = _Logged(log, monitor or QuietMonitor())
