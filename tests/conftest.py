@@ -253,4 +253,8 @@ def warm_cache(tmp_path_factory) -> Path:
     w = WorkerProcess(home, "--drain")
     assert w.wait() == 0, w.output()
     assert any(home.numba_cache.rglob("*.nbi")), "the warm-up left no compiled kernels"
+    # a first start in a new home says it compiles, before its slot is ready
+    text = w.output()
+    assert text.count("compiling the numerical kernels once") == 1, text
+    assert text.index("compiling the numerical kernels") < text.index("ready")
     return home.numba_cache

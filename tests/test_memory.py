@@ -60,3 +60,53 @@ def test_estimate_within_a_quarter_of_the_peak(tmp_path: Path, method: str, n: i
     assert plan.method == method
     peak = peak_of_run(job)
     assert abs(plan.memory_bytes / peak - 1.0) <= 0.25, (plan.memory_bytes / 2**20, peak / 2**20)
+
+
+def test_the_lease_drops_the_fields_during_the_solve_and_the_answer_is_unchanged(tmp_path: Path,
+                                                                                monkeypatch) -> None:
+    """FieldLease: k, f, the held values and the hold index are gone while CG iterates, back
+    (rebuilt, equal) afterwards, and the solution is bit for bit the one without the lease."""
+    import numpy as np
+
+    from sevenfold.problem import build_problem
+    from sevenfold.solvers.select import FieldLease, solve_problem
+    from sevenfold.spec import load_job
+
+    job = tmp_path / "job.toml"
+    text = JOB.format(method="gmg", n=12, region=LAYER)
+    job.write_text(text.replace("[solver]", "[[hold]]\nbox = { min = [0.4, 0.4, 0.4], max = [0.6, 0.6, 0.6] }\n"
+                                "value = 3.0\n[solver]"))
+    spec = load_job(job)
+    plain = build_problem(spec)
+    u_plain, _ = solve_problem(plain, spec.solver, "gmg")
+    for method in ("gmg", "amg", "direct"):
+        leased = build_problem(spec)
+        lease = FieldLease(leased, lambda: build_problem(spec))
+        seen = []
+
+        class Watch:
+            def iteration(self, iteration, relative_residual, elapsed):
+                seen.append(all(getattr(leased, f) is None for f in FieldLease.FIELDS))
+
+            def stop_requested(self):
+                return False
+
+        u, _ = solve_problem(leased, spec.solver, method, Watch(), lease)
+        assert seen and all(seen), method  # released from the first report on
+        for name in FieldLease.FIELDS:  # restored, equal to a fresh build
+            a, b = getattr(leased, name), getattr(plain, name)
+            assert all(np.array_equal(x, y) for x, y in zip(a, b)) if isinstance(a, tuple) else np.array_equal(a, b)
+        if method == "gmg":
+            assert np.array_equal(u, u_plain)
+        else:  # another solver: the same solution to its tolerance
+            assert np.abs(u - u_plain).max() <= 1e-6 * np.abs(u_plain).max()
+    # auto's fallback from gmg to amg after the fields were released: rebuilt for the assembly
+    from sevenfold.solvers import select
+
+    monkeypatch.setattr(select, "GUARD_ITERATIONS", 2)
+    monkeypatch.setattr(select, "GUARD_RATE", 0.0)
+    leased = build_problem(spec)
+    auto = spec.solver.model_copy(update={"method": "auto"})
+    u, result = solve_problem(leased, auto, "gmg", None, FieldLease(leased, lambda: build_problem(spec)))
+    assert result.method.startswith("amg") and "solved with amg instead" in result.notes
+    assert np.abs(u - u_plain).max() <= 1e-6 * np.abs(u_plain).max()

@@ -111,6 +111,7 @@ def test_a_worker_stopped_by_sigterm_puts_its_running_job_back(tmp_path: Path, w
     wait_for(lambda: iterations_logged(s["output"]) >= 3, "the solve to be iterating")
     w.proc.send_signal(signal.SIGTERM)
     assert w.wait() == 0, w.output()
+    assert "compiling" not in w.output()  # the kernels came with the home's cache
     j = job(home, s["id"])
     assert j.state == "queued" and j.attempts == 1 and j.worker is None
     with Queue(home) as q:
@@ -195,6 +196,23 @@ def test_a_failing_write_fails_with_the_os_error_then_retry_after_the_fix(worker
     assert cli(home, "retry", str(s["id"])).returncode == 0
     wait_for(lambda: job(home, s["id"]).state == "done", "the retried job to finish")
     assert is_complete(Path(s["output"]))
+
+
+def test_a_solve_that_stops_short_fails_and_keeps_its_result(worker_home) -> None:
+    home, root, _ = worker_home
+    path = small_job(root, "short", n=10, method="gmg")
+    path.write_text(path.read_text().replace('method = "gmg"', 'method = "gmg"\nrtol = 1e-14\nmax_iterations = 2'))
+    (s,) = submit(home, path)
+    wait_for(lambda: job(home, s["id"]).state == "failed", "the job to fail")
+    j = job(home, s["id"])
+    assert "did not converge in 2 iterations" in j.error and "not converged" in j.error
+    assert s["output"] in j.error  # the failure names the result it kept
+    out = Path(s["output"])
+    assert is_complete(out) and partials(out) == []
+    attrs = zarr.open_group(str(out), mode="r").attrs
+    assert attrs["converged"] is False and attrs["solver"]["stop"] == "max_iterations"
+    proc = cli(home, "show", str(s["id"]))
+    assert proc.returncode == 0 and "NOT converged" in proc.stdout, proc.stderr
 
 
 def test_a_job_larger_than_the_workers_memory_is_not_started(worker_home) -> None:

@@ -116,14 +116,16 @@ def test_partial_path_does_not_look_finished(tmp_path: Path) -> None:
     assert not is_complete(tmp)
 
 
-def test_failed_solve_keeps_history_and_writes_no_result(tmp_path: Path) -> None:
+def test_failed_solve_keeps_history_and_writes_its_result_marked(tmp_path: Path) -> None:
+    """A solve that stops short keeps its work (tests/test_not_converged.py has the rest)."""
     from sevenfold.errors import SolverError
 
     job = write_job(tmp_path, method="amg", max_iterations=1)
     with pytest.raises(SolverError) as info:
         run_job(job)
     assert len(info.value.history) == 2
-    assert not (tmp_path / "results" / "slab.zarr").exists()
+    out = tmp_path / "results" / "slab.zarr"
+    assert is_complete(out) and zarr.open_group(str(out), mode="r").attrs["converged"] is False
     records = list(read_log(tmp_path / "results" / "slab.residuals.jsonl"))
     assert records[-1]["event"] == "end" and records[-1]["converged"] is False
     assert "did not converge in 1 iterations" in records[-1]["error"]

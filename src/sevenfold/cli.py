@@ -13,7 +13,6 @@ from pathlib import Path
 
 from rich.console import Console
 from rich.markup import escape
-from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
 from . import __version__
@@ -46,6 +45,10 @@ class ProgressMonitor:
 
     def stop_requested(self) -> bool:
         return False
+
+    def note(self, text: str) -> None:
+        """A line above the bar (the first run's compile notice), shown with --quiet too."""
+        self.progress.console.print(f"[yellow]{escape(text)}[/yellow]")
 
 
 def balance_table(balance: dict, title: str = "balance") -> Table:
@@ -121,6 +124,8 @@ def _check(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace) -> int:
+    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+
     from .runner import plan_job, run_job
 
     plan = plan_job(args.job, args.output)
@@ -257,14 +262,25 @@ def _report(args: argparse.Namespace) -> int:
     from .report import write_report
 
     index = write_report(args.result, args.folder)
+    _warn_if_not_converged(args.result)
     out.print(f"report: {escape(str(index))}")
     return EXIT_OK
+
+
+def _warn_if_not_converged(result_path: str) -> None:
+    from .export import open_result
+
+    warning = open_result(result_path, warn=False).warning
+    if warning:
+        err.print(f"[yellow]warning:[/yellow] {escape(warning)}", soft_wrap=True)
 
 
 def _export(args: argparse.Namespace) -> int:
     from .export import open_result, write_vtk
 
-    result = open_result(args.result)
+    result = open_result(args.result, warn=False)
+    if result.warning:
+        err.print(f"[yellow]warning:[/yellow] {escape(result.warning)}", soft_wrap=True)
     fields = args.fields.split(",") if args.fields else None
     path = write_vtk(result, args.vti, fields)
     kind = "VTK image data" if path.suffix == ".vti" else "VTK rectilinear grid (graded axes)"
@@ -340,6 +356,11 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INPUT
     except SolverError as exc:
         err.print(f"[red]solver failed:[/red] {escape(str(exc))}", soft_wrap=True)
+        if exc.output is not None:
+            p = exc.partial
+            err.print(f"[yellow]result kept, NOT converged[/yellow] (converged = false, best relative "
+                      f"residual {p.best_relative_residual:.2e}, the last iterate's "
+                      f"{p.final_relative_residual:.2e}): {escape(str(exc.output))}", soft_wrap=True)
         return EXIT_SOLVER
     except Cancelled as exc:
         err.print(f"cancelled: {escape(str(exc))}")

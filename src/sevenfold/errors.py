@@ -31,11 +31,18 @@ class JobError(SevenfoldError):
 class SolverError(SevenfoldError):
     """A solve did not converge, stagnated or produced non-finite values (exit code 1).
 
-    ``history`` keeps the relative residuals recorded up to the failure.
+    ``history`` keeps the relative residuals recorded up to the failure. When the solve
+    stopped short with a usable iterate (maximum iterations, stagnation, the attainable-accuracy
+    floor), ``partial`` is its :class:`~sevenfold.solvers.cg.SolveResult` (``converged`` False,
+    ``x`` the last iterate); the solver layer adds ``field`` (that iterate on every cell) and
+    the runner ``output`` (where it wrote the result marked ``converged = false``).
     """
 
-    def __init__(self, reason: str, history: list[float] | None = None) -> None:
+    def __init__(self, reason: str, history: list[float] | None = None, partial: object = None) -> None:
         self.history = list(history or [])
+        self.partial = partial
+        self.field = None
+        self.output = None
         super().__init__(reason)
 
 

@@ -10,6 +10,7 @@ array in the zarr group).
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -18,6 +19,10 @@ import numpy as np
 
 from .errors import JobError
 from .spec import JobSpec
+
+
+class NotConvergedWarning(UserWarning):
+    """The result opened holds the last iterate of a solve that stopped short of rtol."""
 
 
 @dataclass(frozen=True)
@@ -32,6 +37,18 @@ class StoredResult:
     @property
     def solution(self) -> str:
         return self.attrs["solution"]
+
+    @property
+    def converged(self) -> bool:
+        """False when the solve stopped short of rtol (results before the flag: True)."""
+        return bool(self.attrs.get("converged", True))
+
+    @property
+    def warning(self) -> str | None:
+        """One line saying the result did not converge, and how far it got; else None."""
+        from .store import not_converged_warning
+
+        return not_converged_warning(self.attrs)
 
     def cell_fields(self) -> list[str]:
         """Names of the arrays on (x, y, z): the solution first, then derived fields."""
@@ -59,8 +76,12 @@ class StoredResult:
         return str(self.group[name].attrs.get("units", ""))
 
 
-def open_result(path: str | Path) -> StoredResult:
-    """Open a finished sevenfold result, or raise JobError with one clear reason."""
+def open_result(path: str | Path, warn: bool = True) -> StoredResult:
+    """Open a finished sevenfold result, or raise JobError with one clear reason.
+
+    A result marked ``converged = false`` opens too, with a :class:`NotConvergedWarning`
+    (unless ``warn`` is False: the CLI prints the same line itself).
+    """
     import zarr
 
     path = Path(path)
@@ -74,7 +95,10 @@ def open_result(path: str | Path) -> StoredResult:
     if not attrs.get("complete") or "job" not in attrs:
         raise JobError("not a complete sevenfold result (no 'complete' or 'job' attribute)", source=str(path))
     spec = JobSpec.model_validate(_without_none(attrs["job"]))
-    return StoredResult(path, attrs, spec, group)
+    result = StoredResult(path, attrs, spec, group)
+    if warn and result.warning:
+        warnings.warn(f"{path}: {result.warning}", NotConvergedWarning, stacklevel=2)
+    return result
 
 
 def _without_none(value: Any) -> Any:

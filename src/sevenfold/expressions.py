@@ -11,7 +11,6 @@ from __future__ import annotations
 import ast
 import math
 
-import numexpr
 import numpy as np
 
 VARIABLES = ("x", "y", "z")
@@ -75,6 +74,8 @@ def evaluate(text: str, x: np.ndarray, y: np.ndarray, z: np.ndarray) -> np.ndarr
 
     Returns a float64 array of the broadcast shape of ``x``, ``y`` and ``z``.
     """
+    import numexpr  # on first use: a job without expressions never loads it
+
     check_expression(text)
     shape = np.broadcast_shapes(np.shape(x), np.shape(y), np.shape(z))
     local = {"x": x, "y": y, "z": z, **CONSTANTS}

@@ -13,11 +13,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.sparse as sp
 
+# numba, the kernels and scipy.sparse are imported where they are used, so that `check`
+# (which imports the balance and with it this module) loads none of them
 from .conditions import add_exchanges, apply_contacts
-from .kernels.assembly import fill_rows, number_rows, row_lengths
-from .kernels.stencil import fine_stencil, transmissibility
 from .problem import Problem, complete_field
 from .spec import FACES
 from .wells import add_wells
@@ -39,7 +38,7 @@ class FaceArrays:
 
 @dataclass(frozen=True)
 class LinearSystem:
-    matrix: sp.csr_matrix
+    matrix: "sp.csr_matrix"
     rhs: np.ndarray
     row: np.ndarray  # (nx, ny, nz) row of each cell, -1 where held
 
@@ -56,6 +55,8 @@ def conductances(problem: Problem, start: int = 0, stop: int | None = None,
     ``tx[i]`` couples cell ``start + i`` with the next one; the slab's last x plane couples to
     the cell after ``stop`` when there is one (so slabs tile the whole grid).
     """
+    from .kernels.stencil import transmissibility
+
     nx = problem.grid.cells[0]
     stop = nx if stop is None else stop
     hi = min(stop + 1, nx)
@@ -71,6 +72,8 @@ def conductances(problem: Problem, start: int = 0, stop: int | None = None,
 
 def face_arrays(problem: Problem) -> FaceArrays:
     """The finest level's face arrays, diagonal and right-hand side."""
+    from .kernels.stencil import fine_stencil
+
     grid = problem.grid
     dx, dy, dz = widths(problem)
     shape = grid.shape
@@ -89,6 +92,8 @@ def face_arrays(problem: Problem) -> FaceArrays:
 
 def number_cells(held: np.ndarray) -> tuple[np.ndarray, int]:
     """Row number of every free cell in C order, -1 for held cells; and the count of rows."""
+    from .kernels.assembly import number_rows
+
     row = np.empty(held.shape, dtype=np.int64)
     n = number_rows(held, row)
     return row, int(n)
@@ -96,6 +101,10 @@ def number_cells(held: np.ndarray) -> tuple[np.ndarray, int]:
 
 def assemble(problem: Problem) -> LinearSystem:
     """Build the CSR matrix and right-hand side from the face arrays (parallel numba kernels)."""
+    import scipy.sparse as sp
+
+    from .kernels.assembly import fill_rows, row_lengths
+
     faces = face_arrays(problem)
     row, n = number_cells(problem.held)
     counts = np.zeros(n, dtype=np.int64)

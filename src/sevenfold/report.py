@@ -42,7 +42,8 @@ def residual_figure(result: StoredResult, target: Path) -> Path:
         ax.legend()
     ax.set_xlabel("iteration")
     ax.set_ylabel("relative residual ||b - Au|| / ||b||")
-    ax.set_title(f"{result.spec.name}: {solver.get('method', '')} residual history")
+    ax.set_title(f"{result.spec.name}: {solver.get('method', '')} residual history"
+                 + ("" if result.converged else " (NOT converged)"))
     ax.grid(True, which="both", alpha=0.3)
     fig.tight_layout()
     fig.savefig(target)
@@ -239,7 +240,7 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
     """Write the figures and ``index.html``; returns the HTML file's path."""
     from .balance import balance_rows
 
-    result = open_result(result_path)
+    result = open_result(result_path, warn=False)  # the page itself carries the warning
     path = result.path.resolve()
     folder = Path(folder) if folder is not None else path.with_name(path.stem + ".report")
     folder.mkdir(parents=True, exist_ok=True)
@@ -262,9 +263,12 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
         f"{' (graded along ' + ', '.join(graded) + ')' if graded else ''}; "
         f"solution <b>{html.escape(result.solution)}</b> in {html.escape(result.units(result.solution))}; "
         f"result <code>{html.escape(path.name)}</code>, sevenfold {html.escape(str(attrs.get('sevenfold_version', '')))}</p>",
+        *([f"<p style='color:#a00;font-weight:bold'>Warning: {html.escape(result.warning)}</p>"]
+          if result.warning else []),
         "<h2>Solver</h2>",
-        _table([(k, _fmt(solver[k])) for k in ("method", "iterations", "converged", "final_relative_residual",
-                                                "rtol", "unknowns", "setup_seconds", "solve_seconds") if k in solver]),
+        _table([(k, _fmt(solver[k])) for k in ("method", "iterations", "converged", "stop", "final_relative_residual",
+                                                "best_relative_residual", "solution_iterate", "rtol", "unknowns",
+                                                "setup_seconds", "solve_seconds") if k in solver]),
     ]
     if balance:
         sections += ["<h2>Balance</h2>",

@@ -28,6 +28,7 @@ from .problem import Problem, build_problem
 from .residual_log import ResidualLog, log_path
 from .solvers import choose_method, method_for, solve_problem
 from .solvers.cg import Monitor, QuietMonitor, SolveResult
+from .solvers.select import FieldLease
 from .spec import JobSpec, load_job
 from .store import Variable, write_probe_csv, write_result
 from .units import unit_notes
@@ -232,8 +233,11 @@ def run_job(
 ) -> JobResult:
     """Run one job to a finished result, or raise JobError / SolverError / Cancelled.
 
-    A failed or interrupted job leaves no result at ``output``, only its residual log.
-    ``extra_attrs`` are added to the result's attributes (the queue records its run there).
+    A solve that stops short with a usable iterate (maximum iterations, stagnation, the
+    accuracy floor) still writes its result, complete and marked ``converged = false``, then
+    raises its SolverError with ``output`` set to that result. Any other failed or interrupted
+    job leaves no result at ``output``, only its residual log. ``extra_attrs`` are added to
+    the result's attributes (the queue records its run there).
     ``on_warning`` receives each warning about the job (cautions.py) before the solve starts.
     """
     t0 = time.perf_counter()
@@ -246,22 +250,37 @@ def run_job(
         (on_warning or (lambda _: None))(w)
     t_build = time.perf_counter()
 
+    from .kernels.cache import cold_notice, mark_warm
+
+    compiling = cold_notice(plan.method)  # said before the kernels compile, on a first run
+    if compiling and hasattr(monitor, "note"):
+        monitor.note(compiling)
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
+    stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written
+    drain_rounds = 0  # (a solve stopped short inside the drains' rounds reports none)
     try:
         log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
         logged = _Logged(log, monitor or QuietMonitor(), plan.method)
 
         def solve_once(p: Problem):
             logged.method = plan.method  # each drain round starts with the planned method again
-            return solve_problem(p, spec.solver, plan.method, logged)
+            # k, f and the held values are dropped while each solve runs and rebuilt after it
+            # (drains change only the exchanges, which the rebuild does not touch)
+            return solve_problem(p, spec.solver, plan.method, logged,
+                                 FieldLease(p, lambda: prepare_problem(plan)[1]))
 
         problem, u, result, drain_rounds = settle_drains(problem, solve_once)
         log.end(converged=True, iterations=result.iterations,
                 final_relative_residual=result.final_relative_residual)
     except SolverError as exc:
-        log.end(converged=False, error=str(exc))
-        raise
+        if exc.partial is None or exc.field is None:
+            log.end(converged=False, error=str(exc))
+            raise
+        stopped, u, result = exc, exc.field, exc.partial
+        log.end(converged=False, error=str(exc), stop=result.stop, iterations=result.iterations,
+                final_relative_residual=result.final_relative_residual,
+                best_relative_residual=result.best_relative_residual, result=str(plan.output))
     except BaseException as exc:
         log.end(converged=False, error=f"{type(exc).__name__}: {exc}")
         raise
@@ -293,6 +312,7 @@ def run_job(
     }
     seconds["job"] = time.perf_counter() - t0  # up to the write; the write adds its own below
     attrs = {
+        "converged": bool(result.converged),
         "solution": physics.solution,
         "physics": spec.physics,
         "units": {"solution": physics.solution_units, "coefficient": physics.coefficient_units,
@@ -318,5 +338,10 @@ def run_job(
         csv = write_probe_csv(probes_csv_path(plan.output), probes, physics.solution, physics.solution_units)
     seconds["write"] = time.perf_counter() - t_write
     seconds["job"] = time.perf_counter() - t0
+    if compiling:
+        mark_warm(plan.method, *(["amg"] if result.method.startswith("amg") else []))
+    if stopped is not None:
+        stopped.output = plan.output
+        raise stopped
     return JobResult(plan, result, plan.output, log_path(plan.output), seconds, balance, tuple(probes), csv,
                      headline, tuple(warnings))

@@ -8,9 +8,11 @@ Layout (every array carries ``dimension_names``, so ``xarray.open_zarr`` gives a
 * ``residual_seconds`` (iteration): seconds since the solve began
 * derived fields of ``output.fields`` (x, y, z), and ``probe_<name>`` on
   ``probe_<name>_distance`` per probe; the probes also go to ``<stem>.probes.csv``
-* group attributes: ``solution``, ``physics``, ``job`` (the validated spec), ``solver``
-  (method, iterations, converged, final relative residual, times), ``balance`` (see
-  balance.py), ``probes``, ``sevenfold_version``,
+* group attributes: ``converged`` (false when the solve stopped short of rtol: the result
+  then holds its last iterate), ``solution``, ``physics``, ``job`` (the validated spec),
+  ``solver`` (method, iterations, converged, stop, stop_message, final relative residual of
+  the stored solution, best relative residual recorded, solution_iterate, times),
+  ``balance`` (see balance.py), ``probes``, ``sevenfold_version``,
   and ``complete`` = true, written last.
 """
 
@@ -104,6 +106,19 @@ def is_complete(path: Path) -> bool:
         return bool(zarr.open_group(store=str(path), mode="r").attrs.get("complete", False))
     except Exception:
         return False
+
+
+def not_converged_warning(attrs: dict[str, Any]) -> str | None:
+    """The one warning line for a result whose solve stopped short, else None."""
+    if attrs.get("converged", True):
+        return None
+    solver = attrs.get("solver", {})
+    best, final = solver.get("best_relative_residual"), solver.get("final_relative_residual")
+    rtol = solver.get("rtol")
+    return (f"NOT converged ({solver.get('stop', 'stopped short')}): best relative residual "
+            f"{best:.2e}, the stored solution (the {solver.get('solution_iterate', 'last')} iterate) "
+            f"{final:.2e}" + (f", asked for {rtol:.1e}" if rtol is not None else "")
+            + "; use it with care")
 
 
 def write_probe_csv(path: Path, probes, solution: str, units: str) -> Path:

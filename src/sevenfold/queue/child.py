@@ -96,10 +96,16 @@ def die_with_parent(parent: int) -> None:
         os._exit(0)
 
 
-def warm_up(home: Home) -> float:
-    """Compile or load the kernels once, serialised across processes; returns seconds."""
+def warm_up(home: Home, say: Any = None) -> float:
+    """Compile or load the kernels once, serialised across processes; returns seconds.
+
+    When a method's kernels are not compiled yet (a new home, a new install), ``say`` gets
+    the notice of what is compiled and about how long it takes, before it starts; the
+    process holding the lock says it, those waiting for the lock then find them compiled.
+    """
     import fcntl
 
+    from ..kernels.cache import is_cold, notice
     from ..runner import run_job
     from ..spec import parse_job
 
@@ -108,6 +114,10 @@ def warm_up(home: Home) -> float:
     with open(home.numba_cache / ".lock", "a+") as lock:
         fcntl.flock(lock, fcntl.LOCK_EX)
         try:
+            methods = list(dict.fromkeys(t["solver"]["method"] for t in warm_tables()))
+            cold = [m for m in methods if is_cold(m)]
+            if cold and say is not None:
+                say(notice(cold))
             with tempfile.TemporaryDirectory(prefix="warm-", dir=home.numba_cache) as tmp:
                 for table in warm_tables():
                     try:
@@ -156,6 +166,11 @@ def run_recorded(job_file: Path, output: Path, monitor: Any, record: dict[str, A
     except JobError as exc:
         return {"status": "failed", "kind": "input", "error": str(exc)}
     except SolverError as exc:
+        if exc.output is not None:  # stopped short: its last iterate is written, marked
+            append_run(output, {"event": "not converged", **record, "time": time.time()})
+            return {"status": "failed", "kind": "solver", "result": str(exc.output),
+                    "error": f"solver failed: {exc}; result kept, not converged "
+                             f"(converged = false): {exc.output}"}
         return {"status": "failed", "kind": "solver", "error": f"solver failed: {exc}"}
     except MemoryError:
         return {"status": "failed", "kind": "memory", "error": "ran out of memory"}
@@ -200,7 +215,7 @@ def main(argv: list[str] | None = None) -> int:
     home = Home(Path(args.home))
     os.environ.setdefault("NUMBA_CACHE_DIR", str(home.numba_cache))
     try:
-        seconds = warm_up(home)
+        seconds = warm_up(home, lambda text: _send(channel, {"compiling": text}))
     except Exception as exc:
         traceback.print_exc(file=sys.stderr)
         _send(channel, {"fatal": f"warm-up failed: {type(exc).__name__}: {exc}"})

@@ -232,7 +232,10 @@ def show_rows(job: Job, now: float, last_residual: str | None = None) -> list[tu
     if job.worker:
         beat = f", last heartbeat {duration(now - job.heartbeat)} ago" if job.heartbeat and job.state == "running" else ""
         rows.append(("worker", f"{job.worker}{beat}"))
-    rows.append(("output", f"{job.output} ({'complete' if is_complete(Path(job.output)) else 'not written'})"))
+    out = Path(job.output)
+    kept = ("not written" if not is_complete(out) else "complete"
+            if _result_attrs(out).get("converged", True) else "complete, NOT converged")
+    rows.append(("output", f"{job.output} ({kept})"))
     rows.append(("source", job.source))
     for i in job.inputs:
         rows.append((i["key"], f"{i['original']} (snapshot {i['snapshot']}, sha256 {i['sha256'][:16]})"))
@@ -277,13 +280,15 @@ def _show(args: argparse.Namespace) -> int:
         else:
             t.add_row(key, escape(text))
     out_path = Path(job.output)
+    attrs = _result_attrs(out_path) if is_complete(out_path) else None
     out.print(t)
-    if is_complete(out_path):
-        import zarr
-
+    if attrs is not None:
         from ..cli import balance_table, headline_table, warn
+        from ..store import not_converged_warning
 
-        attrs = zarr.open_group(str(out_path), mode="r").attrs
+        warning = not_converged_warning(attrs)
+        if warning:
+            out.print(f"[yellow]warning:[/yellow] {escape(warning)}")
         balance = attrs.get("balance")
         if balance:
             out.print(balance_table(balance))
@@ -300,6 +305,12 @@ def _show(args: argparse.Namespace) -> int:
     out.print("[bold]job as it runs[/bold] (snapshot; the job file may have changed since)")
     out.print(escape(dumps(job.job_table or {})), soft_wrap=True)
     return 0
+
+
+def _result_attrs(path: Path) -> dict:
+    import zarr
+
+    return dict(zarr.open_group(str(path), mode="r").attrs)
 
 
 # ---------------------------------------------------------------- watch

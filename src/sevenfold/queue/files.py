@@ -2,8 +2,9 @@
 
 The run record ``<stem>.runs.jsonl`` beside a result gets one line when a queued run of it
 starts and one when that run's result is complete (``{"event": "start" | "done", "job",
-"run", "attempt", ...}``), so how many times a result was made can be counted from the
-result's own folder, whatever the database says.
+"run", "attempt", ...}``; ``"not converged"`` when the run failed but kept its unconverged
+result), so how many times a result was made can be counted from the result's own folder,
+whatever the database says.
 """
 
 from __future__ import annotations

@@ -184,6 +184,9 @@ class Slot(threading.Thread):
                 raise ChildDied(None)
             msg = child.receive(min(0.5, max(0.0, deadline - time.monotonic())))
             if msg is not None:
+                if "compiling" in msg:  # a first start: said before the compile begins
+                    w.say(f"slot {self.index}: {msg['compiling']}")
+                    continue
                 if "ready" in msg:
                     w.say(f"slot {self.index}: ready, {self.threads} thread(s), kernels warm in "
                           f"{msg.get('warm_seconds', 0):.1f} s")

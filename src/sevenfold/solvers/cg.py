@@ -4,6 +4,14 @@ The recorded residual is the recursively updated r_k, whose norm equals ||b - A 
 exact arithmetic. In floating point the two drift apart on ill-conditioned systems, so when
 r_k reaches rtol the true residual is recomputed: it is what is reported as final, and when it
 is still above rtol CG restarts from x_k with the true residual (at most MAX_RESTARTS times).
+
+A solve that stops short (maximum iterations, stagnation, or the attainable-accuracy floor
+when the restarts do not bring the true residual under rtol) raises :class:`SolverError`
+carrying its work: ``partial`` is a SolveResult with ``converged`` False, ``x`` the LAST
+iterate (CG's iterates minimise the A-norm of the error over growing Krylov spaces, so the last
+is the best in that norm even when its residual norm is not the lowest recorded; keeping it
+costs no extra vector), ``final_relative_residual`` the true residual of that x,
+``best_relative_residual`` the lowest recorded, and ``stop`` the reason.
 """
 
 from __future__ import annotations
@@ -15,10 +23,14 @@ from typing import Callable, Protocol
 import numpy as np
 
 from ..errors import Cancelled, SolverError
-from ..kernels.vector import vector_ops
 
 
 MAX_RESTARTS = 3
+# SolveResult.stop: why the iteration ended
+STOP_CONVERGED = "converged"
+STOP_MAX_ITERATIONS = "max_iterations"
+STOP_STAGNATION = "stagnation"
+STOP_ACCURACY_FLOOR = "accuracy_floor"
 
 
 class Monitor(Protocol):
@@ -53,13 +65,21 @@ class SolveResult:
     # auto's switch from one method to another before this solve: from, to, after_iterations
     # (of the method left), rate, reason; None when the solve used one method throughout
     switch: dict | None = None
+    stop: str = STOP_CONVERGED  # or max_iterations, stagnation, accuracy_floor
+    stop_message: str = ""  # the sentence a user reads when it did not converge
+    best_relative_residual: float | None = None  # lowest recorded; None: the final one
 
     def summary(self) -> dict:
+        best = self.best_relative_residual
         return {
             "method": self.method,
             "iterations": self.iterations,
             "converged": self.converged,
+            "stop": self.stop,
+            **({"stop_message": self.stop_message} if self.stop_message else {}),
             "final_relative_residual": self.final_relative_residual,
+            "best_relative_residual": self.final_relative_residual if best is None else best,
+            "solution_iterate": "final" if self.converged else "last",
             "assembly_seconds": self.assembly_seconds,
             "setup_seconds": self.setup_seconds,
             "solve_seconds": self.solve_seconds,
@@ -88,9 +108,13 @@ def pcg(
 ) -> SolveResult:
     """Solve the SPD system A x = b from x = 0 until ||r|| <= rtol ||b||.
 
-    Raises :class:`SolverError` (with the history) on NaN, stagnation or reaching
-    ``max_iterations``, and :class:`Cancelled` when the monitor asks to stop.
+    Raises :class:`SolverError` (with the history) on NaN or breakdown; on stagnation,
+    reaching ``max_iterations`` or the accuracy floor it also carries ``partial``, the
+    unconverged SolveResult of the last iterate. Raises :class:`Cancelled` when the monitor
+    asks to stop.
     """
+    from ..kernels.vector import vector_ops  # numba loads only for a method that iterates
+
     monitor = monitor or QuietMonitor()
     start = time.perf_counter()
     n = b.shape[0]
@@ -108,6 +132,14 @@ def pcg(
     rz = dot(r, z)
     best_before = np.inf
     restarts = 0
+
+    def stopped_short(stop: str, message: str, elapsed: float) -> SolverError:
+        true = relative_residual(A, x, b)
+        partial = SolveResult(x, method, len(history) - 1, False, true, setup_seconds, elapsed,
+                              history, times, stop=stop, stop_message=message,
+                              best_relative_residual=min(min(history), true))
+        return SolverError(message, history, partial)
+
     for it in range(1, max_iterations + 1):
         if monitor.stop_requested():
             raise Cancelled("the solve was cancelled")
@@ -133,11 +165,12 @@ def pcg(
                 return SolveResult(x, method, it, True, final, setup_seconds, elapsed, history, times)
             restarts += 1
             if restarts > MAX_RESTARTS:
-                raise SolverError(
+                raise stopped_short(
+                    STOP_ACCURACY_FLOOR,
                     f"the updated residual reached {res:.1e} but the true residual ||b - Au||/||b|| "
                     f"stays at {final:.1e} after {MAX_RESTARTS} restarts: the system is too "
                     f"ill-conditioned (coefficient contrast) for rtol {rtol:.1e}; loosen solver.rtol",
-                    history,
+                    elapsed,
                 )
             r = b - A @ x  # restart from the true residual
             history[-1] = final
@@ -148,17 +181,19 @@ def pcg(
         if it > stagnation_window:
             best_before = min(best_before, history[it - stagnation_window])
             if min(history[it - stagnation_window + 1 :]) >= 0.999 * best_before:
-                raise SolverError(
+                raise stopped_short(
+                    STOP_STAGNATION,
                     f"stagnated: no progress over the last {stagnation_window} iterations "
                     f"(relative residual {res:.3e}, asked for {rtol:.1e})",
-                    history,
+                    elapsed,
                 )
         z = precondition(r)
         rz_new = dot(r, z)
         ops.update_direction(p, z, rz_new / rz)
         rz = rz_new
-    raise SolverError(
+    raise stopped_short(
+        STOP_MAX_ITERATIONS,
         f"did not converge in {max_iterations} iterations (relative residual {history[-1]:.3e}, "
         f"asked for {rtol:.1e}); raise solver.max_iterations or loosen solver.rtol",
-        history,
+        times[-1],
     )

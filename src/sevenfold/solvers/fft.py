@@ -36,7 +36,6 @@ from concurrent.futures import ThreadPoolExecutor
 from typing import Callable
 
 import numpy as np
-import scipy.fft
 
 from ..errors import Cancelled, SolverError
 from ..grid import FACE_AXIS
@@ -106,17 +105,33 @@ def eigenvalues(n: int, h: float, kind: str) -> np.ndarray:
 
 
 def default_workers() -> int:
-    """Threads for the transforms: numba's thread count (a slot's limit when one is set)."""
-    try:
-        import numba
+    """Threads for the transforms: numba's thread count (a slot's limit when one is set).
 
-        return max(1, int(numba.get_num_threads()))
-    except Exception:  # pragma: no cover - numba is a dependency; this is a fallback only
+    numba is not imported for this (the fft path needs no compiled kernel): when it is not
+    loaded yet, its rule is followed: ``NUMBA_NUM_THREADS``, else the CPUs this process may use.
+    """
+    import sys
+
+    numba = sys.modules.get("numba")
+    if numba is not None:
+        try:
+            return max(1, int(numba.get_num_threads()))
+        except Exception:  # pragma: no cover - a partly imported numba; fall through
+            pass
+    try:
+        return max(1, int(os.environ["NUMBA_NUM_THREADS"]))
+    except (KeyError, ValueError):
+        pass
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):  # pragma: no cover - not Linux
         return os.cpu_count() or 1
 
 
 def _transform(w: np.ndarray, kinds: tuple[str, ...], workers: int, inverse: bool) -> np.ndarray:
     """Orthonormal type-2 sine transform on Dirichlet axes, cosine on Neumann axes, in place."""
+    import scipy.fft  # here, not at module level: method_for's eligibility test needs none of it
+
     sine = tuple(a for a, kind in enumerate(kinds) if kind == "dirichlet")
     cosine = tuple(a for a, kind in enumerate(kinds) if kind == "neumann")
     for axes, forward, backward in ((sine, scipy.fft.dstn, scipy.fft.idstn),

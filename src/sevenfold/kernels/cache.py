@@ -1,0 +1,94 @@
+"""Whether a method's compiled kernels are already in numba's on-disk cache, so that the first
+run can say, before it starts, that it compiles them once and roughly how long that takes.
+
+numba compiles each kernel on its first call and keeps the machine code on disk (every kernel
+has ``cache=True``): in ``kernels/__pycache__`` when the package folder is writable, else
+under ``NUMBA_CACHE_DIR`` (the queue sets it per home) or the user's cache folder. After a
+method's first solve, :func:`mark_warm` writes an empty marker file into that same folder. Its
+name carries a key made of numba's and Python's versions and the size and modification time
+of every kernel module, which is what numba itself checks before reusing code: a new install,
+another numba or an edited kernel makes the method cold again, and deleting the cache deletes
+the marker with it. The test costs one ``stat``; numba is imported to ask it where its cache
+is (every method but fft needs numba anyway).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import sys
+from pathlib import Path
+
+# Seconds of compiling on a first run, measured from an empty cache on the reference machine
+# (2 cores; CPU seconds of cold minus warm runs, benchmarks/start_bench.py --cold, in
+# benchmarks/RESULTS_START.md: gmg 14.5, amg 11.9, direct 10.2, fft 1.1). Compiling is
+# single-threaded, so an idle machine takes about that long; a busy one longer, hence "about".
+COMPILE_SECONDS = {"gmg": 15, "amg": 12, "direct": 10, "fft": 1}
+
+
+def _kernel_files() -> list[Path]:
+    return sorted(f for f in Path(__file__).parent.glob("*.py") if f.name != Path(__file__).name)
+
+
+def key() -> str:
+    """What the cached code depends on: numba, Python, and each kernel module's stamp."""
+    import numba
+
+    h = hashlib.sha256(f"{numba.__version__} {sys.version_info[:3]}".encode())
+    for f in _kernel_files():
+        st = f.stat()
+        h.update(f"{f.name} {st.st_mtime_ns} {st.st_size}".encode())
+    return h.hexdigest()[:16]
+
+
+def _probe() -> None:
+    """Stands for a kernel of this folder when numba is asked where their cache lives."""
+
+
+def cache_dir() -> Path:
+    """The folder where numba keeps this folder's kernels' compiled code (numba's own choice:
+    its cache locators depend only on the source file's folder), found without importing or
+    compiling any kernel module."""
+    from numba.core.caching import FunctionCache
+
+    return Path(FunctionCache(_probe)._cache_path)
+
+
+def marker(method: str) -> Path:
+    return cache_dir() / f"sevenfold-{method}-{key()}.warm"
+
+
+def is_cold(method: str) -> bool:
+    """True when ``method`` has not run with the kernels as they are now. Never raises:
+    when the cache cannot be located the answer is False (no notice)."""
+    if method not in COMPILE_SECONDS:
+        return False
+    try:
+        return not marker(method).exists()
+    except Exception:  # a numba without the attribute, an unreadable folder: say nothing
+        return False
+
+
+def mark_warm(*methods: str) -> None:
+    """Record that these methods' kernels are compiled (after a solve that used them)."""
+    for method in methods:
+        if method not in COMPILE_SECONDS:
+            continue
+        try:
+            path = marker(method)
+            path.parent.mkdir(parents=True, exist_ok=True)
+            path.touch()
+        except Exception:  # a read-only cache: the notice just shows again next time
+            pass
+
+
+def notice(methods: list[str] | tuple[str, ...]) -> str:
+    """The sentence said before a first run compiles the kernels of ``methods``."""
+    seconds = sum(COMPILE_SECONDS.get(m, 0) for m in methods)
+    which = ", ".join(methods)
+    return (f"first run of {which} here: compiling the numerical kernels once, about {seconds} s "
+            "on a 2-core machine (later runs load them from the cache)")
+
+
+def cold_notice(method: str) -> str | None:
+    """The notice for a run with ``method``, or None when its kernels are cached."""
+    return notice([method]) if is_cold(method) else None

@@ -1,0 +1,180 @@
+"""A fast start: each command imports only what its job's method needs, a first run says it
+compiles the kernels (and a warm run does not), and no kernel is compiled twice for argument
+types that differ only by accident. No timings here: speed is in benchmarks/start_bench.py."""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+JOB = """
+name = "start"
+physics = "heat"
+[grid]
+cells = [10, 8, 6]
+size = [1.0, 0.8, 0.6]
+[material]
+value = {k}
+[source]
+value = 1.0
+[boundary]
+x_min = {{ type = "dirichlet", value = 0.0 }}
+x_max = {{ type = "dirichlet", value = 0.0 }}
+[solver]
+method = "{method}"
+[output]
+path = "{name}.zarr"
+"""
+
+HEAVY = ("numba", "pyamg", "matplotlib", "zarr", "scipy.sparse", "scipy.fft", "numexpr",
+         "sevenfold.kernels.stencil", "sevenfold.kernels.assembly", "sevenfold.kernels.vector")
+
+PROBE = """
+import json, sys
+from sevenfold.cli import main
+code = main(sys.argv[1:])
+print(json.dumps({"code": code, "loaded": [m for m in %r if m in sys.modules]}))
+""" % (HEAVY,)
+
+
+def job(folder: Path, method: str, k: str = "1.0", name: str | None = None) -> Path:
+    name = name or method
+    path = folder / f"{name}.toml"
+    path.write_text(JOB.format(method=method, k=k, name=name))
+    return path
+
+
+def command(*args: str, environ: dict[str, str] | None = None) -> tuple[dict, str]:
+    """``sevenfold ARGS`` in a fresh interpreter: its exit code, the heavy modules it loaded,
+    and what it printed."""
+    proc = subprocess.run([sys.executable, "-c", PROBE, *args], capture_output=True, text=True,
+                          timeout=600, env=environ or dict(os.environ))
+    assert proc.returncode == 0, proc.stderr
+    lines = proc.stdout.strip().splitlines()
+    return json.loads(lines[-1]), "\n".join(lines[:-1]) + proc.stderr
+
+
+def test_check_loads_no_numba_scipy_sparse_pyamg_matplotlib_or_zarr(tmp_path: Path) -> None:
+    info, text = command("check", str(job(tmp_path, "gmg")))
+    assert info["code"] == 0 and "valid" in text
+    assert info["loaded"] == []
+    info, _ = command("check", str(job(tmp_path, "amg", name="amg-check")))  # not even for amg
+    assert info["code"] == 0 and info["loaded"] == []
+
+
+def test_an_expression_job_loads_numexpr_and_still_no_numba(tmp_path: Path) -> None:
+    info, _ = command("check", str(job(tmp_path, "gmg", k='"1 + x"', name="expr")))
+    assert info["code"] == 0 and info["loaded"] == ["numexpr"]
+
+
+def test_a_gmg_run_loads_neither_pyamg_nor_matplotlib(tmp_path: Path) -> None:
+    info, _ = command("run", "--quiet", str(job(tmp_path, "gmg", k='"1 + x"')))
+    assert info["code"] == 0
+    loaded = set(info["loaded"])
+    assert not loaded & {"pyamg", "matplotlib", "scipy.fft", "sevenfold.kernels.assembly"}
+    assert {"numba", "zarr", "sevenfold.kernels.stencil"} <= loaded  # it does need these
+
+
+def test_an_fft_run_loads_no_sparse_or_multigrid_code(tmp_path: Path) -> None:
+    info, _ = command("run", "--quiet", str(job(tmp_path, "fft")))
+    assert info["code"] == 0
+    loaded = set(info["loaded"])
+    assert not loaded & {"pyamg", "matplotlib", "scipy.sparse", "sevenfold.kernels.assembly",
+                         "sevenfold.kernels.vector"}
+    assert "scipy.fft" in loaded
+
+
+def test_the_compile_notice_shows_on_a_first_run_only(tmp_path: Path) -> None:
+    """An empty numba cache (a fresh install) gets the notice before the run; the second run,
+    and a run after it in another process, load the cached kernels and say nothing."""
+    environ = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
+    path = job(tmp_path, "fft")  # fft compiles one kernel (for the balance): the cheapest first run
+    first, text = command("run", "--quiet", str(path), environ=environ)
+    assert first["code"] == 0
+    assert text.count("compiling the numerical kernels once") == 1, text
+    assert text.index("compiling the numerical kernels") < text.index("converged")  # said before
+    assert list((tmp_path / "cache").rglob("sevenfold-fft-*.warm"))
+    for _ in range(2):
+        again, text = command("run", "--quiet", str(path), environ=environ)
+        assert again["code"] == 0 and "compiling" not in text, text
+
+
+def test_the_marker_follows_the_kernels(tmp_path: Path, monkeypatch) -> None:
+    """An edited kernel module (another stamp) makes the method cold again."""
+    from sevenfold.kernels import cache
+
+    monkeypatch.setattr(cache, "cache_dir", lambda: tmp_path)
+    assert cache.is_cold("gmg") and not cache.is_cold("no-such-method")
+    cache.mark_warm("gmg")
+    assert not cache.is_cold("gmg") and cache.is_cold("amg")
+    files = cache._kernel_files()
+    monkeypatch.setattr(cache, "_kernel_files", lambda: files[:-1])  # as if one had changed
+    assert cache.is_cold("gmg")
+
+
+def _normalised(sig) -> tuple:
+    """A signature with the accidents removed: array layout, integer width, int vs float scalars."""
+    from numba.core import types
+
+    out = []
+    for t in sig:
+        if isinstance(t, types.Array):
+            dtype = t.dtype
+            if isinstance(dtype, types.Integer):
+                dtype = types.int64
+            out.append(("array", str(dtype), t.ndim))
+        elif isinstance(t, (types.Integer, types.Float)):
+            out.append(("number",))
+        elif isinstance(t, types.BaseTuple):
+            out.append(("tuple", _normalised(tuple(t))))
+        else:
+            out.append(str(t))
+    return tuple(out)
+
+
+def test_no_kernel_is_compiled_twice_for_accidental_type_differences(tmp_path: Path) -> None:
+    """Every method, holds, every face type, a pure-Neumann job, graded and directional grids:
+    each kernel keeps one specialisation per real type combination (float32 next to float64
+    would be a real one; C vs non-contiguous, int32 vs int64 or 1 vs 1.0 are accidents)."""
+    from sevenfold.kernels import assembly, stencil, vector
+    from sevenfold.runner import run_job
+    from sevenfold.spec import parse_job
+
+    base = {"grid": {"cells": [9, 7, 6], "size": [1.0, 1.0, 1.0]}, "source": {"value": 1.0},
+            "material": {"value": "1 + 10 * (x > 0.5)"}}
+    faces = {"x_min": {"type": "dirichlet", "value": 0.0},
+             "x_max": {"type": "robin", "coefficient": 2.0, "reference": 1.0},
+             "y_min": {"type": "neumann", "flux": 0.5}}
+    tables = [
+        {**base, "name": f"sig-{m}", "boundary": faces, "solver": {"method": m},
+         "hold": [{"box": {"min": [0.2, 0.2, 0.2], "max": [0.4, 0.5, 0.5]}, "value": 2.0}]}
+        for m in ("gmg", "amg", "direct")
+    ] + [
+        {**base, "name": "sig-neumann", "boundary": {"x_min": {"type": "neumann", "flux": 1.0},
+                                                      "x_max": {"type": "neumann", "flux": -1.0}},
+         "source": {"value": 0.0}, "solver": {"method": "gmg"}},
+        {**base, "name": "sig-fft", "material": {"value": 3.0},
+         "boundary": {"x_min": {"type": "dirichlet", "value": 0.0}, "x_max": {"type": "dirichlet", "value": 1.0}},
+         "solver": {"method": "fft"}},
+        {**base, "name": "sig-big", "grid": {"cells": [48, 48, 48], "size": [1.0, 1.0, 1.0]},
+         "boundary": faces, "solver": {"method": "gmg"}},  # above vector.PARALLEL_FROM: threaded CG
+    ]
+    for table in tables:
+        spec = parse_job(table, "test")
+        run_job(tmp_path / "job.toml", tmp_path / f"{spec.name}.zarr", spec=spec)
+    compiled = 0
+    for module in (assembly, stencil, vector):
+        for name in dir(module):
+            d = getattr(module, name)
+            if not hasattr(d, "signatures") or not d.signatures:
+                continue
+            compiled += 1
+            kinds = [_normalised(s) for s in d.signatures]
+            assert len(kinds) == len(set(kinds)), f"{module.__name__}.{name}: {d.signatures}"
+    assert compiled >= 10  # the test did compile the kernels it checks
