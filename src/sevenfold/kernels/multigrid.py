@@ -200,56 +200,62 @@ def galerkin_scaled(tx, ty, tz, diag, free, step, txc, tyc, tzc, diagc, freec):
 
 
 @njit(cache=True, inline="always")
-def _w1(i, c, s, nc):
-    """Weight of coarse cell c in the value at fine cell i along one axis (linear
-    interpolation between cell centres for aggregates of 2; the identity for s = 1)."""
+def _partner(i, s, nc):
+    """The second coarse cell in fine cell i's value along one axis (or -1), and weights.
+
+    Linear interpolation between cell centres for aggregates of 2: weights 3/4 (own) and 1/4
+    (the nearer neighbour); at the box's faces, linear extrapolation from the own and the
+    inner neighbour (5/4 and -1/4), which keeps the interpolation second order up to a wall.
+    """
+    own = i // s
     if s == 1:
-        return 1.0 if i == c else 0.0
-    own = i // 2
+        return own, 1.0, -1, 0.0
     other = own - 1 if i % 2 == 0 else own + 1
-    if other < 0 or other >= nc:
-        return 1.0 if c == own else 0.0
-    if c == own:
-        return 0.75
-    if c == other:
-        return 0.25
+    if 0 <= other < nc:
+        return own, 0.75, other, 0.25
+    if nc == 1:
+        return own, 1.0, -1, 0.0
+    return own, 1.25, (own + 1 if other < 0 else own - 1), -0.25
+
+
+@njit(cache=True, inline="always")
+def _w1(i, c, s, nc):
+    """Weight of coarse cell c in the value at fine cell i along one axis."""
+    a, wa, b, wb = _partner(i, s, nc)
+    if c == a:
+        return wa
+    if c == b:
+        return wb
     return 0.0
 
 
 @njit(cache=True, parallel=True)
 def prolong_linear_add(ec, free, step, scale, u):
     """u += scale * P ec on free cells, P the tensor product of linear interpolation between
-    cell centres along each coarsened axis (weights 3/4 and 1/4; 1 at the box's faces)."""
+    cell centres along each coarsened axis (see :func:`_partner`)."""
     nx, ny, nz = u.shape
     sx, sy, sz = step[0], step[1], step[2]
     ncx, ncy, ncz = ec.shape
     for i in prange(nx):
-        ia = i // sx
-        ib = ia - 1 if i % 2 == 0 else ia + 1
+        ia, wia, ib, wib = _partner(i, sx, ncx)
         for j in range(ny):
-            ja = j // sy
-            jb = ja - 1 if j % 2 == 0 else ja + 1
+            ja, wja, jb, wjb = _partner(j, sy, ncy)
             for m in range(nz):
                 if not free[i, j, m]:
                     continue
-                ka = m // sz
-                kb = ka - 1 if m % 2 == 0 else ka + 1
+                ka, wka, kb, wkb = _partner(m, sz, ncz)
                 s = 0.0
-                for a in range(sx):
+                for a in range(2):
                     I = ia if a == 0 else ib
-                    if I < 0 or I >= ncx:
+                    wx = wia if a == 0 else wib
+                    if I < 0:
                         continue
-                    wx = _w1(i, I, sx, ncx)
-                    for c in range(sy):
+                    for c in range(2):
                         J = ja if c == 0 else jb
-                        if J < 0 or J >= ncy:
+                        wy = wja if c == 0 else wjb
+                        if J < 0:
                             continue
-                        wxy = wx * _w1(j, J, sy, ncy)
-                        for e in range(sz):
-                            K = ka if e == 0 else kb
-                            if K < 0 or K >= ncz:
-                                continue
-                            s += wxy * _w1(m, K, sz, ncz) * ec[I, J, K]
+                        s += wx * wy * (wka * ec[I, J, ka] + (wkb * ec[I, J, kb] if kb >= 0 else 0.0))
                 u[i, j, m] += scale * s
 
 
@@ -260,14 +266,14 @@ def restrict_linear(r, free, step, rc):
     sx, sy, sz = step[0], step[1], step[2]
     ncx, ncy, ncz = rc.shape
     for I in prange(ncx):
-        ilo = max(I * sx - (sx - 1), 0)
-        ihi = min(I * sx + sx + (sx - 1), nx)
+        ilo = max(I * sx - 2 * (sx - 1), 0)  # reaches the extrapolating cells at the faces
+        ihi = min(I * sx + sx + 2 * (sx - 1), nx)
         for J in range(ncy):
-            jlo = max(J * sy - (sy - 1), 0)
-            jhi = min(J * sy + sy + (sy - 1), ny)
+            jlo = max(J * sy - 2 * (sy - 1), 0)
+            jhi = min(J * sy + sy + 2 * (sy - 1), ny)
             for K in range(ncz):
-                klo = max(K * sz - (sz - 1), 0)
-                khi = min(K * sz + sz + (sz - 1), nz)
+                klo = max(K * sz - 2 * (sz - 1), 0)
+                khi = min(K * sz + sz + 2 * (sz - 1), nz)
                 s = 0.0
                 for i in range(ilo, ihi):
                     wx = _w1(i, I, sx, ncx)

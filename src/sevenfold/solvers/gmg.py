@@ -1,20 +1,31 @@
 """Geometric multigrid on the cell-centred grid, as a preconditioner for conjugate gradients.
 
-Design (chosen for robustness to coefficient jumps that do not line up with coarse cells):
+Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
 
 * coarsening by aggregating 2 cells per coarsened axis (any cell count: an odd last cell forms
-  its own aggregate); an axis whose effective spacing exceeds 1.5 times the smallest is not
-  coarsened (semi-coarsening where cells are strongly anisotropic);
-* piecewise-constant prolongation P over each aggregate's free cells, restriction P^T, and
-  Galerkin coarse operators P^T A P, which stay 7-point stencils: every coarse coupling is the
-  sum of the fine couplings crossing between two aggregates, so jumps in k are carried to the
-  coarse levels exactly instead of being averaged (the remedy for averaged-coefficient coarse
-  grids; an aggregation form of operator-dependent Galerkin coarsening);
-* the coarse correction is scaled by ``overcorrection`` (piecewise-constant P underestimates
-  smooth corrections; the scaling for aggregation multigrid is due to Braess, 1995);
-* red-black Gauss-Seidel smoothing, red then black before and black then red after the coarse
-  correction, so the cycle is a symmetric positive definite preconditioner and CG stays valid;
-* a sparse LU of the coarsest level.
+  its own aggregate), the axes chosen per level from the operator (:func:`coarsening_step`):
+  an axis that is weakly coupled in more than a tenth of the cells is not coarsened
+  (semi-coarsening), which is what keeps a grid graded along z, anisotropic only near its
+  fine end, robust;
+* coarse operators from the aggregation's Galerkin product P^T A P, which stays a 7-point
+  stencil: every coarse coupling is the sum of the fine couplings crossing between two
+  aggregates, so jumps in k reach the coarse levels as fluxes instead of being averaged; each
+  axis's part is divided by its aggregate size ("scaled"), which makes the coarse operator
+  consistent with a rediscretisation on the aggregates (the factor piecewise-constant
+  aggregation loses on smooth errors, Braess 1995, per axis rather than one overcorrection),
+  and so usable by full multigrid;
+* piecewise-constant transfers in the cycle (restriction P^T), linear interpolation between
+  cell centres for the full-multigrid start;
+* z-line Gauss-Seidel smoothing (tridiagonal solves along z, columns in two colours), one
+  sweep red then black before and black then red after the coarse correction, so the cycle
+  is a symmetric positive definite preconditioner and CG stays valid; lines make strong z
+  couplings (thin cells, a graded z axis) harmless;
+* a W-cycle (the V-cycle of aggregation multigrid loses accuracy with every level), a
+  sparse LU of the coarsest level (at most 16^3 cells);
+* the preconditioner's levels in float32 by default, CG, the residual-defining operator and
+  the true-residual check in float64;
+* a full-multigrid start: the right-hand side restricted to every level, the coarsest solved,
+  then one cycle per level after interpolating up, so CG begins near discretisation accuracy.
 
 The finest level is never stored as a CSR matrix: only its face arrays (tx, ty, tz, diag).
 """
@@ -132,18 +143,19 @@ class Hierarchy:
     ``smoother``: "line" (zebra z-line Gauss-Seidel) or "point" (red-black Gauss-Seidel).
     ``precision``: float type of the levels the preconditioner runs on; the caller's fine
     operator is not touched (float32 keeps a float32 copy of it for smoothing).
+    ``coarsest_cells``: the level size that is factorised (default COARSEST_CELLS).
     """
 
     def __init__(self, fine: Level, overcorrection: float | None = None, cycle: str = "V",
                  smoothing: int = 1, smoother: str = "line", transfer: str = "linear",
-                 precision: str = "float64") -> None:
-        if transfer not in ("linear", "constant") or smoother not in ("line", "point"):
+                 precision: str = "float64", coarsest_cells: int | None = None) -> None:
+        if transfer not in ("linear", "constant", "scaled") or smoother not in ("line", "point"):
             raise ValueError(f"unknown transfer {transfer!r} or smoother {smoother!r}")
         self.dtype = np.dtype(precision)
         self.transfer = transfer
         self.lines = smoother == "line"
         self.overcorrection = (overcorrection if overcorrection is not None
-                               else (1.0 if transfer == "linear" else 1.8))
+                               else (1.8 if transfer == "constant" else 1.0))
         self.gamma = 2 if cycle == "W" else 1
         self.smoothing = smoothing
         top = fine if fine.diag.dtype == self.dtype else fine.astype(self.dtype)
@@ -151,7 +163,7 @@ class Hierarchy:
         self.levels = [top]
         while True:
             lv = self.levels[-1]
-            if int(np.prod(lv.shape)) <= COARSEST_CELLS:
+            if int(np.prod(lv.shape)) <= (coarsest_cells or COARSEST_CELLS):
                 break
             step = coarsening_step(lv, self.lines)
             if not (step > 1).any():
@@ -161,7 +173,7 @@ class Hierarchy:
             arrays = [np.empty(cshape, dtype=self.dtype) for _ in range(4)]
             freec = np.empty(cshape, dtype=np.bool_)
             source = fine if len(self.levels) == 1 else lv  # build from float64 when we can
-            if transfer == "linear":
+            if transfer in ("linear", "scaled"):
                 multigrid.galerkin_scaled(source.tx, source.ty, source.tz, source.diag, lv.free,
                                           step, *arrays, freec)
                 boost = lv.boost
@@ -264,9 +276,7 @@ class Hierarchy:
         for level in range(len(self.levels) - 2, -1, -1):
             lv = self.levels[level]
             fine_u = np.zeros(lv.shape, dtype=self.dtype)
-            multigrid.prolong_linear_add(u, lv.free, lv.step,
-                                         self.overcorrection if self.transfer == "constant" else 1.0,
-                                         fine_u)
+            multigrid.prolong_linear_add(u, lv.free, lv.step, self.overcorrection, fine_u)
             for _ in range(cycles):
                 self.cycle(level, rhs[level], fine_u)
             u = fine_u
@@ -305,7 +315,7 @@ def fine_level(problem) -> tuple[Level, np.ndarray]:
     return level, b
 
 
-DEFAULTS = dict(cycle="W", smoothing=1, smoother="line", transfer="constant", precision="float32",
+DEFAULTS = dict(cycle="W", smoothing=1, smoother="line", transfer="scaled", precision="float32",
                 start="fmg")
 
 
