@@ -214,16 +214,18 @@ def manufactured(n: int):
 
 
 def test_full_multigrid_reaches_discretisation_accuracy() -> None:
-    """Full multigrid alone (one cycle per level) against a manufactured solution: its error
+    """Full multigrid alone (two cycles per level) against a manufactured solution: its error
     is within 1.2 times the converged discrete solution's at 16^3, 32^3 and 64^3, and falls
-    with observed order at least 1.8 (second-order scheme). Measured: ratios 1.00-1.02."""
+    with observed order at least 1.8 (second-order scheme). Measured: ratios 1.00 (16^3 is
+    the coarsest level itself), 0.38 and 0.41 (the algebraic and discretisation errors partly
+    cancel); one cycle per level gives 1.02 and 1.68, which is why the study uses two."""
     errors = []
     for n in (16, 32, 64):
         problem, exact = manufactured(n)
         fine, b = fine_level(problem)
         converged = solve_levels(fine, b, 1e-12, 100)[0].x.reshape(fine.shape)
         options = {k: v for k, v in DEFAULTS.items() if k != "start"}
-        fmg = Hierarchy(fine, **options).full_multigrid(b.ravel()).reshape(fine.shape)
+        fmg = Hierarchy(fine, **options).full_multigrid(b.ravel(), 2).reshape(fine.shape)
         e_disc, e_fmg = np.abs(converged - exact).max(), np.abs(fmg - exact).max()
         assert e_fmg <= 1.2 * e_disc, (n, e_fmg, e_disc)
         errors.append(e_fmg)

