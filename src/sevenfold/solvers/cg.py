@@ -103,6 +103,10 @@ def pcg(
         x[...] = x0
         r = b - A @ x
         history[0] = float(np.linalg.norm(r)) / nb
+        if history[0] >= 1.0:  # a start worse than zero (possible on extreme grids): drop it
+            x[...] = 0.0
+            r = b.astype(np.float64, copy=True)
+            history[0] = 1.0
     else:
         r = b.astype(np.float64, copy=True)
     monitor.iteration(0, history[0], 0.0)

@@ -269,8 +269,16 @@ class Hierarchy:
     def full_multigrid(self, b: np.ndarray, cycles: int = 1) -> np.ndarray:
         """A start near discretisation accuracy: restrict b to every level, solve the coarsest,
         then on each finer level interpolate (linear, cell-centred) and run ``cycles`` cycles.
-        Returns the finest level's u (float64, flat; a new array)."""
-        rhs = [b.reshape(self.levels[0].shape).astype(self.dtype)]
+
+        Returns the finest level's u as a flat float64 array that the next call of
+        :meth:`precondition` overwrites (copy it to keep it). The finest level works in the
+        hierarchy's own arrays, so no full-grid array is allocated.
+        """
+        top = self.levels[0]
+        rhs = [b.reshape(top.shape)]
+        if top.b is not None:
+            top.b[...] = rhs[0]
+            rhs[0] = top.b
         for lv, coarse in zip(self.levels[:-1], self.levels[1:]):
             rc = np.empty(coarse.shape, dtype=self.dtype)
             self._restrict(lv, rhs[-1], rc)
@@ -279,12 +287,14 @@ class Hierarchy:
         self._coarsest_solve(rhs[-1], u)
         for level in range(len(self.levels) - 2, -1, -1):
             lv = self.levels[level]
-            fine_u = np.zeros(lv.shape, dtype=self.dtype)
+            fine_u = top.e if level == 0 else np.empty(lv.shape, dtype=self.dtype)
+            fine_u[...] = 0.0
             multigrid.prolong_linear_add(u, lv.free, lv.step, self.overcorrection, fine_u)
             for _ in range(cycles):
                 self.cycle(level, rhs[level], fine_u)
             u = fine_u
-        return u.astype(np.float64).ravel()
+        self._out[...] = u
+        return self._out.ravel()
 
 
 class FineOperator:
