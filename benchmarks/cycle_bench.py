@@ -70,7 +70,7 @@ VARIANTS = {
     KEPT: _v("W", "line", "scaled", "float32", "fmg"),
 }
 BIG_VARIANTS = ("before", KEPT)
-CASES = ("constant", "layered", "inclusions", "thin", "graded")
+CASES = ("constant", "layered", "inclusions", "thin", "graded", "graded job")
 
 
 def spec_table(n: int, case: str) -> dict:
@@ -88,9 +88,29 @@ def spec_table(n: int, case: str) -> dict:
             "solver": {"method": "gmg"}}
 
 
+def graded_job_table(n: int) -> dict:
+    """A job on n x n x n cells whose z widths grow geometrically from 1/(1000 n) to about
+    1/n (three decades; aspect ratio 1000:1 at z = 0), conductivity [100, 100, 1]: issue 9's
+    target problem through the job file ([grid.edges] segments, directional material)."""
+    h = 1.0 / n
+    first = h / 1000.0
+    ratio = 1000.0 ** (1.0 / (n - 1))
+    length = first * (ratio**n - 1.0) / (ratio - 1.0)
+    return {"name": f"cycle-graded-job-{n}",
+            "grid": {"cells": [n, n, "edges"], "size": [1.0, 1.0, "edges"],
+                     "edges": {"z": {"segments": [{"length": length, "cells": n, "first": first}]}}},
+            "material": {"value": [100.0, 100.0, 1.0]}, "source": {"value": 1.0},
+            "boundary": {"x_min": {"type": "dirichlet", "value": 1.0},
+                         "x_max": {"type": "dirichlet", "value": 0.0},
+                         "z_min": {"type": "dirichlet", "value": 0.0}},
+            "solver": {"method": "gmg"}}
+
+
 def problem_level(n: int, case: str):
     if case == "graded":
         return graded_level(n)
+    if case == "graded job":
+        return fine_level(build_problem(parse_job(graded_job_table(n), "bench")))
     return fine_level(build_problem(parse_job(spec_table(n, case), "bench")))
 
 
@@ -192,7 +212,8 @@ def report(rows: list[dict], fmg_rows: list[dict], info: dict, command: str) -> 
            "cells 1000 times wider than tall (1 x 1 x 0.001 box, z_min held); graded = z widths "
            "graded over three decades (aspect ratio 1000:1 at the bottom, 1:1 at the top), "
            "conductivity 100 horizontal to 1 vertical, volume-integrated rows "
-           "(tests/gmg_cases.py).", ""]
+           "(tests/gmg_cases.py); graded job = the same through a job file (z from "
+           "`[grid.edges]` segments with `first` = 1/(1000 n), material [100, 100, 1]).", ""]
     for case in CASES:
         sub = [r for r in rows if r["case"] == case]
         if not sub:
@@ -229,6 +250,7 @@ def main(argv=None) -> int:
     parser.add_argument("--big-sizes", type=int, nargs="*", default=[256])
     parser.add_argument("--cases", nargs="+", default=list(CASES))
     parser.add_argument("--fmg-sizes", type=int, nargs="*", default=[32, 64, 128])
+    parser.add_argument("--variants", nargs="+", default=list(VARIANTS))
     parser.add_argument("--results", default=str(HERE / "RESULTS_CYCLE.md"))
     args = parser.parse_args(argv)
     import numba
@@ -240,15 +262,15 @@ def main(argv=None) -> int:
         ["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, cwd=HERE).stdout.strip()
     info["date"] = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
     for case in ("constant", "graded"):  # compile every kernel once before timing
-        run_case(20, case, list(VARIANTS))
+        run_case(20, case, [v for v in VARIANTS if v in args.variants])
     print("timed runs", flush=True)
     rows = []
     for n in args.sizes:
         for case in args.cases:
-            rows += run_case(n, case, list(VARIANTS))
+            rows += run_case(n, case, [v for v in VARIANTS if v in args.variants])
     for n in args.big_sizes:
         for case in args.cases:
-            rows += run_case(n, case, BIG_VARIANTS)
+            rows += run_case(n, case, [v for v in BIG_VARIANTS if v in args.variants])
     fmg_rows = [r for n in args.fmg_sizes for r in fmg_study(n)]
     info["load average after"] = " ".join(f"{x:.2f}" for x in __import__("os").getloadavg())
     command = "python benchmarks/cycle_bench.py " + " ".join(argv if argv is not None else sys.argv[1:])
