@@ -9,12 +9,14 @@ import os
 # (benchmarks/memory_fit.py prints the fit and its errors). The base alone varies by about
 # 50 MiB between installs (how much of the shared libraries the kernel maps in), so small
 # jobs are estimated to within that. Per cell, for the default outputs:
-#   gmg:    fields (k, f, masks), face arrays, rhs, CG vectors, coarse levels, result buffer
+#   gmg:    fields (k, f, masks), face arrays, rhs, CG vectors, coarse levels, result buffer,
+#           and the float32 preconditioner's copy of the finest level with its line pivots
+#           and work arrays (measured 145 B/cell between 128^3 and 160^3)
 #   amg:    fields, CSR matrix, pyamg's smoothed-aggregation hierarchy, CG vectors
 #   fft:    fields and the transformed right-hand side
 #   direct: fields and CSR, plus the LU factors, which grow like n^(4/3) on a 3D grid
 BASE_BYTES = 200 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
-BYTES_PER_CELL = {"gmg": 126, "amg": 640, "fft": 43, "direct": 100}
+BYTES_PER_CELL = {"gmg": 145, "amg": 640, "fft": 43, "direct": 100}
 LU_BYTES_PER_FILL = 250  # times unknowns^(4/3)
 FIELD_BYTES_PER_CELL = 8  # each derived array stored with the result
 
