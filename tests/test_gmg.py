@@ -131,18 +131,18 @@ def test_iterations_are_grid_independent(case: str) -> None:
     """Iterations to rtol 1e-8 at 32^3 and 128^3 differ by at most 30%.
 
     The 1000:1 layer is held to the same bound; measured with the default cycle (W(1,1),
-    z-line smoothing, float32 preconditioner, full multigrid start): 5 to 7 iterations at 32^3
-    and 128^3 for all three cases.
+    z-line smoothing, float32 preconditioner, full multigrid start): 7 (constant), 9 (smooth)
+    and 9 (layer) iterations, the same at 32^3 and 128^3; the bound leaves one iteration.
     """
     counts = [solve_gmg(cube(n, case), 1e-8, 100)[1].iterations for n in (32, 128)]
     assert max(counts) <= 1.3 * min(counts), counts
-    assert max(counts) <= 9, counts
+    assert max(counts) <= 10, counts
 
 
 def test_graded_anisotropic_iterations_stay_bounded() -> None:
     """Issue 9's target problem on small grids: z graded over three decades (aspect ratios
     1000:1 to 1:1), conductivity 100:1 horizontal to vertical. Measured: 8 iterations at 24^3
-    and 9 at 48^3 with the default cycle; a point smoother with full coarsening needed 52 at
+    and 8 at 48^3 with the default cycle; a point smoother with full coarsening needed 52 at
     24^3 and 'before' (the previous W(2,2) point cycle) 36 at 64^3."""
     counts = [solve_levels(*graded_level(n), 1e-8, 100)[0].iterations for n in (24, 48)]
     assert max(counts) <= 11, counts
