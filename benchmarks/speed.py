@@ -207,7 +207,8 @@ def report(command: str, info: dict[str, str], cases: list[Case], fft_rows: list
       "(`python benchmarks/fft_bench.py`), [RESULTS_QUEUE.md](RESULTS_QUEUE.md) "
       "(`python benchmarks/queue_bench.py`), [RESULTS_CYCLE.md](RESULTS_CYCLE.md) (multigrid "
       "cycle designs, with the thin-cell and graded anisotropic cases beside the uniform ones, "
-      "`python benchmarks/cycle_bench.py`).\n")
+      "`python benchmarks/cycle_bench.py`) and [RESULTS_CYCLE_GRADED.md](RESULTS_CYCLE_GRADED.md) "
+      "(issue 9's graded job: three decades of grading, 100:1 conductivity).\n")
     w("## Problem\n")
     w("Steady -div(k grad u) = 0 on the unit cube, n^3 cells, cell-centred finite volumes, 7-point stencil; "
       "x_min held at 1 and x_max at 0 (half a cell from the boundary centres), other faces insulated, "
