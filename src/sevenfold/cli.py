@@ -38,6 +38,12 @@ class ProgressMonitor:
             info=f"iteration {iteration:4d}  residual {relative_residual:.2e}",
         )
 
+    def switched(self, info: dict) -> None:
+        """``auto`` changed method mid-solve: a marked line above the bar."""
+        from .queue.watch import switch_text
+
+        self.progress.console.print(f"[yellow]***[/yellow] {escape(switch_text(info))}", soft_wrap=True)
+
     def stop_requested(self) -> bool:
         return False
 
@@ -55,9 +61,29 @@ def balance_table(balance: dict, title: str = "balance") -> Table:
     return table
 
 
+def headline_table(headline: dict, title: str = "headline numbers") -> Table:
+    """A result's headline numbers (``attrs["headline"]``) as a two-column table."""
+    from .headline import headline_rows
+
+    table = Table(title=title, box=None, title_justify="left", show_header=False)
+    table.add_column("quantity", no_wrap=True)
+    table.add_column("value", overflow="fold")
+    for label, text in headline_rows(headline):
+        table.add_row(escape(label), escape(text))
+    return table
+
+
+def warn(text: str) -> None:
+    """One warning line (the cautions channel): printed, never a refusal."""
+    out.print(f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True)
+
+
 def _check(args: argparse.Namespace) -> int:
+    from .cautions import job_warnings
     from .memory import human
+    from .conditions import placed_rows
     from .runner import plan_job, prepare_problem
+    from .units import unit_notes
 
     plan = plan_job(args.job)
     plan, problem = prepare_problem(plan)  # settled: the method the built problem is solved with
@@ -76,13 +102,20 @@ def _check(args: argparse.Namespace) -> int:
         ("box", " x ".join(f"[{o:.4g}, {o + e:.4g}]" for o, e in zip(grid.origin, grid.extent)) + " m"),
         ("cell widths", " x ".join(widths(a) for a in range(3)) + " m"),
         ("coefficient", "directional (kx, ky, kz)" if not problem.isotropic else "one value for every direction"),
+        *placed_rows(problem),
         ("unknowns", f"{problem.unknowns:,}" + (" (pure Neumann: one cell pinned, mean(u) = 0)" if problem.gauge_mean_zero else "")),
         ("method", f"{plan.method}" + (" (chosen by auto)" if spec.solver.method == "auto" else "")),
         ("memory", f"about {human(plan.memory_bytes)} of {human(plan.available_bytes)} available"),
         ("output", str(plan.output)),
+        *(("units", note) for note in unit_notes(spec)),
     ):
-        table.add_row(key, value)
+        table.add_row(key, escape(value))
+    for w in problem.wells:  # where each well landed: its screened cells and Peaceman radius
+        table.add_row(f"well {escape(w.name)}", f"{w.k.size} cell(s) of column ({w.i}, {w.j}), screened "
+                      f"{float(w.length.sum()):.4g} m; Peaceman radius {float(w.r_e.min()):.3g} m")
     out.print(table)
+    for w in job_warnings(spec, problem):
+        warn(w)
     out.print("[green]valid[/green]: the job file, its regions, files and boundary data all check out")
     return EXIT_OK
 
@@ -96,16 +129,22 @@ def _run(args: argparse.Namespace) -> int:
         TimeElapsedColumn(), console=out, transient=False, disable=args.quiet,
     ) as progress:
         task = progress.add_task(plan.spec.name, total=-math.log10(plan.spec.solver.rtol), info="building")
-        result = run_job(args.job, args.output, ProgressMonitor(progress, task, plan.spec.solver.rtol), plan.spec)
+        result = run_job(args.job, args.output, ProgressMonitor(progress, task, plan.spec.solver.rtol), plan.spec,
+                         on_warning=lambda text: progress.console.print(
+                             f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True))
     s = result.solve
+    switched = (f" (auto switched from {s.switch['from']} after {s.switch['after_iterations']} "
+                f"{s.switch['from']} iterations)" if s.switch else "")
     out.print(
-        f"{'converged' if s.converged else 'stopped'}: {s.method}, {s.iterations} iterations, "
+        f"{'converged' if s.converged else 'stopped'}: {s.method}{switched}, {s.iterations} iterations, "
         f"relative residual {s.final_relative_residual:.2e}, job {result.seconds['job']:.2f} s "
         f"(assembly {result.seconds['assemble']:.2f} s, setup {s.setup_seconds:.2f} s, "
         f"solve {s.solve_seconds:.2f} s, write {result.seconds['write']:.2f} s)"
     )
     if result.balance is not None:
         out.print(balance_table(result.balance.to_dict()))
+    if result.headline is not None:
+        out.print(headline_table(result.headline))
     out.print(f"result: {escape(str(result.output))}")
     out.print(f"residuals: {escape(str(result.residual_log))}")
     if result.probes_csv is not None:
@@ -115,6 +154,7 @@ def _run(args: argparse.Namespace) -> int:
 
 def _capacitance(args: argparse.Namespace) -> int:
     from .capacitance import capacitance_matrix
+    from .conditions import placed_rows
     from .runner import plan_job, prepare_problem
 
     plan = plan_job(args.job)
@@ -128,19 +168,30 @@ def _capacitance(args: argparse.Namespace) -> int:
         res = capacitance_matrix(problem, names, spec.solver)
     except JobError as exc:
         raise exc if exc.source else exc.located(str(plan.job_file))
-    table = Table(title="capacitance matrix (pF)", title_justify="left", box=None)
+    # a thin (2D) problem is reported per metre along its thin axis (capacitance.thin_axis)
+    matrix, ground, unit = res.matrix, res.ground, "pF"
+    if res.thin_axis is not None:
+        matrix, ground, unit = res.per_length, res.ground / res.thickness, "pF/m"
+        out.print(f"one cell ({res.thickness:g} m) along {res.thin_axis}, insulated across it: a 2D problem; "
+                  f"capacitance per metre along {res.thin_axis}")
+    title = "capacitance matrix" if len(names) > 1 else "self-capacitance"
+    table = Table(title=f"{title} ({unit})", title_justify="left", box=None)
     table.add_column("at 1 V")
     for n in names:
         table.add_column(escape(n), justify="right")
     if res.grounded_faces:
         table.add_column("ground", justify="right")
     for i, n in enumerate(names):
-        cells = [f"{1e12 * c:.6g}" for c in res.matrix[i]]
+        cells = [f"{1e12 * c:.6g}" for c in matrix[i]]
         if res.grounded_faces:
-            cells.append(f"{1e12 * res.ground[i]:.6g}")
+            cells.append(f"{1e12 * ground[i]:.6g}")
         table.add_row(escape(n), *cells)
     out.print(table)
-    out.print("row i: electrode i at 1 V, the others at 0 V; column j: the charge on electrode j")
+    if len(names) == 1:
+        out.print(f"self-capacitance of {escape(names[0])} to the grounded faces "
+                  f"{', '.join(res.grounded_faces)}: {1e12 * matrix[0, 0]:.6g} {unit} (C = Q / V)")
+    if len(names) > 1:
+        out.print("row i: electrode i at 1 V, the others at 0 V; column j: the charge on electrode j")
     if res.grounded_faces:
         out.print(f"grounded: the faces {', '.join(res.grounded_faces)} act as one further conductor at 0 V "
                   "(their charge is the ground column)")
@@ -148,7 +199,7 @@ def _capacitance(args: argparse.Namespace) -> int:
         out.print("no grounded face: each row sums to zero")
     if len(names) == 2:
         out.print(f"{'mutual ' if res.grounded_faces else ''}capacitance between {escape(names[0])} and "
-                  f"{escape(names[1])}: {-1e12 * res.matrix[0, 1]:.6g} pF (minus the off-diagonal entry)")
+                  f"{escape(names[1])}: {-1e12 * matrix[0, 1]:.6g} {unit} (minus the off-diagonal entry)")
     out.print(f"symmetry: max |C - C^T| / max |C| = {res.asymmetry:.1e}; {res.method}, "
               f"iterations per solve {res.iterations}")
     return EXIT_OK
@@ -160,7 +211,7 @@ def _converge(args: argparse.Namespace) -> int:
     def progress(level: int, cells) -> None:
         out.print(f"level {level}: {cells[0]} x {cells[1]} x {cells[2]} cells ...")
 
-    study = run_study(args.job, args.levels, args.ratio, args.folder, progress=progress)
+    study = run_study(args.job, args.levels, args.ratio, args.folder, progress=progress, datum=args.datum)
     levels = Table(title="levels", title_justify="left", box=None)
     for col in ("level", "cells", "h (m)", "ratio per axis"):
         levels.add_column(col)
@@ -168,14 +219,35 @@ def _converge(args: argparse.Namespace) -> int:
         levels.add_row(str(i), " x ".join(map(str, lv.cells)), f"{lv.h:.4g}",
                        "-" if i == 0 else ", ".join(f"{r:.4g}" for r in lv.ratios))
     out.print(levels)
+    if study.levels and study.levels[0].selected:
+        sel = Table(title="selected volume per level (m^3; cells whose centre lies in the shape)",
+                    title_justify="left", box=None)
+        sel.add_column("region")
+        sel.add_column("shape", justify="right")
+        for i in range(len(study.levels)):
+            sel.add_column(f"level {i}", justify="right")
+        for label, first in study.levels[0].selected.items():
+            sel.add_row(escape(label), f"{first['shape_volume']:.4g}",
+                        *(f"{lv.selected[label]['volume']:.4g}" if label in lv.selected else "-"
+                          for lv in study.levels))
+        out.print(sel)
+    for change in study.geometry_changes:
+        warn(change)
     table = Table(title="Grid Convergence Index on the finest level (Roache; Fs = 1.25)",
                   title_justify="left", box=None)
-    for col in ("quantity", "finest", "order p", "extrapolated", "GCI", "GCI %", "convergence"):
-        table.add_column(col, justify="left" if col in ("quantity", "convergence") else "right")
+    for col in ("quantity", "finest", "order p", "extrapolated", "GCI", "GCI %", "% of", "convergence"):
+        table.add_column(col, justify="left" if col in ("quantity", "convergence", "% of") else "right",
+                         no_wrap=col == "quantity")
     for key, r in study.results.items():
+        of = "range" if r.relative_to.startswith("range") else "datum" if "datum" in r.relative_to else "|f1|"
         table.add_row(escape(key), f"{r.f1:.6g}", f"{r.order:.3f}", f"{r.extrapolated:.6g}",
-                      f"{r.gci:.3g}", f"{100 * r.gci_relative:.3g}", r.convergence)
+                      f"{r.gci:.3g}", f"{100 * r.gci_relative:.3g}", of, r.convergence)
     out.print(table)
+    units = study.solution_units
+    scale = (f"|f1 - {study.datum:g} {units}| (--datum)" if study.datum is not None else
+             f"the range of the solution on the finest level, {study.levels[-1].solution_range:.4g} {units}")
+    out.print(f"GCI % of values of the solution (maximum, probes) is relative to {scale}; of flows and "
+              "charges, to |f1|", soft_wrap=True)
     png = plot_study(study, Path(study.folder) / "convergence.png")
     out.print(f"study: {escape(study.folder)} (study.json, level-*.zarr); figure: {escape(str(png))}")
     return EXIT_OK
@@ -225,7 +297,8 @@ def parser() -> argparse.ArgumentParser:
     r.set_defaults(func=_run)
 
     cap = sub.add_parser("capacitance", help="capacitance matrix of an electrostatics job's electrodes")
-    cap.add_argument("job", help="job file (TOML) with physics = 'electrostatics' and two or more [[hold]]")
+    cap.add_argument("job", help="job file (TOML) with physics = 'electrostatics' and one or more [[hold]] "
+                                 "(one: its self-capacitance to the grounded faces)")
     cap.set_defaults(func=_capacitance)
 
     cv = sub.add_parser("converge", help="grid-convergence study: observed order, extrapolation, GCI")
@@ -233,6 +306,9 @@ def parser() -> argparse.ArgumentParser:
     cv.add_argument("--levels", type=int, default=3, help="number of grids, at least 3 (default 3)")
     cv.add_argument("--ratio", type=float, default=2.0, help="refinement ratio between levels (default 2)")
     cv.add_argument("--folder", help="where the levels go (default <output stem>.converge)")
+    cv.add_argument("--datum", type=float, metavar="VALUE",
+                    help="measure the relative GCI of solution values (maximum, probes) against their "
+                         "distance from VALUE (solution units, SI) instead of the solution's range")
     cv.set_defaults(func=_converge)
 
     rp = sub.add_parser("report", help="PNG figures and a one-page HTML summary of a result")

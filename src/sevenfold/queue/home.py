@@ -55,11 +55,9 @@ class Home:
         return self.job_dir(job_id) / "cancel"
 
 
-def locate(home: str | Path | None = None) -> Home:
-    """The queue home: ``home``, else ``$SEVENFOLD_HOME``, else the user data directory.
-
-    The folder is created when missing; an unusable one raises :class:`QueueError`.
-    """
+def home_root(home: str | Path | None = None) -> Path:
+    """The queue home's absolute path (``home``, else ``$SEVENFOLD_HOME``, else the user data
+    directory), without creating or checking it: what a read-only viewer needs."""
     if home is not None and str(home).strip():
         root = Path(home).expanduser()
     elif os.environ.get(HOME_ENV, "").strip():
@@ -68,7 +66,15 @@ def locate(home: str | Path | None = None) -> Home:
         from platformdirs import user_data_path
 
         root = user_data_path("sevenfold")
-    root = root.resolve()
+    return root.resolve()
+
+
+def locate(home: str | Path | None = None) -> Home:
+    """The queue home: ``home``, else ``$SEVENFOLD_HOME``, else the user data directory.
+
+    The folder is created when missing; an unusable one raises :class:`QueueError`.
+    """
+    root = home_root(home)
     try:
         root.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
