@@ -205,7 +205,10 @@ def report(command: str, info: dict[str, str], cases: list[Case], fft_rows: list
     w("Other results: [RESULTS_ENGINE.md](RESULTS_ENGINE.md) (the engine comparison, amg on both sides, "
       "`python benchmarks/run.py --suite engine`), [RESULTS_FFT.md](RESULTS_FFT.md) "
       "(`python benchmarks/fft_bench.py`), [RESULTS_QUEUE.md](RESULTS_QUEUE.md) "
-      "(`python benchmarks/queue_bench.py`).\n")
+      "(`python benchmarks/queue_bench.py`), [RESULTS_CYCLE.md](RESULTS_CYCLE.md) (multigrid "
+      "cycle designs, with the thin-cell and graded anisotropic cases beside the uniform ones, "
+      "`python benchmarks/cycle_bench.py`) and [RESULTS_CYCLE_GRADED.md](RESULTS_CYCLE_GRADED.md) "
+      "(issue 9's graded job: three decades of grading, 100:1 conductivity).\n")
     w("## Problem\n")
     w("Steady -div(k grad u) = 0 on the unit cube, n^3 cells, cell-centred finite volumes, 7-point stencil; "
       "x_min held at 1 and x_max at 0 (half a cell from the boundary centres), other faces insulated, "

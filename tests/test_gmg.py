@@ -5,10 +5,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+import scipy.sparse.linalg as sla
 from conftest import make_spec, solve_spec
+from gmg_cases import graded_level
 from sevenfold.operator import assemble
 from sevenfold.problem import build_problem
-from sevenfold.solvers.gmg import FineOperator, Hierarchy, fine_level, solve_gmg
+from sevenfold.solvers.gmg import DEFAULTS, FineOperator, Hierarchy, fine_level, solve_gmg, solve_levels
 
 MIXED_FACES = {
     "x_min": {"type": "dirichlet", "value": "1 + y*z"},
@@ -23,12 +25,17 @@ HOLDS = [
 ]
 
 
+def _scaled(point, size):
+    return [p * s for p, s in zip(point, size)]
+
+
 def heterogeneous(cells, size=(1.0, 1.0, 1.0), **extra):
     grid = {"cells": list(cells), "size": list(size)}
     table = dict(
         grid=grid,
         material={"value": "1 + 0.5*sin(3*x)*cos(2*y + z)",
-                  "region": [{"box": {"min": [0.2, 0.0, 0.35], "max": [0.9, 1.0, 0.55]}, "value": 800.0}]},
+                  "region": [{"box": {"min": _scaled([0.2, 0.0, 0.35], size),
+                                      "max": _scaled([0.9, 1.0, 0.55], size)}, "value": 800.0}]},
         source={"value": "10*x*(1 - y)"},
         boundary=MIXED_FACES,
     )
@@ -55,21 +62,49 @@ def test_matrix_free_operator_equals_csr(cells) -> None:
 
 
 @pytest.mark.parametrize(
-    "cells, size",
-    [((20, 18, 16), (1.0, 1.0, 1.0)), ((24, 24, 6), (1.0, 1.0, 1.2)), ((33, 9, 21), (1.0, 1.0, 1.1)),
-     ((40, 40, 1), (1.0, 1.0, 1.0))],
+    "cells, size, precision",
+    [((20, 18, 16), (1.0, 1.0, 1.0), "float32"), ((20, 18, 16), (1.0, 1.0, 1.0), "float64"),
+     ((24, 24, 6), (1.0, 1.0, 1.2), "float32"), ((33, 9, 21), (1.0, 1.0, 1.1), "float32"),
+     ((40, 40, 1), (1.0, 1.0, 1.0), "float32"), ((24, 20, 16), (1.0, 1.0, 0.001), "float32"),
+     ((16, 20, 24), (0.001, 1.0, 1.0), "float32"), ((18, 16, 20), (1.0, 1.0, 0.001), "float64")],
 )
-def test_gmg_cg_agrees_with_direct(cells, size) -> None:
-    """Every boundary type, holds, anisotropic and thin grids, odd cell counts."""
-    spec = heterogeneous(cells, size, hold=HOLDS if cells[2] > 1 else [])
+def test_gmg_cg_agrees_with_direct(cells, size, precision) -> None:
+    """Every boundary type, holds, anisotropic (cells 1000 times wider than tall, or the
+    reverse) and thin grids, odd cell counts; the preconditioner in float32 and float64."""
+    holds = HOLDS if cells[2] > 1 else []
+    if min(size) < 0.01:  # boxes scaled with the box (a sphere would be no sphere here)
+        holds = [{"box": {"min": _scaled([0.0, 0.8, 0.0], size), "max": _scaled([0.3, 1.0, 0.2], size)},
+                  "value": -1.0}]
+    spec = heterogeneous(cells, size, hold=holds)
     u_direct, problem = solve_spec(spec)
-    u, result = solve_gmg(problem, rtol=1e-11, max_iterations=200)
+    # a coarsest level of 8^3 cells (not 16^3) so that these small grids get several levels
+    u, result = solve_gmg(problem, rtol=1e-11, max_iterations=200, precision=precision,
+                          coarsest_cells=512)
     u = np.where(problem.held, problem.held_value, u)
     assert result.converged and result.final_relative_residual <= 1e-10
     # CG's relative residual 1e-11 bounds the relative error by cond(A)*1e-11; cond stays
     # below ~1e4 on these grids, so 1e-6 leaves a wide margin while still catching any bug
     assert np.abs(u - u_direct).max() <= 1e-6 * np.abs(u_direct).max()
-    assert len(Hierarchy(fine_level(problem)[0]).levels) >= 2
+    assert len(Hierarchy(fine_level(problem)[0], coarsest_cells=512).levels) >= 2
+
+
+@pytest.mark.parametrize("holds", [False, True])
+@pytest.mark.parametrize("precision", ["float32", "float64"])
+def test_gmg_on_graded_anisotropic_face_arrays_agrees_with_scipy(holds, precision) -> None:
+    """z widths graded over three decades, conductivity 100:1 horizontal to vertical,
+    volume-integrated rows, a held block: gmg-CG against scipy's sparse direct solver on the
+    same matrix (Level.to_csr, checked against the matrix-free operator here too)."""
+    fine, b = graded_level(20, nz=24, holds=holds)
+    A = fine.to_csr()
+    x = np.random.default_rng(3).standard_normal(A.shape[0])
+    assert np.allclose(FineOperator(fine) @ x, A @ x, rtol=0, atol=1e-12 * np.abs(A @ x).max())
+    free = fine.free.ravel()
+    reference = np.zeros(A.shape[0])
+    reference[free] = sla.spsolve(A[free][:, free].tocsc(), b.ravel()[free])
+    result, hierarchy = solve_levels(fine, b, 1e-11, 200, precision=precision)
+    assert len(hierarchy.levels) >= 2
+    assert result.converged and result.final_relative_residual <= 1e-11
+    assert np.abs(result.x - reference).max() <= 1e-6 * np.abs(reference).max()
 
 
 def test_semi_coarsening_keeps_thin_axes() -> None:
@@ -95,12 +130,107 @@ def cube(n: int, case: str):
 def test_iterations_are_grid_independent(case: str) -> None:
     """Iterations to rtol 1e-8 at 32^3 and 128^3 differ by at most 30%.
 
-    The 1000:1 layer is held to the same bound; measured here: 6-7 iterations at 64^3 and
-    128^3 for all three cases.
+    The 1000:1 layer is held to the same bound; measured with the default cycle (W(1,1),
+    z-line smoothing, float32 preconditioner, full multigrid start): 7 (constant), 9 (smooth)
+    and 9 (layer) iterations, the same at 32^3 and 128^3; the bound leaves one iteration.
     """
     counts = [solve_gmg(cube(n, case), 1e-8, 100)[1].iterations for n in (32, 128)]
     assert max(counts) <= 1.3 * min(counts), counts
-    assert max(counts) <= 12, counts
+    assert max(counts) <= 10, counts
+
+
+def test_graded_anisotropic_iterations_stay_bounded() -> None:
+    """Issue 9's target problem on small grids: z graded over three decades (aspect ratios
+    1000:1 to 1:1), conductivity 100:1 horizontal to vertical. Measured: 8 iterations at 24^3
+    and 8 at 48^3 with the default cycle; a point smoother with full coarsening needed 52 at
+    24^3 and 'before' (the previous W(2,2) point cycle) 36 at 64^3."""
+    counts = [solve_levels(*graded_level(n), 1e-8, 100)[0].iterations for n in (24, 48)]
+    assert max(counts) <= 11, counts
+    assert counts[1] <= 1.3 * counts[0], counts
+
+
+def test_graded_axis_is_not_coarsened_where_it_is_weak() -> None:
+    """The coarsening rule reads the operator: on the graded grid z is strong near z = 0 and
+    weak (100:1 conductivity) near the top, so z stays fine while x and y halve; on the thin
+    grid z is strong everywhere (the z-lines solve it) and every axis halves."""
+    graded = Hierarchy(graded_level(32)[0]).shapes
+    assert graded[1] == (16, 16, 32) and graded[2] == (8, 8, 32), graded
+    thin = Hierarchy(fine_level(build_problem(heterogeneous((32, 32, 32), (1.0, 1.0, 0.001))))[0]).shapes
+    assert thin[1] == (16, 16, 16), thin
+
+
+def test_level_cell_counts() -> None:
+    """Operator complexity in cells (sum over levels / finest): at most 8/7 plus the coarsest
+    for full coarsening, at most 4/3 for the graded grid's x-y semi-coarsening (counts)."""
+    uniform = Hierarchy(fine_level(cube(64, "layer"))[0]).shapes
+    graded = Hierarchy(graded_level(64)[0]).shapes
+    total = [sum(int(np.prod(s)) for s in shapes) / int(np.prod(shapes[0])) for shapes in (uniform, graded)]
+    assert total[0] <= 8 / 7 + 1e-9 and total[1] <= 4 / 3 + 1e-9, total
+
+
+VARIANTS = [
+    dict(DEFAULTS),
+    dict(DEFAULTS, precision="float64"),
+    dict(DEFAULTS, cycle="V", precision="float64"),
+    dict(DEFAULTS, smoother="point", precision="float64"),
+    dict(DEFAULTS, transfer="constant", precision="float64"),
+    dict(DEFAULTS, transfer="linear", precision="float64"),
+]
+
+
+@pytest.mark.parametrize("variant", VARIANTS, ids=lambda v: "-".join(str(v[k]) for k in ("cycle", "smoother", "transfer", "precision")))
+def test_preconditioner_is_symmetric_positive_definite(variant) -> None:
+    """CG needs an SPD preconditioner M: x^T M y == y^T M x to rounding (float64 levels:
+    1e-12 relative; float32 levels: 1e-5, float32's rounding) and x^T M x > 0, on the graded
+    anisotropic grid with a held block."""
+    fine, _ = graded_level(16, nz=20, holds=True)
+    options = {k: v for k, v in variant.items() if k != "start"}
+    hierarchy = Hierarchy(fine, **options)
+    rng = np.random.default_rng(11)
+    free = fine.free.ravel()
+    tol = 1e-12 if options["precision"] == "float64" else 1e-5
+    for _ in range(3):
+        x, y = (np.where(free, rng.standard_normal(free.size), 0.0) for _ in range(2))
+        mx = hierarchy.precondition(x).copy()
+        my = hierarchy.precondition(y).copy()
+        scale = np.linalg.norm(x) * np.linalg.norm(my)
+        assert abs(x @ my - y @ mx) <= tol * scale
+        assert x @ mx > 0
+
+
+def manufactured(n: int):
+    """u = sin(pi x) sin(pi y) sin(pi z), k = 2 + x + 0.5 sin(2y), u = 0 on every face; the
+    source -div(k grad u) worked out by hand (product rule)."""
+    su = "sin(pi*x)*sin(pi*y)*sin(pi*z)"
+    f = (f"3*pi**2*(2 + x + 0.5*sin(2*y))*{su} - pi*cos(pi*x)*sin(pi*y)*sin(pi*z)"
+         f" - cos(2*y)*pi*sin(pi*x)*cos(pi*y)*sin(pi*z)")
+    faces = {face: {"type": "dirichlet", "value": 0.0}
+             for face in ("x_min", "x_max", "y_min", "y_max", "z_min", "z_max")}
+    problem = build_problem(make_spec(grid={"cells": [n, n, n], "size": [1.0, 1.0, 1.0]},
+                                      material={"value": "2 + x + 0.5*sin(2*y)"},
+                                      source={"value": f}, boundary=faces))
+    c = np.sin(np.pi * (np.arange(n) + 0.5) / n)
+    return problem, c[:, None, None] * c[None, :, None] * c[None, None, :]
+
+
+def test_full_multigrid_reaches_discretisation_accuracy() -> None:
+    """Full multigrid alone (two cycles per level) against a manufactured solution: its error
+    is within 1.2 times the converged discrete solution's at 16^3, 32^3 and 64^3, and falls
+    with observed order at least 1.8 (second-order scheme). Measured: ratios 1.00 (16^3 is
+    the coarsest level itself), 0.38 and 0.41 (the algebraic and discretisation errors partly
+    cancel); one cycle per level gives 1.02 and 1.68, which is why the study uses two."""
+    errors = []
+    for n in (16, 32, 64):
+        problem, exact = manufactured(n)
+        fine, b = fine_level(problem)
+        converged = solve_levels(fine, b, 1e-12, 100)[0].x.reshape(fine.shape)
+        options = {k: v for k, v in DEFAULTS.items() if k != "start"}
+        fmg = Hierarchy(fine, **options).full_multigrid(b.ravel(), 2).reshape(fine.shape)
+        e_disc, e_fmg = np.abs(converged - exact).max(), np.abs(fmg - exact).max()
+        assert e_fmg <= 1.2 * e_disc, (n, e_fmg, e_disc)
+        errors.append(e_fmg)
+    orders = np.log2(np.array(errors[:-1]) / np.array(errors[1:]))
+    assert orders.min() >= 1.8, orders
 
 
 def test_auto_leaves_slow_multigrid_for_amg(monkeypatch) -> None:
@@ -120,3 +250,19 @@ def test_auto_leaves_slow_multigrid_for_amg(monkeypatch) -> None:
     u_gmg, kept = select.solve_problem(problem, spec_gmg, "gmg")
     assert kept.method == "gmg"
     assert np.abs(u - u_gmg).max() <= 1e-6 * np.abs(u_gmg).max()
+
+
+def test_auto_keeps_gmg_on_thin_anisotropic_cells() -> None:
+    """Cells 1000 times wider than tall, an 800:1 region, every boundary type: auto keeps gmg
+    (its rate stays far better than the guard's 0.5) and converges; measured 12 iterations to
+    1e-8 (amg-CG did not reach 1e-9 in 500 on this matrix)."""
+    from sevenfold.solvers import select
+
+    problem = build_problem(heterogeneous((24, 20, 16), (1.0, 1.0, 0.001)))
+    # rtol 1e-8: at 1e-9 the true residual stops at 1.7e-9 (double precision's floor for this
+    # matrix, whose z couplings exceed x's by ~1e8), for gmg and for direct alike
+    spec_auto = make_spec(solver={"method": "auto", "rtol": 1e-8}).solver
+    assert select.method_for(spec_auto, problem) == "gmg"
+    _, result = select.solve_problem(problem, spec_auto, "gmg")
+    assert result.method == "gmg" and "amg" not in result.notes
+    assert result.converged and result.iterations <= 14, result.iterations

@@ -204,14 +204,19 @@ def restrict(r, free, step, rc):
 
 @njit(cache=True, parallel=True)
 def prolong_add(ec, free, step, scale, u):
-    """u += scale * P ec on the free cells."""
+    """u += scale * P ec on the free cells (loops over aggregates: no integer division)."""
     nx, ny, nz = u.shape
     sx, sy, sz = step[0], step[1], step[2]
-    for i in prange(nx):
-        for j in range(ny):
-            for m in range(nz):
-                if free[i, j, m]:
-                    u[i, j, m] += scale * ec[i // sx, j // sy, m // sz]
+    ncx, ncy, ncz = ec.shape
+    for I in prange(ncx):
+        for i in range(I * sx, min(I * sx + sx, nx)):
+            for J in range(ncy):
+                for j in range(J * sy, min(J * sy + sy, ny)):
+                    for K in range(ncz):
+                        e = scale * ec[I, J, K]
+                        for m in range(K * sz, min(K * sz + sz, nz)):
+                            if free[i, j, m]:
+                                u[i, j, m] += e
 
 
 @njit(cache=True, parallel=True)

@@ -1,20 +1,31 @@
 """Geometric multigrid on the cell-centred grid, as a preconditioner for conjugate gradients.
 
-Design (chosen for robustness to coefficient jumps that do not line up with coarse cells):
+Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
 
 * coarsening by aggregating 2 cells per coarsened axis (any cell count: an odd last cell forms
-  its own aggregate); an axis whose effective spacing exceeds 1.5 times the smallest is not
-  coarsened (semi-coarsening where cells are strongly anisotropic);
-* piecewise-constant prolongation P over each aggregate's free cells, restriction P^T, and
-  Galerkin coarse operators P^T A P, which stay 7-point stencils: every coarse coupling is the
-  sum of the fine couplings crossing between two aggregates, so jumps in k are carried to the
-  coarse levels exactly instead of being averaged (the remedy for averaged-coefficient coarse
-  grids; an aggregation form of operator-dependent Galerkin coarsening);
-* the coarse correction is scaled by ``overcorrection`` (piecewise-constant P underestimates
-  smooth corrections; the scaling for aggregation multigrid is due to Braess, 1995);
-* red-black Gauss-Seidel smoothing, red then black before and black then red after the coarse
-  correction, so the cycle is a symmetric positive definite preconditioner and CG stays valid;
-* a sparse LU of the coarsest level.
+  its own aggregate), the axes chosen per level from the operator (:func:`coarsening_step`):
+  an axis that is weakly coupled in more than a tenth of the cells is not coarsened
+  (semi-coarsening), which is what keeps a grid graded along z, anisotropic only near its
+  fine end, robust;
+* coarse operators from the aggregation's Galerkin product P^T A P, which stays a 7-point
+  stencil: every coarse coupling is the sum of the fine couplings crossing between two
+  aggregates, so jumps in k reach the coarse levels as fluxes instead of being averaged; each
+  axis's part is divided by its aggregate size ("scaled"), which makes the coarse operator
+  consistent with a rediscretisation on the aggregates (the factor piecewise-constant
+  aggregation loses on smooth errors, Braess 1995, per axis rather than one overcorrection),
+  and so usable by full multigrid;
+* piecewise-constant transfers in the cycle (restriction P^T), linear interpolation between
+  cell centres for the full-multigrid start;
+* z-line Gauss-Seidel smoothing (tridiagonal solves along z, columns in two colours), one
+  sweep red then black before and black then red after the coarse correction, so the cycle
+  is a symmetric positive definite preconditioner and CG stays valid; lines make strong z
+  couplings (thin cells, a graded z axis) harmless;
+* a W-cycle (the V-cycle of aggregation multigrid loses accuracy with every level), a
+  sparse LU of the coarsest level (at most 16^3 cells);
+* the preconditioner's levels in float32 by default, CG, the residual-defining operator and
+  the true-residual check in float64;
+* a full-multigrid start: the right-hand side restricted to every level, the coarsest solved,
+  then one cycle per level after interpolating up, so CG begins near discretisation accuracy.
 
 The finest level is never stored as a CSR matrix: only its face arrays (tx, ty, tz, diag).
 """
@@ -29,14 +40,22 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as sla
 
-from ..kernels import stencil
+from ..kernels import multigrid, stencil
 from .cg import Monitor, SolveResult, pcg
 
-COARSEST_CELLS = 512
+# The coarsest level is factorised (sparse LU); 16^3 keeps the aggregation levels where
+# thin 1000:1 layers are still resolved (coarser aggregates of layered media slowed the cycle
+# from 8 to 20 iterations at 128^3; benchmarks/RESULTS_CYCLE.md)
+COARSEST_CELLS = 4096
 # Levels smaller than this run their kernels on one thread: there the cost of waking and
 # joining threads exceeds the work, and it grows sharply when another process holds a core.
 SERIAL_BELOW = 32_768
-SEMI_COARSENING_RATIO = 1.5
+# An axis is weak in a cell when its coupling times WEAK_RATIO is below the strongest other
+# axis's (2.25 = 1.5^2: cells 1.5 times longer along it); an axis that is weak in more than
+# WEAK_FRACTION of the sampled cells is not coarsened on that level.
+WEAK_RATIO = 2.25
+WEAK_FRACTION = 0.1
+SAMPLE_CELLS = 200_000  # cells the coarsening rule looks at per level (a regular subsample)
 
 
 @dataclass
@@ -47,10 +66,12 @@ class Level:
     diag: np.ndarray
     free: np.ndarray  # bool: cells (aggregates) carrying an unknown
     step: np.ndarray  # aggregate size per axis towards the next coarser level (1 or 2)
-    spacing: tuple[float, float, float]  # effective spacing, for the coarsening rule
+    spacing: tuple[float, float, float] | None = None  # unused by the hierarchy (kept for callers)
     r: np.ndarray | None = None  # work arrays
     e: np.ndarray | None = None
     b: np.ndarray | None = None
+    inv_w: np.ndarray | None = None  # z-line pivots (line smoother)
+    boost: np.ndarray | None = None  # per-axis factor of unscaled Galerkin couplings
 
     @property
     def shape(self) -> tuple[int, int, int]:
@@ -59,6 +80,11 @@ class Level:
     def apply(self, u: np.ndarray, out: np.ndarray) -> np.ndarray:
         stencil.apply(self.tx, self.ty, self.tz, self.diag, u, out)
         return out
+
+    def astype(self, dtype) -> "Level":
+        """A copy of the operator in another float type (free and step shared)."""
+        return Level(*(a.astype(dtype) for a in (self.tx, self.ty, self.tz, self.diag)),
+                     self.free, self.step.copy(), self.spacing)
 
     def to_csr(self) -> sp.csr_matrix:
         """The level's matrix (only for the small coarsest level)."""
@@ -76,45 +102,104 @@ class Level:
             cols += [c, a]
             vals += [-v, -v]
         return sp.csr_matrix(
-            (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n)
+            (np.concatenate(vals).astype(np.float64), (np.concatenate(rows), np.concatenate(cols))),
+            shape=(n, n),
         )
 
 
-def _coarsening_step(shape, spacing) -> np.ndarray:
-    active = [h for n, h in zip(shape, spacing) if n > 1]
-    hmin = min(active) if active else 1.0
-    return np.array(
-        [2 if (n > 1 and h <= SEMI_COARSENING_RATIO * hmin) else 1 for n, h in zip(shape, spacing)],
-        dtype=np.int64,
-    )
+def coarsening_step(lv: Level, lines: bool) -> np.ndarray:
+    """Aggregate size per axis (1 or 2) for the next level, read from the operator.
+
+    An axis is coarsened unless it is weakly coupled (see WEAK_RATIO) in more than
+    WEAK_FRACTION of the cells: errors smooth along a strong axis but rough along a weak one
+    are what point smoothers leave, and only a grid that keeps the weak axis fine represents
+    them (semi-coarsening). With z-line smoothing strong z is solved by the lines, so x and y
+    are only compared with each other. Couplings are compared per cell, so a grid graded
+    along z that is anisotropic only near its fine end keeps z fine on every level.
+    """
+    shape = lv.shape
+    stride = max(1, int(round((lv.diag.size / SAMPLE_CELLS) ** (1.0 / 3.0))))
+    boost = lv.boost if lv.boost is not None else np.ones(3)
+    counts = multigrid.axis_weakness(lv.tx, lv.ty, lv.tz, lv.free, boost.astype(np.float64),
+                                     WEAK_RATIO, stride, lines)
+    total = max(int(counts[3]), 1)
+    step = np.array([2 if n > 1 and counts[a] <= WEAK_FRACTION * total else 1
+                     for a, n in enumerate(shape)], dtype=np.int64)
+    if not (step > 1).any():
+        # weak somewhere along every axis (strong heterogeneity rather than anisotropy):
+        # coarsen the axes that are weak least often rather than stop on a large level
+        least = min(counts[a] for a, n in enumerate(shape) if n > 1) if max(shape) > 1 else 0
+        step = np.array([2 if n > 1 and counts[a] == least else 1 for a, n in enumerate(shape)],
+                        dtype=np.int64)
+    return step
 
 
 class Hierarchy:
-    """The levels, from the finest face arrays down to a factorised coarsest level."""
+    """The levels, from the finest face arrays down to a factorised coarsest level.
 
-    def __init__(self, fine: Level, overcorrection: float = 1.8, cycle: str = "W",
-                 smoothing: int = 2) -> None:
-        self.levels = [fine]
-        self.overcorrection = overcorrection
+    ``transfer``: "linear" (cell-centred linear interpolation, its transpose as restriction,
+    and per-axis scaled aggregation Galerkin coarse operators) or "constant" (piecewise-
+    constant aggregation with plain Galerkin operators and an overcorrected coarse correction).
+    ``smoother``: "line" (zebra z-line Gauss-Seidel) or "point" (red-black Gauss-Seidel).
+    ``precision``: float type of the levels the preconditioner runs on; the caller's fine
+    operator is not touched (float32 keeps a float32 copy of it for smoothing).
+    ``coarsest_cells``: the level size that is factorised (default COARSEST_CELLS).
+    """
+
+    def __init__(self, fine: Level, overcorrection: float | None = None, cycle: str = "V",
+                 smoothing: int = 1, smoother: str = "line", transfer: str = "linear",
+                 precision: str = "float64", coarsest_cells: int | None = None) -> None:
+        if transfer not in ("linear", "constant", "scaled") or smoother not in ("line", "point"):
+            raise ValueError(f"unknown transfer {transfer!r} or smoother {smoother!r}")
+        self.dtype = np.dtype(precision)
+        self.transfer = transfer
+        self.lines = smoother == "line"
+        self.overcorrection = (overcorrection if overcorrection is not None
+                               else (1.8 if transfer == "constant" else 1.0))
         self.gamma = 2 if cycle == "W" else 1
         self.smoothing = smoothing
+        top = fine if fine.diag.dtype == self.dtype else fine.astype(self.dtype)
+        top.boost = np.ones(3)
+        self.levels = [top]
         while True:
             lv = self.levels[-1]
-            step = _coarsening_step(lv.shape, lv.spacing)
-            if int(np.prod(lv.shape)) <= COARSEST_CELLS or not (step > 1).any():
+            if int(np.prod(lv.shape)) <= (coarsest_cells or COARSEST_CELLS):
+                break
+            step = coarsening_step(lv, self.lines)
+            if not (step > 1).any():
                 break
             lv.step = step
             cshape = tuple(int((n + s - 1) // s) for n, s in zip(lv.shape, step))
-            arrays = [np.empty(cshape) for _ in range(4)]
+            arrays = [np.empty(cshape, dtype=self.dtype) for _ in range(4)]
             freec = np.empty(cshape, dtype=np.bool_)
-            stencil.galerkin(lv.tx, lv.ty, lv.tz, lv.diag, lv.free, step, *arrays, freec)
-            spacing = tuple(h * s for h, s in zip(lv.spacing, step))
-            coarse = Level(*arrays, freec, np.ones(3, dtype=np.int64), spacing)
-            coarse.r, coarse.e, coarse.b = (np.empty(cshape) for _ in range(3))
+            source = fine if len(self.levels) == 1 else lv  # build from float64 when we can
+            if transfer in ("linear", "scaled"):
+                multigrid.galerkin_scaled(source.tx, source.ty, source.tz, source.diag, lv.free,
+                                          step, *arrays, freec)
+                boost = lv.boost
+            else:
+                stencil.galerkin(source.tx, source.ty, source.tz, source.diag, lv.free, step,
+                                 *arrays, freec)
+                boost = lv.boost * step
+            coarse = Level(*arrays, freec, np.ones(3, dtype=np.int64), boost=boost)
+            coarse.r, coarse.e, coarse.b = (np.empty(cshape, dtype=self.dtype) for _ in range(3))
             self.levels.append(coarse)
-        if fine.r is None:
-            fine.r = np.empty(fine.shape)
-        self.coarsest = sla.splu(self.levels[-1].to_csr().tocsc())
+        if top.r is None:
+            top.r = np.empty(top.shape, dtype=self.dtype)
+        if top.e is None:
+            top.e = np.empty(top.shape, dtype=self.dtype)
+        if self.dtype != fine.diag.dtype:
+            top.b = np.empty(top.shape, dtype=self.dtype)
+        if self.lines:
+            for lv in self.levels[:-1]:
+                lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
+                multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
+        # minimum degree on A^T + A with symmetric pivoting suits an SPD 7-point matrix: at
+        # 16^3 it halved the factor's fill, factor time (110 to 53 ms) and solve time (2.8 to
+        # 1.3 ms) against the default column ordering
+        self.coarsest = sla.splu(self.levels[-1].to_csr().tocsc(), permc_spec="MMD_AT_PLUS_A",
+                                 options={"SymmetricMode": True})
+        self._out = np.empty(fine.shape)
 
     @property
     def shapes(self) -> list[tuple[int, int, int]]:
@@ -123,7 +208,25 @@ class Hierarchy:
     def _smooth(self, lv: Level, b: np.ndarray, u: np.ndarray, order: tuple[int, int]) -> None:
         for _ in range(self.smoothing):
             for colour in order:
-                stencil.gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.diag, b, u, colour)
+                if self.lines:
+                    multigrid.line_gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, colour)
+                else:
+                    stencil.gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.diag, b, u, colour)
+
+    def _restrict(self, lv: Level, r: np.ndarray, rc: np.ndarray) -> None:
+        if self.transfer == "linear":
+            multigrid.restrict_linear(r, lv.free, lv.step, rc)
+        else:
+            stencil.restrict(r, lv.free, lv.step, rc)
+
+    def _prolong_add(self, lv: Level, ec: np.ndarray, scale: float, u: np.ndarray) -> None:
+        if self.transfer == "linear":
+            multigrid.prolong_linear_add(ec, lv.free, lv.step, scale, u)
+        else:
+            stencil.prolong_add(ec, lv.free, lv.step, scale, u)
+
+    def _coarsest_solve(self, b: np.ndarray, u: np.ndarray) -> None:
+        u[...] = self.coarsest.solve(b.ravel().astype(np.float64)).reshape(u.shape)
 
     def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
         """Improve u for A_level u = b in place (u may start at zero)."""
@@ -137,27 +240,61 @@ class Hierarchy:
                 numba.set_num_threads(threads)
             return
         if level == len(self.levels) - 1:
-            u[...] = self.coarsest.solve(b.ravel()).reshape(lv.shape)
+            self._coarsest_solve(b, u)
             return
         coarse = self.levels[level + 1]
         self._smooth(lv, b, u, (0, 1))
         stencil.residual(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.r)
-        stencil.restrict(lv.r, lv.free, lv.step, coarse.b)
+        self._restrict(lv, lv.r, coarse.b)
         coarse.e[...] = 0.0
         # one coarse cycle (V) or two in a row (W); each is symmetric, so the pair is too
         for _ in range(self.gamma if level + 2 < len(self.levels) else 1):
             self.cycle(level + 1, coarse.b, coarse.e)
-        stencil.prolong_add(coarse.e, lv.free, lv.step, self.overcorrection, u)
+        self._prolong_add(lv, coarse.e, self.overcorrection, u)
         self._smooth(lv, b, u, (1, 0))
 
     def precondition(self, r: np.ndarray) -> np.ndarray:
-        """One cycle from zero for A z = r. The returned array is reused by the next call."""
-        fine = self.levels[0]
-        if fine.e is None:
-            fine.e = np.empty(fine.shape)
-        fine.e[...] = 0.0
-        self.cycle(0, r.reshape(fine.shape), fine.e)
-        return fine.e.ravel()
+        """One cycle from zero for A z = r (float64 in and out, whatever the levels' type).
+        The returned array is reused by the next call."""
+        top = self.levels[0]
+        b = r.reshape(top.shape)
+        if top.b is not None:
+            top.b[...] = b
+            b = top.b
+        top.e[...] = 0.0
+        self.cycle(0, b, top.e)
+        self._out[...] = top.e
+        return self._out.ravel()
+
+    def full_multigrid(self, b: np.ndarray, cycles: int = 1) -> np.ndarray:
+        """A start near discretisation accuracy: restrict b to every level, solve the coarsest,
+        then on each finer level interpolate (linear, cell-centred) and run ``cycles`` cycles.
+
+        Returns the finest level's u as a flat float64 array that the next call of
+        :meth:`precondition` overwrites (copy it to keep it). The finest level works in the
+        hierarchy's own arrays, so no full-grid array is allocated.
+        """
+        top = self.levels[0]
+        rhs = [b.reshape(top.shape)]
+        if top.b is not None:
+            top.b[...] = rhs[0]
+            rhs[0] = top.b
+        for lv, coarse in zip(self.levels[:-1], self.levels[1:]):
+            rc = np.empty(coarse.shape, dtype=self.dtype)
+            self._restrict(lv, rhs[-1], rc)
+            rhs.append(rc)
+        u = np.empty(self.levels[-1].shape, dtype=self.dtype)
+        self._coarsest_solve(rhs[-1], u)
+        for level in range(len(self.levels) - 2, -1, -1):
+            lv = self.levels[level]
+            fine_u = top.e if level == 0 else np.empty(lv.shape, dtype=self.dtype)
+            fine_u[...] = 0.0
+            multigrid.prolong_linear_add(u, lv.free, lv.step, self.overcorrection, fine_u)
+            for _ in range(cycles):
+                self.cycle(level, rhs[level], fine_u)
+            u = fine_u
+        self._out[...] = u
+        return self._out.ravel()
 
 
 class FineOperator:
@@ -189,18 +326,46 @@ def fine_level(problem) -> tuple[Level, np.ndarray]:
     return level, faces.b
 
 
+DEFAULTS = dict(cycle="W", smoothing=1, smoother="line", transfer="scaled", precision="float32",
+                start="fmg")
+
+
+def solve_levels(fine: Level, b: np.ndarray, rtol: float, max_iterations: int,
+                 monitor: Monitor | None = None, stagnation_window: int = 50,
+                 **options) -> tuple[SolveResult, Hierarchy]:
+    """gmg-CG on given face arrays (the finest level, float64) and right-hand side.
+
+    ``options``: Hierarchy's (cycle, smoothing, smoother, transfer, precision,
+    overcorrection) and ``start``: "fmg" (full multigrid start) or "zero".
+    """
+    opts = {**DEFAULTS, **options}
+    start = opts.pop("start")
+    t1 = time.perf_counter()
+    hierarchy = Hierarchy(fine, **opts)
+    setup = time.perf_counter() - t1
+    flat = b.ravel()
+    t2 = time.perf_counter()
+    x0 = hierarchy.full_multigrid(flat) if start == "fmg" else None
+    start_seconds = time.perf_counter() - t2
+    result = pcg(FineOperator(fine), flat, hierarchy.precondition, rtol, max_iterations,
+                 monitor, stagnation_window, "gmg", setup, x0=x0)
+    result.solve_seconds += start_seconds  # the full multigrid start is part of the solve
+    precision = "" if hierarchy.dtype == fine.diag.dtype else f", {hierarchy.dtype.name} preconditioner"
+    result.notes = ("levels " + " > ".join("x".join(map(str, s)) for s in hierarchy.shapes)
+                    + f"; {'W' if hierarchy.gamma == 2 else 'V'}-cycle, "
+                    + ("z-line" if hierarchy.lines else "point") + f" smoothing{precision}"
+                    + (", full multigrid start" if start == "fmg" else ""))
+    return result, hierarchy
+
+
 def solve_gmg(problem, rtol: float, max_iterations: int, monitor: Monitor | None = None,
-              stagnation_window: int = 50, overcorrection: float = 1.8, cycle: str = "W",
-              smoothing: int = 2) -> tuple[np.ndarray, SolveResult]:
+              stagnation_window: int = 50, **options) -> tuple[np.ndarray, SolveResult]:
     """CG preconditioned by the multigrid cycle; returns u on the full grid (0 on held cells)
     and the solve's record (face arrays built in ``assembly_seconds``, levels in ``setup``)."""
     t0 = time.perf_counter()
     fine, b = fine_level(problem)
     t1 = time.perf_counter()
-    hierarchy = Hierarchy(fine, overcorrection, cycle, smoothing)
-    setup = time.perf_counter() - t1
-    result = pcg(FineOperator(fine), b.ravel(), hierarchy.precondition, rtol, max_iterations,
-                 monitor, stagnation_window, "gmg", setup)
+    result, hierarchy = solve_levels(fine, b, rtol, max_iterations, monitor, stagnation_window,
+                                     **options)
     result.assembly_seconds = t1 - t0
-    result.notes = "levels " + " > ".join("x".join(map(str, s)) for s in hierarchy.shapes)
     return result.x.reshape(fine.shape), result

@@ -1,0 +1,289 @@
+"""Multigrid kernels on face arrays: z-line relaxation, coarse operators, linear transfers.
+
+Same level format as :mod:`sevenfold.kernels.stencil`: ``tx[i, j, k]`` couples cell (i, j, k)
+with (i+1, j, k) (zero on the last plane and to held cells), likewise ``ty`` and ``tz``, and
+(A u)_P = diag_P u_P - sum_N t_PN u_N. Every kernel is generic in the float type, so the
+preconditioner's levels may be float32 while the caller's operator stays float64.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit, prange
+
+
+@njit(cache=True, parallel=True)
+def line_factor(tz, diag, inv_w):
+    """Pivots of the tridiagonal z-line systems (Thomas algorithm, common practice).
+
+    Along each column the line matrix has diag on the diagonal and -tz off it; ``inv_w`` gets
+    1 / w_k with w_0 = diag_0 and w_k = diag_k - tz_{k-1}^2 / w_{k-1}. The line matrices are
+    symmetric and diagonally dominant, so no pivot vanishes.
+    """
+    nx, ny, nz = diag.shape
+    for i in prange(nx):
+        for j in range(ny):
+            w = diag[i, j, 0]
+            inv_w[i, j, 0] = 1.0 / w
+            for m in range(1, nz):
+                t = tz[i, j, m - 1]
+                w = diag[i, j, m] - t * t / w
+                inv_w[i, j, m] = 1.0 / w
+
+
+@njit(cache=True, parallel=True)
+def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
+    """Exact solves along every z column (i, j) with (i + j) % 2 == colour, x and y
+    neighbours taken from the current u (zebra line Gauss-Seidel; the columns of one colour
+    are independent). Unit stride along each column; two columns (j and j + 2) advance
+    together so that their Thomas recurrences overlap (measured 1.3 to 1.4 times faster than
+    one column at a time, and 1.5 times faster than all columns of a slab plane by plane)."""
+    nx, ny, nz = u.shape
+    for i in prange(nx):
+        im = max(i - 1, 0)
+        ip = min(i + 1, nx - 1)
+        wxm = 1.0 if i > 0 else 0.0
+        wxp = 1.0 if i < nx - 1 else 0.0
+        for j in range((i + colour) & 1, ny, 4):
+            j2 = j + 2
+            two = j2 < ny
+            jb = j2 if two else j  # the second column (a harmless repeat when there is none)
+            jm = max(j - 1, 0)
+            jp = min(j + 1, ny - 1)
+            wym = 1.0 if j > 0 else 0.0
+            wyp = 1.0 if j < ny - 1 else 0.0
+            jm2 = max(jb - 1, 0)
+            jp2 = min(jb + 1, ny - 1)
+            wym2 = 1.0 if jb > 0 else 0.0
+            wyp2 = 1.0 if jb < ny - 1 else 0.0
+            y = 0.0
+            y2 = 0.0
+            for m in range(nz):
+                rhs = (b[i, j, m] + wxm * tx[im, j, m] * u[im, j, m] + wxp * tx[i, j, m] * u[ip, j, m]
+                       + wym * ty[i, jm, m] * u[i, jm, m] + wyp * ty[i, j, m] * u[i, jp, m])
+                rhs2 = (b[i, jb, m] + wxm * tx[im, jb, m] * u[im, jb, m]
+                        + wxp * tx[i, jb, m] * u[ip, jb, m]
+                        + wym2 * ty[i, jm2, m] * u[i, jm2, m] + wyp2 * ty[i, jb, m] * u[i, jp2, m])
+                if m > 0:
+                    rhs += tz[i, j, m - 1] * y
+                    rhs2 += tz[i, jb, m - 1] * y2
+                y = rhs * inv_w[i, j, m]
+                y2 = rhs2 * inv_w[i, jb, m]
+                u[i, j, m] = y
+                if two:
+                    u[i, jb, m] = y2
+            for m in range(nz - 2, -1, -1):
+                u[i, j, m] += tz[i, j, m] * inv_w[i, j, m] * u[i, j, m + 1]
+                if two:
+                    u[i, jb, m] += tz[i, jb, m] * inv_w[i, jb, m] * u[i, jb, m + 1]
+
+
+@njit(cache=True, parallel=True)
+def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
+    """Count, over every ``stride``-th free cell per axis, the cells where an axis is weak.
+
+    A cell's coupling along an axis is the larger of its two faces on that axis, divided by
+    ``scale[axis]`` (the aggregate size in that axis so far: Galerkin aggregation sums that
+    many fine faces, so this keeps coarse levels comparable with a rediscretisation). x is
+    weak where ``ratio`` times its coupling is below the strongest other axis's; with
+    ``lines`` (z-line smoothing solves strong z) x and y are compared only with each other.
+    Returns (weak x, weak y, weak z, cells counted).
+    """
+    nx, ny, nz = free.shape
+    counts = np.zeros((nx, 4), dtype=np.int64)
+    for i in prange(nx):
+        if i % stride != 0:
+            continue
+        for j in range(0, ny, stride):
+            for m in range(0, nz, stride):
+                if not free[i, j, m]:
+                    continue
+                cx = tx[i, j, m]
+                if i > 0:
+                    cx = max(cx, tx[i - 1, j, m])
+                cy = ty[i, j, m]
+                if j > 0:
+                    cy = max(cy, ty[i, j - 1, m])
+                cz = tz[i, j, m]
+                if m > 0:
+                    cz = max(cz, tz[i, j, m - 1])
+                cx /= scale[0]
+                cy /= scale[1]
+                cz /= scale[2]
+                if cx + cy + cz <= 0.0:
+                    continue
+                counts[i, 3] += 1
+                ox = cy if ny > 1 else 0.0
+                oy = cx if nx > 1 else 0.0
+                if not lines and nz > 1:
+                    ox = max(ox, cz)
+                    oy = max(oy, cz)
+                if ratio * cx < ox:
+                    counts[i, 0] += 1
+                if ratio * cy < oy:
+                    counts[i, 1] += 1
+                if ratio * cz < max(cx if nx > 1 else 0.0, cy if ny > 1 else 0.0):
+                    counts[i, 2] += 1
+    return counts.sum(axis=0)
+
+
+@njit(cache=True, parallel=True)
+def galerkin_scaled(tx, ty, tz, diag, free, step, txc, tyc, tzc, diagc, freec):
+    """Coarse face arrays from aggregates of ``step`` cells per axis, scaled per axis by 1/step.
+
+    The piecewise-constant Galerkin product P^T A P sums the fine couplings crossing between
+    two aggregates (so coefficient jumps reach the coarse levels as fluxes, not averages); it
+    is ``step`` times too strong along each coarsened axis compared with the same operator
+    rediscretised on the coarse cells. Dividing each axis's part by its step gives a coarse
+    operator consistent with linear interpolation (P_lin^T A P_lin on smooth errors) and with
+    full multigrid. A cell's diagonal excess (boundary faces, couplings to held cells) is
+    split equally over its faces that store no coupling, and scaled with their axis.
+    """
+    nx, ny, nz = diag.shape
+    sx, sy, sz = step[0], step[1], step[2]
+    fx, fy, fz = 1.0 / sx, 1.0 / sy, 1.0 / sz
+    ncx, ncy, ncz = diagc.shape
+    for I in prange(ncx):
+        for J in range(ncy):
+            for K in range(ncz):
+                i0, j0, k0 = I * sx, J * sy, K * sz
+                i1, j1, k1 = min(i0 + sx, nx), min(j0 + sy, ny), min(k0 + sz, nz)
+                d = 0.0
+                cxs = 0.0
+                cys = 0.0
+                czs = 0.0
+                nfree = 0
+                for i in range(i0, i1):
+                    for j in range(j0, j1):
+                        for m in range(k0, k1):
+                            if not free[i, j, m]:
+                                continue
+                            nfree += 1
+                            txm = tx[i - 1, j, m] if i > 0 else 0.0
+                            tym = ty[i, j - 1, m] if j > 0 else 0.0
+                            tzm = tz[i, j, m - 1] if m > 0 else 0.0
+                            txp = tx[i, j, m]
+                            typ = ty[i, j, m]
+                            tzp = tz[i, j, m]
+                            excess = diag[i, j, m] - (txm + txp + tym + typ + tzm + tzp)
+                            missing_x = (1 if txm == 0.0 else 0) + (1 if txp == 0.0 else 0)
+                            missing_y = (1 if tym == 0.0 else 0) + (1 if typ == 0.0 else 0)
+                            missing_z = (1 if tzm == 0.0 else 0) + (1 if tzp == 0.0 else 0)
+                            missing = missing_x + missing_y + missing_z
+                            if missing > 0:
+                                share = excess / missing
+                                d += share * (missing_x * fx + missing_y * fy + missing_z * fz)
+                            else:
+                                d += excess * (fx + fy + fz) / 3.0
+                            # faces leaving the aggregate add to its diagonal; plus faces are
+                            # also the coupling to the next aggregate
+                            if i == i0:
+                                d += fx * txm
+                            if i + 1 == i1:
+                                d += fx * txp
+                                cxs += txp
+                            if j == j0:
+                                d += fy * tym
+                            if j + 1 == j1:
+                                d += fy * typ
+                                cys += typ
+                            if m == k0:
+                                d += fz * tzm
+                            if m + 1 == k1:
+                                d += fz * tzp
+                                czs += tzp
+                freec[I, J, K] = nfree > 0
+                diagc[I, J, K] = d if nfree > 0 else 1.0
+                txc[I, J, K] = fx * cxs
+                tyc[I, J, K] = fy * cys
+                tzc[I, J, K] = fz * czs
+
+
+@njit(cache=True, inline="always")
+def _partner(i, s, nc):
+    """The second coarse cell in fine cell i's value along one axis (or -1), and weights.
+
+    Linear interpolation between cell centres for aggregates of 2: weights 3/4 (own) and 1/4
+    (the nearer neighbour); at the box's faces, linear extrapolation from the own and the
+    inner neighbour (5/4 and -1/4), which keeps the interpolation second order up to a wall.
+    """
+    own = i // s
+    if s == 1:
+        return own, 1.0, -1, 0.0
+    other = own - 1 if i % 2 == 0 else own + 1
+    if 0 <= other < nc:
+        return own, 0.75, other, 0.25
+    if nc == 1:
+        return own, 1.0, -1, 0.0
+    return own, 1.25, (own + 1 if other < 0 else own - 1), -0.25
+
+
+@njit(cache=True, inline="always")
+def _w1(i, c, s, nc):
+    """Weight of coarse cell c in the value at fine cell i along one axis."""
+    a, wa, b, wb = _partner(i, s, nc)
+    if c == a:
+        return wa
+    if c == b:
+        return wb
+    return 0.0
+
+
+@njit(cache=True, parallel=True)
+def prolong_linear_add(ec, free, step, scale, u):
+    """u += scale * P ec on free cells, P the tensor product of linear interpolation between
+    cell centres along each coarsened axis (see :func:`_partner`)."""
+    nx, ny, nz = u.shape
+    sx, sy, sz = step[0], step[1], step[2]
+    ncx, ncy, ncz = ec.shape
+    for i in prange(nx):
+        ia, wia, ib, wib = _partner(i, sx, ncx)
+        for j in range(ny):
+            ja, wja, jb, wjb = _partner(j, sy, ncy)
+            for m in range(nz):
+                if not free[i, j, m]:
+                    continue
+                ka, wka, kb, wkb = _partner(m, sz, ncz)
+                s = 0.0
+                for a in range(2):
+                    I = ia if a == 0 else ib
+                    wx = wia if a == 0 else wib
+                    if I < 0:
+                        continue
+                    for c in range(2):
+                        J = ja if c == 0 else jb
+                        wy = wja if c == 0 else wjb
+                        if J < 0:
+                            continue
+                        s += wx * wy * (wka * ec[I, J, ka] + (wkb * ec[I, J, kb] if kb >= 0 else 0.0))
+                u[i, j, m] += scale * s
+
+
+@njit(cache=True, parallel=True)
+def restrict_linear(r, free, step, rc):
+    """rc = P^T r for the linear interpolation of :func:`prolong_linear_add` (free cells only)."""
+    nx, ny, nz = r.shape
+    sx, sy, sz = step[0], step[1], step[2]
+    ncx, ncy, ncz = rc.shape
+    for I in prange(ncx):
+        ilo = max(I * sx - 2 * (sx - 1), 0)  # reaches the extrapolating cells at the faces
+        ihi = min(I * sx + sx + 2 * (sx - 1), nx)
+        for J in range(ncy):
+            jlo = max(J * sy - 2 * (sy - 1), 0)
+            jhi = min(J * sy + sy + 2 * (sy - 1), ny)
+            for K in range(ncz):
+                klo = max(K * sz - 2 * (sz - 1), 0)
+                khi = min(K * sz + sz + 2 * (sz - 1), nz)
+                s = 0.0
+                for i in range(ilo, ihi):
+                    wx = _w1(i, I, sx, ncx)
+                    if wx == 0.0:
+                        continue
+                    for j in range(jlo, jhi):
+                        wy = _w1(j, J, sy, ncy)
+                        if wy == 0.0:
+                            continue
+                        for m in range(klo, khi):
+                            if free[i, j, m]:
+                                s += wx * wy * _w1(m, K, sz, ncz) * r[i, j, m]
+                rc[I, J, K] = s
