@@ -73,7 +73,7 @@ def test_the_lease_drops_the_fields_during_the_solve_and_the_answer_is_unchanged
     from sevenfold.spec import load_job
 
     job = tmp_path / "job.toml"
-    text = JOB.format(method="gmg", n=12, region=LAYER)
+    text = JOB.format(method="gmg", n=20, region=LAYER)  # above gmg's 16^3 coarsest level: it iterates
     job.write_text(text.replace("[solver]", "[[hold]]\nbox = { min = [0.4, 0.4, 0.4], max = [0.6, 0.6, 0.6] }\n"
                                 "value = 3.0\n[solver]"))
     spec = load_job(job)
