@@ -9,24 +9,31 @@ array in the zarr group).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from .errors import JobError
+from .errors import JobError, writing
+from .physics import RENAMED
 from .spec import JobSpec
 
 
 @dataclass(frozen=True)
 class StoredResult:
-    """A result's group attributes, its job and its arrays on (x, y, z), lazily read."""
+    """A result's group attributes, its job and its arrays on (x, y, z), lazily read.
+
+    Arrays are named as this version names them: a result written under an older name
+    (``head``, now ``hydraulic_head``) is read through ``stored``, current name -> name in
+    the group, and ``attrs["solution"]`` holds the current name.
+    """
 
     path: Path
     attrs: dict[str, Any]
     spec: JobSpec
     group: Any  # zarr.Group
+    stored: dict[str, str] = field(default_factory=dict)
 
     @property
     def solution(self) -> str:
@@ -34,18 +41,22 @@ class StoredResult:
 
     def cell_fields(self) -> list[str]:
         """Names of the arrays on (x, y, z): the solution first, then derived fields."""
+        current = {v: k for k, v in self.stored.items()}
         names = []
         for name, arr in self.group.arrays():
             if tuple(arr.metadata.dimension_names or ()) == ("x", "y", "z"):
-                names.append(name)
+                names.append(current.get(name, name))
         names.sort(key=lambda n: (n != self.solution, n))
         return names
 
+    def _in_group(self, name: str) -> str:
+        return self.stored.get(RENAMED.get(name, name), name)
+
     def array(self, name: str) -> np.ndarray:
-        return np.asarray(self.group[name][...])
+        return np.asarray(self.group[self._in_group(name)][...])
 
     def units(self, name: str) -> str:
-        return str(self.group[name].attrs.get("units", ""))
+        return str(self.group[self._in_group(name)].attrs.get("units", ""))
 
 
 def open_result(path: str | Path) -> StoredResult:
@@ -63,7 +74,12 @@ def open_result(path: str | Path) -> StoredResult:
     if not attrs.get("complete") or "job" not in attrs:
         raise JobError("not a complete sevenfold result (no 'complete' or 'job' attribute)", source=str(path))
     spec = JobSpec.model_validate(_without_none(attrs["job"]))
-    return StoredResult(path, attrs, spec, group)
+    stored = {}
+    old = attrs.get("solution")
+    if old in RENAMED:  # written before the solution's rename; read under the current name
+        attrs["solution"] = RENAMED[old]
+        stored[RENAMED[old]] = old
+    return StoredResult(path, attrs, spec, group, stored)
 
 
 def _without_none(value: Any) -> Any:
@@ -83,7 +99,7 @@ def write_vti(result: StoredResult, target: str | Path, fields: list[str] | None
     if target.suffix != ".vti":
         raise JobError("the VTK image file must end in .vti", source=str(target))
     available = result.cell_fields()
-    names = fields or available
+    names = [RENAMED.get(n, n) for n in fields] if fields else available
     unknown = [n for n in names if n not in available]
     if unknown:
         raise JobError(f"no cell field {unknown[0]!r} in the result; it has {', '.join(available)}",
@@ -91,6 +107,7 @@ def write_vti(result: StoredResult, target: str | Path, fields: list[str] | None
     spacing = tuple(float(h) for h in result.spec.grid.cell_spacing)
     origin = tuple(float(o) for o in result.spec.grid.origin)
     data = {n: np.ascontiguousarray(result.array(n), dtype=np.float64) for n in names}
-    target.parent.mkdir(parents=True, exist_ok=True)
-    written = imageToVTK(str(target.with_suffix("")), origin=origin, spacing=spacing, cellData=data)
+    with writing(target, "the VTK file"):
+        target.parent.mkdir(parents=True, exist_ok=True)
+        written = imageToVTK(str(target.with_suffix("")), origin=origin, spacing=spacing, cellData=data)
     return Path(written)

@@ -13,6 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .errors import writing
 from .export import StoredResult, open_result
 
 DPI = 100
@@ -133,11 +134,12 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
     result = open_result(result_path)
     path = result.path.resolve()
     folder = Path(folder) if folder is not None else path.with_name(path.stem + ".report")
-    folder.mkdir(parents=True, exist_ok=True)
-    figures = [("residual history", residual_figure(result, folder / "residuals.png")),
-               ("mid-plane slices", slice_figure(result, folder / "slices.png"))]
-    if line_probes(result):
-        figures.append(("probe lines", probe_figure(result, folder / "probes.png")))
+    with writing(folder, "the report folder"):
+        folder.mkdir(parents=True, exist_ok=True)
+        figures = [("residual history", residual_figure(result, folder / "residuals.png")),
+                   ("mid-plane slices", slice_figure(result, folder / "slices.png"))]
+        if line_probes(result):
+            figures.append(("probe lines", probe_figure(result, folder / "probes.png")))
 
     attrs = result.attrs
     spec = result.spec
@@ -179,5 +181,6 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
         "</style></head><body>\n" + "\n".join(sections) + "\n</body></html>\n"
     )
     index = folder / "index.html"
-    index.write_text(page, encoding="utf-8")
+    with writing(index, "the report page"):
+        index.write_text(page, encoding="utf-8")
     return index

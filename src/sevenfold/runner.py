@@ -15,7 +15,7 @@ import numpy as np
 
 from .balance import Balance, compute_balance
 from .derived import derived_fields
-from .errors import JobError, SolverError
+from .errors import JobError, SolverError, writing
 from .grid import Grid
 from .inputs import load_array
 from .memory import available_bytes, estimate_bytes, human
@@ -204,6 +204,8 @@ def run_job(
     plan, problem = prepare_problem(plan)
     t_build = time.perf_counter()
 
+    with writing(plan.output, "the result"):  # an unusable folder fails before the solve
+        plan.output.parent.mkdir(parents=True, exist_ok=True)
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
     try:

@@ -25,7 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import JobError
+from .errors import JobError, writing
 from .gci import GCIResult, gci_three_grids
 from .runner import JobResult, output_path, run_job
 from .spec import JobSpec, load_job
@@ -148,7 +148,8 @@ def run_study(job_file: str | Path, levels: int = 3, ratio: float = 2.0,
         out = output_path(spec, job_file)
         folder = out.with_name(out.stem + ".converge")
     folder = Path(folder).resolve()
-    folder.mkdir(parents=True, exist_ok=True)
+    with writing(folder, "the study folder"):
+        folder.mkdir(parents=True, exist_ok=True)
     done: list[Level] = []
     for lv, (cells, h, ratios) in enumerate(plans):
         if progress is not None:
@@ -166,7 +167,8 @@ def run_study(job_file: str | Path, levels: int = 3, ratio: float = 2.0,
         if key.startswith("outflow_") and all(v == 0.0 for v in trio):
             continue  # an insulated face: nothing to converge
         study.results[key] = gci_three_grids(trio[0], trio[1], trio[2], mid.h / fine.h, coarse.h / mid.h)
-    (folder / "study.json").write_text(json.dumps(study.to_dict(), indent=2, default=float))
+    with writing(folder / "study.json", "the study"):
+        (folder / "study.json").write_text(json.dumps(study.to_dict(), indent=2, default=float))
     return study
 
 
@@ -202,6 +204,9 @@ def plot_study(study: Study, target: str | Path) -> Path:
     if plotted:
         ax.legend(fontsize=7)
     fig.tight_layout()
-    fig.savefig(target)
-    plt.close(fig)
+    try:
+        with writing(target, "the figure"):
+            fig.savefig(target)
+    finally:
+        plt.close(fig)
     return target

@@ -24,7 +24,7 @@ import traceback
 from pathlib import Path
 from typing import Any, TextIO
 
-from ..errors import Cancelled, JobError, SevenfoldError, SolverError
+from ..errors import Cancelled, JobError, OutputError, SevenfoldError, SolverError
 from .files import append_run
 from .home import Home
 
@@ -153,6 +153,8 @@ def run_recorded(job_file: Path, output: Path, monitor: Any, record: dict[str, A
         append_run(output, {"event": "done", **record, "time": time.time()})
     except Cancelled as exc:
         return {"status": "cancelled", "error": str(exc)}
+    except OutputError as exc:  # the same line `sevenfold run` prints
+        return {"status": "failed", "kind": "os", "error": str(exc)}
     except JobError as exc:
         return {"status": "failed", "kind": "input", "error": str(exc)}
     except SolverError as exc:

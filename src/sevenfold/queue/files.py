@@ -24,13 +24,16 @@ def runs_path(output: Path) -> Path:
 
 
 def append_run(output: Path, record: dict[str, Any]) -> None:
-    """Append one line to the output's run record and flush it to disk."""
+    """Append one line to the output's run record and flush it to disk (OutputError if not)."""
+    from ..errors import writing
+
     path = runs_path(output)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    with open(path, "a", encoding="utf-8") as fh:
-        fh.write(json.dumps(record) + "\n")
-        fh.flush()
-        os.fsync(fh.fileno())
+    with writing(path, "the run record"):
+        path.parent.mkdir(parents=True, exist_ok=True)
+        with open(path, "a", encoding="utf-8") as fh:
+            fh.write(json.dumps(record) + "\n")
+            fh.flush()
+            os.fsync(fh.fileno())
 
 
 def read_runs(output: Path) -> list[dict[str, Any]]:
