@@ -55,10 +55,12 @@ class Home:
         return self.job_dir(job_id) / "cancel"
 
 
-def locate(home: str | Path | None = None) -> Home:
+def locate(home: str | Path | None = None, create: bool = True) -> Home:
     """The queue home: ``home``, else ``$SEVENFOLD_HOME``, else the user data directory.
 
-    The folder is created when missing; an unusable one raises :class:`QueueError`.
+    The folder is created when missing; an unusable one raises :class:`QueueError`. With
+    ``create=False`` a home that holds no queue (no ``queue.db``) raises QueueError instead
+    and nothing is created.
     """
     if home is not None and str(home).strip():
         root = Path(home).expanduser()
@@ -69,6 +71,9 @@ def locate(home: str | Path | None = None) -> Home:
 
         root = user_data_path("sevenfold")
     root = root.resolve()
+    if not create and not (root / "queue.db").is_file():
+        raise QueueError(f"there is no queue in {str(root)!r}; `sevenfold submit` starts one there, "
+                         f"or point --home (or ${HOME_ENV}) at the queue you mean")
     try:
         root.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
