@@ -51,11 +51,21 @@ class OutputError(JobError):
         reason = getattr(os_exc, "strerror", None) or str(os_exc) or type(os_exc).__name__
         failed = getattr(os_exc, "filename", None)
         detail = ""
-        if isinstance(os_exc, FileExistsError) and failed and not Path(str(failed)).is_dir():
-            reason = f"{failed} is a file, not a folder"  # what mkdir's "File exists" means here
+        blocker = _file_in_the_way(Path(str(failed or path))) if isinstance(
+            os_exc, (FileExistsError, NotADirectoryError)) else None
+        if blocker is not None:  # what mkdir's "File exists" or "Not a directory" means here
+            reason = f"{blocker} is a file, not a folder"
         elif failed and not _inside(Path(str(failed)), Path(str(path))):
             detail = f" (at {failed})"
         return cls(f"cannot write {what + ' ' if what else ''}{path}: {reason}{detail}")
+
+
+def _file_in_the_way(path: Path) -> Path | None:
+    """The first of ``path`` and its parents that exists and is not a folder."""
+    for p in (path, *path.parents):
+        if p.exists():
+            return None if p.is_dir() else p
+    return None
 
 
 def _inside(failed: Path, path: Path) -> bool:
