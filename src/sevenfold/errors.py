@@ -51,7 +51,7 @@ class OutputError(JobError):
         reason = getattr(os_exc, "strerror", None) or str(os_exc) or type(os_exc).__name__
         failed = getattr(os_exc, "filename", None)
         detail = ""
-        blocker = _file_in_the_way(Path(str(failed or path))) if isinstance(
+        blocker = file_in_the_way(Path(str(failed or path))) if isinstance(
             os_exc, (FileExistsError, NotADirectoryError)) else None
         if blocker is not None:  # what mkdir's "File exists" or "Not a directory" means here
             reason = f"{blocker} is a file, not a folder"
@@ -60,7 +60,7 @@ class OutputError(JobError):
         return cls(f"cannot write {what + ' ' if what else ''}{path}: {reason}{detail}")
 
 
-def _file_in_the_way(path: Path) -> Path | None:
+def file_in_the_way(path: Path) -> Path | None:
     """The first of ``path`` and its parents that exists and is not a folder."""
     for p in (path, *path.parents):
         if p.exists():

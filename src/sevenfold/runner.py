@@ -15,7 +15,7 @@ import numpy as np
 
 from .balance import Balance, compute_balance
 from .derived import derived_fields
-from .errors import JobError, SolverError, writing
+from .errors import JobError, SolverError, file_in_the_way, writing
 from .grid import Grid
 from .inputs import load_array
 from .memory import available_bytes, estimate_bytes, human
@@ -119,6 +119,10 @@ def plan_job(job_file: str | Path, output: str | Path | None = None, spec: JobSp
         out = output_path(spec, job_file, output)
     except JobError as exc:
         raise exc.located(str(job_file)) from None
+    blocker = file_in_the_way(out.parent)
+    if blocker is not None:  # known before anything runs; other write errors surface at the write
+        raise JobError(f"{str(out)!r} cannot be written: {blocker} is a file, not a folder",
+                       "output.path" if output is None else "--output", str(job_file))
     return Plan(
         spec, job_file, out, cells, method,
         estimate_bytes(cells, cells, method, derived_arrays(spec)), available_bytes()
