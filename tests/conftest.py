@@ -70,23 +70,42 @@ def np_eval(value: float | str, x, y, z) -> np.ndarray:
     return np.full(shape, float(value))
 
 
-def grid_of(table: dict[str, Any]):
-    """(cells, spacing, origin) of a table's grid, read independently."""
+def edges_of(table: dict[str, Any]) -> list[np.ndarray]:
+    """Cell edges per axis of a table's grid, read independently: uniform axes from cells and
+    size (or spacing) and origin, graded axes from explicit edge lists in ``grid.edges``."""
     g = table["grid"]
-    cells = tuple(g["cells"])
-    if "spacing" in g:
-        spacing = tuple(float(s) for s in g["spacing"])
-    else:
-        spacing = tuple(float(s) / n for s, n in zip(g["size"], cells))
-    origin = tuple(float(o) for o in g.get("origin", (0.0, 0.0, 0.0)))
+    graded = g.get("edges", {})
+    out = []
+    for a, name in enumerate("xyz"):
+        if name in graded:
+            out.append(np.asarray(graded[name], dtype=float))
+            continue
+        n = g["cells"][a]
+        h = float(g["spacing"][a]) if "spacing" in g else float(g["size"][a]) / n
+        o = float(g.get("origin", (0.0, 0.0, 0.0))[a])
+        out.append(o + h * np.arange(n + 1))
+    return out
+
+
+def grid_of(table: dict[str, Any]):
+    """(cells, spacing, origin) of a table's uniform grid, read independently."""
+    edges = edges_of(table)
+    cells = tuple(e.size - 1 for e in edges)
+    spacing = tuple(float(e[1] - e[0]) for e in edges)
+    origin = tuple(float(e[0]) for e in edges)
     return cells, spacing, origin
 
 
 def centres(table: dict[str, Any]):
-    """Cell-centre coordinates as three full (nx, ny, nz) arrays: origin + (i + 1/2) h."""
-    cells, spacing, origin = grid_of(table)
-    axes = [o + (np.arange(n) + 0.5) * h for n, h, o in zip(cells, spacing, origin)]
+    """Cell-centre coordinates as three full (nx, ny, nz) arrays: midpoints of the edges."""
+    axes = [0.5 * (e[1:] + e[:-1]) for e in edges_of(table)]
     return np.meshgrid(*axes, indexing="ij")
+
+
+def volumes(table: dict[str, Any]) -> np.ndarray:
+    """Cell volumes as an (nx, ny, nz) array."""
+    w = [np.diff(e) for e in edges_of(table)]
+    return w[0][:, None, None] * w[1][None, :, None] * w[2][None, None, :]
 
 
 def _in_box(box, x, y, z):
@@ -97,16 +116,23 @@ def _in_box(box, x, y, z):
 def reference_fields(table: dict[str, Any]):
     """k, f, held mask and held values on the cells, for values and box regions only."""
     x, y, z = centres(table)
-    k = np_eval(table["material"]["value"], x, y, z)
-    for region in table["material"].get("region", ()):
-        m = _in_box(region["box"], x, y, z)
-        k[m] = np_eval(region["value"], x, y, z)[m]
-    cell_volume = np.prod(grid_of(table)[1])
+
+    def component(value, a):
+        return value[a] if isinstance(value, (list, tuple)) else value
+
+    k = []
+    for a in range(3):  # the directional components (the same values thrice when isotropic)
+        ka = np_eval(component(table["material"]["value"], a), x, y, z)
+        for region in table["material"].get("region", ()):
+            m = _in_box(region["box"], x, y, z)
+            ka[m] = np_eval(component(region["value"], a), x, y, z)[m]
+        k.append(ka)
+    vol = volumes(table)
     f = np_eval(table.get("source", {}).get("value", 0.0), x, y, z)
     for region in table.get("source", {}).get("region", ()):
         m = _in_box(region["box"], x, y, z)
-        if "total" in region:  # spread evenly over the region's cells
-            f[m] = region["total"] / (np.count_nonzero(m) * cell_volume)
+        if "total" in region:  # spread evenly per unit volume over the region's cells
+            f[m] = region["total"] / vol[m].sum()
         else:
             f[m] = np_eval(region["value"], x, y, z)[m]
     held = np.zeros(x.shape, dtype=bool)
@@ -121,12 +147,16 @@ def reference_fields(table: dict[str, Any]):
 def reference_system(table: dict[str, Any]):
     """The full operator on every cell (holds not yet removed) and its right-hand side.
 
-    Per unit cell volume, row P: sum_N T_PN (u_P - u_N) + D_P u_P = f_P + B_P with
-    T_PN = 2 k_P k_N / (k_P + k_N) / h^2; a Dirichlet face adds G/h and G g/h with
-    G = 2 k_P / h; a Robin face the same with G = 1 / (1/c + h / (2 k_P)); a Neumann face
-    adds q/h to the right-hand side. Returns (A as CSR, b, held, held_value).
+    Row P is the balance of cell P (amount per time): sum_N T_PN (u_P - u_N) + D_P u_P =
+    f_P V_P + B_P with T_PN = A / (h_P / (2 k_P) + h_N / (2 k_N)) (A the shared face's area,
+    h each cell's width and k its coefficient along the axis); a Dirichlet face adds G A and
+    G g A with G = 2 k_P / h_P; a Robin face the same with G = 1 / (1/c + h_P / (2 k_P)); a
+    Neumann face adds q A to the right-hand side. Returns (A as CSR, b, held, held_value).
     """
-    cells, spacing, origin = grid_of(table)
+    edges = edges_of(table)
+    cells = tuple(e.size - 1 for e in edges)
+    widths = [np.diff(e) for e in edges]
+    mids = [0.5 * (e[1:] + e[:-1]) for e in edges]
     nx, ny, nz = cells
     k, f, held, held_value = reference_fields(table)
     boundary = table.get("boundary", {})
@@ -141,37 +171,41 @@ def reference_system(table: dict[str, Any]):
         for j in range(ny):
             for kk in range(nz):
                 p = index(i, j, kk)
-                kp = k[i, j, kk]
-                b[p] += f[i, j, kk]
-                centre = [origin[a] + (c + 0.5) * spacing[a] for a, c in enumerate((i, j, kk))]
+                cell = (i, j, kk)
+                w = [widths[a][cell[a]] for a in range(3)]
+                b[p] += f[cell] * w[0] * w[1] * w[2]
+                centre = [mids[a][cell[a]] for a in range(3)]
                 for axis in range(3):
-                    h = spacing[axis]
+                    kp = k[axis][cell]
+                    h = w[axis]
+                    area = math.prod(w[a] for a in range(3) if a != axis)
                     for step, face in ((-1, FACES[2 * axis]), (1, FACES[2 * axis + 1])):
                         nb = [i, j, kk]
                         nb[axis] += step
                         if 0 <= nb[axis] < cells[axis]:
-                            kn = k[tuple(nb)]
-                            t = 2.0 * kp * kn / (kp + kn) / h**2
+                            kn = k[axis][tuple(nb)]
+                            hn = widths[axis][nb[axis]]
+                            t = area / (h / (2.0 * kp) + hn / (2.0 * kn))
                             rows += [p, p]
                             cols += [p, index(*nb)]
                             vals += [t, -t]
                             continue
-                        # boundary face: its centre is the cell centre moved half a cell
+                        # boundary face: on the box face, at the cell centre's other coordinates
                         fc = list(centre)
-                        fc[axis] = origin[axis] + (0.0 if step < 0 else cells[axis] * h)
+                        fc[axis] = edges[axis][0 if step < 0 else -1]
                         cond = boundary.get(face, {"type": "neumann", "flux": 0.0})
                         at = lambda v: float(np_eval(v, *fc))  # noqa: E731
                         if cond["type"] == "dirichlet":
                             g = 2.0 * kp / h
-                            rows.append(p), cols.append(p), vals.append(g / h)
-                            b[p] += g * at(cond["value"]) / h
+                            rows.append(p), cols.append(p), vals.append(g * area)
+                            b[p] += g * at(cond["value"]) * area
                         elif cond["type"] == "robin":
                             c = at(cond["coefficient"])
                             g = 1.0 / (1.0 / c + h / (2.0 * kp))
-                            rows.append(p), cols.append(p), vals.append(g / h)
-                            b[p] += g * at(cond["reference"]) / h
+                            rows.append(p), cols.append(p), vals.append(g * area)
+                            b[p] += g * at(cond["reference"]) * area
                         else:
-                            b[p] += at(cond.get("flux", 0.0)) / h
+                            b[p] += at(cond.get("flux", 0.0)) * area
     A = sp.coo_matrix((vals, (rows, cols)), shape=(size, size)).tocsr()
     return A, b, held, held_value
 

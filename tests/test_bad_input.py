@@ -37,6 +37,7 @@ def corpus(tmp_path: Path) -> Path:
     bad = np.ones((4, 4, 4))
     bad[1, 2, 3] = np.nan
     np.save(tmp_path / "k_nan.npy", bad)
+    np.save(tmp_path / "edges_decreasing.npy", np.array([0.0, 0.5, 0.1, 1.0]))
     return tmp_path
 
 

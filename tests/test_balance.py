@@ -96,14 +96,14 @@ def test_balance_closes_for_every_physics(tmp_path: Path, physics: str) -> None:
 
 
 def test_imbalance_is_the_volume_sum_of_the_residual() -> None:
-    """With a loose solve, the imbalance equals V * sum(b - A x): the balance uses the operator's fluxes."""
+    """With a loose solve, the imbalance equals sum(b - A x) (rows are cell balances): the balance uses the operator's fluxes."""
     spec = make_spec(physics="heat", **GEOMETRY)
     problem = build_problem(spec)
     system = assemble(problem)
     result = solve_amg(system.matrix, system.rhs, rtol=1e-3, max_iterations=100)
     u = scatter(system, problem, result.x)
     bal = compute_balance(problem, u)
-    residual_sum = float((system.rhs - system.matrix @ result.x).sum()) * problem.grid.cell_volume
+    residual_sum = float((system.rhs - system.matrix @ result.x).sum())  # rows are cell balances
     assert abs(bal.imbalance) > 1e-8 * bal.scale  # loose enough to see
     assert bal.imbalance == pytest.approx(residual_sum, rel=1e-9, abs=1e-12 * bal.scale)
 
@@ -149,7 +149,7 @@ def test_well_takes_all_recharge() -> None:
     )
     u, problem = solve_spec(spec)
     bal = compute_balance(problem, u, "m^3/s")
-    free_volume = np.count_nonzero(problem.hold_index < 0) * problem.grid.cell_volume
+    free_volume = problem.grid.volume(problem.hold_index < 0)
     expected = recharge * 120.0 * 120.0 + sources * free_volume
     well = bal.holds[0]
     assert well.inflow == pytest.approx(expected, rel=1e-10)
@@ -166,7 +166,7 @@ def test_held_cells_source_is_not_counted() -> None:
     u, problem = solve_spec(spec)
     bal = compute_balance(problem, u)
     free = problem.hold_index < 0
-    assert bal.source == pytest.approx(10.0 * np.count_nonzero(free) * problem.grid.cell_volume, rel=1e-14)
+    assert bal.source == pytest.approx(10.0 * np.count_nonzero(free) * np.prod(problem.grid.extent) / problem.grid.size, rel=1e-14)
     assert np.count_nonzero(~free) > 0
     assert bal.relative_imbalance <= 1e-12
 

@@ -114,7 +114,7 @@ def test_electrode_charge_by_gauss_law() -> None:
     assert set(np.unique(index)) == {-1, 0}  # encloses hv and no other electrode
     assert np.all(problem.hold_index[i0, j0:j1, k0:k1] == -1) and np.all(problem.hold_index[i1 - 1, j0:j1, k0:k1] == -1)
     Fx, Fy, Fz = (face_flux(problem, u, a) for a in range(3))
-    ax, ay, az = (grid.face_area(a) for a in range(3))
+    ax, ay, az = (float(grid.face_areas(a)[0, 0]) for a in range(3))  # a uniform grid
     outward = (
         (Fx[i1, j0:j1, k0:k1].sum() - Fx[i0, j0:j1, k0:k1].sum()) * ax
         + (Fy[i0:i1, j1, k0:k1].sum() - Fy[i0:i1, j0, k0:k1].sum()) * ay

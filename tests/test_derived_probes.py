@@ -184,9 +184,9 @@ def test_result_opens_in_xarray_with_fields_probes_and_units(tmp_path: Path) -> 
     # probes: as interpolated from the stored solution, in the dataset and in the CSV
     u = ds.temperature.values
     grid = result.plan.spec.grid
-    from sevenfold.grid import Grid
+    from sevenfold.grid import grid_from_spec
 
-    g = Grid.from_spec(grid)
+    g = grid_from_spec(grid)
     line = ds.probe_centreline
     assert line.dims == ("probe_centreline_distance",) and line.attrs["units"] == "K"
     np.testing.assert_allclose(line.probe_centreline_distance.values, np.linspace(0.0, 0.6, 13), atol=1e-15)

@@ -73,7 +73,7 @@ def test_layers_between_two_temperatures():
         {"x_min": {"type": "dirichlet", "value": T_HOT}, "x_max": {"type": "dirichlet", "value": T_COLD}}
     )
     u, problem = solve_spec(make_spec(**table))
-    k = problem.coefficient
+    k = problem.coefficient[0]
     resistance = sum(L / kk for L, kk in LAYERS)  # per unit area, Incropera 3.1
     q = (T_HOT - T_COLD) / resistance
     assert np.unique(k).size == 3  # the layers are really there
@@ -107,7 +107,7 @@ def test_layers_with_convection(both_sides):
         boundary["x_min"] = {"type": "dirichlet", "value": T_HOT}
     table = wall_table(boundary)
     u, problem = solve_spec(make_spec(**table))
-    k = problem.coefficient
+    k = problem.coefficient[0]
 
     resistance = sum(L / kk for L, kk in LAYERS) + 1 / h_cold + (1 / h_hot if both_sides else 0.0)
     q = (T_HOT - T_air) / resistance  # Incropera 3.1, resistances in series

@@ -22,6 +22,11 @@ def assembled(table):
     return assemble(problem), problem
 
 
+def per_volume(system, volume: float):
+    """The rows divided by the (uniform) cell volume: the textbook per-unit-volume form."""
+    return system.matrix / volume, system.rhs / volume
+
+
 def assert_same(A, A_ref, b, b_ref):
     A, A_ref = sp.csr_matrix(A), sp.csr_matrix(A_ref)
     assert A.shape == A_ref.shape
@@ -110,7 +115,8 @@ def test_constant_coefficient_equals_kronecker_sum(boundary):
         first[a], last[a] = 0, -1
         b_ref[tuple(first)] += driving(lo, k, h[a]) / h[a]
         b_ref[tuple(last)] += driving(hi, k, h[a]) / h[a]
-    assert_same(system.matrix, A_ref, system.rhs, b_ref.ravel())
+    A, b = per_volume(system, np.prod(h))
+    assert_same(A, A_ref, b, b_ref.ravel())
 
 
 # Expressions are not symmetric in x, y, z and face data depend on the normal coordinate too,
@@ -173,9 +179,9 @@ def test_region_changes_the_coefficient():
         },
     )
     k, *_ = reference_fields(table)
-    assert 0 < np.count_nonzero(k == 40.0) < k.size
+    assert 0 < np.count_nonzero(k[0] == 40.0) < k[0].size
     problem = build_problem(parse_job(table, "test"))
-    assert np.allclose(problem.coefficient, k, rtol=1e-14)
+    assert all(np.allclose(problem.coefficient[a], k[a], rtol=1e-14) for a in range(3))
 
 
 SPD_CASES = {
@@ -259,15 +265,16 @@ def test_held_values_move_to_rhs():
     s1, problem = assembled(make_table(**base, hold=[{"box": box, "value": 3.0}]))
     assert np.count_nonzero(problem.held) == 1 and problem.held[1, 1, 1]
     assert abs(s0.matrix - s1.matrix).max() == 0.0
-    k = problem.coefficient
+    k = problem.coefficient[0]
     h = [s / c for s, c in zip(SIZE, CELLS)]
+    volume = np.prod(h)
     expected = np.zeros(s0.rhs.shape)
     for axis in range(3):
         for step in (-1, 1):
             nb = [1, 1, 1]
             nb[axis] += step
             kn, kp = k[tuple(nb)], k[1, 1, 1]
-            expected[s0.row[tuple(nb)]] = 2 * kp * kn / (kp + kn) / h[axis] ** 2 * 3.0
+            expected[s0.row[tuple(nb)]] = 2 * kp * kn / (kp + kn) / h[axis] ** 2 * 3.0 * volume
     assert np.allclose(s1.rhs - s0.rhs, expected, rtol=1e-13, atol=0)
 
 
@@ -300,13 +307,14 @@ def test_thin_box_is_1d_second_difference():
         boundary={"x_min": D(1.0), "x_max": D(-2.0)},
     )
     system, _ = assembled(table)
+    matrix, rhs = per_volume(system, h * 0.2 * 0.3)
     ref = (np.diag(np.full(n, 2.0)) - np.diag(np.ones(n - 1), 1) - np.diag(np.ones(n - 1), -1))
     ref[0, 0] = ref[-1, -1] = 3.0
     ref /= h**2
-    assert np.allclose(system.matrix.toarray(), ref, rtol=1e-14, atol=0)
+    assert np.allclose(matrix.toarray(), ref, rtol=1e-14, atol=0)
     b_ref = np.zeros(n)
     b_ref[0], b_ref[-1] = 2 * 1.0 / h**2, 2 * -2.0 / h**2
-    assert np.allclose(system.rhs, b_ref, rtol=1e-14, atol=0)
+    assert np.allclose(rhs, b_ref, rtol=1e-14, atol=0)
 
 
 def test_thin_box_is_2d_second_difference():
@@ -321,6 +329,7 @@ def test_thin_box_is_2d_second_difference():
     Lx = second_difference(nx, hx, 2 / hx, 2 / hx)
     Ly = second_difference(ny, hy, 2 / hy, 2 / hy)
     A_ref = sp.kron(Lx, sp.identity(ny)) + sp.kron(sp.identity(nx), Ly)
-    assert_same(system.matrix, A_ref, system.rhs, np.zeros(nx * ny))
+    A, b = per_volume(system, hx * hy * 0.1)
+    assert_same(A, A_ref, b, np.zeros(nx * ny))
     # the ghost rows (3, -1)/h^2 on the first and last cell of each axis
     assert Lx[0, 0] == pytest.approx(3 / hx**2) and Lx[0, 1] == pytest.approx(-1 / hx**2)

@@ -58,7 +58,7 @@ def test_amg_agrees_with_direct(material, kind):
     """
     rtol = 1e-10
     spec, problem, system = heterogeneous_system(MATERIALS[material], amg=kind, rtol=rtol)
-    k = problem.coefficient
+    k = problem.coefficient[0]
     assert k.max() / k.min() > 300
     A, b = system.matrix, system.rhs
     result = solve(A, b, spec.solver)

@@ -11,12 +11,12 @@ solver's residual (the imbalance is the volume-weighted sum of the residuals b -
 * Face outflow (positive leaving the domain), for every boundary cell of the face, held or
   free: ``-(G (value - u_P) + q) A``.
 * Hold inflow (positive into the hold): the flux from every neighbouring cell that is not in
-  the same hold, ``harmonic(k_P, k_N) / h (u_N - u_P) A``, minus what the hold's own cells
+  the same hold, ``T_PN (u_N - u_P)`` with the operator's face conductance T, minus what the hold's own cells
   lose through boundary faces. That is what the agent keeping the hold at its value must
   remove: a heat sink's heat, a well's discharge. An electrode's charge is minus its inflow
   (Gauss's law: the charge is the displacement flux leaving the electrode).
 
-Amounts are in the physics' amount units (W, C, m^3/s); A is one cell face's area (m^2).
+Amounts are in the physics' amount units (W, C, m^3/s); A is a cell face's area (m^2).
 Nothing here does I/O.
 """
 
@@ -27,6 +27,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 
 from .grid import FACE_AXIS, Grid
+from .operator import conductances
 from .problem import Problem
 from .spec import FACES
 
@@ -78,35 +79,31 @@ def _slabs(n: int, per_slab: int):
 def interior_hold_inflow(problem: Problem, u: np.ndarray, holds: int) -> np.ndarray:
     """Flux into each hold from cells not in that hold, over interior faces (amount per time)."""
     grid = problem.grid
-    k = problem.coefficient
     index = _hold_index(problem)
     out = np.zeros(holds + 1)  # slot ``holds`` collects index -1 (free), then is dropped
     nx = grid.cells[0]
-    per_slab = grid.cells[1] * grid.cells[2]
-    for axis in range(3):
-        n = grid.cells[axis]
-        if n < 2:
-            continue
-        conductance = grid.face_area(axis) / grid.spacing[axis]
-        for i0, i1 in _slabs(nx, per_slab):
+    for i0, i1 in _slabs(nx, grid.cells[1] * grid.cells[2]):
+        t = conductances(problem, i0, i1)
+        for axis in range(3):
             # cells P in the slab and their + neighbour N along ``axis``
+            P = [np.s_[i0:i1], slice(None), slice(None)]
+            N = list(P)
+            T = [slice(None)] * 3
             if axis == 0:
-                i1 = min(i1, nx - 1)
-                if i1 <= i0:
+                top = min(i1, nx - 1)
+                if top <= i0:
                     continue
-                sp, sn = np.s_[i0:i1], np.s_[i0 + 1:i1 + 1]
-                P, N = (sp, slice(None), slice(None)), (sn, slice(None), slice(None))
+                P[0], N[0], T[0] = np.s_[i0:top], np.s_[i0 + 1:top + 1], np.s_[:top - i0]
             else:
-                P = [np.s_[i0:i1], slice(None), slice(None)]
-                N = list(P)
-                P[axis], N[axis] = np.s_[:-1], np.s_[1:]
-                P, N = tuple(P), tuple(N)
+                if grid.cells[axis] < 2:
+                    continue
+                P[axis], N[axis], T[axis] = np.s_[:-1], np.s_[1:], np.s_[:-1]
+            P, N = tuple(P), tuple(N)
             hp, hn = index[P], index[N]
             cross = hp != hn
             if not cross.any():
                 continue
-            kp, kn = k[P][cross], k[N][cross]
-            flow = 2.0 * kp * kn / (kp + kn) * conductance * (u[P][cross] - u[N][cross])  # P -> N
+            flow = t[axis][tuple(T)][cross] * (u[P][cross] - u[N][cross])  # P -> N
             hp, hn = hp[cross], hn[cross]
             out += np.bincount(np.where(hn >= 0, hn, holds), weights=flow, minlength=holds + 1)
             out -= np.bincount(np.where(hp >= 0, hp, holds), weights=flow, minlength=holds + 1)
@@ -138,13 +135,13 @@ def compute_balance(problem: Problem, u: np.ndarray, units: str = "1",
     if names is not None:
         count = max(count, len(names))
     free = index < 0
-    source = float(problem.source[free].sum()) * grid.cell_volume
+    source = grid.integrate(problem.source, free)
 
     inflow = interior_hold_inflow(problem, u, count)
     faces: dict[str, float] = {}
     for face in FACES:
         axis, _ = FACE_AXIS[face]
-        out = face_outflow_density(problem, u, face) * grid.face_area(axis)
+        out = face_outflow_density(problem, u, face) * grid.face_areas(axis)
         faces[face] = float(out.sum())
         idx = _boundary(index, face)
         if count and (idx >= 0).any():

@@ -1,14 +1,16 @@
 """Boundary faces as per-cell terms of the finite-volume equations.
 
 Each condition acts at the domain face, half a cell from the boundary cell's centre. With
-``h`` the spacing normal to the face and ``k_P`` the boundary cell's coefficient, the inward
+``h`` the boundary cell's own width normal to the face and ``k_P`` its coefficient along
+that normal, the inward
 flux per unit area is ``G * (value - u_P)`` with
 
 * Dirichlet ``value``:           G = 2 k_P / h
 * Robin ``coefficient c, reference``: G = 1 / (1/c + h / (2 k_P))  (film in series with half a cell)
 * Neumann ``flux q``:            a fixed inward flux q, no G.
 
-Per unit cell volume, G/h joins the cell's diagonal and G*value/h (or q/h) its right-hand side.
+Times the face's area, G joins the cell's diagonal and G*value (or q) its right-hand side
+(the rows of the operator are balances over each cell: amount per unit time).
 """
 
 from __future__ import annotations
@@ -36,13 +38,13 @@ class FaceTerms:
     value: np.ndarray
     flux: np.ndarray
 
-    def diagonal(self, h: float) -> np.ndarray:
-        """Per-volume addition to the boundary cells' diagonal."""
-        return self.conductance / h
+    def diagonal(self, area: np.ndarray) -> np.ndarray:
+        """Addition to the boundary cells' diagonal (conductance times face area)."""
+        return self.conductance * area
 
-    def rhs(self, h: float) -> np.ndarray:
-        """Per-volume addition to the boundary cells' right-hand side."""
-        return (self.conductance * self.value + self.flux) / h
+    def rhs(self, area: np.ndarray) -> np.ndarray:
+        """Addition to the boundary cells' right-hand side (inflow at u_P = 0)."""
+        return (self.conductance * self.value + self.flux) * area
 
 
 def _on_face(value: float | str, grid: Grid, face: str, where: str, positive: bool = False) -> np.ndarray:
@@ -65,14 +67,14 @@ def boundary_cells(k: np.ndarray, face: str) -> np.ndarray:
     return np.take(k, 0 if side == 0 else k.shape[axis] - 1, axis=axis)
 
 
-def face_terms(spec: BoundarySpec, grid: Grid, k: np.ndarray) -> dict[str, FaceTerms]:
-    """The six faces' terms, unlisted faces insulated."""
+def face_terms(spec: BoundarySpec, grid: Grid, k: tuple[np.ndarray, np.ndarray, np.ndarray]) -> dict[str, FaceTerms]:
+    """The six faces' terms, unlisted faces insulated; ``k`` is (kx, ky, kz)."""
     out: dict[str, FaceTerms] = {}
     for face in FACES:
         cond = spec.face(face)
         axis, _ = FACE_AXIS[face]
-        h = grid.spacing[axis]
-        kp = boundary_cells(k, face)
+        h = grid.boundary_width(face)
+        kp = boundary_cells(k[axis], face)
         zero = np.zeros_like(kp)
         where = f"boundary.{face}"
         if isinstance(cond, Dirichlet):

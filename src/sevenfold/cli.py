@@ -79,12 +79,19 @@ def _check(args: argparse.Namespace) -> int:
     plan, problem = prepare_problem(plan)  # settled: the method the built problem is solved with
     spec = plan.spec
     table = Table(show_header=False, box=None)
-    nx, ny, nz = spec.grid.cells
-    hx, hy, hz = spec.grid.cell_spacing
+    grid = problem.grid
+    nx, ny, nz = grid.cells
+
+    def widths(a: int) -> str:
+        lo, hi = grid.min_width()[a], grid.max_width()[a]
+        return f"{lo:.4g}" if grid.is_uniform(a) else f"{lo:.3g}..{hi:.3g} (graded)"
+
     for key, value in (
         ("job", f"{spec.name} ({spec.physics})"),
         ("cells", f"{nx} x {ny} x {nz} = {plan.cells:,}"),
-        ("spacing", f"{hx:.4g} x {hy:.4g} x {hz:.4g} m"),
+        ("box", " x ".join(f"[{o:.4g}, {o + e:.4g}]" for o, e in zip(grid.origin, grid.extent)) + " m"),
+        ("cell widths", " x ".join(widths(a) for a in range(3)) + " m"),
+        ("coefficient", "directional [kx, ky, kz]" if not problem.isotropic else "one value for every direction"),
         ("unknowns", f"{problem.unknowns:,}" + (" (pure Neumann: one cell pinned, mean(u) = 0)" if problem.gauge_mean_zero else "")),
         ("method", f"{plan.method}" + (" (chosen by auto)" if spec.solver.method == "auto" else "")),
         ("memory", f"about {human(plan.memory_bytes)} of {human(plan.available_bytes)} available"),
@@ -205,14 +212,15 @@ def _report(args: argparse.Namespace) -> int:
 
 
 def _export(args: argparse.Namespace) -> int:
-    from .export import open_result, write_vti
+    from .export import open_result, write_vtk
 
     result = open_result(args.result)
     fields = args.fields.split(",") if args.fields else None
-    path = write_vti(result, args.vti, fields)
+    path = write_vtk(result, args.vti, fields)
     if args.quiet:
         return quiet_result(path)
-    out.print(f"VTK image data: {escape(str(path))}")
+    kind = "VTK image data" if path.suffix == ".vti" else "VTK rectilinear grid (graded axes)"
+    out.print(f"{kind}: {escape(str(path))}")
     return EXIT_OK
 
 
@@ -259,9 +267,11 @@ def parser() -> argparse.ArgumentParser:
     rp.add_argument("--quiet", "-q", action="store_true", help="print only the index.html path (and errors)")
     rp.set_defaults(func=_report)
 
-    ex = sub.add_parser("export", help="write a result as VTK image data (.vti)")
+    ex = sub.add_parser("export", help="write a result as VTK image data (.vti), or a rectilinear grid "
+                                       "(.vtr) when an axis is graded")
     ex.add_argument("result", help="result (zarr group written by run)")
-    ex.add_argument("--vti", required=True, help="the .vti file to write")
+    ex.add_argument("--vti", "--vtk", dest="vti", required=True, metavar="FILE",
+                    help="the VTK file to write (.vti; a graded result is written as .vtr beside it)")
     ex.add_argument("--fields", help="comma-separated arrays to include (default: all cell fields)")
     ex.add_argument("--quiet", "-q", action="store_true", help="print only the .vti path (and errors)")
     ex.set_defaults(func=_export)

@@ -1,11 +1,13 @@
 """Fields derived from a solution on the cell centres: flux, gradient, coefficient and source.
 
 Scheme. The flux density ``F = -k grad u`` is first taken on every cell face exactly as the
-operator sees it: ``-harmonic(k_P, k_N) (u_N - u_P) / h`` on an interior face, and the
-boundary condition's own flux ``G (value - u_P) + q`` (inward) on a domain face. A cell's
-component along an axis is the mean of its two faces' values, which is second-order
+operator sees it: ``-T_PN (u_N - u_P) / A`` on an interior face (T the operator's face
+conductance, A the face's area), and the boundary condition's own flux ``G (value - u_P) + q``
+(inward) on a domain face. A cell's component along an axis is the mean of its two faces'
+values (the centre is midway between them, on graded grids too), which is second-order
 accurate on smooth solutions and equals the central difference ``-k (u_E - u_W) / 2h`` for
-constant k. The gradient is ``grad u = -F / k_P`` per cell, so across a material interface
+constant k on a uniform grid. The gradient is ``grad u = -F / k_P`` per cell, with k_P the
+coefficient's component along that axis, so across a material interface
 each side keeps its own gradient while the normal flux stays continuous. Held cells get the
 same treatment with their held values.
 
@@ -19,6 +21,7 @@ import numpy as np
 
 from .grid import FACE_AXIS
 from .physics import DERIVED
+from .operator import conductances
 from .problem import Problem
 from .spec import FACES
 
@@ -27,10 +30,12 @@ def _boundary(a: np.ndarray, axis: int, side: int) -> np.ndarray:
     return np.take(a, 0 if side == 0 else a.shape[axis] - 1, axis=axis)
 
 
-def face_flux(problem: Problem, u: np.ndarray, axis: int) -> np.ndarray:
-    """Flux density along +``axis`` on every face normal to it: ``cells[axis] + 1`` planes."""
-    k = problem.coefficient
-    h = problem.grid.spacing[axis]
+def face_flux(problem: Problem, u: np.ndarray, axis: int,
+              conductance: np.ndarray | None = None) -> np.ndarray:
+    """Flux density along +``axis`` on every face normal to it: ``cells[axis] + 1`` planes.
+    ``conductance`` is that axis's array from :func:`sevenfold.operator.conductances` (computed
+    when not given)."""
+    t_axis = conductances(problem)[axis] if conductance is None else conductance
     n = u.shape[axis]
     shape = list(u.shape)
     shape[axis] = n + 1
@@ -39,8 +44,9 @@ def face_flux(problem: Problem, u: np.ndarray, axis: int) -> np.ndarray:
     hi = [slice(None)] * 3
     mid = [slice(None)] * 3
     lo[axis], hi[axis], mid[axis] = slice(0, n - 1), slice(1, n), slice(1, n)
-    kp, kn = k[tuple(lo)], k[tuple(hi)]
-    F[tuple(mid)] = -2.0 * kp * kn / (kp + kn) * (u[tuple(hi)] - u[tuple(lo)]) / h
+    area = problem.grid.face_areas(axis)
+    area = np.expand_dims(area, axis)
+    F[tuple(mid)] = -t_axis[tuple(lo)] * (u[tuple(hi)] - u[tuple(lo)]) / area
     for face in FACES:
         a, side = FACE_AXIS[face]
         if a != axis:
@@ -57,8 +63,9 @@ def face_flux(problem: Problem, u: np.ndarray, axis: int) -> np.ndarray:
 def flux(problem: Problem, u: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """-k grad u on the cell centres, as three (nx, ny, nz) arrays (x, y, z components)."""
     out = []
+    t = conductances(problem)
     for axis in range(3):
-        F = face_flux(problem, u, axis)
+        F = face_flux(problem, u, axis, t[axis])
         n = u.shape[axis]
         a = [slice(None)] * 3
         b = [slice(None)] * 3
@@ -80,12 +87,17 @@ def derived_fields(problem: Problem, u: np.ndarray, physics: str, names: tuple[s
             for c, comp in zip("xyz", F):
                 out[f"{name}_{c}"] = comp
         elif info.kind == "negative_gradient":
-            for c, comp in zip("xyz", F):
-                out[f"{name}_{c}"] = comp / problem.coefficient
+            for c, comp, k in zip("xyz", F, problem.coefficient):
+                out[f"{name}_{c}"] = comp / k
         elif info.kind == "gradient_magnitude":
-            out[name] = np.sqrt(F[0] ** 2 + F[1] ** 2 + F[2] ** 2) / problem.coefficient
+            kx, ky, kz = problem.coefficient
+            out[name] = np.sqrt((F[0] / kx) ** 2 + (F[1] / ky) ** 2 + (F[2] / kz) ** 2)
         elif info.kind == "coefficient":
-            out[name] = problem.coefficient
+            if problem.isotropic:
+                out[name] = problem.coefficient[0]
+            else:
+                for c, k in zip("xyz", problem.coefficient):
+                    out[f"{name}_{c}"] = k
         elif info.kind == "source":
             out[name] = problem.source
         else:  # pragma: no cover - the catalogue has no other kind

@@ -1,9 +1,10 @@
-"""Reading a finished result back, and exporting it to VTK image data (.vti).
+"""Reading a finished result back, and exporting it to VTK (.vti image data, or a .vtr
+rectilinear grid when an axis is graded).
 
-The .vti file is written by pyevtk (a small, maintained writer of VTK's XML formats). Each
-sevenfold cell is one VTK cell: the image's origin is the box's minimum corner and its
-spacing the cell spacing, and the solution and every derived field on (x, y, z) are cell
-data. VTK arrays carry no units; they are those of the result (``units`` attribute of each
+The files are written by pyevtk (a small, maintained writer of VTK's XML formats). Each
+sevenfold cell is one VTK cell: an image's origin is the box's minimum corner and its spacing
+the cell spacing; a rectilinear grid carries the cell edges of each axis. The solution and
+every derived field on (x, y, z) are cell data. VTK arrays carry no units; they are those of the result (``units`` attribute of each
 array in the zarr group).
 """
 
@@ -49,6 +50,16 @@ class StoredResult:
         names.sort(key=lambda n: (n != self.solution, n))
         return names
 
+    def edges(self, axis: int) -> np.ndarray:
+        """Cell-edge coordinates along ``axis`` (stored as ``x_edges`` etc.; results written
+        before graded grids existed are uniform and rebuilt from their job)."""
+        name = "xyz"[axis] + "_edges"
+        if name in self.group:
+            return np.asarray(self.group[name][...])
+        g = self.spec.grid
+        n, h, o = g.uniform_axis(axis)
+        return o + h * np.arange(n + 1)
+
     def _in_group(self, name: str) -> str:
         return self.stored.get(RENAMED.get(name, name), name)
 
@@ -91,23 +102,33 @@ def _without_none(value: Any) -> Any:
     return value
 
 
-def write_vti(result: StoredResult, target: str | Path, fields: list[str] | None = None) -> Path:
-    """Write ``fields`` (default: every array on (x, y, z)) as cell data of a .vti file."""
-    from pyevtk.hl import imageToVTK
+def write_vtk(result: StoredResult, target: str | Path, fields: list[str] | None = None) -> Path:
+    """Write ``fields`` (default: every array on (x, y, z)) as cell data: a .vti image when
+    every axis is uniform, else a .vtr rectilinear grid (``target``'s suffix is set to match)."""
+    from pyevtk.hl import gridToVTK, imageToVTK
 
     target = Path(target)
-    if target.suffix != ".vti":
-        raise JobError("the VTK image file must end in .vti", source=str(target))
+    if target.suffix not in (".vti", ".vtr"):
+        raise JobError("the VTK file must end in .vti (or .vtr for a graded grid)", source=str(target))
     available = result.cell_fields()
     names = [RENAMED.get(n, n) for n in fields] if fields else available
     unknown = [n for n in names if n not in available]
     if unknown:
         raise JobError(f"no cell field {unknown[0]!r} in the result; it has {', '.join(available)}",
                        source=str(result.path))
-    spacing = tuple(float(h) for h in result.spec.grid.cell_spacing)
-    origin = tuple(float(o) for o in result.spec.grid.origin)
+    edges = [result.edges(a) for a in range(3)]
     data = {n: np.ascontiguousarray(result.array(n), dtype=np.float64) for n in names}
+    widths = [np.diff(e) for e in edges]
     with writing(target, "the VTK file"):
         target.parent.mkdir(parents=True, exist_ok=True)
-        written = imageToVTK(str(target.with_suffix("")), origin=origin, spacing=spacing, cellData=data)
+        if all(np.ptp(w) <= 1e-9 * w.max() for w in widths):
+            spacing = tuple(float(w.mean()) for w in widths)
+            origin = tuple(float(e[0]) for e in edges)
+            written = imageToVTK(str(target.with_suffix("")), origin=origin, spacing=spacing, cellData=data)
+        else:
+            written = gridToVTK(str(target.with_suffix("")), *(np.ascontiguousarray(e) for e in edges),
+                                cellData=data)
     return Path(written)
+
+
+write_vti = write_vtk  # the name before graded grids

@@ -11,7 +11,7 @@ from .errors import JobError
 from .expressions import evaluate
 from .grid import Grid
 from .shapes import mask
-from .spec import MaterialSpec, SourceSpec
+from .spec import MaterialSpec, SourceSpec, components
 
 
 def _values(value: float | str, grid: Grid, where: np.ndarray | None = None) -> np.ndarray | float:
@@ -41,16 +41,20 @@ def region_masks(regions, grid: Grid, where: str) -> list[np.ndarray]:
     return masks
 
 
-def coefficient(spec: MaterialSpec, grid: Grid, scale: float = 1.0, base: np.ndarray | None = None) -> np.ndarray:
-    """The coefficient k on the cells (material values times ``scale``); positive and finite."""
+Coefficient = tuple[np.ndarray, np.ndarray, np.ndarray]
+
+
+def _component(spec: MaterialSpec, grid: Grid, a: int, masks: list[np.ndarray], scale: float,
+               base: np.ndarray | None) -> np.ndarray:
+    where = "material" + ("" if not spec.anisotropic else f" ({'xyz'[a]} component)")
     k = np.empty(grid.shape, dtype=np.float64)
     if base is not None:
         k[...] = base
     else:
-        k[...] = _values(spec.base, grid)  # type: ignore[arg-type]
-    _check_finite(k, "material.file" if base is not None else "material", positive=True)
-    for i, (region, m) in enumerate(zip(spec.region, region_masks(spec.region, grid, "material.region"))):
-        v = _values(region.value, grid, m)
+        k[...] = _values(components(spec.base)[a], grid)  # type: ignore[arg-type]
+    _check_finite(k, "material.file" if base is not None else where, positive=True)
+    for i, (region, m) in enumerate(zip(spec.region, masks)):
+        v = _values(components(region.value)[a], grid, m)
         if isinstance(v, np.ndarray):
             _check_finite(v, f"material.region.{i}.value", positive=True)
         k[m] = v
@@ -59,14 +63,32 @@ def coefficient(spec: MaterialSpec, grid: Grid, scale: float = 1.0, base: np.nda
     return k
 
 
+def coefficient(spec: MaterialSpec, grid: Grid, scale: float = 1.0,
+                base: np.ndarray | tuple[np.ndarray, ...] | None = None) -> Coefficient:
+    """The coefficient on the cells as (kx, ky, kz), material values times ``scale``; positive
+    and finite. Isotropic materials give the same array three times. ``base`` is the array
+    loaded from ``file`` (one, or one per axis)."""
+    masks = region_masks(spec.region, grid, "material.region")
+    if not spec.anisotropic:
+        k = _component(spec, grid, 0, masks, scale, base)  # type: ignore[arg-type]
+        return k, k, k
+    bases = base if isinstance(base, tuple) else (base, base, base)
+    return tuple(_component(spec, grid, a, masks, scale, bases[a]) for a in range(3))  # type: ignore[return-value]
+
+
+def is_isotropic(k: Coefficient) -> bool:
+    return k[0] is k[1] and k[1] is k[2]
+
+
 def source(spec: SourceSpec, grid: Grid, base: np.ndarray | None = None) -> np.ndarray:
-    """The source f per unit volume on the cells; finite."""
+    """The source f per unit volume on the cells; finite. A region's ``total`` is spread evenly
+    per unit volume over the cells it selects (cells take shares by their volume)."""
     f = np.empty(grid.shape, dtype=np.float64)
     f[...] = base if base is not None else _values(spec.base if spec.base is not None else 0.0, grid)
     _check_finite(f, "source.file" if base is not None else "source", positive=False)
     for i, (region, m) in enumerate(zip(spec.region, region_masks(spec.region, grid, "source.region"))):
         if region.total is not None:
-            f[m] = region.total / (np.count_nonzero(m) * grid.cell_volume)
+            f[m] = region.total / grid.volume(m)
         else:
             v = _values(region.value, grid, m)
             if isinstance(v, np.ndarray):

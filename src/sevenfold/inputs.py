@@ -9,8 +9,9 @@ import numpy as np
 from .errors import JobError
 
 
-def load_array(path: Path, shape: tuple[int, int, int], where: str) -> np.ndarray:
-    """Load a float64 array of exactly ``shape`` from a .npy file or a zarr array."""
+def load_array(path: Path, shape: tuple[int, ...] | None, where: str) -> np.ndarray:
+    """Load a float64 array of exactly ``shape`` (any 1D length when None) from a .npy file
+    or a zarr array."""
     if not path.exists():
         raise JobError(f"file {str(path)!r} does not exist", where)
     try:
@@ -27,7 +28,9 @@ def load_array(path: Path, shape: tuple[int, int, int], where: str) -> np.ndarra
         raise
     except Exception as exc:  # numpy and zarr raise many types for malformed files
         raise JobError(f"cannot read {str(path)!r} as .npy or zarr array: {exc}", where) from None
-    if tuple(a.shape) != tuple(shape):
+    if shape is None and len(a.shape) != 1:
+        raise JobError(f"array in {str(path)!r} has shape {list(a.shape)}; a 1D list of edges is needed", where)
+    if shape is not None and tuple(a.shape) != tuple(shape):
         raise JobError(f"array in {str(path)!r} has shape {list(a.shape)}, grid.cells is {list(shape)}", where)
     if not np.issubdtype(a.dtype, np.number) or np.issubdtype(a.dtype, np.complexfloating):
         raise JobError(f"array in {str(path)!r} has dtype {a.dtype}; a real numeric array is needed", where)

@@ -23,9 +23,10 @@ def _axis_weights(grid: Grid, axis: int, c: np.ndarray) -> tuple[np.ndarray, np.
     n = grid.cells[axis]
     if n == 1:
         return np.zeros(c.shape, dtype=np.int64), np.zeros(c.shape)
-    s = (c - grid.origin[axis]) / grid.spacing[axis] - 0.5  # fractional cell-centre index
-    i0 = np.clip(np.floor(s).astype(np.int64), 0, n - 2)
-    return i0, s - i0
+    centres = grid.centres(axis)
+    # the interval of centres holding c (the outermost one beyond the outer centres)
+    i0 = np.clip(np.searchsorted(centres, c, side="right") - 1, 0, n - 2)
+    return i0, (c - centres[i0]) / (centres[i0 + 1] - centres[i0])
 
 
 def interpolate(grid: Grid, u: np.ndarray, points: np.ndarray) -> np.ndarray:

@@ -4,7 +4,7 @@ Pure-Neumann problems (no Dirichlet or Robin face and no hold) determine u only 
 constant and have a solution only when sources and boundary fluxes balance. They are
 refused when the imbalance exceeds ``BALANCE_RTOL`` of the total inflow; otherwise the
 rounding-level remainder is removed from f, one cell is pinned to make the system definite,
-and the solution is reported in the gauge mean(u) = 0.
+and the solution is reported in the gauge where its volume-weighted mean is 0.
 """
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ import numpy as np
 from . import fields
 from .boundary import FaceTerms, face_terms
 from .errors import JobError
-from .grid import FACE_AXIS, Grid
+from .grid import FACE_AXIS, Grid, grid_from_spec
 from .physics import PHYSICS
 from .shapes import mask
 from .spec import JobSpec
@@ -29,7 +29,7 @@ class Problem:
     """Everything the operator needs, as arrays on the grid (SI units of the physics)."""
 
     grid: Grid
-    coefficient: np.ndarray  # k per cell
+    coefficient: tuple[np.ndarray, np.ndarray, np.ndarray]  # (kx, ky, kz) per cell; one array thrice if isotropic
     source: np.ndarray  # f per unit volume, per cell
     faces: dict[str, FaceTerms]
     held: np.ndarray  # bool per cell
@@ -44,18 +44,27 @@ class Problem:
         return int(self.grid.size - np.count_nonzero(self.held))
 
 
-def neumann_inflow(faces: dict[str, FaceTerms], grid: Grid) -> float:
-    """Total prescribed flux entering through Neumann faces (amount per time)."""
-    return float(sum(t.flux.sum() * grid.face_area(FACE_AXIS[name][0]) for name, t in faces.items()))
+    @property
+    def isotropic(self) -> bool:
+        return fields.is_isotropic(self.coefficient)
+
+
+def neumann_inflow(faces: dict[str, FaceTerms], grid: Grid, absolute: bool = False) -> float:
+    """Total prescribed flux entering through Neumann faces (amount per time); with
+    ``absolute``, the sum of its magnitudes."""
+    return float(sum(((np.abs(t.flux) if absolute else t.flux) * grid.face_areas(FACE_AXIS[name][0])).sum()
+                     for name, t in faces.items()))
 
 
 def build_problem(
     spec: JobSpec,
-    coefficient_file: np.ndarray | None = None,
+    coefficient_file: np.ndarray | tuple[np.ndarray, ...] | None = None,
     source_file: np.ndarray | None = None,
+    edge_files: dict[int, np.ndarray] | None = None,
 ) -> Problem:
-    """Discretise a validated spec; arrays named by ``file`` keys are passed in already loaded."""
-    grid = Grid.from_spec(spec.grid)
+    """Discretise a validated spec; arrays named by ``file`` keys are passed in already loaded
+    (``edge_files`` maps an axis to its edges)."""
+    grid = grid_from_spec(spec.grid, edge_files)
     physics = PHYSICS[spec.physics]
     k = fields.coefficient(spec.material, grid, physics.coefficient_scale, coefficient_file)
     f = fields.source(spec.source, grid, source_file)
@@ -76,11 +85,9 @@ def build_problem(
         return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index)
 
     inflow = neumann_inflow(faces, grid)
-    generated = float(f.sum()) * grid.cell_volume
+    generated = grid.integrate(f)
     imbalance = generated + inflow
-    scale = float(np.abs(f).sum()) * grid.cell_volume + sum(
-        float(np.abs(t.flux).sum()) * grid.face_area(FACE_AXIS[n][0]) for n, t in faces.items()
-    )
+    scale = grid.integrate(np.abs(f)) + neumann_inflow(faces, grid, absolute=True)
     if abs(imbalance) > BALANCE_RTOL * scale:
         units = physics.amount_units
         raise JobError(
@@ -89,7 +96,7 @@ def build_problem(
             f"{units} ({abs(imbalance) / scale:.3g} of the total); balance them or fix a face or a hold",
             "boundary",
         )
-    f = f - imbalance / (grid.size * grid.cell_volume)
+    f = f - imbalance / float(np.prod(grid.extent))
     held[0, 0, 0] = True  # pin: with a balanced right-hand side the pinned equation holds too
     return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True, hold_index=hold_index)
 
@@ -99,5 +106,6 @@ def complete_field(problem: Problem, u: np.ndarray) -> np.ndarray:
     and a pure-Neumann solution is shifted to mean zero. ``u`` is changed in place."""
     np.copyto(u, problem.held_value, where=problem.held)
     if problem.gauge_mean_zero:
-        u -= u.mean()
+        grid = problem.grid
+        u -= grid.integrate(u) / float(np.prod(grid.extent))  # the volume-weighted mean
     return u

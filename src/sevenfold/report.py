@@ -56,11 +56,10 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
     name = result.solution
     u = result.array(name)
     units = result.units(name)
-    grid = result.spec.grid
-    h, o, n = grid.cell_spacing, grid.origin, grid.cells
-    edges = [o[a] + np.arange(n[a] + 1) * h[a] for a in range(3)]
+    edges = [result.edges(a) for a in range(3)]
+    n = [e.size - 1 for e in edges]
     centres = [0.5 * (e[1:] + e[:-1]) for e in edges]
-    mids = [c // 2 for c in n]
+    mids = [int(np.argmin(np.abs(c - 0.5 * (e[0] + e[-1])))) for c, e in zip(centres, edges)]  # nearest the middle
     planes = [
         (u[mids[0], :, :], 1, 2, f"x = {centres[0][mids[0]]:.4g} m"),
         (u[:, mids[1], :], 0, 2, f"y = {centres[1][mids[1]]:.4g} m"),
@@ -143,12 +142,14 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
 
     attrs = result.attrs
     spec = result.spec
-    nx, ny, nz = spec.grid.cells
+    nx, ny, nz = (result.edges(a).size - 1 for a in range(3))
+    graded = [c for a, c in enumerate("xyz") if np.ptp(np.diff(result.edges(a))) > 1e-9 * np.diff(result.edges(a)).max()]
     solver = attrs.get("solver", {})
     balance = attrs.get("balance")
     sections = [
         f"<h1>{html.escape(spec.name)}</h1>",
-        f"<p>{html.escape(spec.physics)} job, {nx} x {ny} x {nz} = {nx * ny * nz:,} cells; "
+        f"<p>{html.escape(spec.physics)} job, {nx} x {ny} x {nz} = {nx * ny * nz:,} cells"
+        f"{' (graded along ' + ', '.join(graded) + ')' if graded else ''}; "
         f"solution <b>{html.escape(result.solution)}</b> in {html.escape(result.units(result.solution))}; "
         f"result <code>{html.escape(path.name)}</code>, sevenfold {html.escape(str(attrs.get('sevenfold_version', '')))}</p>",
         "<h2>Solver</h2>",

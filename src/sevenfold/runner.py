@@ -16,7 +16,7 @@ import numpy as np
 from .balance import Balance, compute_balance
 from .derived import derived_fields
 from .errors import JobError, SolverError, file_in_the_way, writing
-from .grid import Grid
+from .grid import Grid, grid_from_spec
 from .inputs import load_array
 from .memory import available_bytes, estimate_bytes, human
 from .physics import DERIVED, PHYSICS
@@ -83,7 +83,7 @@ def _output_variables(spec: JobSpec, problem: Problem, u: np.ndarray,
     for name, data in derived_fields(problem, u, spec.physics, spec.output.fields).items():
         base = name if name in catalogue else name[:-2]
         info = catalogue[base]
-        long_name = info.long_name + (f", {name[-1]} component" if info.vector else "")
+        long_name = info.long_name + (f", {name[-1]} component" if name != base else "")
         variables[name] = Variable(data, ("x", "y", "z"), {"units": info.units, "long_name": long_name})
     for p in probes:
         dim = f"probe_{p.name}_distance"
@@ -113,7 +113,10 @@ def plan_job(job_file: str | Path, output: str | Path | None = None, spec: JobSp
     """Validate a job file and say what it will need, without building the grid's arrays."""
     job_file = Path(job_file)
     spec = spec or load_job(job_file)
-    cells = Grid.from_spec(spec.grid).size
+    try:
+        cells = job_grid(spec, job_file).size
+    except JobError as exc:
+        raise exc.located(str(job_file)) if not exc.source else exc
     method = choose_method(spec.solver)
     try:
         out = output_path(spec, job_file, output)
@@ -149,8 +152,9 @@ def prepare_problem(plan: Plan) -> tuple[Plan, Problem]:
     """
     refuse_if_too_large(plan)
     try:
-        arrays = _load_files(plan.spec, plan.job_file)
-        problem = build_problem(plan.spec, arrays["material"], arrays["source"])
+        edges = load_edge_files(plan.spec, plan.job_file)
+        arrays = _load_files(plan.spec, plan.job_file, job_grid(plan.spec, plan.job_file, edges).shape)
+        problem = build_problem(plan.spec, arrays["material"], arrays["source"], edges)
         method = method_for(plan.spec.solver, problem)
     except JobError as exc:
         raise exc.located(str(plan.job_file)) if not exc.source else exc
@@ -164,14 +168,34 @@ def derived_arrays(spec: JobSpec) -> int:
     return sum(3 if catalogue[name].vector else 1 for name in spec.output.fields)
 
 
-def _load_files(spec: JobSpec, job_file: Path) -> dict[str, np.ndarray | None]:
-    shape = tuple(spec.grid.cells)
-    out: dict[str, np.ndarray | None] = {"material": None, "source": None}
+def _resolve(job_file: Path, name: str) -> Path:
+    path = Path(name)
+    return path if path.is_absolute() else job_file.parent / path
+
+
+def load_edge_files(spec: JobSpec, job_file: Path) -> dict[int, np.ndarray]:
+    """The edges of grid axes given by a .npy path, by axis."""
+    out = {}
+    for a in spec.grid.graded_axes:
+        given = spec.grid.edges.axis(a)  # type: ignore[union-attr]
+        if isinstance(given, str):
+            out[a] = load_array(_resolve(job_file, given), None, f"grid.edges.{'xyz'[a]}")
+    return out
+
+
+def job_grid(spec: JobSpec, job_file: Path, edges: dict[int, np.ndarray] | None = None) -> Grid:
+    """The job's grid (its edges only: cheap), loading edge files when not given."""
+    return grid_from_spec(spec.grid, load_edge_files(spec, job_file) if edges is None else edges)
+
+
+def _load_files(spec: JobSpec, job_file: Path, shape: tuple[int, int, int]) -> dict[str, Any]:
+    out: dict[str, Any] = {"material": None, "source": None}
     for key, fspec in (("material", spec.material), ("source", spec.source)):
-        if fspec.file is not None:
-            path = Path(fspec.file)
-            path = path if path.is_absolute() else job_file.parent / path
-            out[key] = load_array(path, shape, f"{key}.file")  # type: ignore[arg-type]
+        if isinstance(fspec.file, tuple):
+            out[key] = tuple(load_array(_resolve(job_file, name), shape, f"{key}.file.{a}")
+                             for a, name in enumerate(fspec.file))
+        elif fspec.file is not None:
+            out[key] = load_array(_resolve(job_file, fspec.file), shape, f"{key}.file")
     return out
 
 
@@ -240,6 +264,8 @@ def run_job(
         "x": Variable(grid.centres(0), ("x",), {"units": "m", "long_name": "cell centre x"}),
         "y": Variable(grid.centres(1), ("y",), {"units": "m", "long_name": "cell centre y"}),
         "z": Variable(grid.centres(2), ("z",), {"units": "m", "long_name": "cell centre z"}),
+        **{f"{c}_edges": Variable(grid.edges[a], (f"{c}_edge",), {
+            "units": "m", "long_name": f"cell edges along {c}"}) for a, c in enumerate("xyz")},
         "residual_history": Variable(np.asarray(result.history), ("iteration",), {
             "units": "1", "long_name": "relative residual ||b - A u|| / ||b||"}),
         "residual_seconds": Variable(np.asarray(result.times), ("iteration",), {

@@ -1,7 +1,8 @@
 """Grid-convergence study: run one job on successively refined grids and apply Roache's GCI.
 
-Level 0 is the job's own grid; level l has ``round(cells * ratio**l)`` cells along each axis
-with more than one cell (axes of one cell stay thin). The box, materials, sources, holds,
+Level 0 is the job's own grid. On a uniform grid, level l has ``round(cells * ratio**l)``
+cells along each axis with more than one cell (axes of one cell stay thin); on a graded grid
+every cell is split into ``ratio**l`` equal parts (a whole-number ratio), keeping the grading. The box, materials, sources, holds,
 boundaries and probes are unchanged. The cell size of a level is the representative
 ``h = (V / N)**(1/D)`` over the D refined axes, so the ratio between levels is the same on
 every refined axis up to the rounding of the cell counts, which must stay within
@@ -27,7 +28,8 @@ import numpy as np
 
 from .errors import JobError, writing
 from .gci import GCIResult, gci_three_grids
-from .runner import JobResult, output_path, run_job
+from .grid import Grid, grid_from_spec
+from .runner import JobResult, job_grid, output_path, run_job
 from .spec import JobSpec, load_job
 
 RATIO_SPREAD = 0.02  # largest relative difference of the per-axis ratios between two levels
@@ -65,32 +67,57 @@ def level_cells(cells: tuple[int, int, int], ratio: float, level: int) -> tuple[
     return tuple(c if c == 1 else max(1, int(round(c * ratio**level))) for c in cells)  # type: ignore[return-value]
 
 
-def refined_spec(spec: JobSpec, cells: tuple[int, int, int]) -> JobSpec:
-    """The same job on ``cells``; the box (origin and size) is kept."""
-    g = spec.grid
-    size = g.size or tuple(n * h for n, h in zip(g.cells, g.cell_spacing))
+def split_axis(edges: np.ndarray, factor: int) -> np.ndarray:
+    """Every cell of an axis split into ``factor`` equal parts (the grading is kept)."""
+    t = np.arange(factor, dtype=np.float64) / factor
+    inner = (edges[:-1, None] + np.diff(edges)[:, None] * t[None, :]).ravel()
+    return np.append(inner, edges[-1])
+
+
+def level_grid(base: Grid, ratio: float, level: int) -> Grid:
+    """The grid of level ``level``. A uniform grid gets ``level_cells`` cells on its box; a
+    graded one has every cell split into ratio**level parts (ratio a whole number), so the
+    grading is the same on every level. Axes of one cell stay thin."""
+    if base.uniform_axes:
+        cells = level_cells(base.cells, ratio, level)
+        return Grid.uniform(cells, [e / n for e, n in zip(base.extent, cells)], base.origin)
+    factor = int(round(ratio)) ** level
+    return Grid(tuple(e if e.size == 2 else split_axis(e, factor) for e in base.edges))  # type: ignore[arg-type]
+
+
+def refined_spec(spec: JobSpec, grid: Grid) -> JobSpec:
+    """The same job on ``grid`` (the same box): uniform grids by cells and size, graded ones by
+    their edges."""
     table = spec.model_dump(mode="json", exclude_none=True)
-    table["grid"] = {"cells": list(cells), "size": list(size), "origin": list(g.origin)}
+    if grid.uniform_axes:
+        table["grid"] = {"cells": list(grid.cells), "size": list(grid.extent), "origin": list(grid.origin)}
+    else:
+        table["grid"] = {"edges": {c: grid.edges[a].tolist() for a, c in enumerate("xyz")}}
     return JobSpec.model_validate(table)
 
 
-def plan_levels(spec: JobSpec, levels: int, ratio: float) -> list[tuple[tuple[int, int, int], float, tuple[float, ...]]]:
-    """(cells, h, per-axis ratios) of each level, refusing uneven refinement."""
+def plan_levels(spec: JobSpec, levels: int, ratio: float, base: Grid | None = None,
+                ) -> list[tuple[Grid, float, tuple[float, ...]]]:
+    """(grid, h, per-axis ratios) of each level, refusing uneven refinement. ``base`` is the
+    job's grid (built from the spec when not given; a graded axis from a file needs it)."""
     if levels < 3:
         raise JobError(f"a study needs at least 3 levels, got {levels}", "--levels")
     if not (math.isfinite(ratio) and ratio > 1.0):
         raise JobError(f"the refinement ratio must exceed 1, got {ratio}", "--ratio")
-    base = tuple(spec.grid.cells)
-    refined_axes = [a for a in range(3) if base[a] > 1]
+    base = base or grid_from_spec(spec.grid)
+    if not base.uniform_axes and abs(ratio - round(ratio)) > 1e-9:
+        raise JobError(f"a graded grid is refined by splitting every cell, so the ratio must be a "
+                       f"whole number, got {ratio:g}", "--ratio")
+    refined_axes = [a for a in range(3) if base.cells[a] > 1]
     if not refined_axes:
         raise JobError("the grid has one cell; there is nothing to refine", "grid.cells")
-    size = spec.grid.size or tuple(n * h for n, h in zip(base, spec.grid.cell_spacing))
     out = []
     prev = None
     for lv in range(levels):
-        cells = level_cells(base, ratio, lv)  # type: ignore[arg-type]
-        h = math.prod(size[a] / cells[a] for a in refined_axes) ** (1.0 / len(refined_axes))
-        ratios = tuple(1.0 if prev is None or base[a] == 1 else cells[a] / prev[a] for a in range(3))
+        grid = level_grid(base, ratio, lv)
+        cells = grid.cells
+        h = math.prod(grid.extent[a] / cells[a] for a in refined_axes) ** (1.0 / len(refined_axes))
+        ratios = tuple(1.0 if prev is None or base.cells[a] == 1 else cells[a] / prev[a] for a in range(3))
         if prev is not None:
             used = [ratios[a] for a in refined_axes]
             if max(used) - min(used) > RATIO_SPREAD * min(used) or min(used) <= 1.0:
@@ -98,7 +125,7 @@ def plan_levels(spec: JobSpec, levels: int, ratio: float) -> list[tuple[tuple[in
                     f"with ratio {ratio:g} level {lv} has cells {list(cells)}, refining the axes by "
                     f"{', '.join(f'{r:.4g}' for r in used)}; choose cell counts or a ratio that "
                     "refine every axis alike (within 2%)", "--ratio")
-        out.append((cells, h, ratios))
+        out.append((grid, h, ratios))
         prev = cells
     return out
 
@@ -141,7 +168,7 @@ def run_study(job_file: str | Path, levels: int = 3, ratio: float = 2.0,
             raise JobError("a study refines the grid, so the field cannot come from a file; "
                            "give it by value or expression", f"{key}.file", str(job_file))
     try:
-        plans = plan_levels(spec, levels, ratio)
+        plans = plan_levels(spec, levels, ratio, job_grid(spec, job_file))
     except JobError as exc:
         raise exc.located(str(job_file)) from None
     if folder is None:
@@ -151,12 +178,12 @@ def run_study(job_file: str | Path, levels: int = 3, ratio: float = 2.0,
     with writing(folder, "the study folder"):
         folder.mkdir(parents=True, exist_ok=True)
     done: list[Level] = []
-    for lv, (cells, h, ratios) in enumerate(plans):
+    for lv, (grid, h, ratios) in enumerate(plans):
         if progress is not None:
-            progress(lv, cells)
+            progress(lv, grid.cells)
         target = folder / f"level-{lv}.zarr"
-        result = run_job(job_file, target, None, refined_spec(spec, cells))
-        done.append(Level(cells, h, ratios, quantities(result), str(target)))
+        result = run_job(job_file, target, None, refined_spec(spec, grid))
+        done.append(Level(grid.cells, h, ratios, quantities(result), str(target)))
     physics = PHYSICS[spec.physics]
     study = Study(spec.name, physics.solution_units, physics.amount_units, done, {}, str(folder))
     fine, mid, coarse = done[-1], done[-2], done[-3]

@@ -54,7 +54,13 @@ def fft_eligibility(problem: Problem) -> str | None:
     count) and, on each axis, two Dirichlet or two Neumann faces. Face values and fluxes may
     vary along a face: they enter only the right-hand side.
     """
-    k = problem.coefficient
+    grid = problem.grid
+    graded = [AXES[a] for a in range(3) if not grid.is_uniform(a)]
+    if graded:
+        return f"graded axis {', '.join(graded)} (cell widths vary; the transforms need equal widths)"
+    if not problem.isotropic:
+        return "a directional coefficient [kx, ky, kz] (the transforms need one k for every direction)"
+    k = problem.coefficient[0]
     k_min, k_max = float(k.min()), float(k.max())
     if k_min != k_max:
         return f"k varies (min {k_min:.6g}, max {k_max:.6g})"
@@ -68,6 +74,11 @@ def fft_eligibility(problem: Problem) -> str | None:
         if low != high:
             return f"axis {name} mixes {low} and {high} faces ({name}_min {low}, {name}_max {high})"
     return None
+
+
+def uniform_spacing(grid) -> tuple[float, float, float]:
+    """The cell width of each (uniform) axis."""
+    return tuple(float(grid.extent[a] / grid.cells[a]) for a in range(3))  # type: ignore[return-value]
 
 
 def axis_kinds(problem: Problem) -> tuple[str, str, str]:
@@ -164,12 +175,14 @@ def residual_norm(problem: Problem, padded_u: np.ndarray, workers: int = 1) -> f
     grid = problem.grid
     nx, ny, nz = grid.cells
     plane = ny * nz
-    k = float(problem.coefficient.flat[0])
-    coupling = tuple(k / h**2 for h in grid.spacing)
+    k = float(problem.coefficient[0].flat[0])
+    spacing = uniform_spacing(grid)
+    coupling = tuple(k / h**2 for h in spacing)
     cx, cy, cz = coupling
     flat = padded_u.reshape(-1)
     f = problem.source
-    terms = {name: (t.rhs(grid.spacing[FACE_AXIS[name][0]]), t.diagonal(grid.spacing[FACE_AXIS[name][0]]))
+    # per unit volume: a boundary face's terms over the cell's width normal to it
+    terms = {name: (t.rhs(1.0 / spacing[FACE_AXIS[name][0]]), t.diagonal(1.0 / spacing[FACE_AXIS[name][0]]))
              for name, t in problem.faces.items()}
 
     step = max(1, SLAB_CELLS // plane)
@@ -233,7 +246,8 @@ def solve_fft(
     grid = problem.grid
     nx, ny, nz = grid.cells
     kinds = axis_kinds(problem)
-    k = float(problem.coefficient.flat[0])
+    k = float(problem.coefficient[0].flat[0])
+    spacing = uniform_spacing(grid)
     t0 = time.perf_counter()
     if monitor.stop_requested():
         raise Cancelled("the solve was cancelled")
@@ -245,9 +259,9 @@ def solve_fft(
         axis, side = FACE_AXIS[name]
         index = [slice(None)] * 3
         index[axis] = 0 if side == 0 else grid.cells[axis] - 1
-        w[tuple(index)] += t.rhs(grid.spacing[axis])
+        w[tuple(index)] += t.rhs(1.0 / spacing[axis])
     b_norm = math.sqrt(_sum_of_squares(w))
-    lx, ly, lz = (k * eigenvalues(n, h, kind) for n, h, kind in zip(grid.cells, grid.spacing, kinds))
+    lx, ly, lz = (k * eigenvalues(n, h, kind) for n, h, kind in zip(grid.cells, spacing, kinds))
     setup = time.perf_counter() - t0
     first = 1.0 if b_norm > 0 else 0.0
     monitor.iteration(0, first, setup)

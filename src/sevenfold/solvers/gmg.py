@@ -178,18 +178,15 @@ class FineOperator:
 
 def fine_level(problem) -> tuple[Level, np.ndarray]:
     """The finest level's face arrays and the full-grid right-hand side (0 on held cells)."""
-    from ..spec import FACES
+    from ..operator import face_arrays
 
+    faces = face_arrays(problem)
     grid = problem.grid
-    shape = grid.shape
-    tx, ty, tz, diag, b = (np.empty(shape) for _ in range(5))
-    inv_h2 = np.array([1.0 / h**2 for h in grid.spacing])
-    face_diag = tuple(np.ascontiguousarray(problem.faces[f].diagonal(grid.spacing[i // 2])) for i, f in enumerate(FACES))
-    face_rhs = tuple(np.ascontiguousarray(problem.faces[f].rhs(grid.spacing[i // 2])) for i, f in enumerate(FACES))
-    stencil.fine_stencil(problem.coefficient, problem.held, problem.held_value, problem.source,
-                         inv_h2, face_diag, face_rhs, tx, ty, tz, diag, b)
-    level = Level(tx, ty, tz, diag, ~problem.held, np.ones(3, dtype=np.int64), tuple(grid.spacing))
-    return level, b
+    # effective spacing for the coarsening rule: the mean cell width per axis
+    spacing = tuple(e / n for e, n in zip(grid.extent, grid.cells))
+    level = Level(faces.tx, faces.ty, faces.tz, faces.diag, ~problem.held,
+                  np.ones(3, dtype=np.int64), spacing)
+    return level, faces.b
 
 
 def solve_gmg(problem, rtol: float, max_iterations: int, monitor: Monitor | None = None,
