@@ -240,6 +240,7 @@ def corpus(tmp_path: Path) -> Path:
     bad = np.ones((4, 4, 4))
     bad[1, 2, 3] = np.nan
     np.save(folder / "k_nan.npy", bad)
+    np.save(folder / "edges_decreasing.npy", np.array([0.0, 0.5, 0.1, 1.0]))  # as test_bad_input's corpus
     return folder
 
 
