@@ -309,6 +309,11 @@ def test_list_fits_the_terminal_and_show_has_the_full_text(tmp_path: Path, home:
     assert all(len(r) <= 60 for r in rows), [len(r) for r in rows]
     assert "\u2026" in text and "show ID" in text
     assert long_name not in text and "word59" not in text
+    proc = _subprocess(home, "list", columns=40)  # narrow: less needed columns go, id and state stay
+    out, _ = proc.communicate(timeout=120)
+    rows = out.decode().splitlines()
+    assert all(len(r) <= 40 for r in rows) and rows[0].split()[:3] == ["id", "name", "state"]
+    assert rows[1].split()[0] == "1" and "failed" in rows[1] and "submitted" not in rows[0]
     proc = _subprocess(home, "show", "1", columns=60)
     out, _ = proc.communicate(timeout=120)
     flat = "".join(out.decode().split())

@@ -240,18 +240,28 @@ def _list(args: argparse.Namespace) -> int:
             result = " ".join((j.error or "").split())  # one line, whatever the error held
         rows.append([str(j.id), j.name, j.state, str(j.priority), str(j.attempts),
                      time.strftime("%m-%d %H:%M", time.localtime(j.submitted)), duration(_ran(j, now)), result])
-    widths = fit_widths(rows, LIST_COLUMNS, ("name", "result"), out.width)
+    columns = list(LIST_COLUMNS)
+    for spare in ("submitted", "prio", "tries", "ran"):  # a narrow terminal drops these first
+        need = sum(max([len(c)] + [len(r[LIST_COLUMNS.index(c)]) for r in rows]) for c in columns
+                   if c not in ("name", "result"))
+        if need + 2 * 12 + GAP * (len(columns) - 1) <= out.width:
+            break
+        columns.remove(spare)
+    keep = [LIST_COLUMNS.index(c) for c in columns]
+    rows = [[r[i] for i in keep] for r in rows]
+    widths = fit_widths(rows, columns, ("name", "result"), out.width)
+    name, state, result = columns.index("name"), columns.index("state"), columns.index("result")
     table = Table(box=None, pad_edge=False)
-    for col in LIST_COLUMNS:
+    for col in columns:
         table.add_column(col, no_wrap=True, overflow="ellipsis", min_width=widths.get(col))
     for r in rows:
-        r[1], r[7] = fit(r[1], widths["name"]), fit(r[7], widths["result"])
-        table.add_row(*(escape(c) for c in r[:2]), f"[{STATE_STYLE[r[2]]}]{r[2]}[/]", *(escape(c) for c in r[3:]))
+        r[name], r[result] = fit(r[name], widths["name"]), fit(r[result], widths["result"])
+        table.add_row(*(f"[{STATE_STYLE[c]}]{c}[/]" if i == state else escape(c) for i, c in enumerate(r)))
     out.print(table)
     counts = queue.counts()
     workers = queue.workers()
     summary = ", ".join(f"{counts[s]} {s}" for s in STATES if counts[s])
-    cut = "; cut to fit: `show ID` has the full text" if any("\u2026" in r[1] + r[7] for r in rows) else ""
+    cut = "; cut to fit: `show ID` has the full text" if any("\u2026" in r[name] + r[result] for r in rows) else ""
     out.print(f"{summary or 'no jobs'}; {len(workers)} worker(s) running"
               + (": " + ", ".join(f"{escape(w['id'])} ({w['slots']} slot(s))" for w in workers) if workers else "")
               + cut)
