@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import copy
 import math
+import shutil
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -31,6 +33,23 @@ BASE_TABLE: dict[str, Any] = {
     "boundary": {},
     "solver": {"method": "direct"},
 }
+
+
+BAD_JOBS = Path(__file__).parent / "bad_jobs"
+
+
+def bad_job_corpus(folder: Path) -> Path:
+    """Copy tests/bad_jobs into ``folder`` with the arrays its file cases name: one
+    mis-shaped, one holding a NaN, and decreasing edges for a graded axis."""
+    folder.mkdir(parents=True, exist_ok=True)
+    for case in BAD_JOBS.glob("*.toml"):
+        shutil.copy(case, folder / case.name)
+    np.save(folder / "k_3x3x3.npy", np.ones((3, 3, 3)))
+    bad = np.ones((4, 4, 4))
+    bad[1, 2, 3] = np.nan
+    np.save(folder / "k_nan.npy", bad)
+    np.save(folder / "edges_decreasing.npy", np.array([0.0, 0.5, 0.1, 1.0]))
+    return folder
 
 
 def make_table(**overrides: Any) -> dict[str, Any]:

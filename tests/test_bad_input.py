@@ -2,15 +2,14 @@
 
 from __future__ import annotations
 
-import shutil
 import subprocess
 import sys
 from pathlib import Path
 
-import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from conftest import BAD_JOBS, bad_job_corpus
 
 from sevenfold.cli import main
 from sevenfold.errors import JobError
@@ -18,7 +17,7 @@ from sevenfold.expressions import ExpressionError, check_expression
 from sevenfold.problem import build_problem
 from sevenfold.spec import parse_job
 
-CORPUS = Path(__file__).parent / "bad_jobs"
+CORPUS = BAD_JOBS
 CASES = sorted(CORPUS.glob("*.toml"))
 
 
@@ -30,15 +29,7 @@ def expected_message(path: Path) -> str:
 
 @pytest.fixture
 def corpus(tmp_path: Path) -> Path:
-    """The corpus, with the arrays the file cases name: one mis-shaped, one holding a NaN."""
-    for case in CASES:
-        shutil.copy(case, tmp_path / case.name)
-    np.save(tmp_path / "k_3x3x3.npy", np.ones((3, 3, 3)))
-    bad = np.ones((4, 4, 4))
-    bad[1, 2, 3] = np.nan
-    np.save(tmp_path / "k_nan.npy", bad)
-    np.save(tmp_path / "edges_decreasing.npy", np.array([0.0, 0.5, 0.1, 1.0]))
-    return tmp_path
+    return bad_job_corpus(tmp_path)
 
 
 @pytest.mark.parametrize("case", CASES, ids=lambda p: p.stem)

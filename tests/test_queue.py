@@ -10,7 +10,6 @@ import errno
 import json
 import math
 import os
-import shutil
 import sqlite3
 import subprocess
 import threading
@@ -37,9 +36,10 @@ from sevenfold.residual_log import log_path, read_log
 from sevenfold.runner import run_job
 from sevenfold.store import is_complete
 
+from conftest import BAD_JOBS, bad_job_corpus
 from queue_support import small_job
 
-CORPUS = Path(__file__).parent / "bad_jobs"
+CORPUS = BAD_JOBS
 
 
 @pytest.fixture
@@ -232,16 +232,7 @@ def test_a_bad_combination_is_refused_with_its_values(tmp_path: Path, home: Home
 # ---------------------------------------------------------------- refusals at submit
 @pytest.fixture
 def corpus(tmp_path: Path) -> Path:
-    folder = tmp_path / "corpus"
-    folder.mkdir()
-    for case in CORPUS.glob("*.toml"):
-        shutil.copy(case, folder / case.name)
-    np.save(folder / "k_3x3x3.npy", np.ones((3, 3, 3)))
-    bad = np.ones((4, 4, 4))
-    bad[1, 2, 3] = np.nan
-    np.save(folder / "k_nan.npy", bad)
-    np.save(folder / "edges_decreasing.npy", np.array([0.0, 0.5, 0.1, 1.0]))  # as test_bad_input's corpus
-    return folder
+    return bad_job_corpus(tmp_path / "corpus")
 
 
 def test_every_bad_job_is_refused_at_submit_and_the_queue_is_unchanged(corpus: Path, home: Home, capsys) -> None:
@@ -263,6 +254,27 @@ def test_every_bad_job_is_refused_at_submit_and_the_queue_is_unchanged(corpus: P
 
 
 # ---------------------------------------------------------------- snapshots
+def test_snapshot_takes_edge_files_and_directional_files(tmp_path: Path, home: Home) -> None:
+    """Graded-axis edges and one array per direction are copied into the home as well."""
+    np.save(tmp_path / "z.npy", np.array([0.0, 0.01, 0.025, 0.05]))
+    for c, v in zip("xyz", (5.0, 5.0, 0.5)):
+        np.save(tmp_path / f"k{c}.npy", np.full((4, 4, 3), v))
+    path = tmp_path / "graded.toml"
+    path.write_text(
+        'name = "graded"\n[grid]\ncells = [4, 4, "edges"]\nsize = [0.1, 0.1, "edges"]\n'
+        '[grid.edges]\nz = "z.npy"\n[material]\nfile = ["kx.npy", "ky.npy", "kz.npy"]\n'
+        '[boundary]\nz_min = { type = "dirichlet", value = 1.0 }\n[solver]\nmethod = "direct"\n')
+    with Queue(home) as q:
+        (j,) = submit(q, [path])
+        stored = q.get(j.id)
+    keys = sorted(i["key"] for i in stored.inputs)
+    assert keys == ["grid.edges.z", "material.file.0", "material.file.1", "material.file.2"]
+    snap = Path(stored.job_table["grid"]["edges"]["z"])
+    assert snap.is_relative_to(home.inputs)
+    np.testing.assert_array_equal(np.load(snap), [0.0, 0.01, 0.025, 0.05])
+    assert all(Path(f).is_relative_to(home.inputs) for f in stored.job_table["material"]["file"])
+
+
 def test_snapshot_keeps_the_job_as_submitted(tmp_path: Path, home: Home) -> None:
     k = np.full((6, 6, 6), 20.0)
     k[:3] = 2.0

@@ -91,7 +91,7 @@ def _check(args: argparse.Namespace) -> int:
         ("cells", f"{nx} x {ny} x {nz} = {plan.cells:,}"),
         ("box", " x ".join(f"[{o:.4g}, {o + e:.4g}]" for o, e in zip(grid.origin, grid.extent)) + " m"),
         ("cell widths", " x ".join(widths(a) for a in range(3)) + " m"),
-        ("coefficient", "directional [kx, ky, kz]" if not problem.isotropic else "one value for every direction"),
+        ("coefficient", "directional (kx, ky, kz)" if not problem.isotropic else "one value for every direction"),
         ("unknowns", f"{problem.unknowns:,}" + (" (pure Neumann: one cell pinned, mean(u) = 0)" if problem.gauge_mean_zero else "")),
         ("method", f"{plan.method}" + (" (chosen by auto)" if spec.solver.method == "auto" else "")),
         ("memory", f"about {human(plan.memory_bytes)} of {human(plan.available_bytes)} available"),

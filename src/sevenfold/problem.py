@@ -18,7 +18,6 @@ from .boundary import FaceTerms, face_terms
 from .errors import JobError
 from .grid import FACE_AXIS, Grid, grid_from_spec
 from .physics import PHYSICS
-from .shapes import mask
 from .spec import JobSpec
 
 BALANCE_RTOL = 1e-6

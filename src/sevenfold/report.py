@@ -57,7 +57,6 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
     u = result.array(name)
     units = result.units(name)
     edges = [result.edges(a) for a in range(3)]
-    n = [e.size - 1 for e in edges]
     centres = [0.5 * (e[1:] + e[:-1]) for e in edges]
     mids = [int(np.argmin(np.abs(c - 0.5 * (e[0] + e[-1])))) for c, e in zip(centres, edges)]  # nearest the middle
     planes = [

@@ -15,7 +15,6 @@ matrix (``kernels.assembly``), the balance and the derived fluxes all start from
 
 from __future__ import annotations
 
-import numpy as np
 from numba import njit, prange
 
 

@@ -7,7 +7,7 @@ as its spec and the presence of the files it names, so a sweep of large jobs doe
 every problem at submit time; the rest is checked when it starts.
 
 The snapshot is the job file's text and table as submitted, with the files it names
-(``material.file``, ``source.file``) copied into ``<home>/inputs/<sha256>/`` and the table
+(``material.file``, ``source.file``, ``grid.edges.<axis>`` files) copied into ``<home>/inputs/<sha256>/`` and the table
 pointing at the copies, so later edits of the file or its inputs do not change a queued job.
 The output path is resolved against the job file's folder at submit time.
 """
@@ -28,7 +28,23 @@ from .home import Home
 from .sweep import Variant, expand
 
 FULL_CHECK_CELLS = 4_000_000
-FILE_KEYS = ("material", "source")
+def file_references(table: dict[str, Any]) -> list[tuple[str, Any, Any]]:
+    """Every input file a job table names, as (key, container, index): ``material.file`` and
+    ``source.file`` (a path, or one per direction), and ``grid.edges.<axis>`` given as a path."""
+    out: list[tuple[str, Any, Any]] = []
+    for key in ("material", "source"):
+        sub = table.get(key)
+        if not isinstance(sub, dict):
+            continue
+        given = sub.get("file")
+        if isinstance(given, str):
+            out.append((f"{key}.file", sub, "file"))
+        elif isinstance(given, list):
+            out += [(f"{key}.file.{i}", given, i) for i, v in enumerate(given) if isinstance(v, str)]
+    edges = table.get("grid", {}).get("edges") if isinstance(table.get("grid"), dict) else None
+    if isinstance(edges, dict):
+        out += [(f"grid.edges.{a}", edges, a) for a in "xyz" if isinstance(edges.get(a), str)]
+    return out
 
 
 @dataclass(frozen=True)
@@ -74,10 +90,10 @@ def _check(variant: Variant, job_file: Path, source: str):
         settled, _ = prepare_problem(dataclasses.replace(plan, available_bytes=2**62))
         plan = dataclasses.replace(settled, available_bytes=plan.available_bytes)  # fft known now
     else:
-        for key in FILE_KEYS:
-            name = getattr(spec, key).file
-            if name is not None and not _resolve(name, job_file).exists():
-                raise JobError(f"file {str(_resolve(name, job_file))!r} does not exist", f"{key}.file", source)
+        for key, container, index in file_references(variant.table):
+            path = _resolve(container[index], job_file)
+            if not path.exists():
+                raise JobError(f"file {str(path)!r} does not exist", key, source)
     return plan
 
 
@@ -89,18 +105,15 @@ def _resolve(name: str, job_file: Path) -> Path:
 def _snapshot(table: dict[str, Any], job_file: Path, home: Home) -> tuple[dict[str, Any], list[dict[str, Any]]]:
     table = copy.deepcopy(table)
     inputs = []
-    for key in FILE_KEYS:
-        sub = table.get(key)
-        if isinstance(sub, dict) and isinstance(sub.get("file"), str):
-            original = _resolve(sub["file"], job_file).resolve()
-            try:
-                copy_path, digest = snapshot_input(original, home.inputs)
-            except OSError as exc:
-                raise JobError(f"cannot copy {str(original)!r} into the queue: {exc.strerror or exc}",
-                               f"{key}.file", str(job_file)) from None
-            sub["file"] = str(copy_path)
-            inputs.append({"key": f"{key}.file", "original": str(original), "snapshot": str(copy_path),
-                           "sha256": digest})
+    for key, container, index in file_references(table):
+        original = _resolve(container[index], job_file).resolve()
+        try:
+            copy_path, digest = snapshot_input(original, home.inputs)
+        except OSError as exc:
+            raise JobError(f"cannot copy {str(original)!r} into the queue: {exc.strerror or exc}",
+                           key, str(job_file)) from None
+        container[index] = str(copy_path)
+        inputs.append({"key": key, "original": str(original), "snapshot": str(copy_path), "sha256": digest})
     return table, inputs
 
 
