@@ -273,7 +273,7 @@ def parser() -> argparse.ArgumentParser:
     ex.add_argument("--vti", "--vtk", dest="vti", required=True, metavar="FILE",
                     help="the VTK file to write (.vti; a graded result is written as .vtr beside it)")
     ex.add_argument("--fields", help="comma-separated arrays to include (default: all cell fields)")
-    ex.add_argument("--quiet", "-q", action="store_true", help="print only the .vti path (and errors)")
+    ex.add_argument("--quiet", "-q", action="store_true", help="print only the written file's path (and errors)")
     ex.set_defaults(func=_export)
 
     d = sub.add_parser("demo", help="copy the example jobs into DIR and run them")
