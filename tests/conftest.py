@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pytest
 import scipy.sparse as sp
 
 from sevenfold.operator import assemble, scatter
@@ -237,3 +238,19 @@ def eliminate(A, b, held, held_value):
     Aff = A[free][:, free]
     bf = b[free] - A[free][:, fixed] @ held_value.ravel()[fixed]
     return Aff, bf
+
+
+# ---------------------------------------------------------------- queue tests
+@pytest.fixture(scope="session")
+def warm_cache(tmp_path_factory) -> Path:
+    """A numba cache with the kernels compiled: a draining worker on an empty queue makes it.
+
+    Shared by the queue and web tests that start workers (the first to ask pays the compile).
+    """
+    from queue_support import WorkerProcess, make_home
+
+    home = make_home(tmp_path_factory.mktemp("warm") / "home")
+    w = WorkerProcess(home, "--drain")
+    assert w.wait() == 0, w.output()
+    assert any(home.numba_cache.rglob("*.nbi")), "the warm-up left no compiled kernels"
+    return home.numba_cache

@@ -28,16 +28,6 @@ from queue_support import (
 )
 
 
-@pytest.fixture(scope="session")
-def warm_cache(tmp_path_factory) -> Path:
-    """A numba cache with the kernels compiled: a draining worker on an empty queue makes it."""
-    home = make_home(tmp_path_factory.mktemp("warm") / "home")
-    w = WorkerProcess(home, "--drain")
-    assert w.wait() == 0, w.output()
-    assert any(home.numba_cache.rglob("*.nbi")), "the warm-up left no compiled kernels"
-    return home.numba_cache
-
-
 def integrity(home) -> str:
     with sqlite3.connect(home.db) as c:
         return c.execute("PRAGMA integrity_check").fetchone()[0]

@@ -54,15 +54,15 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
     """The solution on the three mid-planes (x, y and z), one shared colour scale."""
     plt = _plt()
     name = result.solution
-    u = result.array(name)
+    u = result.group[name]  # read plane by plane below: never the whole field
     units = result.units(name)
     edges = [result.edges(a) for a in range(3)]
     centres = [0.5 * (e[1:] + e[:-1]) for e in edges]
     mids = [int(np.argmin(np.abs(c - 0.5 * (e[0] + e[-1])))) for c, e in zip(centres, edges)]  # nearest the middle
     planes = [
-        (u[mids[0], :, :], 1, 2, f"x = {centres[0][mids[0]]:.4g} m"),
-        (u[:, mids[1], :], 0, 2, f"y = {centres[1][mids[1]]:.4g} m"),
-        (u[:, :, mids[2]], 0, 1, f"z = {centres[2][mids[2]]:.4g} m"),
+        (np.asarray(u[mids[0], :, :]), 1, 2, f"x = {centres[0][mids[0]]:.4g} m"),
+        (np.asarray(u[:, mids[1], :]), 0, 2, f"y = {centres[1][mids[1]]:.4g} m"),
+        (np.asarray(u[:, :, mids[2]]), 0, 1, f"z = {centres[2][mids[2]]:.4g} m"),
     ]
     lo = min(float(p[0].min()) for p in planes)
     hi = max(float(p[0].max()) for p in planes)

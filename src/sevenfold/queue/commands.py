@@ -1,4 +1,4 @@
-"""The queue's subcommands: submit, list, show, watch, log, cancel, retry, forget, table, worker.
+"""The queue's subcommands: submit, list, show, watch, log, cancel, retry, forget, table, worker, view.
 
 Registered on the ``sevenfold`` parser by :func:`register`; each one is a thin shell over
 :mod:`sevenfold.queue.db`, :mod:`.submit`, :mod:`.results` and :mod:`.worker`. Every
@@ -269,11 +269,55 @@ def _list(args: argparse.Namespace) -> int:
 
 
 # ---------------------------------------------------------------- show
-def _show(args: argparse.Namespace) -> int:
+def show_rows(job: Job, now: float, last_residual: str | None = None) -> list[tuple[str, str]]:
+    """``show``'s summary of a job as (key, text) rows, plain text; also what the web view shows.
+
+    ``last_residual``: the one-line progress (:func:`.watch.describe`) when the job has residuals.
+    """
     from ..memory import human
     from ..store import is_complete
+
+    rows: list[tuple[str, str]] = [("job", f"{job.id}  {job.name}")]
+    rows.append(("state", job.state + (" (cancel requested)" if job.cancel_requested and job.state == "running" else "")))
+    if job.batch is not None:
+        rows.append(("batch", f"{job.batch_id}: " + ", ".join(f"{k} = {v!r}" for k, v in (job.variant or {}).items())))
+    rows.append(("priority", str(job.priority)))
+    rows.append(("attempts", f"{job.attempts} (at most {job.max_attempts} when a worker dies)"))
+    if job.time_limit:
+        rows.append(("time limit", duration(job.time_limit)))
+    rows.append(("submitted", stamp(job.submitted)))
+    if job.started:
+        rows.append(("started", f"{stamp(job.started)} (waited {duration(job.started - job.submitted)})"))
+    if job.finished:
+        rows.append(("finished", f"{stamp(job.finished)}" + (f" (ran {duration(job.finished - job.started)})" if job.started else "")))
+    elif job.started:
+        rows.append(("running for", duration(now - job.started)))
+    if job.worker:
+        beat = f", last heartbeat {duration(now - job.heartbeat)} ago" if job.heartbeat and job.state == "running" else ""
+        rows.append(("worker", f"{job.worker}{beat}"))
+    rows.append(("output", f"{job.output} ({'complete' if is_complete(Path(job.output)) else 'not written'})"))
+    rows.append(("source", job.source))
+    for i in job.inputs:
+        rows.append((i["key"], f"{i['original']} (snapshot {i['snapshot']}, sha256 {i['sha256'][:16]})"))
+    rows.append(("plan", f"{job.cells:,} cells, method {job.method}, about {human(job.memory_bytes)}"))
+    s = job.summary
+    if s:
+        rows.append(("solver", f"{s.get('method')}, {s.get('iterations')} iterations, "
+                               f"{'converged' if s.get('converged') else 'not converged'}, final relative residual "
+                               f"{s.get('final_relative_residual', float('nan')):.3e}"))
+        secs = s.get("seconds") or {}
+        rows.append(("seconds", ", ".join(f"{k} {v:.2f}" for k, v in secs.items())))
+    if last_residual:
+        rows.append(("last residual", last_residual))
+    if job.error:
+        rows.append(("error", job.error))
+    return rows
+
+
+def _show(args: argparse.Namespace) -> int:
+    from ..store import is_complete
     from .tomlwrite import dumps
-    from .watch import read_progress
+    from .watch import describe, read_progress
 
     out, _ = _consoles()
     queue = _queue(args)
@@ -283,52 +327,21 @@ def _show(args: argparse.Namespace) -> int:
     t = Table(show_header=False, box=None, pad_edge=False)
     t.add_column(style="bold", no_wrap=True)
     t.add_column(overflow="fold")
-
-    def row(key: str, value: str) -> None:
-        t.add_row(key, escape(value))
-
-    row("job", f"{job.id}  {job.name}")
-    t.add_row("state", f"[{STATE_STYLE[job.state]}]{job.state}[/]" + (" (cancel requested)" if job.cancel_requested and job.state == "running" else ""))
-    if job.batch is not None:
-        row("batch", f"{job.batch_id}: " + ", ".join(f"{k} = {v!r}" for k, v in (job.variant or {}).items()))
-    row("priority", str(job.priority))
-    row("attempts", f"{job.attempts} (at most {job.max_attempts} when a worker dies)")
-    if job.time_limit:
-        row("time limit", duration(job.time_limit))
-    row("submitted", stamp(job.submitted))
-    if job.started:
-        row("started", f"{stamp(job.started)} (waited {duration(job.started - job.submitted)})")
-    if job.finished:
-        row("finished", f"{stamp(job.finished)}" + (f" (ran {duration(job.finished - job.started)})" if job.started else ""))
-    elif job.started:
-        row("running for", duration(now - job.started))
-    if job.worker:
-        beat = f", last heartbeat {duration(now - job.heartbeat)} ago" if job.heartbeat and job.state == "running" else ""
-        row("worker", f"{job.worker}{beat}")
-    out_path = Path(job.output)
-    row("output", f"{job.output} ({'complete' if is_complete(out_path) else 'not written'})")
     from .submit import changes_since_submit
 
+    p = read_progress(job.output, since=job.started) if job.started else read_progress(job.output)
     changed = changes_since_submit(job)
     hint = f"; `sevenfold retry --from-file {job.id}` runs it as it is now" if job.state in ("failed", "cancelled") else ""
-    row("source", job.source + (f" ({'; '.join(changed)} since submit{hint})" if changed else ""))
-    for i in job.inputs:
-        row(i["key"], f"{i['original']} (snapshot {i['snapshot']}, sha256 {i['sha256'][:16]})")
-    row("plan", f"{job.cells:,} cells, method {job.method}, about {human(job.memory_bytes)}")
-    s = job.summary
-    if s:
-        row("solver", f"{s.get('method')}, {s.get('iterations')} iterations, "
-                      f"{'converged' if s.get('converged') else 'not converged'}, final relative residual "
-                      f"{s.get('final_relative_residual', float('nan')):.3e}")
-        secs = s.get("seconds") or {}
-        row("seconds", ", ".join(f"{k} {v:.2f}" for k, v in secs.items()))
-    p = read_progress(job.output, since=job.started) if job.started else read_progress(job.output)
-    if p.history:
-        from .watch import describe
-
-        row("last residual", describe(p))
-    if job.error:
-        t.add_row("error", f"[red]{escape(job.error)}[/red]")
+    for key, text in show_rows(job, now, describe(p) if p.history else None):
+        if key == "source" and changed:
+            text += f" ({'; '.join(changed)} since submit{hint})"
+        if key == "state":
+            t.add_row(key, f"[{STATE_STYLE[job.state]}]{job.state}[/]" + escape(text[len(job.state):]))
+        elif key == "error":
+            t.add_row(key, f"[red]{escape(text)}[/red]")
+        else:
+            t.add_row(key, escape(text))
+    out_path = Path(job.output)
     out.print(t)
     if is_complete(out_path):
         import zarr
@@ -594,6 +607,13 @@ def _worker(args: argparse.Namespace) -> int:
     return worker.run(handle_signals=True)
 
 
+# ---------------------------------------------------------------- view
+def _view(args: argparse.Namespace) -> int:
+    from ..web.serve import serve
+
+    return serve(args.home, args.host, args.port)
+
+
 # ---------------------------------------------------------------- registration
 def register(sub: argparse._SubParsersAction) -> None:
     """Add the queue's subcommands to the ``sevenfold`` parser."""
@@ -675,3 +695,10 @@ def register(sub: argparse._SubParsersAction) -> None:
     wk.add_argument("--threads", type=_positive_int, default=None, metavar="N",
                     help="with --cluster: threads per job on the Dask worker (default 1)")
     wk.set_defaults(func=_worker)
+
+    v = sub.add_parser("view", parents=[home], help="a live web page of the queue (read-only; cancel and retry with the printed link)")
+    v.add_argument("--host", default="127.0.0.1",
+                   help="interface to listen on (default 127.0.0.1, this machine only; anything else is "
+                        "reachable from the network: prefer an SSH tunnel)")
+    v.add_argument("--port", type=int, default=8765, help="TCP port (default 8765; 0 picks a free one)")
+    v.set_defaults(func=_view)

@@ -234,17 +234,31 @@ def stamp(t: float | None) -> str:
 class Queue:
     """A connection to a queue home's database; one per thread."""
 
-    def __init__(self, home: Home, timing: Timing | None = None) -> None:
+    def __init__(self, home: Home, timing: Timing | None = None, readonly: bool = False) -> None:
+        """Open (and on first use create) the queue database.
+
+        ``readonly``: open an existing database read-only (SQLite ``mode=ro``), for viewers;
+        nothing is created, and any change raises :class:`QueueError`. In WAL mode a reader
+        never blocks the writers.
+        """
         self.home = home
         self.timing = timing or Timing.from_env()
+        self.readonly = readonly
+        if readonly and not home.db.is_file():
+            raise QueueError(f"there is no queue in {str(home.root)!r} yet (no queue.db); "
+                             "submit a job there first, or name another --home")
         try:
-            self._conn = sqlite3.connect(
-                str(home.db), timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None
-            )
+            if readonly:
+                self._conn = sqlite3.connect(home.db.as_uri() + "?mode=ro", uri=True,
+                                             timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None)
+            else:
+                self._conn = sqlite3.connect(
+                    str(home.db), timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None
+                )
         except sqlite3.Error as exc:
             raise QueueError(f"cannot open the queue database {str(home.db)!r}: {exc}") from None
         self._conn.row_factory = sqlite3.Row
-        self._retry(self._setup)
+        self._retry(self._check_readable if readonly else self._setup)
 
     # ---------------------------------------------------------------- transactions
     def _setup(self) -> None:
@@ -272,6 +286,14 @@ class Queue:
             if c.in_transaction:
                 c.execute("ROLLBACK")
             raise
+
+    def _check_readable(self) -> None:
+        c = self._conn
+        c.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS}")
+        row = c.execute("SELECT value FROM meta WHERE key = 'schema'").fetchone()
+        if row is None or int(row[0]) > SCHEMA_VERSION:
+            raise QueueError(f"the queue in {str(self.home.root)!r} has schema "
+                             f"{row[0] if row else 'none'}; this sevenfold reads schema {SCHEMA_VERSION}")
 
     def _retry(self, fn: Callable[[], T]) -> T:
         deadline = time.monotonic() + BUSY_DEADLINE
@@ -421,6 +443,17 @@ class Queue:
         rows = self.read(lambda c: c.execute(
             "SELECT id, job, time, event, detail FROM events WHERE job = ? ORDER BY id", (job_id,)).fetchall())
         return [Event(**dict(r)) for r in rows]
+
+    def batch(self, batch_id: int) -> dict[str, Any] | None:
+        """A batch's row (``source mode keys size submitted``; ``keys`` a list), None when unknown."""
+        row = self.read(lambda c: c.execute("SELECT * FROM batches WHERE id = ?", (batch_id,)).fetchone())
+        if row is None:
+            return None
+        return {**dict(row), "keys": json.loads(row["keys"])}
+
+    def last_event(self) -> int:
+        """The id of the newest event (0 for none): it changes whenever a job changes state."""
+        return int(self.read(lambda c: c.execute("SELECT COALESCE(MAX(id), 0) FROM events").fetchone()[0]))
 
     def counts(self) -> dict[str, int]:
         """How many jobs are in each state."""

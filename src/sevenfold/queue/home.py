@@ -55,13 +55,9 @@ class Home:
         return self.job_dir(job_id) / "cancel"
 
 
-def locate(home: str | Path | None = None, create: bool = True) -> Home:
-    """The queue home: ``home``, else ``$SEVENFOLD_HOME``, else the user data directory.
-
-    The folder is created when missing; an unusable one raises :class:`QueueError`. With
-    ``create=False`` a home that holds no queue (no ``queue.db``) raises QueueError instead
-    and nothing is created.
-    """
+def home_root(home: str | Path | None = None) -> Path:
+    """The queue home's absolute path (``home``, else ``$SEVENFOLD_HOME``, else the user data
+    directory), without creating or checking it: what a read-only viewer needs."""
     if home is not None and str(home).strip():
         root = Path(home).expanduser()
     elif os.environ.get(HOME_ENV, "").strip():
@@ -70,7 +66,17 @@ def locate(home: str | Path | None = None, create: bool = True) -> Home:
         from platformdirs import user_data_path
 
         root = user_data_path("sevenfold")
-    root = root.resolve()
+    return root.resolve()
+
+
+def locate(home: str | Path | None = None, create: bool = True) -> Home:
+    """The queue home: ``home``, else ``$SEVENFOLD_HOME``, else the user data directory.
+
+    The folder is created when missing; an unusable one raises :class:`QueueError`. With
+    ``create=False`` a home that holds no queue (no ``queue.db``) raises QueueError instead
+    and nothing is created.
+    """
+    root = home_root(home)
     if not create and not (root / "queue.db").is_file():
         raise QueueError(f"there is no queue in {str(root)!r}; `sevenfold submit` starts one there, "
                          f"or point --home (or ${HOME_ENV}) at the queue you mean")

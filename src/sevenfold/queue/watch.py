@@ -74,10 +74,11 @@ class Progress:
     history: list[float]
     seconds: list[float]
     ended: dict[str, Any] | None
+    first: int = 0  # the iteration of history[0]: a viewer may keep only the last few
 
     @property
     def iteration(self) -> int | None:
-        return len(self.history) - 1 if self.history else None
+        return self.first + len(self.history) - 1 if self.history else None
 
     @property
     def rtol(self) -> float | None:
@@ -121,13 +122,14 @@ def describe(p: Progress) -> str:
         if left is None and f is not None:
             parts.append(f"not approaching rtol {p.rtol:.0e} at this rate")
         elif left is not None and left > 0:
-            per = _seconds_per_iteration(p)
+            per = seconds_per_iteration(p)
             eta = f", about {left * per:.0f} s" if per is not None else ""
             parts.append(f"about {left} more to rtol {p.rtol:.0e}{eta}")
     return ", ".join(parts)
 
 
-def _seconds_per_iteration(p: Progress) -> float | None:
+def seconds_per_iteration(p: Progress) -> float | None:
+    """Mean seconds per iteration over the last :data:`RATE_WINDOW` iterations."""
     w = min(RATE_WINDOW, len(p.seconds) - 1)
     if w < 1:
         return None
