@@ -63,11 +63,15 @@ class StoredResult:
     def _in_group(self, name: str) -> str:
         return self.stored.get(RENAMED.get(name, name), name)
 
+    def lazy(self, name: str) -> Any:
+        """The zarr array ``name`` (current name), read only as far as it is indexed."""
+        return self.group[self._in_group(name)]
+
     def array(self, name: str) -> np.ndarray:
-        return np.asarray(self.group[self._in_group(name)][...])
+        return np.asarray(self.lazy(name)[...])
 
     def units(self, name: str) -> str:
-        return str(self.group[self._in_group(name)].attrs.get("units", ""))
+        return str(self.lazy(name).attrs.get("units", ""))
 
 
 def open_result(path: str | Path) -> StoredResult:

@@ -54,7 +54,7 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
     """The solution on the three mid-planes (x, y and z), one shared colour scale."""
     plt = _plt()
     name = result.solution
-    u = result.group[name]  # read plane by plane below: never the whole field
+    u = result.lazy(name)  # read plane by plane below: never the whole field
     units = result.units(name)
     edges = [result.edges(a) for a in range(3)]
     centres = [0.5 * (e[1:] + e[:-1]) for e in edges]
