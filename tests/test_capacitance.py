@@ -166,7 +166,8 @@ def test_capacitance_command(tmp_path: Path, capsys) -> None:
 
 @pytest.mark.parametrize("physics, top, message", [
     ("heat", TOP, "capacitance needs physics = 'electrostatics'"),
-    ("electrostatics", "", "needs two or more [[hold]] electrodes"),
+    # one electrode is fine (its self-capacitance), but only to a grounded face, and this has none
+    ("electrostatics", "", "self-capacitance is to the grounded faces, and this job has none"),
 ])
 def test_capacitance_refusals(tmp_path: Path, capsys, physics: str, top: str, message: str) -> None:
     assert main(["capacitance", str(_write(tmp_path, PLATES_TOML.format(physics=physics, top=top)))]) == 2

@@ -1,8 +1,8 @@
 """The balance of a solved problem: sources, flows out through the six faces, flows into holds.
 
 Every flow is computed from the same discrete fluxes the operator uses, so that summing the
-free cells' equations gives ``source = sum(face outflows) + sum(hold inflows)`` up to the
-solver's residual (the imbalance is the volume-weighted sum of the residuals b - A u).
+free cells' equations gives ``source = sum(face outflows) + sum(hold inflows)
++ sum(exchange outflows)`` up to the solver's residual (the imbalance is the volume-weighted sum of the residuals b - A u).
 
 * Source: sum of f V over the cells not in a hold. Held cells' sources are not part of the
   equations and are left out. For a pure-Neumann problem, f is the rounding-adjusted source
@@ -10,6 +10,11 @@ solver's residual (the imbalance is the volume-weighted sum of the residuals b -
   its equation is implied by the others because the adjusted sources balance exactly.
 * Face outflow (positive leaving the domain), for every boundary cell of the face, held or
   free: ``-(G (value - u_P) + q) A``.
+* Patch outflow: the part of its face's outflow through the boundary faces a ``[[patch]]``
+  owns (where patches overlap, the later one). Face lines include their patches, so the
+  patch lines are a breakdown and take no part in the imbalance.
+* Exchange outflow (positive leaving the domain into the reference): ``c V (u_P - reference)``
+  summed over the free cells of an ``[[exchange]]``.
 * Hold inflow (positive into the hold): the flux from every neighbouring cell that is not in
   the same hold, ``T_PN (u_N - u_P)`` with the operator's face conductance T, minus what the hold's own cells
   lose through boundary faces. That is what the agent keeping the hold at its value must
@@ -26,10 +31,13 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from .conditions import exchange_outflow
+from .electrodes import hold_potentials
 from .grid import FACE_AXIS, Grid
 from .operator import conductances
 from .problem import Problem
 from .spec import FACES
+from .wells import WellFlow, well_flows
 
 # Cells per slab when summing face fluxes: bounds the temporaries on large grids.
 _SLAB_CELLS = 1 << 22
@@ -45,6 +53,27 @@ class HoldFlow:
     cells: int
     inflow: float  # amount per time into the hold, positive in (units of the physics' amount)
     charge: float | None = None  # electrostatics: -inflow (C)
+    floating: bool = False  # a floating electrode: ``value`` is its solved potential
+
+
+@dataclass(frozen=True)
+class PatchFlow:
+    """One ``[[patch]]``: outflow through the boundary faces it owns (a part of its face's line)."""
+
+    name: str
+    face: str
+    area: float  # m^2 of the faces the patch selects
+    outflow: float  # amount per time leaving the domain, positive out
+
+
+@dataclass(frozen=True)
+class ExchangeFlow:
+    """One ``[[exchange]]``: the amount its free cells send into its reference."""
+
+    name: str
+    cells: int
+    outflow: float  # amount per time leaving the domain into the reference, positive out
+    acting: int | None = None  # a drain (only = "outflow"): its free cells that act
 
 
 @dataclass(frozen=True)
@@ -55,9 +84,12 @@ class Balance:
     source: float
     faces: dict[str, float]  # outflow per face, positive leaving the domain
     holds: list[HoldFlow] = field(default_factory=list)
-    imbalance: float = 0.0  # source - sum(faces) - sum(hold inflows)
+    imbalance: float = 0.0  # source + sum(well rates) - sum(faces) - sum(hold inflows)
     scale: float = 0.0  # the largest term's magnitude
     relative_imbalance: float = 0.0  # |imbalance| / scale (0 when every term is 0)
+    patches: list[PatchFlow] = field(default_factory=list)  # a breakdown of the faces' lines
+    exchanges: list[ExchangeFlow] = field(default_factory=list)
+    wells: list[WellFlow] = field(default_factory=list)  # rate INTO the aquifer, bore head (wells.py)
 
     def to_dict(self) -> dict:
         """JSON-friendly form for the result attributes."""
@@ -149,16 +181,40 @@ def compute_balance(problem: Problem, u: np.ndarray, units: str = "1",
             inflow -= np.bincount(idx[idx >= 0], weights=out[idx >= 0], minlength=count)[:count]
 
     cells = np.bincount(index[index >= 0].ravel(), minlength=count) if count else np.zeros(0, int)
+    floating = hold_potentials(problem, u)
     holds = []
     for i in range(count):
         name = (names[i] if names is not None and i < len(names) else None) or f"hold {i}"
-        value = float(values[i]) if values is not None and i < len(values) else float("nan")
+        given = values[i] if values is not None and i < len(values) else None
+        value = floating.get(i, float(given) if given is not None else float("nan"))
         holds.append(HoldFlow(i, name, value, int(cells[i]), float(inflow[i]),
-                              -float(inflow[i]) if charges else None))
-    imbalance = source - sum(faces.values()) - float(inflow.sum())
-    scale = max([abs(source), *map(abs, faces.values()), *map(abs, inflow)], default=0.0)
+                              -float(inflow[i]) if charges else None, i in floating))
+    patches, exchanges = placed_flows(problem, u)
+    exchanged = [e.outflow for e in exchanges]
+    wells = well_flows(problem.wells, u)
+    rates = [w.rate for w in wells]
+    imbalance = source + sum(rates) - sum(faces.values()) - float(inflow.sum()) - sum(exchanged)
+    scale = max([abs(source), *map(abs, faces.values()), *map(abs, inflow), *map(abs, exchanged),
+                 *map(abs, rates)], default=0.0)
     relative = abs(imbalance) / scale if scale > 0 else 0.0
-    return Balance(units, source, faces, holds, imbalance, scale, relative)
+    return Balance(units, source, faces, holds, imbalance, scale, relative,
+                   patches=patches, exchanges=exchanges, wells=wells)
+
+
+def placed_flows(problem: Problem, u: np.ndarray) -> tuple[list[PatchFlow], list[ExchangeFlow]]:
+    """Each patch's outflow through the faces it owns (later patches own overlaps; the faces'
+    own lines include their patches) and each exchange's outflow into its reference."""
+    patches = []
+    for p in problem.patches:
+        out = face_outflow_density(problem, u, p.face) * problem.grid.face_areas(FACE_AXIS[p.face][0])
+        patches.append(PatchFlow(p.name, p.face, p.area, float(out[p.owned].sum())))
+    exchanges = []
+    for e in problem.exchanges:
+        free = ~problem.held.reshape(-1)[e.cells]
+        acting = int(np.count_nonzero(free & (e.effective > 0))) if e.outflow_only else None
+        exchanges.append(ExchangeFlow(e.name, int(np.count_nonzero(free)),
+                                      exchange_outflow(e, u, problem.held), acting))
+    return patches, exchanges
 
 
 def balance_rows(balance: dict) -> list[tuple[str, float]]:
@@ -169,10 +225,22 @@ def balance_rows(balance: dict) -> list[tuple[str, float]]:
     rows: list[tuple[str, float]] = [("source (free cells)", balance["source"])]
     for face, v in balance["faces"].items():
         rows.append((f"out through {face}", v))
+        rows.extend((f"  of which through patch {p['name']}", p["outflow"])
+                    for p in balance.get("patches", []) if p["face"] == face)
+    for e in balance.get("exchanges", []):
+        acting = e.get("acting")
+        rows.append((f"out into exchange {e['name']}"
+                     + (f" (drain: {acting} of {e['cells']} cells acting)" if acting is not None else ""),
+                     e["outflow"]))
     for h in balance["holds"]:
-        if h.get("charge") is not None:
+        if h.get("floating"):
+            rows.append((f"charge on {h['name']} (floating, solved {h['value']:.6g} V)", h["charge"]))
+        elif h.get("charge") is not None:
             rows.append((f"charge on {h['name']} ({h['value']:g})", h["charge"]))
         else:
             rows.append((f"into {h['name']} ({h['value']:g})", h["inflow"]))
+    for w in balance.get("wells", ()):
+        given = "given rate" if w["given"] == "rate" else "given head"
+        rows.append((f"from well {w['name']} ({given}; bore head {w['head']:.6g} m)", w["rate"]))
     rows.append(("imbalance", balance["imbalance"]))
     return rows

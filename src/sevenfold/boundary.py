@@ -9,6 +9,9 @@ flux per unit area is ``G * (value - u_P)`` with
 * Robin ``coefficient c, reference``: G = 1 / (1/c + h / (2 k_P))  (film in series with half a cell)
 * Neumann ``flux q``:            a fixed inward flux q, no G.
 
+``[[patch]]`` tables overwrite parts of a face with their own terms (see conditions.py);
+a face whose boundary faces then differ in type has ``kind`` "mixed".
+
 Times the face's area, G joins the cell's diagonal and G*value (or q) its right-hand side
 (the rows of the operator are balances over each cell: amount per unit time).
 """
@@ -22,7 +25,7 @@ import numpy as np
 from .errors import JobError
 from .expressions import evaluate
 from .grid import FACE_AXIS, Grid
-from .spec import FACES, BoundarySpec, Dirichlet, Neumann, Robin
+from .spec import FACES, BoundarySpec
 
 
 @dataclass(frozen=True)
@@ -47,7 +50,8 @@ class FaceTerms:
         return (self.conductance * self.value + self.flux) * area
 
 
-def _on_face(value: float | str, grid: Grid, face: str, where: str, positive: bool = False) -> np.ndarray:
+def _on_face(value: float | str, grid: Grid, face: str, where: str, positive: bool = False,
+             not_negative: bool = False) -> np.ndarray:
     axis, _ = FACE_AXIS[face]
     shape = tuple(n for a, n in enumerate(grid.cells) if a != axis)
     if isinstance(value, str):
@@ -58,7 +62,30 @@ def _on_face(value: float | str, grid: Grid, face: str, where: str, positive: bo
         raise JobError("evaluates to NaN or infinity on the face", where)
     if positive and not np.all(out > 0):
         raise JobError(f"must be positive on the whole face, minimum is {float(out.min())!r}", where)
+    if not_negative and not np.all(out >= 0):
+        raise JobError(f"must not be negative on the face (0 insulates), minimum is "
+                       f"{float(out.min())!r}", where)
     return out
+
+
+def condition_terms(cond, grid: Grid, face: str, kp: np.ndarray, where: str,
+                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(G, value, flux) of a condition over the whole of ``face``: ``cond`` has a ``type`` and
+    the keys of that type (a ``boundary.<face>`` entry or a ``[[patch]]``). A robin
+    ``coefficient`` may be 0 where an expression says so: insulated there (G = 0)."""
+    axis, _ = FACE_AXIS[face]
+    h = grid.boundary_width(face)
+    zero = np.zeros_like(kp)
+    if cond.type == "dirichlet":
+        return 2.0 * kp / h, _on_face(cond.value, grid, face, f"{where}.value"), zero
+    if cond.type == "robin":
+        c = _on_face(cond.coefficient, grid, face, f"{where}.coefficient", not_negative=True)
+        g = c / (1.0 + c * h / (2.0 * kp))  # 1 / (1/c + h/(2 k_P)), and 0 where c = 0
+        return g, _on_face(cond.reference, grid, face, f"{where}.reference"), zero
+    if cond.type == "neumann":
+        flux = cond.flux if cond.flux is not None else 0.0
+        return zero, zero, _on_face(flux, grid, face, f"{where}.flux")
+    raise TypeError(cond)  # pragma: no cover - the spec admits no other type
 
 
 def boundary_cells(k: np.ndarray, face: str) -> np.ndarray:
@@ -73,19 +100,6 @@ def face_terms(spec: BoundarySpec, grid: Grid, k: tuple[np.ndarray, np.ndarray, 
     for face in FACES:
         cond = spec.face(face)
         axis, _ = FACE_AXIS[face]
-        h = grid.boundary_width(face)
         kp = boundary_cells(k[axis], face)
-        zero = np.zeros_like(kp)
-        where = f"boundary.{face}"
-        if isinstance(cond, Dirichlet):
-            g = 2.0 * kp / h
-            out[face] = FaceTerms("dirichlet", g, _on_face(cond.value, grid, face, f"{where}.value"), zero)
-        elif isinstance(cond, Robin):
-            c = _on_face(cond.coefficient, grid, face, f"{where}.coefficient", positive=True)
-            g = 1.0 / (1.0 / c + h / (2.0 * kp))
-            out[face] = FaceTerms("robin", g, _on_face(cond.reference, grid, face, f"{where}.reference"), zero)
-        elif isinstance(cond, Neumann):
-            out[face] = FaceTerms("neumann", zero, zero, _on_face(cond.flux, grid, face, f"{where}.flux"))
-        else:  # pragma: no cover - the spec admits no other type
-            raise TypeError(cond)
+        out[face] = FaceTerms(cond.type, *condition_terms(cond, grid, face, kp, f"boundary.{face}"))
     return out

@@ -73,6 +73,7 @@ def balance_table(balance: dict, title: str = "balance") -> Table:
 
 def _check(args: argparse.Namespace) -> int:
     from .memory import human
+    from .conditions import placed_rows
     from .runner import plan_job, prepare_problem
 
     plan = plan_job(args.job)
@@ -92,12 +93,16 @@ def _check(args: argparse.Namespace) -> int:
         ("box", " x ".join(f"[{o:.4g}, {o + e:.4g}]" for o, e in zip(grid.origin, grid.extent)) + " m"),
         ("cell widths", " x ".join(widths(a) for a in range(3)) + " m"),
         ("coefficient", "directional (kx, ky, kz)" if not problem.isotropic else "one value for every direction"),
+        *placed_rows(problem),
         ("unknowns", f"{problem.unknowns:,}" + (" (pure Neumann: one cell pinned, mean(u) = 0)" if problem.gauge_mean_zero else "")),
         ("method", f"{plan.method}" + (" (chosen by auto)" if spec.solver.method == "auto" else "")),
         ("memory", f"about {human(plan.memory_bytes)} of {human(plan.available_bytes)} available"),
         ("output", str(plan.output)),
     ):
         table.add_row(key, value)
+    for w in problem.wells:  # where each well landed: its screened cells and Peaceman radius
+        table.add_row(f"well {escape(w.name)}", f"{w.k.size} cell(s) of column ({w.i}, {w.j}), screened "
+                      f"{float(w.length.sum()):.4g} m; Peaceman radius {float(w.r_e.min()):.3g} m")
     out.print(table)
     out.print("[green]valid[/green]: the job file, its regions, files and boundary data all check out")
     return EXIT_OK
@@ -133,6 +138,7 @@ def _run(args: argparse.Namespace) -> int:
 
 def _capacitance(args: argparse.Namespace) -> int:
     from .capacitance import capacitance_matrix
+    from .conditions import placed_rows
     from .runner import plan_job, prepare_problem
 
     plan = plan_job(args.job)
@@ -146,19 +152,30 @@ def _capacitance(args: argparse.Namespace) -> int:
         res = capacitance_matrix(problem, names, spec.solver)
     except JobError as exc:
         raise exc if exc.source else exc.located(str(plan.job_file))
-    table = Table(title="capacitance matrix (pF)", title_justify="left", box=None)
+    # a thin (2D) problem is reported per metre along its thin axis (capacitance.thin_axis)
+    matrix, ground, unit = res.matrix, res.ground, "pF"
+    if res.thin_axis is not None:
+        matrix, ground, unit = res.per_length, res.ground / res.thickness, "pF/m"
+        out.print(f"one cell ({res.thickness:g} m) along {res.thin_axis}, insulated across it: a 2D problem; "
+                  f"capacitance per metre along {res.thin_axis}")
+    title = "capacitance matrix" if len(names) > 1 else "self-capacitance"
+    table = Table(title=f"{title} ({unit})", title_justify="left", box=None)
     table.add_column("at 1 V")
     for n in names:
         table.add_column(escape(n), justify="right")
     if res.grounded_faces:
         table.add_column("ground", justify="right")
     for i, n in enumerate(names):
-        cells = [f"{1e12 * c:.6g}" for c in res.matrix[i]]
+        cells = [f"{1e12 * c:.6g}" for c in matrix[i]]
         if res.grounded_faces:
-            cells.append(f"{1e12 * res.ground[i]:.6g}")
+            cells.append(f"{1e12 * ground[i]:.6g}")
         table.add_row(escape(n), *cells)
     out.print(table)
-    out.print("row i: electrode i at 1 V, the others at 0 V; column j: the charge on electrode j")
+    if len(names) == 1:
+        out.print(f"self-capacitance of {escape(names[0])} to the grounded faces "
+                  f"{', '.join(res.grounded_faces)}: {1e12 * matrix[0, 0]:.6g} {unit} (C = Q / V)")
+    if len(names) > 1:
+        out.print("row i: electrode i at 1 V, the others at 0 V; column j: the charge on electrode j")
     if res.grounded_faces:
         out.print(f"grounded: the faces {', '.join(res.grounded_faces)} act as one further conductor at 0 V "
                   "(their charge is the ground column)")
@@ -166,7 +183,7 @@ def _capacitance(args: argparse.Namespace) -> int:
         out.print("no grounded face: each row sums to zero")
     if len(names) == 2:
         out.print(f"{'mutual ' if res.grounded_faces else ''}capacitance between {escape(names[0])} and "
-                  f"{escape(names[1])}: {-1e12 * res.matrix[0, 1]:.6g} pF (minus the off-diagonal entry)")
+                  f"{escape(names[1])}: {-1e12 * matrix[0, 1]:.6g} {unit} (minus the off-diagonal entry)")
     out.print(f"symmetry: max |C - C^T| / max |C| = {res.asymmetry:.1e}; {res.method}, "
               f"iterations per solve {res.iterations}")
     return EXIT_OK
@@ -250,7 +267,8 @@ def parser() -> argparse.ArgumentParser:
     r.set_defaults(func=_run)
 
     cap = sub.add_parser("capacitance", help="capacitance matrix of an electrostatics job's electrodes")
-    cap.add_argument("job", help="job file (TOML) with physics = 'electrostatics' and two or more [[hold]]")
+    cap.add_argument("job", help="job file (TOML) with physics = 'electrostatics' and one or more [[hold]] "
+                                 "(one: its self-capacitance to the grounded faces)")
     cap.set_defaults(func=_capacitance)
 
     cv = sub.add_parser("converge", help="grid-convergence study: observed order, extrapolation, GCI")

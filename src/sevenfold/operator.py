@@ -15,10 +15,12 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
+from .conditions import add_exchanges, apply_contacts
 from .kernels.assembly import fill_rows, number_rows, row_lengths
 from .kernels.stencil import fine_stencil, transmissibility
 from .problem import Problem, complete_field
 from .spec import FACES
+from .wells import add_wells
 
 INT32_MAX = np.iinfo(np.int32).max
 
@@ -62,6 +64,7 @@ def conductances(problem: Problem, start: int = 0, stop: int | None = None,
     shape = k[0].shape
     tx, ty, tz = (np.empty(shape) for _ in range(3))
     transmissibility(k[0], k[1], k[2], np.ascontiguousarray(dx[start:hi]), dy, dz, tx, ty, tz)
+    apply_contacts(problem.contacts, problem.grid, (tx, ty, tz), start, stop)
     n = stop - start
     return tx[:n], ty[:n], tz[:n]
 
@@ -78,6 +81,9 @@ def face_arrays(problem: Problem) -> FaceArrays:
     face_rhs = tuple(np.ascontiguousarray(problem.faces[f].rhs(areas[f])) for f in FACES)
     fine_stencil(tx, ty, tz, problem.held, problem.held_value, problem.source, dx, dy, dz,
                  face_diag, face_rhs, diag, b)
+    add_exchanges(problem.exchanges, problem.held, diag, b)
+    if problem.wells:
+        add_wells(problem.wells, problem.held, diag, b)  # rates to b; a head well's index to diag and b
     return FaceArrays(tx, ty, tz, diag, b)
 
 

@@ -15,10 +15,14 @@ import numpy as np
 
 from . import fields
 from .boundary import FaceTerms, face_terms
+from .conditions import (ContactTerms, ExchangeTerms, PatchTerms, apply_patches, build_contacts,
+                         build_exchanges)
+from .electrodes import floating_charges
 from .errors import JobError
 from .grid import FACE_AXIS, Grid, grid_from_spec
 from .physics import PHYSICS
 from .spec import JobSpec
+from .wells import Well, place_wells, total_rate
 
 BALANCE_RTOL = 1e-6
 
@@ -37,6 +41,14 @@ class Problem:
     # Which [[hold]] holds each cell (the last listed that covers it), -1 elsewhere; the cell
     # pinned in a pure-Neumann problem is held but belongs to no hold. None: not recorded.
     hold_index: np.ndarray | None = None
+    # [[patch]], [[exchange]] and [[contact]] tables as discretised (see conditions.py); the
+    # patches are already part of ``faces``, kept here for the balance and the report.
+    patches: tuple[PatchTerms, ...] = ()
+    exchanges: tuple[ExchangeTerms, ...] = ()
+    contacts: tuple[ContactTerms, ...] = ()
+    # Floating electrodes: (hold index, charge in C), held at 0 V here (electrodes.py)
+    floating: tuple[tuple[int, float], ...] = ()
+    wells: tuple[Well, ...] = ()  # [[well]] tables placed on the grid (wells.py)
 
     @property
     def unknowns(self) -> int:
@@ -67,26 +79,40 @@ def build_problem(
     physics = PHYSICS[spec.physics]
     k = fields.coefficient(spec.material, grid, physics.coefficient_scale, coefficient_file)
     f = fields.source(spec.source, grid, source_file)
-    faces = face_terms(spec.boundary, grid, k)
+    faces, patches = apply_patches(spec.patch, grid, k, face_terms(spec.boundary, grid, k))
+    placed = dict(patches=patches, exchanges=build_exchanges(spec.exchange, grid),
+                  contacts=build_contacts(spec.contact, grid))
 
     held = np.zeros(grid.shape, dtype=np.bool_)
     held_value = np.zeros(grid.shape, dtype=np.float64)
     hold_index = np.full(grid.shape, -1, dtype=np.int32)
     for i, (hold, m) in enumerate(zip(spec.hold, fields.region_masks(spec.hold, grid, "hold"))):
         held |= m
-        held_value[m] = hold.value
+        held_value[m] = hold.value if hold.value is not None else 0.0  # floating: 0 V, see electrodes.py
         hold_index[m] = i
     if held.all():
         raise JobError("every cell is held; nothing is left to solve", "hold")
 
-    fixed = held.any() or any(t.kind != "neumann" for t in faces.values())
+    floating = floating_charges(spec, hold_index, faces)
+    wells = place_wells(spec.well, grid, k, held)
+    # fixed by a hold, a face or patch with a conductance (dirichlet, robin), an exchange, or a
+    # head well (a drain, acting only where u > reference, may end up idle: it fixes nothing)
+    fixed = (held.any() or any(t.conductance.any() for t in faces.values())
+             or any(e.conductance.any() for e in placed["exchanges"] if not e.outflow_only)
+             or any(w.head is not None for w in wells))
+    if not fixed and any(e.outflow_only for e in placed["exchanges"]):
+        raise JobError("an exchange with only = \"outflow\" may stop acting, so it cannot be the only "
+                       "condition that fixes u; add a dirichlet or robin face, a hold, or an exchange "
+                       "that acts both ways", "exchange")
     if fixed:
-        return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index)
+        return Problem(grid, k, f, faces, held, held_value, hold_index=hold_index, floating=floating,
+                       wells=wells, **placed)
 
     inflow = neumann_inflow(faces, grid)
-    generated = grid.integrate(f)
+    generated = grid.integrate(f) + total_rate(wells)  # rate wells are sources too
     imbalance = generated + inflow
-    scale = grid.integrate(np.abs(f)) + neumann_inflow(faces, grid, absolute=True)
+    scale = (grid.integrate(np.abs(f)) + neumann_inflow(faces, grid, absolute=True)
+             + total_rate(wells, absolute=True))
     if abs(imbalance) > BALANCE_RTOL * scale:
         units = physics.amount_units
         raise JobError(
@@ -97,7 +123,8 @@ def build_problem(
         )
     f = f - imbalance / float(np.prod(grid.extent))
     held[0, 0, 0] = True  # pin: with a balanced right-hand side the pinned equation holds too
-    return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True, hold_index=hold_index)
+    return Problem(grid, k, f, faces, held, held_value, gauge_mean_zero=True, hold_index=hold_index,
+                   wells=wells, **placed)
 
 
 def complete_field(problem: Problem, u: np.ndarray) -> np.ndarray:

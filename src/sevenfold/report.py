@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import html
 import math
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -50,8 +51,94 @@ def residual_figure(result: StoredResult, target: Path) -> Path:
     return target
 
 
+@dataclass(frozen=True)
+class Outline:
+    """Where a ``[[patch]]`` or ``[[exchange]]`` meets a slice: ``points`` (2, n) in the
+    slice's two axes (metres); ``kind`` is "segment" (a patch across the slice, on the box's
+    face), "rectangle" or "circle"; ``source`` is "patch" or "exchange"."""
+
+    label: str
+    source: str
+    kind: str
+    points: np.ndarray
+
+
+def _rectangle(lo, hi) -> np.ndarray:
+    return np.array([[lo[0], hi[0], hi[0], lo[0], lo[0]], [lo[1], lo[1], hi[1], hi[1], lo[1]]])
+
+
+def _circle(centre, radius: float) -> np.ndarray:
+    t = np.linspace(0.0, 2.0 * np.pi, 73)
+    return np.array([centre[0] + radius * np.cos(t), centre[1] + radius * np.sin(t)])
+
+
+def placed_outlines(spec, normal: int, at: float, bounds) -> list[Outline]:
+    """The patches and exchanges of ``spec`` on the slice ``axis normal = at`` of the box
+    ``bounds`` ((lo, hi) per axis): patches on the slice's own plane direction are drawn as
+    their footprint seen through the slice, the others where they cross it."""
+    from .grid import FACE_AXIS
+
+    a, b = (x for x in range(3) if x != normal)
+    clip = lambda v, ax: min(max(v, bounds[ax][0]), bounds[ax][1])  # noqa: E731
+    out: list[Outline] = []
+    for i, p in enumerate(spec.patch):
+        label = p.name or f"patch {i}"
+        axis, side = FACE_AXIS[p.face]
+        plane = bounds[axis][side]
+        if axis == normal:
+            lo = (clip(p.box.min[a], a), clip(p.box.min[b], b))
+            hi = (clip(p.box.max[a], a), clip(p.box.max[b], b))
+            out.append(Outline(label, "patch", "rectangle", _rectangle(lo, hi)))
+        elif p.box.min[normal] <= at <= p.box.max[normal]:
+            other = b if axis == a else a
+            span = [clip(p.box.min[other], other), clip(p.box.max[other], other)]
+            pts = np.array([[plane, plane], span]) if axis == a else np.array([span, [plane, plane]])
+            out.append(Outline(label, "patch", "segment", pts))
+    for i, e in enumerate(spec.exchange):
+        label = e.name or f"exchange {i}"
+        shape = e.shape
+        if e.box is not None:
+            if shape.min[normal] <= at <= shape.max[normal]:
+                out.append(Outline(label, "exchange", "rectangle", _rectangle(
+                    (shape.min[a], shape.min[b]), (shape.max[a], shape.max[b]))))
+        elif e.sphere is not None:
+            d = at - shape.center[normal]
+            if abs(d) < shape.radius:
+                out.append(Outline(label, "exchange", "circle", _circle(
+                    (shape.center[a], shape.center[b]), math.sqrt(shape.radius**2 - d * d))))
+        else:
+            ax = "xyz".index(shape.axis)
+            if ax == normal:
+                if abs(at - shape.center[ax]) <= shape.length / 2:
+                    out.append(Outline(label, "exchange", "circle", _circle(
+                        (shape.center[a], shape.center[b]), shape.radius)))
+                continue
+            d = at - shape.center[normal]
+            if abs(d) < shape.radius:
+                w = math.sqrt(shape.radius**2 - d * d)
+                lo, hi = {}, {}
+                for x in (a, b):
+                    half = shape.length / 2 if x == ax else w
+                    lo[x], hi[x] = shape.center[x] - half, shape.center[x] + half
+                out.append(Outline(label, "exchange", "rectangle", _rectangle((lo[a], lo[b]), (hi[a], hi[b]))))
+    return out
+
+
+def _draw_outlines(ax, outlines: list[Outline]) -> None:
+    for o in outlines:
+        colour = "magenta" if o.source == "patch" else "tab:red"
+        style = dict(lw=4.0, solid_capstyle="butt", clip_on=False) if o.kind == "segment" else dict(
+            lw=1.2, ls="--" if o.source == "patch" else "-")
+        ax.plot(o.points[0], o.points[1], color=colour, **style)
+        ax.annotate(o.label, (float(o.points[0][0]), float(o.points[1][0])), color=colour, fontsize=7,
+                    xytext=(2, -10 if o.kind == "segment" else 2), textcoords="offset points",
+                    annotation_clip=False)
+
+
 def slice_figure(result: StoredResult, target: Path) -> Path:
-    """The solution on the three mid-planes (x, y and z), one shared colour scale."""
+    """The solution on the three mid-planes (x, y and z), one shared colour scale; patches
+    (magenta: a bar on the box's edge where one crosses the slice, dashed where seen through
+    it) and exchanges (red) are outlined, and wells drawn (draw_wells)."""
     plt = _plt()
     name = result.solution
     u = result.lazy(name)  # read plane by plane below: never the whole field
@@ -70,8 +157,13 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
         hi = lo + (abs(lo) * 1e-6 or 1e-12)
     fig, axes = plt.subplots(1, 3, figsize=SIZES["slices.png"], dpi=DPI, layout="constrained")
     mesh = None
-    for ax, (data, a, b, title) in zip(axes, planes):
+    bounds = [(float(e[0]), float(e[-1])) for e in edges]
+    for normal, (ax, (data, a, b, title)) in enumerate(zip(axes, planes)):
         mesh = ax.pcolormesh(edges[a], edges[b], data.T, vmin=lo, vmax=hi, cmap="viridis", shading="flat")
+        _draw_outlines(ax, placed_outlines(result.spec, normal, float(centres[normal][mids[normal]]), bounds))
+        draw_wells(ax, result.spec.well, normal, edges[normal][mids[normal]:mids[normal] + 2])
+        ax.set_xlim(bounds[a])
+        ax.set_ylim(bounds[b])
         extent = (edges[a][-1] - edges[a][0], edges[b][-1] - edges[b][0])
         ratio = extent[1] / extent[0]
         ax.set_aspect("equal" if 0.25 <= ratio <= 4 else "auto")
@@ -83,6 +175,25 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
     fig.savefig(target)
     plt.close(fig)
     return target
+
+
+def draw_wells(ax, wells, normal: int, cell: np.ndarray) -> None:
+    """Each [[well]] on a mid-plane slice whose normal is axis ``normal``: on the z plane a
+    marker at (x, y); on the x and y planes its screen, a vertical bar from bottom to top. A
+    well whose column the plane cuts is drawn solid, one projected onto the plane dashed."""
+    for w in wells:
+        if normal == 2:
+            ax.plot([w.x], [w.y], marker="v", ms=8, mfc="white", mec="black", ls="none")
+            ax.annotate(w.name, (w.x, w.y), xytext=(4, 4), textcoords="offset points", fontsize=8,
+                        color="white")
+            continue
+        across = w.x if normal == 0 else w.y  # its coordinate along the plane's normal
+        along = w.y if normal == 0 else w.x  # and along the plane's horizontal axis
+        cut = cell[0] <= across <= cell[1]
+        ax.plot([along, along], [w.bottom, w.top], color="white", lw=2.5, ls="-" if cut else "--")
+        ax.plot([along, along], [w.bottom, w.top], color="black", lw=0.8, ls="-" if cut else "--")
+        ax.annotate(w.name, (along, w.top), xytext=(3, 3), textcoords="offset points", fontsize=8,
+                    color="white")
 
 
 def line_probes(result: StoredResult) -> list[str]:
@@ -135,7 +246,9 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
     with writing(folder, "the report folder"):
         folder.mkdir(parents=True, exist_ok=True)
         figures = [("residual history", residual_figure(result, folder / "residuals.png")),
-                   ("mid-plane slices", slice_figure(result, folder / "slices.png"))]
+                   ("mid-plane slices" + (" (wells: triangles on the z plane, screens as bars on the others, dashed "
+                                          "where projected onto the plane)" if result.spec.well else ""),
+                    slice_figure(result, folder / "slices.png"))]
         if line_probes(result):
             figures.append(("probe lines", probe_figure(result, folder / "probes.png")))
 

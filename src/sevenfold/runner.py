@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from .balance import Balance, compute_balance
+from .conditions import settle_drains
 from .derived import derived_fields
 from .errors import JobError, SolverError, file_in_the_way, writing
 from .grid import Grid, grid_from_spec
@@ -238,7 +239,9 @@ def run_job(
     physics = PHYSICS[spec.physics]
     try:
         log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
-        u, result = solve_problem(problem, spec.solver, plan.method, _Logged(log, monitor or QuietMonitor()))
+        logged = _Logged(log, monitor or QuietMonitor())
+        problem, u, result, drain_rounds = settle_drains(
+            problem, lambda p: solve_problem(p, spec.solver, plan.method, logged))
         log.end(converged=True, iterations=result.iterations,
                 final_relative_residual=result.final_relative_residual)
     except SolverError as exc:
@@ -280,10 +283,12 @@ def run_job(
                   "source": physics.source_units, "length": "m"},
         "gauge": "mean zero (pure Neumann problem)" if problem.gauge_mean_zero else "none",
         "job": spec.model_dump(mode="json"),
-        "solver": {**result.summary(), "rtol": spec.solver.rtol, "unknowns": problem.unknowns},
+        "solver": {**result.summary(), "rtol": spec.solver.rtol, "unknowns": problem.unknowns,
+                   **({"drain_solves": drain_rounds} if drain_rounds else {})},
         "seconds": seconds,
         **(extra_attrs or {}),
         "balance": balance.to_dict(),
+        "floating": {h.name: h.value for h in balance.holds if h.floating},  # solved potentials (V)
         "probes": [{"name": p.name, "kind": p.kind, "samples": len(p.values),
                     "min": float(p.values.min()), "max": float(p.values.max())} for p in probes],
     }

@@ -11,7 +11,10 @@ value and the GCI (see gci.py) of each quantity:
 
 * ``<solution>_max``: the largest cell value of the solution,
 * ``outflow_<face>``: each face's outflow (faces with no flow on any level are left out),
+* ``outflow_patch_<name>``, ``outflow_exchange_<name>``: each patch's and exchange's outflow,
 * ``inflow_<hold>`` or ``charge_<hold>``: each hold's inflow (an electrode's charge),
+* ``potential_<hold>``: a floating electrode's solved potential,
+* ``well_head_<name>`` (a rate well's bore head) or ``well_rate_<name>`` (a head well's rate),
 * ``probe_<name>``: each point probe's value.
 
 This module runs jobs and writes the study's files; the formulas live in gci.py.
@@ -141,9 +144,18 @@ def quantities(result: JobResult) -> dict[str, float]:
     assert bal is not None
     for face, v in bal.faces.items():
         values[f"outflow_{face}"] = v
+    for p in bal.patches:
+        values[f"outflow_patch_{p.name.replace(' ', '_')}"] = p.outflow
+    for e in bal.exchanges:
+        values[f"outflow_exchange_{e.name.replace(' ', '_')}"] = e.outflow
     for h in bal.holds:
+        if h.floating:  # its charge is given; its potential is what the grid decides
+            values[f"potential_{h.name.replace(' ', '_')}"] = h.value
+            continue
         key = "charge" if h.charge is not None else "inflow"
         values[f"{key}_{h.name.replace(' ', '_')}"] = h.charge if h.charge is not None else h.inflow
+    for w in bal.wells:  # what the job does not give: a rate well's bore head, a head well's rate
+        values[f"well_{'head' if w.given == 'rate' else 'rate'}_{w.name}"] = w.head if w.given == "rate" else w.rate
     for p in result.probes:
         if p.kind == "point":
             values[f"probe_{p.name}"] = float(p.values[0])

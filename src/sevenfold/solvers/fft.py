@@ -66,6 +66,15 @@ def fft_eligibility(problem: Problem) -> str | None:
         return f"k varies (min {k_min:.6g}, max {k_max:.6g})"
     if not problem.gauge_mean_zero and problem.held.any():
         return f"holds present ({int(np.count_nonzero(problem.held)):,} held cells)"
+    if problem.exchanges:
+        return "an [[exchange]] (it adds to the diagonal of some cells)"
+    if problem.contacts:
+        return "a [[contact]] resistance (it changes the conductances between some cells)"
+    mixed = [name for name, t in problem.faces.items() if t.kind == "mixed"]
+    if mixed:
+        return f"patches of another type on part of a face ({', '.join(mixed)})"
+    if problem.wells:
+        return f"wells present ({len(problem.wells)})"
     robin = [name for name, t in problem.faces.items() if t.kind == "robin"]
     if robin:
         return f"a robin face ({', '.join(robin)})"

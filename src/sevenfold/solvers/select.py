@@ -100,7 +100,17 @@ def solve_assembled(problem: Problem, solver: SolverSpec, method: str,
 
 def solve_problem(problem: Problem, solver: SolverSpec, method: str,
                   monitor: Monitor | None = None) -> tuple[np.ndarray, SolveResult]:
-    """u on every cell (held values in place, gauge applied) and the solve's record."""
+    """u on every cell (held values in place, gauge applied) and the solve's record; floating
+    electrodes take the potentials that give them their charges (electrodes.py)."""
+    if problem.floating:
+        from ..electrodes import solve_floating
+
+        return solve_floating(problem, solver, method, monitor or QuietMonitor(), _solve_fixed)
+    return _solve_fixed(problem, solver, method, monitor)
+
+
+def _solve_fixed(problem: Problem, solver: SolverSpec, method: str,
+                 monitor: Monitor | None = None) -> tuple[np.ndarray, SolveResult]:
     monitor = monitor or QuietMonitor()
     if method == "fft":
         return solve_fft(problem, monitor=monitor)
