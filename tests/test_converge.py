@@ -131,3 +131,74 @@ def test_fields_from_files_cannot_be_refined(tmp_path: Path, capsys) -> None:
     assert main(["converge", str(job)]) == 2
     err = " ".join(capsys.readouterr().err.split())
     assert "material.file" in err and "cannot come from a file" in err
+
+
+# ---------------------------------------------------------------- the right scale, geometry, failures
+def test_relative_gci_of_an_offset_quantity_uses_a_scale_without_the_offset() -> None:
+    # f(h) = f0 + c h^2 with and without an offset of 300: the GCI is the same band, and measured
+    # against a range (or a datum) the relative GCI is the same too; against |f1| the offset
+    # would shrink it 300-fold (common practice: relative errors of offset quantities are taken
+    # against a scale of the variation, not the absolute level).
+    fs = [1.0 + 0.8 * h**2 for h in (0.05, 0.1, 0.2)]
+    plain = gci_three_grids(*fs, 2.0, 2.0, scale=2.0, relative_to="range 2")
+    offset = gci_three_grids(*(f + 300.0 for f in fs), 2.0, 2.0, scale=2.0, relative_to="range 2")
+    assert offset.gci == pytest.approx(plain.gci, rel=1e-9)
+    assert offset.gci_relative == pytest.approx(plain.gci / 2.0, rel=1e-9)
+    assert offset.relative_to == "range 2"
+    absolute = gci_three_grids(*(f + 300.0 for f in fs), 2.0, 2.0)
+    assert absolute.gci_relative == pytest.approx(plain.gci / (fs[0] + 300.0), rel=1e-9)
+    assert absolute.relative_to == "|f1|"
+
+
+def _mms_with_offset(offset: float) -> str:
+    return MMS.replace("value = 0.0", f"value = {offset}").replace(
+        'name = "mms"', 'name = "mms"\nphysics = "heat"')
+
+
+def test_converge_measures_temperatures_against_their_range(tmp_path: Path, capsys) -> None:
+    # u = T0 + sin(pi x) sin(pi y) sin(pi z): the probe at the centre is T0 + 1 whatever T0 is.
+    studies = {}
+    for t0 in (0.0, 300.0):
+        job = tmp_path / f"mms{int(t0)}.toml"
+        job.write_text(_mms_with_offset(t0))
+        studies[t0] = run_study(job, folder=tmp_path / f"s{int(t0)}")
+    a, b = studies[0.0].results["probe_middle"], studies[300.0].results["probe_middle"]
+    fine = studies[300.0].levels[-1]
+    assert b.gci == pytest.approx(a.gci, rel=1e-6)
+    assert b.gci_relative == pytest.approx(a.gci_relative, rel=1e-6)  # the offset does not hide the error
+    assert b.scale == pytest.approx(fine.solution_range) and 0.9 < fine.solution_range < 1.0
+    assert b.relative_to == f"range {fine.solution_range:.4g} K"
+    flow = studies[300.0].results["outflow_x_min"]
+    assert flow.relative_to == "|f1|" and flow.gci_relative == pytest.approx(flow.gci / abs(flow.f1))
+    job = tmp_path / "mms300.toml"
+    datum = run_study(job, folder=tmp_path / "datum", datum=300.0).results["probe_middle"]
+    assert datum.gci_relative == pytest.approx(datum.gci / abs(datum.f1 - 300.0), rel=1e-12)
+    assert datum.relative_to == "|f1 - datum 300 K|"
+    assert main(["converge", str(job), "--folder", str(tmp_path / "cli")]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    assert "% of" in text and "relative to the range of the solution on the finest level, 0.9" in text
+
+
+def test_a_study_whose_geometry_changes_between_levels_is_flagged(tmp_path: Path, capsys) -> None:
+    # A layer 0.12 thick: one cell of 1/6 on level 0, one of 1/12 on level 1, three of 1/24 on
+    # level 2: the levels solve three different layers.
+    job = tmp_path / "layer.toml"
+    job.write_text(MMS.replace("[material]\nvalue = 1.0\n", "[material]\nvalue = 1.0\n[[material.region]]\n"
+                               "box = { min = [0.0, 0.0, 0.0], max = [1.0, 1.0, 0.12] }\nvalue = 5.0\n"))
+    study = run_study(job, folder=tmp_path / "s")
+    vols = [lv.selected["material.region.0"]["volume"] for lv in study.levels]
+    assert vols == pytest.approx([1 / 6, 1 / 12, 3 / 24])
+    (change,) = study.geometry_changes
+    assert change.startswith("material.region.0: the selected volume changes between levels (0.1667, 0.08333, 0.125 m^3; shape 0.12 m^3)")
+    assert main(["converge", str(job), "--folder", str(tmp_path / "cli")]) == 0
+    out = " ".join(capsys.readouterr().out.split())
+    assert "selected volume per level" in out and "warning: material.region.0: the selected volume changes" in out
+
+
+def test_a_failing_level_is_named(tmp_path: Path, capsys) -> None:
+    # A hold 0.02 thick around z = 0.25 holds the centres at 0.25 on 6 cells, none on 12.
+    job = tmp_path / "thin.toml"
+    job.write_text(MMS + '[[hold]]\nbox = { min = [0.0, 0.0, 0.24], max = [1.0, 1.0, 0.26] }\nvalue = 0.0\n')
+    assert main(["converge", str(job), "--folder", str(tmp_path / "s")]) == 2
+    err = " ".join(capsys.readouterr().err.split())
+    assert "level 1 (12 x 12 x 12 cells): hold.0: selects no cell centre" in err and "Traceback" not in err

@@ -497,7 +497,8 @@ def test_show_and_log_of_a_finished_job(tmp_path: Path, home: Home, capsys) -> N
         assert word in text, word
     assert main(["log", str(j.id), "--csv", "--home", str(home.root)]) == 0
     rows = capsys.readouterr().out.strip().splitlines()
-    assert rows[0] == "iteration,relative_residual,seconds"
+    assert rows[0] == "iteration,relative_residual,seconds,method"
+    assert all(r.endswith(",amg") for r in rows[1:])  # the method that produced each record
     logged = [r for r in read_log(log_path(Path(j.output))) if "iteration" in r]
     assert [float(r.split(",")[1]) for r in rows[1:]] == [r["relative_residual"] for r in logged]
     assert main(["show", "999", "--home", str(home.root)]) == 2

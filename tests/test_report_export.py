@@ -38,8 +38,11 @@ def test_report_files_and_links(result: Path, capsys) -> None:
     assert sorted(refs) == ["probes.png", "residuals.png", "slices.png"]
     for ref in refs:
         assert "://" not in ref and (folder / ref).is_file()  # offline, relative, present
-    for text in ("Balance", "out through x_min", "relative imbalance", "Solver", "tc1", "temperature (K)"):
+    for text in ("Balance", "out through x_min", "relative imbalance", "Solver", "tc1", "temperature (K)",
+                 "Headline numbers", "temperature max"):
         assert text in page
+    headline = zarr.open_group(str(result), mode="r").attrs["headline"]
+    assert f"{headline['max']['value']:.6g} K at (" in page  # the stored numbers, as stored
 
 
 def read_vti(path: Path) -> tuple[dict, dict[str, np.ndarray]]:

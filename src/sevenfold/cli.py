@@ -54,6 +54,12 @@ class ProgressMonitor:
             info=f"iteration {iteration:4d}  residual {relative_residual:.2e}",
         )
 
+    def switched(self, info: dict) -> None:
+        """``auto`` changed method mid-solve: a marked line above the bar."""
+        from .queue.watch import switch_text
+
+        self.progress.console.print(f"[yellow]***[/yellow] {escape(switch_text(info))}", soft_wrap=True)
+
     def stop_requested(self) -> bool:
         return False
 
@@ -71,10 +77,29 @@ def balance_table(balance: dict, title: str = "balance") -> Table:
     return table
 
 
+def headline_table(headline: dict, title: str = "headline numbers") -> Table:
+    """A result's headline numbers (``attrs["headline"]``) as a two-column table."""
+    from .headline import headline_rows
+
+    table = Table(title=title, box=None, title_justify="left", show_header=False)
+    table.add_column("quantity", no_wrap=True)
+    table.add_column("value", overflow="fold")
+    for label, text in headline_rows(headline):
+        table.add_row(escape(label), escape(text))
+    return table
+
+
+def warn(text: str) -> None:
+    """One warning line (the cautions channel): printed, never a refusal."""
+    out.print(f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True)
+
+
 def _check(args: argparse.Namespace) -> int:
+    from .cautions import job_warnings
     from .memory import human
     from .conditions import placed_rows
     from .runner import plan_job, prepare_problem
+    from .units import unit_notes
 
     plan = plan_job(args.job)
     plan, problem = prepare_problem(plan)  # settled: the method the built problem is solved with
@@ -98,12 +123,15 @@ def _check(args: argparse.Namespace) -> int:
         ("method", f"{plan.method}" + (" (chosen by auto)" if spec.solver.method == "auto" else "")),
         ("memory", f"about {human(plan.memory_bytes)} of {human(plan.available_bytes)} available"),
         ("output", str(plan.output)),
+        *(("units", note) for note in unit_notes(spec)),
     ):
-        table.add_row(key, value)
+        table.add_row(key, escape(value))
     for w in problem.wells:  # where each well landed: its screened cells and Peaceman radius
         table.add_row(f"well {escape(w.name)}", f"{w.k.size} cell(s) of column ({w.i}, {w.j}), screened "
                       f"{float(w.length.sum()):.4g} m; Peaceman radius {float(w.r_e.min()):.3g} m")
     out.print(table)
+    for w in job_warnings(spec, problem):
+        warn(w)
     out.print("[green]valid[/green]: the job file, its regions, files and boundary data all check out")
     return EXIT_OK
 
@@ -117,18 +145,24 @@ def _run(args: argparse.Namespace) -> int:
         TimeElapsedColumn(), console=out, transient=False, disable=args.quiet or args.no_progress,
     ) as progress:
         task = progress.add_task(plan.spec.name, total=-math.log10(plan.spec.solver.rtol), info="building")
-        result = run_job(args.job, args.output, ProgressMonitor(progress, task, plan.spec.solver.rtol), plan.spec)
+        result = run_job(args.job, args.output, ProgressMonitor(progress, task, plan.spec.solver.rtol), plan.spec,
+                         on_warning=lambda text: progress.console.print(
+                             f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True))
     if args.quiet:
         return quiet_result(result.output)
     s = result.solve
+    switched = (f" (auto switched from {s.switch['from']} after {s.switch['after_iterations']} "
+                f"{s.switch['from']} iterations)" if s.switch else "")
     out.print(
-        f"{'converged' if s.converged else 'stopped'}: {s.method}, {s.iterations} iterations, "
+        f"{'converged' if s.converged else 'stopped'}: {s.method}{switched}, {s.iterations} iterations, "
         f"relative residual {s.final_relative_residual:.2e}, job {result.seconds['job']:.2f} s "
         f"(assembly {result.seconds['assemble']:.2f} s, setup {s.setup_seconds:.2f} s, "
         f"solve {s.solve_seconds:.2f} s, write {result.seconds['write']:.2f} s)"
     )
     if result.balance is not None:
         out.print(balance_table(result.balance.to_dict()))
+    if result.headline is not None:
+        out.print(headline_table(result.headline))
     out.print(f"result: {escape(str(result.output))}")
     out.print(f"residuals: {escape(str(result.residual_log))}")
     if result.probes_csv is not None:
@@ -195,7 +229,8 @@ def _converge(args: argparse.Namespace) -> int:
     def progress(level: int, cells) -> None:
         out.print(f"level {level}: {cells[0]} x {cells[1]} x {cells[2]} cells ...")
 
-    study = run_study(args.job, args.levels, args.ratio, args.folder, progress=None if args.quiet else progress)
+    study = run_study(args.job, args.levels, args.ratio, args.folder, progress=None if args.quiet else progress,
+                      datum=args.datum)
     png = plot_study(study, Path(study.folder) / "convergence.png")
     if args.quiet:
         return quiet_result(study.folder)
@@ -206,14 +241,35 @@ def _converge(args: argparse.Namespace) -> int:
         levels.add_row(str(i), " x ".join(map(str, lv.cells)), f"{lv.h:.4g}",
                        "-" if i == 0 else ", ".join(f"{r:.4g}" for r in lv.ratios))
     out.print(levels)
+    if study.levels and study.levels[0].selected:
+        sel = Table(title="selected volume per level (m^3; cells whose centre lies in the shape)",
+                    title_justify="left", box=None)
+        sel.add_column("region")
+        sel.add_column("shape", justify="right")
+        for i in range(len(study.levels)):
+            sel.add_column(f"level {i}", justify="right")
+        for label, first in study.levels[0].selected.items():
+            sel.add_row(escape(label), f"{first['shape_volume']:.4g}",
+                        *(f"{lv.selected[label]['volume']:.4g}" if label in lv.selected else "-"
+                          for lv in study.levels))
+        out.print(sel)
+    for change in study.geometry_changes:
+        warn(change)
     table = Table(title="Grid Convergence Index on the finest level (Roache; Fs = 1.25)",
                   title_justify="left", box=None)
-    for col in ("quantity", "finest", "order p", "extrapolated", "GCI", "GCI %", "convergence"):
-        table.add_column(col, justify="left" if col in ("quantity", "convergence") else "right")
+    for col in ("quantity", "finest", "order p", "extrapolated", "GCI", "GCI %", "% of", "convergence"):
+        table.add_column(col, justify="left" if col in ("quantity", "convergence", "% of") else "right",
+                         no_wrap=col == "quantity")
     for key, r in study.results.items():
+        of = "range" if r.relative_to.startswith("range") else "datum" if "datum" in r.relative_to else "|f1|"
         table.add_row(escape(key), f"{r.f1:.6g}", f"{r.order:.3f}", f"{r.extrapolated:.6g}",
-                      f"{r.gci:.3g}", f"{100 * r.gci_relative:.3g}", r.convergence)
+                      f"{r.gci:.3g}", f"{100 * r.gci_relative:.3g}", of, r.convergence)
     out.print(table)
+    units = study.solution_units
+    scale = (f"|f1 - {study.datum:g} {units}| (--datum)" if study.datum is not None else
+             f"the range of the solution on the finest level, {study.levels[-1].solution_range:.4g} {units}")
+    out.print(f"GCI % of values of the solution (maximum, probes) is relative to {scale}; of flows and "
+              "charges, to |f1|", soft_wrap=True)
     out.print(f"study: {escape(study.folder)} (study.json, level-*.zarr); figure: {escape(str(png))}")
     return EXIT_OK
 
@@ -277,6 +333,9 @@ def parser() -> argparse.ArgumentParser:
     cv.add_argument("--ratio", type=float, default=2.0, help="refinement ratio between levels (default 2)")
     cv.add_argument("--folder", help="where the levels go (default <output stem>.converge)")
     cv.add_argument("--quiet", "-q", action="store_true", help="print only the study folder (and errors)")
+    cv.add_argument("--datum", type=float, metavar="VALUE",
+                    help="measure the relative GCI of solution values (maximum, probes) against their "
+                         "distance from VALUE (solution units, SI) instead of the solution's range")
     cv.set_defaults(func=_converge)
 
     rp = sub.add_parser("report", help="PNG figures and a one-page HTML summary of a result")

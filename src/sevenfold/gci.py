@@ -26,7 +26,11 @@ class GCIResult:
     """Observed order, extrapolated value and GCI of one quantity on three grids.
 
     ``gci`` is the band half-width in the quantity's units around the finest value:
-    the exact value is estimated to lie in ``f1 +- gci``; ``gci_relative`` = gci / |f1|.
+    the exact value is estimated to lie in ``f1 +- gci``; ``gci_relative`` = gci / ``scale``,
+    by default |f1|. A quantity with an arbitrary offset (a temperature in K, a head above a
+    datum, an offset potential) is measured against a scale that does not include the offset
+    (the solution's range over the domain, or its distance from a named datum); ``relative_to``
+    says which, in words.
     ``convergence`` is ``monotone`` (0 < e21/e32 < 1), ``oscillatory`` (e21/e32 < 0),
     ``divergent`` (e21/e32 >= 1) or ``exact`` (no change between grids). p, extrapolated
     value and GCI are NaN when not defined (no change, or divergence).
@@ -43,6 +47,8 @@ class GCIResult:
     gci_relative: float
     convergence: str
     safety_factor: float = SAFETY_FACTOR
+    scale: float = float("nan")  # what gci_relative divides by
+    relative_to: str = "|f1|"
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -65,9 +71,15 @@ def observed_order(e21: float, e32: float, r21: float, r32: float,
 
 
 def gci_three_grids(f1: float, f2: float, f3: float, r21: float, r32: float,
-                    safety_factor: float = SAFETY_FACTOR) -> GCIResult:
-    """Roache's GCI on the finest grid from values ``f1`` (fine), ``f2``, ``f3`` (coarse)."""
+                    safety_factor: float = SAFETY_FACTOR, scale: float | None = None,
+                    relative_to: str = "|f1|") -> GCIResult:
+    """Roache's GCI on the finest grid from values ``f1`` (fine), ``f2``, ``f3`` (coarse).
+
+    ``scale`` (default |f1|) is what the relative GCI is measured against, ``relative_to`` its
+    description for tables."""
     nan = float("nan")
+    against = abs(f1) if scale is None else abs(scale)
+    tail = (against, relative_to)
     if not (r21 > 1 and r32 > 1):
         raise ValueError("refinement ratios must exceed 1")
     e21, e32 = f2 - f1, f3 - f2
@@ -75,14 +87,15 @@ def gci_three_grids(f1: float, f2: float, f3: float, r21: float, r32: float,
     if abs(e21) <= 1e-14 * scale or abs(e32) <= 1e-14 * scale:
         kind = "exact" if abs(e21) <= 1e-14 * scale and abs(e32) <= 1e-14 * scale else "undetermined"
         return GCIResult(f1, f2, f3, r21, r32, nan, f1 if kind == "exact" else nan,
-                         0.0 if kind == "exact" else nan, 0.0 if kind == "exact" else nan, kind, safety_factor)
+                         0.0 if kind == "exact" else nan, 0.0 if kind == "exact" else nan, kind, safety_factor,
+                         *tail)
     R = e21 / e32
     kind = "monotone" if 0 < R < 1 else "oscillatory" if R < 0 else "divergent"
     if kind == "divergent":
-        return GCIResult(f1, f2, f3, r21, r32, nan, nan, nan, nan, kind, safety_factor)
+        return GCIResult(f1, f2, f3, r21, r32, nan, nan, nan, nan, kind, safety_factor, *tail)
     p = observed_order(e21, e32, r21, r32)
     rp = r21**p
     extrapolated = (rp * f1 - f2) / (rp - 1.0)
     gci = safety_factor * abs(e21) / (rp - 1.0)
-    relative = gci / abs(f1) if f1 != 0 else nan
-    return GCIResult(f1, f2, f3, r21, r32, p, extrapolated, gci, relative, kind, safety_factor)
+    relative = gci / against if against > 0 else nan
+    return GCIResult(f1, f2, f3, r21, r32, p, extrapolated, gci, relative, kind, safety_factor, *tail)

@@ -275,6 +275,27 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
                      _table([(a, f"{v:.6g}") for a, v in balance_rows(balance)]
                             + [("relative imbalance", f"{balance['relative_imbalance']:.2e}")],
                             ("term", balance["units"]))]
+    headline = attrs.get("headline")
+    if headline:
+        from .headline import headline_rows
+
+        sections += ["<h2>Headline numbers</h2>",
+                     "<p>Regions: the cells whose centre lies in the shape, their volume beside the "
+                     "shape's own volume in the box; mean volume-weighted. All values SI.</p>",
+                     _table(headline_rows(headline), ("quantity", "value"))]
+    warnings = attrs.get("warnings") or []
+    if warnings:
+        sections += ["<h2>Warnings</h2>", "<ul>" + "".join(f"<li>{html.escape(w)}</li>" for w in warnings) + "</ul>"]
+    units = attrs.get("input_units") or []
+    if units:
+        sections += ["<p>Read from the job file in practitioner units, converted to SI: "
+                     + "; ".join(html.escape(u) for u in units) + "</p>"]
+    if solver.get("switch"):
+        from .queue.watch import switch_text
+
+        sections.insert(sections.index("<h2>Solver</h2>") + 1,
+                        f"<p><b>{html.escape(switch_text(solver['switch']))}</b>; the residual history "
+                        f"below is {html.escape(str(solver.get('method', '')))}'s.</p>")
     points = [p for p in spec.probe if p.point is not None]
     if points:
         sections += ["<h2>Probe points</h2>", _table(

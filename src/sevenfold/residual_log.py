@@ -1,8 +1,11 @@
 """A residual log: one JSON object per line, flushed as it is written, so another process
 can follow a running solve.
 
-Lines: ``{"event": "start", ...}``, then ``{"iteration": i, "relative_residual": r,
-"seconds": t}`` per iteration, then ``{"event": "end", "converged": bool, ...}``.
+Lines: ``{"event": "start", "method": m, ...}``, then ``{"iteration": i, "relative_residual": r,
+"seconds": t, "method": m}`` per iteration, then ``{"event": "end", "converged": bool, ...}``.
+When ``auto`` leaves one method for another mid-solve, a ``{"event": "switch", "from": "gmg",
+"to": "amg", "after_iterations": n, "rate": q, "reason": ...}`` line marks the place; the
+iterations after it are the new method's, counted from 0 again.
 """
 
 from __future__ import annotations
@@ -44,8 +47,14 @@ class ResidualLog:
     def start(self, **info: Any) -> None:
         self._write({"event": "start", **info})
 
-    def iteration(self, iteration: int, relative_residual: float, seconds: float) -> None:
-        self._write({"iteration": iteration, "relative_residual": relative_residual, "seconds": seconds})
+    def iteration(self, iteration: int, relative_residual: float, seconds: float, method: str | None = None) -> None:
+        record: dict[str, Any] = {"iteration": iteration, "relative_residual": relative_residual, "seconds": seconds}
+        if method is not None:
+            record["method"] = method
+        self._write(record)
+
+    def switch(self, **info: Any) -> None:
+        self._write({"event": "switch", **info})
 
     def end(self, **info: Any) -> None:
         self._write({"event": "end", **info})

@@ -9,15 +9,17 @@ from __future__ import annotations
 import time
 from dataclasses import dataclass, replace
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 
 from .balance import Balance, compute_balance
+from .cautions import job_warnings
 from .conditions import settle_drains
 from .derived import derived_fields
 from .errors import JobError, SolverError, file_in_the_way, writing
 from .grid import Grid, grid_from_spec
+from .headline import compute_headline
 from .inputs import load_array
 from .memory import available_bytes, estimate_bytes, human
 from .physics import DERIVED, PHYSICS
@@ -28,6 +30,7 @@ from .solvers import choose_method, method_for, solve_problem
 from .solvers.cg import Monitor, QuietMonitor, SolveResult
 from .spec import JobSpec, load_job
 from .store import Variable, write_probe_csv, write_result
+from .units import unit_notes
 
 
 @dataclass(frozen=True)
@@ -57,6 +60,8 @@ class JobResult:
     balance: Balance | None = None
     probes: tuple[ProbeValues, ...] = ()
     probes_csv: Path | None = None
+    headline: dict[str, Any] | None = None  # headline.compute_headline
+    warnings: tuple[str, ...] = ()  # cautions.job_warnings: valid, but probably not meant
 
 
 def probes_csv_path(output: Path) -> Path:
@@ -203,12 +208,19 @@ def _load_files(spec: JobSpec, job_file: Path, shape: tuple[int, int, int]) -> d
 class _Logged:
     """Forwards progress to the residual log and to the caller's monitor."""
 
-    def __init__(self, log: ResidualLog, inner: Monitor) -> None:
-        self.log, self.inner = log, inner
+    def __init__(self, log: ResidualLog, inner: Monitor, method: str | None = None) -> None:
+        self.log, self.inner, self.method = log, inner, method
 
     def iteration(self, iteration: int, relative_residual: float, elapsed: float) -> None:
-        self.log.iteration(iteration, relative_residual, elapsed)
+        self.log.iteration(iteration, relative_residual, elapsed, self.method)
         self.inner.iteration(iteration, relative_residual, elapsed)
+
+    def switched(self, info: dict[str, Any]) -> None:
+        """``auto`` left one method for another: mark it in the log and tell the caller."""
+        self.log.switch(**info)
+        self.method = info.get("to", self.method)
+        if hasattr(self.inner, "switched"):
+            self.inner.switched(info)  # type: ignore[attr-defined]
 
     def stop_requested(self) -> bool:
         return self.inner.stop_requested()
@@ -220,17 +232,22 @@ def run_job(
     monitor: Monitor | None = None,
     spec: JobSpec | None = None,
     extra_attrs: dict[str, Any] | None = None,
+    on_warning: Callable[[str], None] | None = None,
 ) -> JobResult:
     """Run one job to a finished result, or raise JobError / SolverError / Cancelled.
 
     A failed or interrupted job leaves no result at ``output``, only its residual log.
     ``extra_attrs`` are added to the result's attributes (the queue records its run there).
+    ``on_warning`` receives each warning about the job (cautions.py) before the solve starts.
     """
     t0 = time.perf_counter()
     job_file = Path(job_file)
     plan = plan_job(job_file, output, spec)
     spec = plan.spec
     plan, problem = prepare_problem(plan)
+    warnings = job_warnings(spec, problem)
+    for w in warnings:
+        (on_warning or (lambda _: None))(w)
     t_build = time.perf_counter()
 
     with writing(plan.output, "the result"):  # an unusable folder fails before the solve
@@ -239,9 +256,13 @@ def run_job(
     physics = PHYSICS[spec.physics]
     try:
         log.start(job=spec.name, method=plan.method, rtol=spec.solver.rtol, unknowns=problem.unknowns)
-        logged = _Logged(log, monitor or QuietMonitor())
-        problem, u, result, drain_rounds = settle_drains(
-            problem, lambda p: solve_problem(p, spec.solver, plan.method, logged))
+        logged = _Logged(log, monitor or QuietMonitor(), plan.method)
+
+        def solve_once(p: Problem):
+            logged.method = plan.method  # each drain round starts with the planned method again
+            return solve_problem(p, spec.solver, plan.method, logged)
+
+        problem, u, result, drain_rounds = settle_drains(problem, solve_once)
         log.end(converged=True, iterations=result.iterations,
                 final_relative_residual=result.final_relative_residual)
     except SolverError as exc:
@@ -254,6 +275,7 @@ def run_job(
         log.close()
     grid = problem.grid
     balance = job_balance(spec, problem, u)
+    headline = compute_headline(spec, problem, u, balance)
     probes = sample(grid, u, spec.probe)
     seconds = {
         "build": t_build - t0,
@@ -289,6 +311,9 @@ def run_job(
         **(extra_attrs or {}),
         "balance": balance.to_dict(),
         "floating": {h.name: h.value for h in balance.holds if h.floating},  # solved potentials (V)
+        "headline": headline,
+        "warnings": list(warnings),
+        "input_units": list(unit_notes(spec)),
         "probes": [{"name": p.name, "kind": p.kind, "samples": len(p.values),
                     "min": float(p.values.min()), "max": float(p.values.max())} for p in probes],
     }
@@ -299,4 +324,5 @@ def run_job(
         csv = write_probe_csv(probes_csv_path(plan.output), probes, physics.solution, physics.solution_units)
     seconds["write"] = time.perf_counter() - t_write
     seconds["job"] = time.perf_counter() - t0
-    return JobResult(plan, result, plan.output, log_path(plan.output), seconds, balance, tuple(probes), csv)
+    return JobResult(plan, result, plan.output, log_path(plan.output), seconds, balance, tuple(probes), csv,
+                     headline, tuple(warnings))

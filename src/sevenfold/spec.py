@@ -16,6 +16,7 @@ from pydantic import (
     BaseModel,
     ConfigDict,
     Field,
+    PrivateAttr,
     ValidationError,
     field_validator,
     model_validator,
@@ -851,6 +852,8 @@ class JobSpec(_Frozen):
     exchange: tuple[ExchangeSpec, ...] = ()
     contact: tuple[ContactSpec, ...] = ()
     well: tuple[WellSpec, ...] = ()
+    # The [units] conversions the job was read with (units.py); not part of the dumped job.
+    _unit_notes: tuple[str, ...] = PrivateAttr(default=())
 
     @model_validator(mode="after")
     def _wells_and_electrodes(self) -> "JobSpec":
@@ -938,11 +941,19 @@ def parse_job(table: dict[str, Any], source: str = "") -> JobSpec:
     if isinstance(table, dict) and "sweep" in table:
         raise JobError("a [sweep] table stands for one job per combination; queue them with "
                        "`sevenfold submit`", "sweep", source)
+    from .units import convert_units
+
     try:
-        return JobSpec.model_validate(table)
+        table, notes = convert_units(table)
+    except JobError as exc:
+        raise exc.located(source) from None
+    try:
+        spec = JobSpec.model_validate(table)
     except ValidationError as exc:
         err = exc.errors()[0]
         raise JobError(_reason(err), _where(tuple(err["loc"])), source) from None
+    spec._unit_notes = notes
+    return spec
 
 
 def read_job_table(path: Path) -> dict[str, Any]:

@@ -17,6 +17,19 @@ value and the GCI (see gci.py) of each quantity:
 * ``well_head_<name>`` (a rate well's bore head) or ``well_rate_<name>`` (a head well's rate),
 * ``probe_<name>``: each point probe's value.
 
+The solution maximum and the probes are values of the solution, which may carry an arbitrary
+offset (a temperature in K, a head above a datum, an offset potential): their relative GCI is
+measured against the solution's range over the domain on the finest level (max - min), or
+against their distance from a ``datum`` the user names, never against their absolute value
+(300 K would make any temperature look converged). Flows and charges have no offset and are
+measured against their own magnitude. Each result says which (``relative_to``).
+
+Each level also records what every region, source region and hold selects (cells and
+volume, from the result's headline); a study whose selected volumes differ between levels by
+more than 10 % of the shape's volume solves a different geometry on each level and is flagged
+(``geometry_changes``): its GCI mixes discretisation error with the changing shape. A level
+that fails is named in the error.
+
 This module runs jobs and writes the study's files; the formulas live in gci.py.
 """
 
@@ -29,11 +42,12 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import JobError, writing
+from .errors import JobError, SolverError, writing
 from .gci import GCIResult, gci_three_grids
 from .grid import Grid, grid_from_spec
 from .runner import JobResult, job_grid, output_path, run_job
 from .spec import JobSpec, load_job
+from .volumes import GEOMETRY_TOLERANCE
 
 RATIO_SPREAD = 0.02  # largest relative difference of the per-axis ratios between two levels
 
@@ -45,6 +59,8 @@ class Level:
     ratios: tuple[float, float, float]  # actual per-axis ratio to the previous level (1 if thin)
     values: dict[str, float]
     output: str
+    solution_range: float = float("nan")  # max - min of the solution on this level
+    selected: dict[str, dict] = field(default_factory=dict)  # region label -> cells, volume, shape_volume
 
 
 @dataclass(frozen=True)
@@ -55,6 +71,8 @@ class Study:
     levels: list[Level]
     results: dict[str, GCIResult] = field(default_factory=dict)
     folder: str = ""
+    geometry_changes: list[str] = field(default_factory=list)
+    datum: float | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -62,6 +80,8 @@ class Study:
             "method": "Roache's GCI on the three finest levels, Fs = 1.25",
             "levels": [vars(lv) | {"ratios": list(lv.ratios), "cells": list(lv.cells)} for lv in self.levels],
             "results": {k: v.to_dict() for k, v in self.results.items()},
+            "datum": self.datum,
+            "geometry_changes": self.geometry_changes,
         }
 
 
@@ -162,14 +182,43 @@ def quantities(result: JobResult) -> dict[str, float]:
     return values
 
 
+def offset_quantity(key: str, solution: str) -> bool:
+    """Whether a study quantity is a value of the solution (and so may carry an offset)."""
+    return key == f"{solution}_max" or key.startswith("probe_")
+
+
+def level_selection(result: JobResult) -> dict[str, dict]:
+    """What each region, source region and hold selects on a level (from its headline)."""
+    regions = (result.headline or {}).get("regions", [])
+    return {r["label"]: {"cells": r["cells"], "volume": r["volume"], "shape_volume": r["shape_volume"]}
+            for r in regions}
+
+
+def geometry_changes(levels: list[Level], tolerance: float = GEOMETRY_TOLERANCE) -> list[str]:
+    """A line per region whose selected volume differs between levels by more than
+    ``tolerance`` of its shape's volume."""
+    out = []
+    for label in levels[0].selected if levels else ():
+        vols = [lv.selected[label]["volume"] for lv in levels if label in lv.selected]
+        shape = levels[0].selected[label]["shape_volume"]
+        ref = shape if shape > 0 else max(vols)
+        if ref > 0 and max(vols) - min(vols) > tolerance * ref:
+            out.append(f"{label}: the selected volume changes between levels ("
+                       + ", ".join(f"{v:.4g}" for v in vols) + f" m^3; shape {shape:.4g} m^3): each level "
+                       "solves a different geometry, so the GCI of quantities it affects is not a "
+                       "discretisation error alone; align the shape with cell edges of every level")
+    return out
+
+
 def run_study(job_file: str | Path, levels: int = 3, ratio: float = 2.0,
               folder: str | Path | None = None, spec: JobSpec | None = None,
-              progress=None) -> Study:
+              progress=None, datum: float | None = None) -> Study:
     """Run every level in this process and compute the GCI of every quantity.
 
     Results go to ``folder`` (default ``<output stem>.converge`` beside the job's output):
     ``level-<l>.zarr`` per level and ``study.json``. ``progress(level, cells)`` is called
-    before each level when given.
+    before each level when given. ``datum`` (solution units): the solution maximum and the
+    probes are measured against their distance from it instead of the solution's range.
     """
     from .physics import PHYSICS
 
@@ -194,18 +243,36 @@ def run_study(job_file: str | Path, levels: int = 3, ratio: float = 2.0,
         if progress is not None:
             progress(lv, grid.cells)
         target = folder / f"level-{lv}.zarr"
-        result = run_job(job_file, target, None, refined_spec(spec, grid))
-        done.append(Level(grid.cells, h, ratios, quantities(result), str(target)))
+        name = f"level {lv} ({' x '.join(map(str, grid.cells))} cells)"
+        try:
+            result = run_job(job_file, target, None, refined_spec(spec, grid))
+        except JobError as exc:
+            where = f"{exc.where}: " if exc.where else ""
+            raise JobError(f"{where}{exc.reason}", name, exc.source or str(job_file)) from None
+        except SolverError as exc:
+            raise SolverError(f"{name}: {exc}", exc.history) from None
+        headline = result.headline or {}
+        span = (headline["max"]["value"] - headline["min"]["value"]) if headline else float("nan")
+        done.append(Level(grid.cells, h, ratios, quantities(result), str(target), span, level_selection(result)))
     physics = PHYSICS[spec.physics]
-    study = Study(spec.name, physics.solution_units, physics.amount_units, done, {}, str(folder))
+    study = Study(spec.name, physics.solution_units, physics.amount_units, done, {}, str(folder),
+                  geometry_changes(done), datum)
     fine, mid, coarse = done[-1], done[-2], done[-3]
+    units = physics.solution_units
     for key in fine.values:
         trio = [lv.values.get(key) for lv in (fine, mid, coarse)]
         if any(v is None for v in trio):
             continue
         if key.startswith("outflow_") and all(v == 0.0 for v in trio):
             continue  # an insulated face: nothing to converge
-        study.results[key] = gci_three_grids(trio[0], trio[1], trio[2], mid.h / fine.h, coarse.h / mid.h)
+        scale, relative_to = None, "|f1|"
+        if offset_quantity(key, physics.solution):
+            if datum is not None:
+                scale, relative_to = trio[0] - datum, f"|f1 - datum {datum:g} {units}|"
+            else:
+                scale, relative_to = fine.solution_range, f"range {fine.solution_range:.4g} {units}"
+        study.results[key] = gci_three_grids(trio[0], trio[1], trio[2], mid.h / fine.h, coarse.h / mid.h,
+                                             scale=scale, relative_to=relative_to)
     with writing(folder / "study.json", "the study"):
         (folder / "study.json").write_text(json.dumps(study.to_dict(), indent=2, default=float))
     return study
@@ -225,7 +292,8 @@ def plot_study(study: Study, target: str | Path) -> Path:
     for key, res in study.results.items():
         if not math.isfinite(res.extrapolated):
             continue
-        ref = abs(res.extrapolated) or max(abs(lv.values[key]) for lv in study.levels) or 1.0
+        ref = res.scale if math.isfinite(res.scale) and res.scale > 0 else (
+            abs(res.extrapolated) or max(abs(lv.values[key]) for lv in study.levels) or 1.0)
         change = np.array([abs(lv.values[key] - res.extrapolated) / ref for lv in study.levels])
         keep = change > 0
         if keep.sum() >= 2:
@@ -237,7 +305,7 @@ def plot_study(study: Study, target: str | Path) -> Path:
         y0 = float(np.median(ys))
         ax.loglog(hs, y0 * (hs / h0) ** 2, "k--", lw=1, label="slope 2")
     ax.set_xlabel("cell size h (m)")
-    ax.set_ylabel("|f(h) - f_extrapolated| / |f_extrapolated|")
+    ax.set_ylabel("|f(h) - f_extrapolated| / scale (see study.json)")
     ax.set_title(f"grid convergence: {study.name}")
     ax.grid(True, which="both", alpha=0.3)
     if plotted:

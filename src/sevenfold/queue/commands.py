@@ -305,6 +305,10 @@ def show_rows(job: Job, now: float, last_residual: str | None = None) -> list[tu
         rows.append(("solver", f"{s.get('method')}, {s.get('iterations')} iterations, "
                                f"{'converged' if s.get('converged') else 'not converged'}, final relative residual "
                                f"{s.get('final_relative_residual', float('nan')):.3e}"))
+        if s.get("switch"):
+            from .watch import switch_text
+
+            rows.append(("switched", switch_text(s["switch"])))
         secs = s.get("seconds") or {}
         rows.append(("seconds", ", ".join(f"{k} {v:.2f}" for k, v in secs.items())))
     if last_residual:
@@ -346,11 +350,16 @@ def _show(args: argparse.Namespace) -> int:
     if is_complete(out_path):
         import zarr
 
-        from ..cli import balance_table
+        from ..cli import balance_table, headline_table, warn
 
-        balance = zarr.open_group(str(out_path), mode="r").attrs.get("balance")
+        attrs = zarr.open_group(str(out_path), mode="r").attrs
+        balance = attrs.get("balance")
         if balance:
             out.print(balance_table(balance))
+        if attrs.get("headline"):
+            out.print(headline_table(attrs["headline"]))
+        for w in attrs.get("warnings") or []:
+            warn(w)
     ev = Table(title="history", title_justify="left", box=None, pad_edge=False)
     for col in ("time", "event", "detail"):
         ev.add_column(col, overflow="fold")
@@ -364,7 +373,7 @@ def _show(args: argparse.Namespace) -> int:
 
 # ---------------------------------------------------------------- watch
 def _watch(args: argparse.Namespace) -> int:
-    from .watch import describe, plot, read_progress
+    from .watch import describe, plot, read_progress, switch_text
 
     out, _ = _consoles()
     queue = _queue(args)
@@ -383,6 +392,7 @@ def _watch(args: argparse.Namespace) -> int:
         return Group(head, Text(text), Text("\n".join(plot(history))))
 
     last_shown: tuple | None = None
+    switches_shown = 0
     last_clean = 0.0
     try:
         if live_view:
@@ -400,6 +410,10 @@ def _watch(args: argparse.Namespace) -> int:
             else:
                 p = read_progress(job.output, since=job.started)
                 text, history = describe(p), p.history
+                for sw in p.switches[switches_shown:]:  # a marked row at each switch of method
+                    line = f"{time.strftime('%H:%M:%S')}  *** {switch_text(sw)}"
+                    (live.console.print(line, markup=False) if live_view else print(line, flush=True))
+                switches_shown = len(p.switches)
             key = (job.state, len(history), text if not history else None)
             if live_view:
                 live.update(panel(job, text, history))
@@ -421,8 +435,10 @@ def _watch(args: argparse.Namespace) -> int:
         return 130
     if job.state == "done":
         s = job.summary or {}
-        out.print(f"job {job.id} done: {s.get('iterations')} iterations, relative residual "
-                  f"{s.get('final_relative_residual', float('nan')):.2e}; result {escape(job.output)}", soft_wrap=True)
+        switched = f" ({switch_text(s['switch'])})" if s.get("switch") else ""
+        out.print(f"job {job.id} done: {s.get('method', '')} {s.get('iterations')} iterations{escape(switched)}, "
+                  f"relative residual {s.get('final_relative_residual', float('nan')):.2e}; result "
+                  f"{escape(job.output)}", soft_wrap=True)
         return 0
     out.print(f"job {job.id} {job.state}: {escape(job.error or '')}", soft_wrap=True)
     return 1
@@ -435,6 +451,11 @@ def _log(args: argparse.Namespace) -> int:
     queue = _queue(args)
     job = queue.get(args.id)
     p = read_progress(job.output, since=job.started) if job.started else read_progress(job.output)
+    if p.rows:
+        from .watch import log_lines
+
+        sys.stdout.write("\n".join(log_lines(p, args.csv)) + "\n")
+        return 0
     history, seconds = p.history, p.seconds
     if not history and job.state == "done":
         history, seconds = _history_from_result(Path(job.output))
@@ -443,11 +464,11 @@ def _log(args: argparse.Namespace) -> int:
     buf = io.StringIO()
     if args.csv:
         w = csv.writer(buf, lineterminator="\n")
-        w.writerow(["iteration", "relative_residual", "seconds"])
+        w.writerow(["iteration", "relative_residual", "seconds", "method"])
         for i, (r, s) in enumerate(zip(history, seconds)):
-            w.writerow([i, repr(r), repr(s)])
+            w.writerow([i, repr(r), repr(s), ""])
     else:
-        buf.write(f"{'iteration':>9}  {'relative residual':>17}  {'seconds':>9}\n")
+        buf.write(f"{'iteration':>9}  {'relative residual':>17}  {'seconds':>9}  method\n")
         for i, (r, s) in enumerate(zip(history, seconds)):
             buf.write(f"{i:9d}  {r:17.6e}  {s:9.3f}\n")
     sys.stdout.write(buf.getvalue())

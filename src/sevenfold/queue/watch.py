@@ -68,17 +68,32 @@ def plot(history: Sequence[float], width: int = 60, height: int = 8) -> list[str
 
 @dataclass(frozen=True)
 class Progress:
-    """What a residual log says about a solve so far."""
+    """What a residual log says about a solve so far.
+
+    ``history`` and ``seconds`` are those of the method now solving: after a switch of
+    ``auto`` (gmg to amg) they start again at iteration 0, as the solver summary counts them.
+    ``switches`` holds the switch records, ``rows`` every iteration record (with its method)
+    and switch record since the start, in order.
+    """
 
     started: dict[str, Any] | None
     history: list[float]
     seconds: list[float]
     ended: dict[str, Any] | None
     first: int = 0  # the iteration of history[0]: a viewer may keep only the last few
+    switches: tuple[dict[str, Any], ...] = ()
+    rows: tuple[dict[str, Any], ...] = ()
 
     @property
     def iteration(self) -> int | None:
         return self.first + len(self.history) - 1 if self.history else None
+
+    @property
+    def method(self) -> str | None:
+        """The method now solving (the last switch's target, else the one the log started with)."""
+        if self.switches:
+            return self.switches[-1].get("to")
+        return None if self.started is None else self.started.get("method")
 
     @property
     def rtol(self) -> float | None:
@@ -97,23 +112,59 @@ def read_progress(output: str | Path, since: float | None = None) -> Progress:
     started = ended = None
     history: list[float] = []
     seconds: list[float] = []
+    switches: list[dict[str, Any]] = []
+    rows: list[dict[str, Any]] = []
     for rec in records:
         if rec.get("event") == "start":
-            started, history, seconds, ended = rec, [], [], None
+            started, history, seconds, ended, switches, rows = rec, [], [], None, [], []
         elif rec.get("event") == "end":
             ended = rec
+        elif rec.get("event") == "switch":
+            switches.append(rec)
+            rows.append(rec)
+            history, seconds = [], []
         elif "iteration" in rec:
             history.append(float(rec["relative_residual"]))
             seconds.append(float(rec.get("seconds", 0.0)))
-    return Progress(started, history, seconds, ended)
+            rows.append(rec)
+    return Progress(started, history, seconds, ended, switches=tuple(switches), rows=tuple(rows))
+
+
+def switch_text(switch: dict[str, Any]) -> str:
+    """One line saying where and why ``auto`` changed method."""
+    return (f"auto switched from {switch.get('from')} to {switch.get('to')} after "
+            f"{switch.get('after_iterations')} {switch.get('from')} iterations: {switch.get('reason', '')}").rstrip(": ")
+
+
+def log_lines(p: Progress, csv: bool = False) -> list[str]:
+    """The residual history as ``log`` prints it: one row per iteration (numbered per method,
+    with the method), and in the text form a marked row at each switch of method (the CSV form
+    keeps uniform rows: its method column changes there)."""
+    method = None if p.started is None else p.started.get("method")
+    out = ["iteration,relative_residual,seconds,method"] if csv else [
+        f"{'iteration':>9}  {'relative residual':>17}  {'seconds':>9}  method"]
+    for rec in p.rows:
+        if rec.get("event") == "switch":
+            method = rec.get("to")
+            if not csv:
+                out.append(f"{'-' * 9}  {switch_text(rec)}")
+            continue
+        m = rec.get("method", method) or ""
+        r, s = float(rec["relative_residual"]), float(rec.get("seconds", 0.0))
+        out.append(f"{rec['iteration']},{r!r},{s!r},{m}" if csv else f"{rec['iteration']:9d}  {r:17.6e}  {s:9.3f}  {m}")
+    return out
 
 
 def describe(p: Progress) -> str:
     """One line: iteration, residual, rate and what is left."""
     if not p.history:
+        if p.switches:
+            return f"{switch_text(p.switches[-1])}; now {p.method}: setting up"
         return "building the problem and the preconditioner" if p.started is None else "solving"
     r = p.history[-1]
     parts = [f"iteration {p.iteration}", f"relative residual {r:.3e}"]
+    if p.switches:
+        parts.insert(0, f"{switch_text(p.switches[-1])}; now {p.method}")
     f = rate(p.history)
     if f is not None:
         parts.append(f"rate {f:.3f} per iteration")

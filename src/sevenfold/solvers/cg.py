@@ -50,6 +50,9 @@ class SolveResult:
     times: list[float] = field(default_factory=list)  # seconds since the solve began
     notes: str = ""
     assembly_seconds: float = 0.0  # building the operator (CSR matrix or face arrays)
+    # auto's switch from one method to another before this solve: from, to, after_iterations
+    # (of the method left), rate, reason; None when the solve used one method throughout
+    switch: dict | None = None
 
     def summary(self) -> dict:
         return {
@@ -61,6 +64,7 @@ class SolveResult:
             "setup_seconds": self.setup_seconds,
             "solve_seconds": self.solve_seconds,
             "notes": self.notes,
+            "switch": self.switch,
         }
 
 

@@ -120,9 +120,15 @@ def _solve_fixed(problem: Problem, solver: SolverSpec, method: str,
             u, result = solve_gmg(problem, solver.rtol, solver.max_iterations,
                                   _RateGuard(monitor) if guarded else monitor, solver.stagnation_window)
         except _SlowMultigrid as slow:
+            switch = {"from": "gmg", "to": "amg", "after_iterations": slow.iteration, "rate": slow.rate,
+                      "reason": f"gmg reduced the residual only {slow.rate:.2f} per iteration over "
+                                f"{slow.iteration} iterations (auto wants at most {GUARD_RATE})"}
+            if hasattr(monitor, "switched"):  # the residual log and the progress display mark it
+                monitor.switched(switch)  # type: ignore[attr-defined]
             u, result = solve_assembled(problem, solver, "amg", monitor)
             result.notes = (f"auto chose gmg, which reduced the residual only {slow.rate:.2f} per "
                             f"iteration over {slow.iteration} iterations; solved with amg instead")
+            result.switch = switch
             return u, result
         return complete_field(problem, u), result
     return solve_assembled(problem, solver, method, monitor)

@@ -108,6 +108,7 @@ class LogFollower:
         self.stride = 1
         self.points: list[tuple[int, float]] = []
         self.tail: deque[tuple[int, float, float]] = deque(maxlen=RATE_WINDOW + 1)
+        self.switches: list[dict[str, Any]] = []  # auto's switches of method (residual_log.py)
 
     def update(self) -> None:
         """Read what was appended since the last look (the log may be replaced by a new run)."""
@@ -142,6 +143,9 @@ class LogFollower:
                 self.starts += 1
             elif rec.get("event") == "end":
                 self.ended = rec
+            elif rec.get("event") == "switch":  # the new method counts its iterations from 0
+                self.switches.append(rec)
+                self.tail.clear()
             elif "iteration" in rec:
                 it, r, s = int(rec["iteration"]), float(rec["relative_residual"]), float(rec.get("seconds", 0.0))
                 self.tail.append((it, r, s))
@@ -159,7 +163,8 @@ class LogFollower:
         """What :mod:`sevenfold.queue.watch` reads from a log, for the last few iterations."""
         tail = list(self.tail)
         first = tail[0][0] if tail else 0
-        return Progress(self.started, [t[1] for t in tail], [t[2] for t in tail], self.ended, first)
+        return Progress(self.started, [t[1] for t in tail], [t[2] for t in tail], self.ended, first,
+                        switches=tuple(self.switches))
 
 
 class Logs:
