@@ -145,8 +145,11 @@ def _run(args: argparse.Namespace) -> int:
         TimeElapsedColumn(), console=out, transient=False, disable=args.quiet or args.no_progress,
     ) as progress:
         task = progress.add_task(plan.spec.name, total=-math.log10(plan.spec.solver.rtol), info="building")
-        result = run_job(args.job, args.output, ProgressMonitor(progress, task, plan.spec.solver.rtol), plan.spec,
-                         on_warning=lambda text: progress.console.print(
+        monitor = ProgressMonitor(progress, task, plan.spec.solver.rtol)
+        if args.quiet:  # stdout holds the result's path alone; warnings go to stderr
+            monitor.switched = lambda info: None  # type: ignore[method-assign]
+        result = run_job(args.job, args.output, monitor, plan.spec,
+                         on_warning=lambda text: (err if args.quiet else progress.console).print(
                              f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True))
     if args.quiet:
         return quiet_result(result.output)
