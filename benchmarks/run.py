@@ -348,7 +348,7 @@ def run_size(folder: Path, n: int, runs: int) -> SizeResult:
                     res.iterations_baseline = int(info["iterations"])
                     res.residual_baseline = float(info["relative_residual"])
             else:
-                r = run_process(sevenfold_command() + ["run", "--quiet", str(job), "--output", str(zarr_path)],
+                r = run_process(sevenfold_command() + ["run", "--no-progress", str(job), "--output", str(zarr_path)],
                                 folder)
                 res.sevenfold.append(r)
                 if r.wall < best_s:
@@ -580,7 +580,7 @@ def main(argv: list[str] | None = None) -> int:
         print(f"jobs and results in {folder}", flush=True)
         # warm both sides: numba's kernel cache, the OS file cache of the imports
         warm = write_job(folder, 16)
-        run_process(sevenfold_command() + ["run", "--quiet", str(warm)], folder)
+        run_process(sevenfold_command() + ["run", "--no-progress", str(warm)], folder)
         run_process([sys.executable, str(HERE / "baseline.py"), "--cells", "16",
                      "--out", str(folder / "warm.npy")], folder)
 

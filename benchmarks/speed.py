@@ -158,7 +158,7 @@ def run_case(folder: Path, pattern: str, n: int, with_baseline: bool, repeats: i
             [sys.executable, str(HERE / "baseline.py"), "--cells", str(n), "--pattern", pattern,
              "--out", str(npy_path)], folder)
         case.base = json.loads(case.baseline.stdout.strip().splitlines()[-1])
-    case.sevenfold = engine.run_process(engine.sevenfold_command() + ["run", "--quiet", str(job)], folder)
+    case.sevenfold = engine.run_process(engine.sevenfold_command() + ["run", "--no-progress", str(job)], folder)
     case.job_seconds = sevenfold_job_seconds(case.sevenfold.stdout)
     group = zarr.open_group(str(zarr_path), mode="r")
     case.seconds = dict(group.attrs["seconds"])

@@ -202,7 +202,7 @@ def test_pure_neumann_pinned_cell_counts_as_free() -> None:
 
 def test_run_prints_the_balance(tmp_path: Path, capsys) -> None:
     table = {"name": "printed", "physics": "heat", **GEOMETRY, "solver": {"method": "direct"}}
-    assert main(["run", "--quiet", str(write_table(tmp_path, table))]) == 0
+    assert main(["run", "--no-progress", str(write_table(tmp_path, table))]) == 0
     text = capsys.readouterr().out
     for label in ("balance", "source (free cells)", "out through x_min", "into block (2)", "relative imbalance"):
         assert label in text

@@ -21,11 +21,11 @@ def test_check_shows_the_plan(tmp_path: Path, capsys) -> None:
 
 def test_run_exit_codes(tmp_path: Path, capsys) -> None:
     job = write_job(tmp_path, method="amg")
-    assert main(["run", "--quiet", str(job), "--output", str(tmp_path / "out.zarr")]) == 0
+    assert main(["run", "--no-progress", str(job), "--output", str(tmp_path / "out.zarr")]) == 0
     assert "converged" in capsys.readouterr().out
     assert zarr.open_group(str(tmp_path / "out.zarr"), mode="r").attrs["complete"] is True
     failing = write_job(tmp_path, method="amg", max_iterations=1)
-    assert main(["run", "--quiet", str(failing)]) == 1
+    assert main(["run", "--no-progress", str(failing)]) == 1
     assert "did not converge" in capsys.readouterr().err
 
 

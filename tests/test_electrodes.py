@@ -224,7 +224,7 @@ def test_run_reports_the_floating_potential(tmp_path: Path, capsys) -> None:
 
     job = tmp_path / "floating.toml"
     job.write_text(FLOATING_TOML)
-    assert main(["run", "-q", str(job)]) == 0
+    assert main(["run", "--no-progress", str(job)]) == 0
     text = " ".join(capsys.readouterr().out.split())
     assert "charge on island (floating, solved 3 V)" in text
     result = open_result(tmp_path / "results" / "floating.zarr")

@@ -34,7 +34,7 @@ LAYER = '[[material.region]]\nbox = { min = [0.0, 0.0, 0.3], max = [1.0, 1.0, 0.
 # the job's own peak the one that is read.
 MEASURE = """
 import os, subprocess, sys
-child = subprocess.Popen([sys.executable, "-m", "sevenfold.cli", "run", "--quiet", sys.argv[1]],
+child = subprocess.Popen([sys.executable, "-m", "sevenfold.cli", "run", "--no-progress", sys.argv[1]],
                          stdout=subprocess.DEVNULL)
 _, status, usage = os.wait4(child.pid, 0)
 print(status, usage.ru_maxrss * 1024)  # ru_maxrss is in kilobytes on Linux

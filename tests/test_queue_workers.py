@@ -187,12 +187,19 @@ def test_a_failing_write_fails_with_the_os_error_then_retry_after_the_fix(worker
     folder = root / "blocked"
     folder.mkdir()
     (folder / "out").write_text("a file where the results folder should be\n")
+    # a file where the output's folder must be is known before anything runs: submit refuses it
+    proc = cli(home, "submit", str(small_job(folder, "refused", output="out/{name}.zarr")))
+    assert proc.returncode == 2 and "is a file, not a folder" in " ".join(proc.stderr.split())
+    (folder / "out").unlink()
+    # a folder where the residual log must go is met only when the run writes
+    (folder / "out" / "blocked.residuals.jsonl").mkdir(parents=True)
     (s,) = submit(home, small_job(folder, "blocked", output="out/{name}.zarr"))
     wait_for(lambda: job(home, s["id"]).state == "failed", "the job to fail")
     j = job(home, s["id"])
-    assert j.error.startswith("OS error: [Errno") and str(folder / "out") in j.error
+    log = folder / "out" / "blocked.residuals.jsonl"
+    assert j.error == f"cannot write the residual log {log}: Is a directory"  # the line `run` prints
     assert not is_complete(Path(s["output"]))
-    (folder / "out").unlink()  # the user frees the path
+    log.rmdir()  # the user frees the path
     assert cli(home, "retry", str(s["id"])).returncode == 0
     wait_for(lambda: job(home, s["id"]).state == "done", "the retried job to finish")
     assert is_complete(Path(s["output"]))

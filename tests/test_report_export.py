@@ -21,7 +21,7 @@ def result(tmp_path_factory) -> Path:
     folder = tmp_path_factory.mktemp("report")
     job = folder / "probed.toml"
     job.write_text(JOB)
-    assert main(["run", "--quiet", str(job)]) == 0
+    assert main(["run", "--no-progress", str(job)]) == 0
     return folder / "results" / "probed.zarr"
 
 

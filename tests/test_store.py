@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -10,6 +11,7 @@ import pytest
 import zarr
 
 from sevenfold import store
+from sevenfold.errors import OutputError
 from sevenfold.residual_log import read_log
 from sevenfold.runner import run_job
 from sevenfold.store import is_complete
@@ -99,8 +101,8 @@ def test_interrupted_write_leaves_no_result(tmp_path: Path, monkeypatch) -> None
         return original(self, key, value)
 
     monkeypatch.setattr(zarr.Array, "__setitem__", failing_setitem)
-    with pytest.raises(OSError, match="No space left"):
-        run_job(job)
+    with pytest.raises(OutputError, match=f"cannot write the result {re.escape(str(first.output))}: No space left"):
+        run_job(job)  # a bad output is a bad input: one line naming the path and the reason
     monkeypatch.undo()
     # the earlier finished result is untouched, and nothing else is left beside it
     assert is_complete(first.output)

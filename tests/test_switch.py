@@ -62,7 +62,7 @@ def test_the_switch_is_recorded_where_it_happens(tmp_path: Path, slow_gmg, capsy
 
 
 def test_run_says_so_in_its_summary_line(tmp_path: Path, slow_gmg, capsys) -> None:
-    assert main(["run", str(_job(tmp_path)), "--quiet"]) == 0
+    assert main(["run", str(_job(tmp_path)), "--no-progress"]) == 0
     out = " ".join(capsys.readouterr().out.split())
     assert "*** auto switched from gmg to amg after 2 gmg iterations" in out
     assert "(auto switched from gmg after 2 gmg iterations)" in out

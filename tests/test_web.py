@@ -61,7 +61,7 @@ def queue_home(tmp_path_factory, warm_cache: Path):
     (root / "sweep.toml").write_text(SWEEP)
     blocked = root / "blocked"
     blocked.mkdir()
-    (blocked / "out").write_text("a file where the results folder should be\n")
+    (blocked / "out" / "failing.residuals.jsonl").mkdir(parents=True)  # a folder where the log must go
     with Queue(home) as q:
         swept = submit_files(q, [root / "sweep.toml"])
         (failing,) = submit_files(q, [small_job(blocked, "failing", output="out/{name}.zarr")])
@@ -110,7 +110,7 @@ def test_queue_page_and_data_list_every_job_sorted_as_list_sorts(client, queue_h
     by_id = {j["id"]: j for j in d["jobs"]}
     done = by_id[ids["done"][0]]
     assert done["state"] == "done" and done["batch"] and done["iterations"] >= 1 and done["residual"] < 1e-8
-    assert by_id[ids["failed"]]["note"].startswith("OS error")
+    assert by_id[ids["failed"]]["note"].startswith("cannot write the residual log")
     live = by_id[ids["running"]]
     assert live["iterations"] == 39 and live["residual"] == pytest.approx(0.5 ** 39)
     assert d["live"][str(ids["running"])]["iteration"] == 39

@@ -68,7 +68,7 @@ def wellfield(tmp_path_factory) -> Path:
     folder = tmp_path_factory.mktemp("wells")
     job = folder / "wellfield.toml"
     job.write_text(AQUIFER.replace("{extra}", ""))
-    assert main(["run", "--quiet", str(job)]) == 0
+    assert main(["run", "--no-progress", str(job)]) == 0
     return folder
 
 
@@ -97,7 +97,7 @@ def test_converge_reports_the_bore_head_and_the_head_wells_rate(wellfield: Path)
     """Three levels of the graded grid (every cell split in 2, then 4): Peaceman's radius stays
     above the bore radius (0.198 x 0.5 m > 0.1 m on the finest)."""
     study = run_study(wellfield / "wellfield.toml", levels=3, ratio=2.0, folder=wellfield / "study")
-    assert set(study.results) >= {"well_head_pw1", "well_rate_drain", "head_max"}
+    assert set(study.results) >= {"well_head_pw1", "well_rate_drain", "hydraulic_head_max"}
     assert [lv.cells for lv in study.levels] == [(20, 8, 3), (40, 16, 6), (80, 32, 12)]
     g = study.results["well_head_pw1"]
     assert g.convergence == "monotone" and g.gci_relative < 0.01
@@ -161,7 +161,7 @@ def test_floating_electrode_on_a_graded_grid_in_run_and_converge(tmp_path: Path,
     (uniform permittivity: the potential is linear in z; exact in 1D)."""
     job = tmp_path / "island.toml"
     job.write_text(ISLAND.format(charge=0.0, method=method))
-    assert main(["run", "--quiet", str(job)]) == 0
+    assert main(["run", "--no-progress", str(job)]) == 0
     out = " ".join(capsys.readouterr().out.split())
     result = open_result(tmp_path / "results" / "island.zarr")
     ez = result.edges(2)

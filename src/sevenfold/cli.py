@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import argparse
 import math
+import os
 import sys
 import time
 from pathlib import Path
@@ -20,8 +21,23 @@ from .errors import Cancelled, JobError, SevenfoldError, SolverError
 
 EXIT_OK, EXIT_SOLVER, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
 
-out = Console(highlight=False)
-err = Console(stderr=True, highlight=False)
+class _Console(Console):
+    """rich's Console, except that a closed stdout (``| head``) raises BrokenPipeError for
+    :func:`main` to end quietly, instead of rich's own exit with status 1."""
+
+    def on_broken_pipe(self) -> None:
+        self.quiet = True
+        raise BrokenPipeError
+
+
+out = _Console(highlight=False)
+err = _Console(stderr=True, highlight=False)
+
+
+def quiet_result(path: Path | str) -> int:
+    """``--quiet``: the result's path alone on stdout, unwrapped."""
+    print(str(path), flush=True)
+    return EXIT_OK
 
 
 class ProgressMonitor:
@@ -131,12 +147,17 @@ def _run(args: argparse.Namespace) -> int:
     plan = plan_job(args.job, args.output)
     with Progress(
         TextColumn("[bold]{task.description}"), BarColumn(), TextColumn("{task.fields[info]}"),
-        TimeElapsedColumn(), console=out, transient=False, disable=args.quiet,
+        TimeElapsedColumn(), console=out, transient=False, disable=args.quiet or args.no_progress,
     ) as progress:
         task = progress.add_task(plan.spec.name, total=-math.log10(plan.spec.solver.rtol), info="building")
-        result = run_job(args.job, args.output, ProgressMonitor(progress, task, plan.spec.solver.rtol), plan.spec,
-                         on_warning=lambda text: progress.console.print(
+        monitor = ProgressMonitor(progress, task, plan.spec.solver.rtol)
+        if args.quiet:  # stdout holds the result's path alone; warnings go to stderr
+            monitor.switched = lambda info: None  # type: ignore[method-assign]
+        result = run_job(args.job, args.output, monitor, plan.spec,
+                         on_warning=lambda text: (err if args.quiet else progress.console).print(
                              f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True))
+    if args.quiet:
+        return quiet_result(result.output)
     s = result.solve
     switched = (f" (auto switched from {s.switch['from']} after {s.switch['after_iterations']} "
                 f"{s.switch['from']} iterations)" if s.switch else "")
@@ -216,7 +237,11 @@ def _converge(args: argparse.Namespace) -> int:
     def progress(level: int, cells) -> None:
         out.print(f"level {level}: {cells[0]} x {cells[1]} x {cells[2]} cells ...")
 
-    study = run_study(args.job, args.levels, args.ratio, args.folder, progress=progress, datum=args.datum)
+    study = run_study(args.job, args.levels, args.ratio, args.folder, progress=None if args.quiet else progress,
+                      datum=args.datum)
+    png = plot_study(study, Path(study.folder) / "convergence.png")
+    if args.quiet:
+        return quiet_result(study.folder)
     levels = Table(title="levels", title_justify="left", box=None)
     for col in ("level", "cells", "h (m)", "ratio per axis"):
         levels.add_column(col)
@@ -253,7 +278,6 @@ def _converge(args: argparse.Namespace) -> int:
              f"the range of the solution on the finest level, {study.levels[-1].solution_range:.4g} {units}")
     out.print(f"GCI % of values of the solution (maximum, probes) is relative to {scale}; of flows and "
               "charges, to |f1|", soft_wrap=True)
-    png = plot_study(study, Path(study.folder) / "convergence.png")
     out.print(f"study: {escape(study.folder)} (study.json, level-*.zarr); figure: {escape(str(png))}")
     return EXIT_OK
 
@@ -263,6 +287,8 @@ def _report(args: argparse.Namespace) -> int:
 
     index = write_report(args.result, args.folder)
     _warn_if_not_converged(args.result)
+    if args.quiet:
+        return quiet_result(index)
     out.print(f"report: {escape(str(index))}")
     return EXIT_OK
 
@@ -283,6 +309,8 @@ def _export(args: argparse.Namespace) -> int:
         err.print(f"[yellow]warning:[/yellow] {escape(result.warning)}", soft_wrap=True)
     fields = args.fields.split(",") if args.fields else None
     path = write_vtk(result, args.vti, fields)
+    if args.quiet:
+        return quiet_result(path)
     kind = "VTK image data" if path.suffix == ".vti" else "VTK rectilinear grid (graded axes)"
     out.print(f"{kind}: {escape(str(path))}")
     return EXIT_OK
@@ -309,7 +337,8 @@ def parser() -> argparse.ArgumentParser:
     r = sub.add_parser("run", help="run a job in the foreground")
     r.add_argument("job", help="job file (TOML)")
     r.add_argument("--output", "-o", help="result path (overrides output.path)")
-    r.add_argument("--quiet", "-q", action="store_true", help="no progress bar")
+    r.add_argument("--quiet", "-q", action="store_true", help="print only the result path (and errors)")
+    r.add_argument("--no-progress", action="store_true", help="no progress bar; the summary as usual")
     r.set_defaults(func=_run)
 
     cap = sub.add_parser("capacitance", help="capacitance matrix of an electrostatics job's electrodes")
@@ -322,6 +351,7 @@ def parser() -> argparse.ArgumentParser:
     cv.add_argument("--levels", type=int, default=3, help="number of grids, at least 3 (default 3)")
     cv.add_argument("--ratio", type=float, default=2.0, help="refinement ratio between levels (default 2)")
     cv.add_argument("--folder", help="where the levels go (default <output stem>.converge)")
+    cv.add_argument("--quiet", "-q", action="store_true", help="print only the study folder (and errors)")
     cv.add_argument("--datum", type=float, metavar="VALUE",
                     help="measure the relative GCI of solution values (maximum, probes) against their "
                          "distance from VALUE (solution units, SI) instead of the solution's range")
@@ -330,6 +360,7 @@ def parser() -> argparse.ArgumentParser:
     rp = sub.add_parser("report", help="PNG figures and a one-page HTML summary of a result")
     rp.add_argument("result", help="result (zarr group written by run)")
     rp.add_argument("--folder", help="where the report goes (default <result stem>.report)")
+    rp.add_argument("--quiet", "-q", action="store_true", help="print only the index.html path (and errors)")
     rp.set_defaults(func=_report)
 
     ex = sub.add_parser("export", help="write a result as VTK image data (.vti), or a rectilinear grid "
@@ -338,6 +369,7 @@ def parser() -> argparse.ArgumentParser:
     ex.add_argument("--vti", "--vtk", dest="vti", required=True, metavar="FILE",
                     help="the VTK file to write (.vti; a graded result is written as .vtr beside it)")
     ex.add_argument("--fields", help="comma-separated arrays to include (default: all cell fields)")
+    ex.add_argument("--quiet", "-q", action="store_true", help="print only the written file's path (and errors)")
     ex.set_defaults(func=_export)
 
     d = sub.add_parser("demo", help="copy the example jobs into DIR and run them")
@@ -348,6 +380,22 @@ def parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    """The ``sevenfold`` entry point: a command's exit code. A reader that closes stdout
+    early (``sevenfold list --json | head``) ends the command quietly with exit 0."""
+    try:
+        try:
+            return _dispatch(argv)
+        finally:
+            sys.stdout.flush()  # a pipe closed early fails here, not at interpreter exit
+    except BrokenPipeError:
+        try:  # nothing more reaches the reader; stop Python's own flush at exit from failing
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        except (OSError, ValueError):
+            pass
+        return EXIT_OK
+
+
+def _dispatch(argv: list[str] | None) -> int:
     args = parser().parse_args(argv)
     try:
         return args.func(args)
@@ -371,6 +419,12 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         err.print("interrupted; no result was written")
         return EXIT_INTERRUPTED
+    except BrokenPipeError:
+        raise
+    except OSError as exc:  # a file the code did not expect to fail: still one line, not a traceback
+        where = f"{exc.filename}: " if exc.filename else ""
+        err.print(f"[red]error:[/red] {escape(where + (exc.strerror or str(exc)))}", soft_wrap=True)
+        return EXIT_INPUT
 
 
 if __name__ == "__main__":

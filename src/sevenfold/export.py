@@ -11,13 +11,14 @@ array in the zarr group).
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from .errors import JobError
+from .errors import JobError, writing
+from .physics import RENAMED
 from .spec import JobSpec
 
 
@@ -27,12 +28,18 @@ class NotConvergedWarning(UserWarning):
 
 @dataclass(frozen=True)
 class StoredResult:
-    """A result's group attributes, its job and its arrays on (x, y, z), lazily read."""
+    """A result's group attributes, its job and its arrays on (x, y, z), lazily read.
+
+    Arrays are named as this version names them: a result written under an older name
+    (``head``, now ``hydraulic_head``) is read through ``stored``, current name -> name in
+    the group, and ``attrs["solution"]`` holds the current name.
+    """
 
     path: Path
     attrs: dict[str, Any]
     spec: JobSpec
     group: Any  # zarr.Group
+    stored: dict[str, str] = field(default_factory=dict)
 
     @property
     def solution(self) -> str:
@@ -52,10 +59,11 @@ class StoredResult:
 
     def cell_fields(self) -> list[str]:
         """Names of the arrays on (x, y, z): the solution first, then derived fields."""
+        current = {v: k for k, v in self.stored.items()}
         names = []
         for name, arr in self.group.arrays():
             if tuple(arr.metadata.dimension_names or ()) == ("x", "y", "z"):
-                names.append(name)
+                names.append(current.get(name, name))
         names.sort(key=lambda n: (n != self.solution, n))
         return names
 
@@ -69,11 +77,18 @@ class StoredResult:
         n, h, o = g.uniform_axis(axis)
         return o + h * np.arange(n + 1)
 
+    def _in_group(self, name: str) -> str:
+        return self.stored.get(RENAMED.get(name, name), name)
+
+    def lazy(self, name: str) -> Any:
+        """The zarr array ``name`` (current name), read only as far as it is indexed."""
+        return self.group[self._in_group(name)]
+
     def array(self, name: str) -> np.ndarray:
-        return np.asarray(self.group[name][...])
+        return np.asarray(self.lazy(name)[...])
 
     def units(self, name: str) -> str:
-        return str(self.group[name].attrs.get("units", ""))
+        return str(self.lazy(name).attrs.get("units", ""))
 
 
 def open_result(path: str | Path, warn: bool = True) -> StoredResult:
@@ -95,7 +110,12 @@ def open_result(path: str | Path, warn: bool = True) -> StoredResult:
     if not attrs.get("complete") or "job" not in attrs:
         raise JobError("not a complete sevenfold result (no 'complete' or 'job' attribute)", source=str(path))
     spec = JobSpec.model_validate(_without_none(attrs["job"]))
-    result = StoredResult(path, attrs, spec, group)
+    stored = {}
+    old = attrs.get("solution")
+    if old in RENAMED:  # written before the solution's rename; read under the current name
+        attrs["solution"] = RENAMED[old]
+        stored[RENAMED[old]] = old
+    result = StoredResult(path, attrs, spec, group, stored)
     if warn and result.warning:
         warnings.warn(f"{path}: {result.warning}", NotConvergedWarning, stacklevel=2)
     return result
@@ -119,22 +139,23 @@ def write_vtk(result: StoredResult, target: str | Path, fields: list[str] | None
     if target.suffix not in (".vti", ".vtr"):
         raise JobError("the VTK file must end in .vti (or .vtr for a graded grid)", source=str(target))
     available = result.cell_fields()
-    names = fields or available
+    names = [RENAMED.get(n, n) for n in fields] if fields else available
     unknown = [n for n in names if n not in available]
     if unknown:
         raise JobError(f"no cell field {unknown[0]!r} in the result; it has {', '.join(available)}",
                        source=str(result.path))
     edges = [result.edges(a) for a in range(3)]
     data = {n: np.ascontiguousarray(result.array(n), dtype=np.float64) for n in names}
-    target.parent.mkdir(parents=True, exist_ok=True)
     widths = [np.diff(e) for e in edges]
-    if all(np.ptp(w) <= 1e-9 * w.max() for w in widths):
-        spacing = tuple(float(w.mean()) for w in widths)
-        origin = tuple(float(e[0]) for e in edges)
-        written = imageToVTK(str(target.with_suffix("")), origin=origin, spacing=spacing, cellData=data)
-    else:
-        written = gridToVTK(str(target.with_suffix("")), *(np.ascontiguousarray(e) for e in edges),
-                            cellData=data)
+    with writing(target, "the VTK file"):
+        target.parent.mkdir(parents=True, exist_ok=True)
+        if all(np.ptp(w) <= 1e-9 * w.max() for w in widths):
+            spacing = tuple(float(w.mean()) for w in widths)
+            origin = tuple(float(e[0]) for e in edges)
+            written = imageToVTK(str(target.with_suffix("")), origin=origin, spacing=spacing, cellData=data)
+        else:
+            written = gridToVTK(str(target.with_suffix("")), *(np.ascontiguousarray(e) for e in edges),
+                                cellData=data)
     return Path(written)
 
 

@@ -21,13 +21,18 @@ class Physics:
     coefficient_scale: float = 1.0  # material values are multiplied by this
 
 
+# Solution names results written by earlier versions use: old name -> current name. The
+# groundwater solution was ``head``, which xarray's Dataset.head() hides from attribute access.
+RENAMED = {"head": "hydraulic_head"}
+
+
 PHYSICS = {
     "heat": Physics("temperature", "K", "conductivity", "W/(m K)", "W/m^3", "W/m^2", "W"),
     "electrostatics": Physics(
         "potential", "V", "permittivity", "F/m", "C/m^3", "C/m^2", "C",
         coefficient_scale=EPSILON_0,  # material values are relative permittivities
     ),
-    "groundwater": Physics("head", "m", "hydraulic_conductivity", "m/s", "1/s", "m/s", "m^3/s"),
+    "groundwater": Physics("hydraulic_head", "m", "hydraulic_conductivity", "m/s", "1/s", "m/s", "m^3/s"),
     "generic": Physics("u", "1", "k", "1", "1", "1", "1"),
 }
 

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .errors import writing
 from .export import StoredResult, open_result
 
 DPI = 100
@@ -141,7 +142,7 @@ def slice_figure(result: StoredResult, target: Path) -> Path:
     it) and exchanges (red) are outlined, and wells drawn (draw_wells)."""
     plt = _plt()
     name = result.solution
-    u = result.group[name]  # read plane by plane below: never the whole field
+    u = result.lazy(name)  # read plane by plane below: never the whole field
     units = result.units(name)
     edges = [result.edges(a) for a in range(3)]
     centres = [0.5 * (e[1:] + e[:-1]) for e in edges]
@@ -243,13 +244,14 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
     result = open_result(result_path, warn=False)  # the page itself carries the warning
     path = result.path.resolve()
     folder = Path(folder) if folder is not None else path.with_name(path.stem + ".report")
-    folder.mkdir(parents=True, exist_ok=True)
-    figures = [("residual history", residual_figure(result, folder / "residuals.png")),
-               ("mid-plane slices" + (" (wells: triangles on the z plane, screens as bars on the others, dashed "
-                                      "where projected onto the plane)" if result.spec.well else ""),
-                slice_figure(result, folder / "slices.png"))]
-    if line_probes(result):
-        figures.append(("probe lines", probe_figure(result, folder / "probes.png")))
+    with writing(folder, "the report folder"):
+        folder.mkdir(parents=True, exist_ok=True)
+        figures = [("residual history", residual_figure(result, folder / "residuals.png")),
+                   ("mid-plane slices" + (" (wells: triangles on the z plane, screens as bars on the others, dashed "
+                                          "where projected onto the plane)" if result.spec.well else ""),
+                    slice_figure(result, folder / "slices.png"))]
+        if line_probes(result):
+            figures.append(("probe lines", probe_figure(result, folder / "probes.png")))
 
     attrs = result.attrs
     spec = result.spec
@@ -317,5 +319,6 @@ def write_report(result_path: str | Path, folder: str | Path | None = None) -> P
         "</style></head><body>\n" + "\n".join(sections) + "\n</body></html>\n"
     )
     index = folder / "index.html"
-    index.write_text(page, encoding="utf-8")
+    with writing(index, "the report page"):
+        index.write_text(page, encoding="utf-8")
     return index

@@ -14,6 +14,8 @@ import json
 from pathlib import Path
 from typing import Any, Iterator
 
+from .errors import OutputError, writing
+
 
 def log_path(output: Path) -> Path:
     """The residual log beside an output: ``results/a.zarr`` -> ``results/a.residuals.jsonl``."""
@@ -21,14 +23,26 @@ def log_path(output: Path) -> Path:
 
 
 class ResidualLog:
+    """An open log; a failed write raises OutputError once, later writes are skipped (so
+    recording a failure does not hide the first one)."""
+
     def __init__(self, path: Path) -> None:
-        path.parent.mkdir(parents=True, exist_ok=True)
         self.path = path
-        self._fh = open(path, "w", encoding="utf-8")
+        self._failed = False
+        with writing(path, "the residual log"):
+            path.parent.mkdir(parents=True, exist_ok=True)
+            self._fh = open(path, "w", encoding="utf-8")
 
     def _write(self, record: dict[str, Any]) -> None:
-        self._fh.write(json.dumps(record) + "\n")
-        self._fh.flush()
+        if self._failed:
+            return
+        try:
+            with writing(self.path, "the residual log"):
+                self._fh.write(json.dumps(record) + "\n")
+                self._fh.flush()
+        except BaseException:
+            self._failed = True
+            raise
 
     def start(self, **info: Any) -> None:
         self._write({"event": "start", **info})
@@ -46,7 +60,13 @@ class ResidualLog:
         self._write({"event": "end", **info})
 
     def close(self) -> None:
-        self._fh.close()
+        try:
+            with writing(self.path, "the residual log"):
+                self._fh.close()
+        except OutputError:
+            if not self._failed:  # after a failed write, its error is the one that counts
+                self._failed = True
+                raise
 
 
 def read_log(path: Path) -> Iterator[dict[str, Any]]:

@@ -17,7 +17,7 @@ from .balance import Balance, compute_balance
 from .cautions import job_warnings
 from .conditions import settle_drains
 from .derived import derived_fields
-from .errors import JobError, SolverError
+from .errors import JobError, SolverError, file_in_the_way, writing
 from .grid import Grid, grid_from_spec
 from .headline import compute_headline
 from .inputs import load_array
@@ -129,6 +129,10 @@ def plan_job(job_file: str | Path, output: str | Path | None = None, spec: JobSp
         out = output_path(spec, job_file, output)
     except JobError as exc:
         raise exc.located(str(job_file)) from None
+    blocker = file_in_the_way(out.parent)
+    if blocker is not None:  # known before anything runs; other write errors surface at the write
+        raise JobError(f"{str(out)!r} cannot be written: {blocker} is a file, not a folder",
+                       "output.path" if output is None else "--output", str(job_file))
     return Plan(
         spec, job_file, out, cells, method,
         estimate_bytes(cells, cells, method, derived_arrays(spec)), available_bytes()
@@ -250,6 +254,8 @@ def run_job(
         (on_warning or (lambda _: None))(w)
     t_build = time.perf_counter()
 
+    with writing(plan.output, "the result"):  # an unusable folder fails before the solve
+        plan.output.parent.mkdir(parents=True, exist_ok=True)
     from .kernels.cache import cold_notice, mark_warm
 
     compiling = cold_notice(plan.method)  # said before the kernels compile, on a first run

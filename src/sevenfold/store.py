@@ -2,7 +2,7 @@
 
 Layout (every array carries ``dimension_names``, so ``xarray.open_zarr`` gives a Dataset):
 
-* ``<solution>`` (x, y, z): the field, named by physics (temperature, potential, head, u)
+* ``<solution>`` (x, y, z): the field, named by physics (temperature, potential, hydraulic_head, u)
 * ``x``, ``y``, ``z``: cell-centre coordinates in metres
 * ``residual_history`` (iteration): relative residual ||b - A u|| / ||b|| per iteration
 * ``residual_seconds`` (iteration): seconds since the solve began
@@ -29,6 +29,7 @@ from typing import Any
 import numpy as np
 
 from . import __version__
+from .errors import writing
 
 
 @dataclass(frozen=True)
@@ -57,11 +58,17 @@ def write_result(
 ) -> Path:
     """Write ``variables`` and group ``attrs`` to ``final`` through a temporary sibling.
 
-    On any error the temporary is removed and ``final`` is left as it was.
+    On any error the temporary is removed and ``final`` is left as it was; an error of the
+    file system (a folder that cannot be made or written, a full disk) raises OutputError.
     """
+    with writing(final, "the result"):
+        return _write_result(Path(final), variables, attrs, chunks)
+
+
+def _write_result(final: Path, variables: dict[str, Variable], attrs: dict[str, Any],
+                  chunks: tuple[int, int, int]) -> Path:
     import zarr
 
-    final = Path(final)
     final.parent.mkdir(parents=True, exist_ok=True)
     tmp = partial_path(final)
     try:
@@ -131,11 +138,17 @@ def write_probe_csv(path: Path, probes, solution: str, units: str) -> Path:
 
     path = Path(path)
     tmp = path.with_name(f".{path.name}.partial-{os.getpid()}")
-    with open(tmp, "w", newline="", encoding="utf-8") as fh:
-        w = csv.writer(fh)
-        w.writerow(["probe", "kind", "sample", "x_m", "y_m", "z_m", "distance_m", f"{solution} ({units})"])
-        for p in probes:
-            for i, (pt, d, v) in enumerate(zip(p.points, p.distance, p.values)):
-                w.writerow([p.name, p.kind, i, *(repr(float(c)) for c in pt), repr(float(d)), repr(float(v))])
-    os.replace(tmp, path)
+    with writing(path, "the probe table"):
+        try:
+            with open(tmp, "w", newline="", encoding="utf-8") as fh:
+                w = csv.writer(fh)
+                w.writerow(["probe", "kind", "sample", "x_m", "y_m", "z_m", "distance_m", f"{solution} ({units})"])
+                for p in probes:
+                    for i, (pt, d, v) in enumerate(zip(p.points, p.distance, p.values)):
+                        w.writerow([p.name, p.kind, i, *(repr(float(c)) for c in pt), repr(float(d)),
+                                    repr(float(v))])
+            os.replace(tmp, path)
+        except BaseException:
+            tmp.unlink(missing_ok=True)
+            raise
     return path

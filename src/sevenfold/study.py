@@ -42,7 +42,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import JobError, SolverError
+from .errors import JobError, SolverError, writing
 from .gci import GCIResult, gci_three_grids
 from .grid import Grid, grid_from_spec
 from .runner import JobResult, job_grid, output_path, run_job
@@ -236,7 +236,8 @@ def run_study(job_file: str | Path, levels: int = 3, ratio: float = 2.0,
         out = output_path(spec, job_file)
         folder = out.with_name(out.stem + ".converge")
     folder = Path(folder).resolve()
-    folder.mkdir(parents=True, exist_ok=True)
+    with writing(folder, "the study folder"):
+        folder.mkdir(parents=True, exist_ok=True)
     done: list[Level] = []
     for lv, (grid, h, ratios) in enumerate(plans):
         if progress is not None:
@@ -272,7 +273,8 @@ def run_study(job_file: str | Path, levels: int = 3, ratio: float = 2.0,
                 scale, relative_to = fine.solution_range, f"range {fine.solution_range:.4g} {units}"
         study.results[key] = gci_three_grids(trio[0], trio[1], trio[2], mid.h / fine.h, coarse.h / mid.h,
                                              scale=scale, relative_to=relative_to)
-    (folder / "study.json").write_text(json.dumps(study.to_dict(), indent=2, default=float))
+    with writing(folder / "study.json", "the study"):
+        (folder / "study.json").write_text(json.dumps(study.to_dict(), indent=2, default=float))
     return study
 
 
@@ -309,6 +311,9 @@ def plot_study(study: Study, target: str | Path) -> Path:
     if plotted:
         ax.legend(fontsize=7)
     fig.tight_layout()
-    fig.savefig(target)
-    plt.close(fig)
+    try:
+        with writing(target, "the figure"):
+            fig.savefig(target)
+    finally:
+        plt.close(fig)
     return target

@@ -24,7 +24,7 @@ import traceback
 from pathlib import Path
 from typing import Any, TextIO
 
-from ..errors import Cancelled, JobError, SevenfoldError, SolverError
+from ..errors import Cancelled, JobError, OutputError, SevenfoldError, SolverError, writing
 from .files import append_run
 from .home import Home
 
@@ -158,11 +158,15 @@ def run_recorded(job_file: Path, output: Path, monitor: Any, record: dict[str, A
     from ..runner import run_job
 
     try:
+        with writing(output, "the result"):  # the folder first, failing as `sevenfold run` does
+            output.parent.mkdir(parents=True, exist_ok=True)
         append_run(output, {"event": "start", **record, "time": time.time()})
         result = run_job(job_file, output, monitor, spec=spec, extra_attrs={"queue": record})
         append_run(output, {"event": "done", **record, "time": time.time()})
     except Cancelled as exc:
         return {"status": "cancelled", "error": str(exc)}
+    except OutputError as exc:  # the same line `sevenfold run` prints
+        return {"status": "failed", "kind": "os", "error": str(exc)}
     except JobError as exc:
         return {"status": "failed", "kind": "input", "error": str(exc)}
     except SolverError as exc:

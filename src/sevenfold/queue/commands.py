@@ -1,8 +1,9 @@
-"""The queue's subcommands: submit, list, show, watch, log, cancel, retry, worker, view.
+"""The queue's subcommands: submit, list, show, watch, log, cancel, retry, forget, table, worker, view.
 
 Registered on the ``sevenfold`` parser by :func:`register`; each one is a thin shell over
-:mod:`sevenfold.queue.db`, :mod:`.submit` and :mod:`.worker`. Every command takes
-``--home DIR`` (else ``$SEVENFOLD_HOME``, else the user data directory).
+:mod:`sevenfold.queue.db`, :mod:`.submit`, :mod:`.results` and :mod:`.worker`. Every
+command takes ``--home DIR`` (else ``$SEVENFOLD_HOME``, else the user data directory); only
+``submit`` and ``worker`` start a queue where there is none.
 """
 
 from __future__ import annotations
@@ -15,14 +16,14 @@ import math
 import sys
 import time
 from pathlib import Path
-from typing import Any
+from typing import Any, Sequence
 
 from rich.markup import escape
 from rich.table import Table
 
 from ..errors import QueueError
-from .db import STATES, Job, Queue, stamp
-from .home import locate
+from .db import FINISHED, STATES, Job, Queue, stamp
+from .home import Home, locate
 
 STATE_STYLE = {"queued": "cyan", "running": "yellow", "done": "green", "failed": "red", "cancelled": "magenta"}
 
@@ -33,8 +34,17 @@ def _consoles():
     return out, err
 
 
-def _queue(args: argparse.Namespace) -> Queue:
-    return Queue(locate(args.home))
+def _queue(args: argparse.Namespace, create: bool = False) -> Queue:
+    """The queue of ``--home``; only ``create`` (submit, worker) starts one, saying so on stderr."""
+    home = _home(args, create)
+    return Queue(home)
+
+
+def _home(args: argparse.Namespace, create: bool = False) -> Home:
+    home = locate(args.home, create=create)
+    if create and not home.db.exists():
+        _consoles()[1].print(f"new queue in {escape(str(home.root))}", soft_wrap=True)
+    return home
 
 
 def seconds_arg(text: str) -> float:
@@ -118,6 +128,12 @@ def public(job: Job) -> dict[str, Any]:
     }
 
 
+# The keys of :func:`public`, in order: the columns of ``list --csv``.
+PUBLIC_FIELDS = ("id", "name", "state", "priority", "attempts", "max_attempts", "batch", "variant", "output",
+                  "error", "submitted", "started", "finished", "worker", "time_limit", "cells", "method",
+                  "memory_bytes", "iterations", "final_relative_residual", "seconds", "source")
+
+
 def _clean_stale(queue: Queue) -> None:
     from .files import remove_partials
 
@@ -130,7 +146,7 @@ def _submit(args: argparse.Namespace) -> int:
     from .submit import enqueue, prepare_all
 
     out, err = _consoles()
-    queue = _queue(args)
+    queue = _queue(args, create=True)
     prepared, errors = prepare_all(args.jobs, queue.home)
     if errors:
         for exc in errors:
@@ -141,6 +157,9 @@ def _submit(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps([{"id": j.id, "name": j.name, "batch": j.batch_id, "output": j.output} for j in jobs],
                          indent=2))
+        return 0
+    if args.quiet:
+        print("\n".join(str(j.id) for j in jobs), flush=True)
         return 0
     by_batch: dict[str | None, list[Job]] = {}
     for j in jobs:
@@ -165,6 +184,31 @@ def _batch_arg(text: str | None) -> int | None:
     return int(t)
 
 
+LIST_COLUMNS = ("id", "name", "state", "prio", "tries", "submitted", "ran", "result")
+GAP = 2  # characters between the columns of a rich table without box (padding 1 + 1)
+
+
+def fit(text: str, width: int) -> str:
+    """``text`` cut to ``width`` characters, an ellipsis marking the cut."""
+    return text if len(text) <= width else text[: max(width - 1, 0)] + "\u2026"
+
+
+def fit_widths(rows: list[list[str]], columns: Sequence[str], flexible: Sequence[str], width: int) -> dict[str, int]:
+    """Widths of the ``flexible`` columns so that the table fits ``width`` characters: the
+    other columns keep their full width; what is left is shared, each flexible column
+    getting no more than it needs (at least 8, so a narrow terminal still shows a start)."""
+    need = {c: max([len(c)] + [len(r[i]) for r in rows]) for i, c in enumerate(columns)}
+    left = width - sum(need[c] for c in columns if c not in flexible) - GAP * (len(columns) - 1)
+    out: dict[str, int] = {}
+    pending = sorted(flexible, key=lambda c: need[c])
+    while pending:
+        share = max(left // len(pending), 8)
+        c = pending.pop(0)
+        out[c] = min(need[c], share)
+        left -= out[c]
+    return out
+
+
 def _list(args: argparse.Namespace) -> int:
     out, _ = _consoles()
     queue = _queue(args)
@@ -173,13 +217,17 @@ def _list(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps([public(j) for j in jobs], indent=2))
         return 0
+    if args.csv:
+        rows = [public(j) for j in jobs]
+        w = csv.DictWriter(sys.stdout, fieldnames=list(PUBLIC_FIELDS), lineterminator="\n")
+        w.writeheader()
+        for r in rows:
+            w.writerow({k: json.dumps(v, separators=(",", ":")) if isinstance(v, dict) else v for k, v in r.items()})
+        return 0
     from .watch import read_progress
 
     now = time.time()
-    table = Table(box=None, pad_edge=False)
-    for col in ("id", "name", "state", "prio", "tries", "submitted", "ran", "result"):
-        table.add_column(col, overflow="fold" if col in ("name", "result") else "ellipsis",
-                         no_wrap=col not in ("name", "result"))
+    rows = []
     for j in jobs:
         if j.state == "done" and j.summary:
             result = f"{j.summary.get('iterations')} it, {j.summary.get('final_relative_residual', 0):.1e}"
@@ -189,19 +237,34 @@ def _list(args: argparse.Namespace) -> int:
             if j.cancel_requested:
                 result += ", cancelling"
         else:
-            result = j.error or ""
-        result = result if len(result) <= 90 else result[:87] + "..."
-        table.add_row(
-            str(j.id), escape(j.name), f"[{STATE_STYLE[j.state]}]{j.state}[/]", str(j.priority),
-            str(j.attempts), time.strftime("%m-%d %H:%M", time.localtime(j.submitted)),
-            duration(_ran(j, now)), escape(result),
-        )
+            result = " ".join((j.error or "").split())  # one line, whatever the error held
+        rows.append([str(j.id), j.name, j.state, str(j.priority), str(j.attempts),
+                     time.strftime("%m-%d %H:%M", time.localtime(j.submitted)), duration(_ran(j, now)), result])
+    columns = list(LIST_COLUMNS)
+    for spare in ("submitted", "prio", "tries", "ran"):  # a narrow terminal drops these first
+        need = sum(max([len(c)] + [len(r[LIST_COLUMNS.index(c)]) for r in rows]) for c in columns
+                   if c not in ("name", "result"))
+        if need + 2 * 12 + GAP * (len(columns) - 1) <= out.width:
+            break
+        columns.remove(spare)
+    keep = [LIST_COLUMNS.index(c) for c in columns]
+    rows = [[r[i] for i in keep] for r in rows]
+    widths = fit_widths(rows, columns, ("name", "result"), out.width)
+    name, state, result = columns.index("name"), columns.index("state"), columns.index("result")
+    table = Table(box=None, pad_edge=False)
+    for col in columns:
+        table.add_column(col, no_wrap=True, overflow="ellipsis", min_width=widths.get(col))
+    for r in rows:
+        r[name], r[result] = fit(r[name], widths["name"]), fit(r[result], widths["result"])
+        table.add_row(*(f"[{STATE_STYLE[c]}]{c}[/]" if i == state else escape(c) for i, c in enumerate(r)))
     out.print(table)
     counts = queue.counts()
     workers = queue.workers()
     summary = ", ".join(f"{counts[s]} {s}" for s in STATES if counts[s])
+    cut = "; cut to fit: `show ID` has the full text" if any("\u2026" in r[name] + r[result] for r in rows) else ""
     out.print(f"{summary or 'no jobs'}; {len(workers)} worker(s) running"
-              + (": " + ", ".join(f"{escape(w['id'])} ({w['slots']} slot(s))" for w in workers) if workers else ""))
+              + (": " + ", ".join(f"{escape(w['id'])} ({w['slots']} slot(s))" for w in workers) if workers else "")
+              + cut)
     return 0
 
 
@@ -271,8 +334,14 @@ def _show(args: argparse.Namespace) -> int:
     t = Table(show_header=False, box=None, pad_edge=False)
     t.add_column(style="bold", no_wrap=True)
     t.add_column(overflow="fold")
+    from .submit import changes_since_submit
+
     p = read_progress(job.output, since=job.started) if job.started else read_progress(job.output)
+    changed = changes_since_submit(job)
+    hint = f"; `sevenfold retry --from-file {job.id}` runs it as it is now" if job.state in ("failed", "cancelled") else ""
     for key, text in show_rows(job, now, describe(p) if p.history else None):
+        if key == "source" and changed:
+            text += f" ({'; '.join(changed)} since submit{hint})"
         if key == "state":
             t.add_row(key, f"[{STATE_STYLE[job.state]}]{job.state}[/]" + escape(text[len(job.state):]))
         elif key == "error":
@@ -437,12 +506,114 @@ def _cancel(args: argparse.Namespace) -> int:
 
 
 def _retry(args: argparse.Namespace) -> int:
+    from .submit import changes_since_submit, prepare_again
+
     out, _ = _consoles()
     queue = _queue(args)
-    for job, what in queue.retry(queue.resolve(args.ids)):
-        was = f" (was {job.state}: {job.error})" if job.error and what == "queued again" else ""
-        out.print(f"{job.id}  {escape(job.name)}: {escape(what + was)}", soft_wrap=True)
+    ids = queue.resolve(args.ids)
+    replace, notes = {}, {}
+    for job_id in ids:
+        job = queue.get(job_id)
+        if job.state not in ("failed", "cancelled"):
+            continue
+        changed = changes_since_submit(job)
+        if changed and args.from_file:
+            replace[job_id] = prepare_again(job, queue.home)  # a refusal: one line, nothing retried
+        elif changed:
+            notes[job_id] = (f"; {', '.join(changed)} since submit: this runs the job as submitted "
+                             f"(`sevenfold retry --from-file {job_id}` runs the file as it is now)")
+    for job, what in queue.retry(ids, replace):
+        was = f" (was {job.state}: {job.error})" if job.error and what.startswith("queued again") else ""
+        note = notes.get(job.id, "") if what.startswith("queued again") else ""
+        out.print(f"{job.id}  {escape(job.name)}: {escape(what + was + note)}", soft_wrap=True)
     return 0
+
+
+# ---------------------------------------------------------------- forget
+def _forget(args: argparse.Namespace) -> int:
+    import shutil
+
+    from .files import delete_result, remove_unused_inputs
+
+    out, _ = _consoles()
+    queue = _queue(args)
+    if not args.ids and args.state is None:
+        raise QueueError("name the jobs to forget: IDs, batch ids (b<number>) or --state done|failed|cancelled")
+    ids = queue.resolve(args.ids) if args.ids else None
+    if args.state is not None:
+        ids = [j.id for j in queue.jobs(state=args.state, ids=ids)]
+    results = queue.forget(ids or [])
+    forgotten = [job for job, what in results if what == "forgotten"]
+    for job in forgotten:  # the database no longer knows them: their files in the home go too
+        shutil.rmtree(queue.home.job_dir(job.id), ignore_errors=True)
+    remove_unused_inputs([i["snapshot"] for j in forgotten for i in j.inputs], queue.inputs_in_use(),
+                         queue.home.inputs)
+    in_use = queue.outputs_in_use(j.output for j in forgotten) if args.delete_results else {}
+    for job, what in results:
+        if what == "forgotten" and args.delete_results:
+            if job.output in in_use:
+                what += f"; result kept (job {in_use[job.output]} writes it too)"
+            else:
+                what += "; result deleted" if delete_result(Path(job.output)) else "; it had no result"
+        elif what == "forgotten":
+            what += "; result kept" if Path(job.output).exists() else ""
+        out.print(f"{job.id}  {escape(job.name)} ({job.state}): {escape(what)}", soft_wrap=True)
+    if not results:
+        out.print("no such jobs; nothing forgotten")
+    return 0
+
+
+# ---------------------------------------------------------------- table
+def _table(args: argparse.Namespace) -> int:
+    from .results import sweep_table
+
+    out, _ = _consoles()
+    queue = _queue(args)
+    columns, rows = sweep_table(queue.jobs(ids=queue.resolve(args.ids)))
+    if args.json:
+        print(json.dumps([{c: r.get(c) for c in columns} for r in rows], indent=2))
+        return 0
+    if args.csv:
+        w = csv.writer(sys.stdout, lineterminator="\n")
+        w.writerow(columns)
+        for r in rows:
+            w.writerow(["" if r.get(c) is None else _cell(r.get(c), exact=True) for c in columns])
+        return 0
+    # On screen: the columns that differ between the jobs (the name is in `list`); the ones
+    # every job shares on one line below; turned on its side when too wide for the terminal.
+    shown = [c for c in columns if c == "id" or (c != "name" and len({_cell(r.get(c)) for r in rows}) > 1)]
+    same = [c for c in columns if c not in shown and c != "name"]
+    cells = [[_cell(r.get(c)) for c in shown] for r in rows]
+    wide = sum(max([len(c)] + [len(x[i]) for x in cells]) for i, c in enumerate(shown)) + GAP * (len(shown) - 1)
+    table = Table(box=None, pad_edge=False)
+    if wide <= out.width or len(rows) > 12:
+        for c in shown:
+            table.add_column(escape(c), justify="left" if c == "state" else "right", no_wrap=True)
+        for x in cells:
+            table.add_row(*map(escape, x))
+    else:
+        table.add_column("job", no_wrap=True)
+        for x in cells:
+            table.add_column(escape(x[0]), justify="right", no_wrap=True)
+        for i, c in enumerate(shown[1:], start=1):
+            table.add_row(escape(c), *(escape(x[i]) for x in cells))
+    out.print(table)
+    if same and rows:
+        out.print("the same in every job: " + ", ".join(f"{escape(c)} {escape(_cell(rows[0].get(c)))}" for c in same),
+                  soft_wrap=False)
+    done = sum(r["state"] == "done" for r in rows)
+    out.print(f"{done} of {len(rows)} jobs done; every column at full precision: --csv")
+    return 0
+
+
+def _cell(value: Any, exact: bool = False) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return repr(value) if exact else f"{value:.6g}"
+    if isinstance(value, (dict, list)):
+        return json.dumps(value, separators=(",", ":"))
+    return str(value)
 
 
 # ---------------------------------------------------------------- worker
@@ -454,14 +625,14 @@ def _worker(args: argparse.Namespace) -> int:
     if args.cluster is not None:
         from .cluster import ClusterOptions, ClusterWorker
 
-        home = locate(args.home)
+        home = _home(args, create=True)
         cluster = ClusterWorker(home, ClusterOptions(
             address=args.cluster, slots=args.slots, threads=args.threads or 1, drain=args.drain,
             memory_bytes=args.memory, time_limit=args.time_limit), say=say)
         return cluster.run(handle_signals=True)
     if args.threads is not None:
         raise QueueError("--threads goes with --cluster; a local worker splits the cores between its slots")
-    home = locate(args.home)
+    home = _home(args, create=True)
     options = WorkerOptions(slots=args.slots or 1, drain=args.drain, memory_bytes=args.memory,
                             time_limit=args.time_limit)
     worker = Worker(home, options, say=say)
@@ -489,12 +660,14 @@ def register(sub: argparse._SubParsersAction) -> None:
     s.add_argument("--max-attempts", type=_positive_int, default=3, metavar="N",
                    help="runs to try when workers die mid-job, then fail (default 3)")
     s.add_argument("--json", action="store_true", help="print the queued jobs as JSON")
+    s.add_argument("--quiet", "-q", action="store_true", help="print only the job ids, one a line")
     s.set_defaults(func=_submit)
 
     ls = sub.add_parser("list", parents=[home], help="the queue's jobs")
     ls.add_argument("--state", choices=STATES)
     ls.add_argument("--batch", metavar="B", help="only the jobs of batch B (b<number>)")
     ls.add_argument("--json", action="store_true", help="a JSON array of jobs")
+    ls.add_argument("--csv", action="store_true", help="comma-separated, one row per job (the --json fields)")
     ls.set_defaults(func=_list)
 
     sh = sub.add_parser("show", parents=[home], help="one job: spec, timings, solver summary, error, history")
@@ -518,7 +691,26 @@ def register(sub: argparse._SubParsersAction) -> None:
 
     r = sub.add_parser("retry", parents=[home], help="queue failed or cancelled jobs again (IDs or b<number>)")
     r.add_argument("ids", nargs="+", metavar="ID")
+    r.add_argument("--from-file", action="store_true",
+                   help="run the job file (and the files it names) as they are now, checked as submit "
+                        "does, instead of the snapshot taken at submit")
     r.set_defaults(func=_retry)
+
+    f = sub.add_parser("forget", parents=[home],
+                       help="remove finished jobs (done, failed, cancelled) from the queue; results are kept")
+    f.add_argument("ids", nargs="*", metavar="ID", help="job ids or batch ids (b<number>)")
+    f.add_argument("--state", choices=FINISHED, help="the jobs in this state (of the IDs, when given)")
+    f.add_argument("--delete-results", action="store_true",
+                   help="delete their results too (with the residual log, probe table and run record)")
+    f.set_defaults(func=_forget)
+
+    t = sub.add_parser("table", parents=[home],
+                       help="a sweep's parameters against its results' numbers (IDs or b<number>)")
+    t.add_argument("ids", nargs="+", metavar="ID", help="batch ids (b<number>) or job ids")
+    form = t.add_mutually_exclusive_group()
+    form.add_argument("--csv", action="store_true", help="comma-separated, every number at full precision")
+    form.add_argument("--json", action="store_true", help="a JSON array, one object per job")
+    t.set_defaults(func=_table)
 
     wk = sub.add_parser("worker", parents=[home], help="run queued jobs until stopped")
     wk.add_argument("--slots", type=_positive_int, default=None,

@@ -24,13 +24,14 @@ import uuid
 from dataclasses import dataclass, field
 from typing import Any, Callable, Iterable, Sequence, TypeVar
 
-from ..errors import QueueError
+from ..errors import JobError, QueueError
 from ..memory import human
 from .home import Home, Timing
 
 T = TypeVar("T")
 
 STATES = ("queued", "running", "done", "failed", "cancelled")
+FINISHED = ("done", "failed", "cancelled")
 SCHEMA_VERSION = 1
 BUSY_TIMEOUT_MS = 5_000  # SQLite's own wait for the lock, per attempt
 BUSY_DEADLINE = 600.0  # s: give up on a lock held this long
@@ -75,6 +76,7 @@ SCHEMA = (
         summary TEXT)""",
     "CREATE INDEX IF NOT EXISTS jobs_by_state ON jobs (state, priority DESC, id)",
     "CREATE INDEX IF NOT EXISTS jobs_by_batch ON jobs (batch)",
+    "CREATE INDEX IF NOT EXISTS jobs_by_output ON jobs (output)",
     """CREATE TABLE IF NOT EXISTS events (
         id INTEGER PRIMARY KEY AUTOINCREMENT,
         job INTEGER NOT NULL REFERENCES jobs (id),
@@ -370,7 +372,15 @@ class Queue:
         def fn(c: sqlite3.Connection) -> list[int]:
             batch_ids: dict[int, int] = {}
             ids = []
+            sources: dict[str, str] = {}  # output -> the job file of a job entered in this call
             for job, batch, group in jobs:
+                if job.output in sources:
+                    raise JobError(f"{job.output!r} is also the output of a job from {sources[job.output]}; "
+                                   "give each job its own output.path", "output.path", job.source)
+                sources[job.output] = job.source
+                other = _writer(c, job.output)
+                if other is not None:
+                    raise JobError(_taken(job.output, other), "output.path", job.source)
                 batch_id = None
                 if batch is not None:
                     if group not in batch_ids:
@@ -697,25 +707,44 @@ class Queue:
         before = {j.id: j for j in self.jobs(ids=ids)}
         return [(before[i], what) for i, what in self.write(fn)]
 
-    def retry(self, ids: Sequence[int]) -> list[tuple[Job, str]]:
-        """Send failed and cancelled jobs back to the queue, from their snapshot, attempts 0."""
+    def retry(self, ids: Sequence[int], replace: dict[int, NewJob] | None = None) -> list[tuple[Job, str]]:
+        """Send failed and cancelled jobs back to the queue, from their snapshot, attempts 0.
+
+        ``replace`` gives new snapshots (a job file edited since submit, validated again) for
+        some of the jobs. A job whose output is now that of a queued or running job stays as
+        it was, and its line says which job.
+        """
         now = time.time()
+        replace = replace or {}
 
         def fn(c: sqlite3.Connection) -> list[tuple[int, str]]:
             out = []
             for job_id in ids:
-                row = c.execute("SELECT state FROM jobs WHERE id = ?", (job_id,)).fetchone()
+                row = c.execute("SELECT state, output FROM jobs WHERE id = ?", (job_id,)).fetchone()
                 if row is None:
                     raise QueueError(f"there is no job {job_id}")
                 state = row["state"]
                 if state in ("failed", "cancelled"):
+                    new = replace.get(job_id)
+                    output = new.output if new is not None else row["output"]
+                    other = _writer(c, output, job_id)
+                    if other is not None:
+                        out.append((job_id, f"not queued: {_taken(output, other)}"))
+                        continue
                     self.home.cancel_flag(job_id).unlink(missing_ok=True)
                     c.execute(
                         "UPDATE jobs SET state = 'queued', attempts = 0, started = NULL, finished = NULL, "
                         "worker = NULL, run_id = NULL, pid = NULL, heartbeat = NULL, "
                         "cancel_requested = 0, error = NULL, summary = NULL WHERE id = ?", (job_id,))
-                    _event(c, job_id, now, "retried", f"was {state}")
-                    out.append((job_id, "queued again"))
+                    if new is not None:
+                        c.execute(
+                            "UPDATE jobs SET name = ?, output = ?, job_text = ?, job_table = ?, inputs = ?, "
+                            "cells = ?, method = ?, memory_bytes = ? WHERE id = ?",
+                            (new.name, new.output, new.job_text, json.dumps(new.job_table),
+                             json.dumps(new.inputs), new.cells, new.method, new.memory_bytes, job_id))
+                    _event(c, job_id, now, "retried",
+                           f"was {state}" + ("; from the job file as it is now" if new is not None else ""))
+                    out.append((job_id, "queued again" + (" from the edited job file" if new is not None else "")))
                 elif state == "done":
                     out.append((job_id, "done; nothing to retry"))
                 else:
@@ -724,6 +753,63 @@ class Queue:
 
         before = {j.id: j for j in self.jobs(ids=ids)}
         return [(before[i], what) for i, what in self.write(fn)]
+
+
+    def forget(self, ids: Sequence[int]) -> list[tuple[Job, str]]:
+        """Remove finished jobs (done, failed, cancelled) and their history from the database,
+        in one transaction; queued and running jobs are left alone. Returns each job (as it
+        was) with what happened to it. Files are the caller's: see ``commands.forget_files``.
+        """
+        def fn(c: sqlite3.Connection) -> list[tuple[int, str]]:
+            out = []
+            for job_id in ids:
+                row = c.execute("SELECT state, batch FROM jobs WHERE id = ?", (job_id,)).fetchone()
+                if row is None:
+                    raise QueueError(f"there is no job {job_id}")
+                if row["state"] not in FINISHED:
+                    out.append((job_id, f"{row['state']}; not forgotten (only done, failed or cancelled jobs are)"))
+                    continue
+                c.execute("DELETE FROM events WHERE job = ?", (job_id,))
+                c.execute("DELETE FROM jobs WHERE id = ?", (job_id,))
+                if row["batch"] is not None:
+                    c.execute("DELETE FROM batches WHERE id = ? AND NOT EXISTS "
+                              "(SELECT 1 FROM jobs WHERE batch = ?)", (row["batch"], row["batch"]))
+                out.append((job_id, "forgotten"))
+            return out
+
+        before = {j.id: j for j in self.jobs(ids=ids)}
+        return [(before[i], what) for i, what in self.write(fn)]
+
+    def outputs_in_use(self, outputs: Iterable[str]) -> dict[str, int]:
+        """Of ``outputs``, those some job in the queue (any state) names: output -> a job id."""
+        wanted = list(dict.fromkeys(outputs))
+
+        def fn(c: sqlite3.Connection) -> dict[str, int]:
+            found = {}
+            for o in wanted:
+                row = c.execute("SELECT id FROM jobs WHERE output = ? ORDER BY id DESC LIMIT 1", (o,)).fetchone()
+                if row is not None:
+                    found[o] = int(row[0])
+            return found
+
+        return self.read(fn)
+
+    def inputs_in_use(self) -> set[str]:
+        """Every input snapshot path a job in the queue refers to."""
+        rows = self.read(lambda c: c.execute("SELECT inputs FROM jobs WHERE inputs != '[]'").fetchall())
+        return {i["snapshot"] for r in rows for i in json.loads(r[0])}
+
+
+def _writer(c: sqlite3.Connection, output: str, other_than: int | None = None) -> sqlite3.Row | None:
+    """The queued or running job that writes ``output`` (not job ``other_than``), or None."""
+    return c.execute(
+        "SELECT id, name, state FROM jobs WHERE output = ? AND state IN ('queued', 'running') AND id != ? "
+        "ORDER BY id LIMIT 1", (output, -1 if other_than is None else other_than)).fetchone()
+
+
+def _taken(output: str, other: sqlite3.Row) -> str:
+    return (f"{output!r} is already the output of job {other['id']} ({other['name']}, {other['state']}); "
+            f"let it finish, cancel it (sevenfold cancel {other['id']}), or give this job another output.path")
 
 
 def _event(c: sqlite3.Connection, job_id: int, now: float, event: str, detail: str) -> None:

@@ -14,6 +14,7 @@ import hashlib
 import json
 import os
 import shutil
+import time
 import uuid
 from pathlib import Path
 from typing import Any
@@ -25,13 +26,16 @@ def runs_path(output: Path) -> Path:
 
 
 def append_run(output: Path, record: dict[str, Any]) -> None:
-    """Append one line to the output's run record and flush it to disk."""
+    """Append one line to the output's run record and flush it to disk (OutputError if not)."""
+    from ..errors import writing
+
     path = runs_path(output)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    with open(path, "a", encoding="utf-8") as fh:
-        fh.write(json.dumps(record) + "\n")
-        fh.flush()
-        os.fsync(fh.fileno())
+    with writing(path, "the run record"):
+        path.parent.mkdir(parents=True, exist_ok=True)
+        with open(path, "a", encoding="utf-8") as fh:
+            fh.write(json.dumps(record) + "\n")
+            fh.flush()
+            os.fsync(fh.fileno())
 
 
 def read_runs(output: Path) -> list[dict[str, Any]]:
@@ -128,6 +132,7 @@ def snapshot_input(src: Path, inputs: Path) -> tuple[Path, str]:
     folder = inputs / digest[:32]
     final = folder / src.name
     if final.exists():
+        _touch(final)
         return final, digest
     folder.mkdir(parents=True, exist_ok=True)
     tmp = folder / f".tmp-{uuid.uuid4().hex[:8]}-{src.name}"
@@ -141,9 +146,73 @@ def snapshot_input(src: Path, inputs: Path) -> tuple[Path, str]:
         except OSError:
             if not final.exists():  # another submit may have stored the same content first
                 raise
+        _touch(final)
     finally:
         if tmp.is_dir():
             shutil.rmtree(tmp, ignore_errors=True)
         else:
             tmp.unlink(missing_ok=True)
     return final, digest
+
+
+# A snapshot used this recently may belong to a submit still validating its other files
+# (snapshots are made before the jobs enter the database), so forget leaves it alone.
+INPUT_GRACE = 600.0  # s
+
+
+def _touch(path: Path) -> None:
+    """Mark a snapshot as just used (its mtime; copy2 keeps the original's)."""
+    try:
+        os.utime(path)
+    except OSError:
+        pass
+
+
+def remove_unused_inputs(snapshots: list[str], in_use: set[str], inputs: Path) -> list[Path]:
+    """Remove the folders (``inputs/<sha256>/``) of the input snapshots among ``snapshots``
+    that no job refers to (``in_use``) and that were not used in the last
+    :data:`INPUT_GRACE` seconds; returns the folders removed."""
+    removed = []
+    for folder in dict.fromkeys(Path(s).parent for s in snapshots):
+        if folder.parent != inputs or not folder.is_dir():
+            continue
+        try:
+            copies = list(folder.iterdir())
+            recent = any(time.time() - p.stat().st_mtime < INPUT_GRACE for p in copies)
+        except OSError:
+            continue
+        if recent or any(str(p) in in_use for p in copies):
+            continue
+        shutil.rmtree(folder, ignore_errors=True)
+        removed.append(folder)
+    return removed
+
+
+def beside(output: Path) -> list[Path]:
+    """The files sevenfold writes beside a result: residual log, probe table, run record
+    (names as in ``residual_log.log_path``, ``runner.probes_csv_path`` and :func:`runs_path`)."""
+    from ..residual_log import log_path
+
+    return [log_path(output), output.with_name(output.stem + ".probes.csv"), runs_path(output)]
+
+
+def delete_result(output: Path) -> list[Path]:
+    """Delete a result and the files beside it; returns what existed and was removed.
+
+    The result is first renamed to a hidden sibling, so a deletion cut short never leaves
+    something that looks like a finished result at ``output``.
+    """
+    removed = []
+    if output.exists():
+        gone = output.with_name(f".{output.name}.deleted-{uuid.uuid4().hex[:8]}")
+        os.rename(output, gone)
+        if gone.is_dir():
+            shutil.rmtree(gone, ignore_errors=True)
+        else:
+            gone.unlink(missing_ok=True)
+        removed.append(output)
+    for p in beside(output):
+        if p.exists():
+            p.unlink()
+            removed.append(p)
+    return removed

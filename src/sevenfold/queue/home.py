@@ -69,12 +69,17 @@ def home_root(home: str | Path | None = None) -> Path:
     return root.resolve()
 
 
-def locate(home: str | Path | None = None) -> Home:
+def locate(home: str | Path | None = None, create: bool = True) -> Home:
     """The queue home: ``home``, else ``$SEVENFOLD_HOME``, else the user data directory.
 
-    The folder is created when missing; an unusable one raises :class:`QueueError`.
+    The folder is created when missing; an unusable one raises :class:`QueueError`. With
+    ``create=False`` a home that holds no queue (no ``queue.db``) raises QueueError instead
+    and nothing is created.
     """
     root = home_root(home)
+    if not create and not (root / "queue.db").is_file():
+        raise QueueError(f"there is no queue in {str(root)!r}; `sevenfold submit` starts one there, "
+                         f"or point --home (or ${HOME_ENV}) at the queue you mean")
     try:
         root.mkdir(parents=True, exist_ok=True)
     except OSError as exc:

@@ -126,28 +126,75 @@ def prepare(job_file: str | Path, home: Home) -> Prepared:
     jobs: list[NewJob] = []
     outputs: dict[str, int | None] = {}
     for v in variants:
-        try:
-            plan = _check(v, job_file, source)
-        except JobError as exc:
-            if v.index is None:
-                raise
-            raise JobError(f"{exc.reason} (sweep combination {v.index}: {v.label})",
-                           exc.where, exc.source or source) from None
-        out = str(plan.output)
-        if out in outputs:
+        job = _prepare_variant(v, job_file, text, home)
+        if job.output in outputs:
             raise JobError(
-                f"sweep combinations {outputs[out]} and {v.index} would both write {out!r}; "
+                f"sweep combinations {outputs[job.output]} and {v.index} would both write {job.output!r}; "
                 "put {name} in output.path so each combination gets its own result",
                 "output.path", source)
-        outputs[out] = v.index
-        run_table, inputs = _snapshot(v.table, job_file, home)
-        jobs.append(NewJob(
-            name=plan.spec.name, output=out, source=os.path.abspath(job_file), job_text=text,
-            job_table=run_table, inputs=inputs, cells=plan.cells, method=plan.method,
-            memory_bytes=plan.memory_bytes, variant=v.values,
-        ))
+        outputs[job.output] = v.index
+        jobs.append(job)
     batch = None if info is None else NewBatch(os.path.abspath(job_file), info.mode, info.keys, info.size)
     return Prepared(job_file, jobs, batch)
+
+
+def _prepare_variant(v: Variant, job_file: Path, text: str, home: Home) -> NewJob:
+    source = str(job_file)
+    try:
+        plan = _check(v, job_file, source)
+    except JobError as exc:
+        if v.index is None:
+            raise
+        raise JobError(f"{exc.reason} (sweep combination {v.index}: {v.label})",
+                       exc.where, exc.source or source) from None
+    run_table, inputs = _snapshot(v.table, job_file, home)
+    return NewJob(
+        name=plan.spec.name, output=str(plan.output), source=os.path.abspath(job_file), job_text=text,
+        job_table=run_table, inputs=inputs, cells=plan.cells, method=plan.method,
+        memory_bytes=plan.memory_bytes, variant=v.values,
+    )
+
+
+def changes_since_submit(job: Job) -> list[str]:
+    """What differs between a job's snapshot and its files on disk now ([] when nothing):
+    the job file's text, and the content of each file it named (``material.file``, ...)."""
+    from .files import content_hash
+
+    source = Path(job.source)
+    try:
+        text = source.read_bytes().decode("utf-8", errors="replace")
+    except OSError as exc:
+        return [f"the job file {job.source} cannot be read now ({exc.strerror or exc})"]
+    changed = []
+    if job.job_text is not None and text != job.job_text:
+        changed.append(f"the job file {job.source} changed")
+    for i in job.inputs:
+        try:
+            same = content_hash(Path(i["original"])) == i["sha256"]
+        except OSError:
+            same = False
+        if not same:
+            changed.append(f"{i['key']} {i['original']} changed")
+    return changed
+
+
+def prepare_again(job: Job, home: Home) -> NewJob:
+    """The job made afresh from its job file as it is now, validated like submit; a sweep
+    job keeps its combination (the swept values it was queued with). JobError if refused."""
+    job_file = Path(job.source)
+    text, table = _read(job_file)
+    variants, _ = expand(table, str(job_file))
+    if job.variant is not None:
+        chosen = [v for v in variants if v.values == job.variant]
+        if not chosen:
+            label = ", ".join(f"{k}={v!r}" for k, v in job.variant.items())
+            raise JobError(f"the [sweep] no longer makes job {job.id}'s combination ({label}); "
+                           "submit the file again for its new combinations", "sweep", str(job_file))
+        return _prepare_variant(chosen[0], job_file, text, home)
+    if len(variants) != 1 or variants[0].values is not None:
+        raise JobError(f"the file now has a [sweep]; job {job.id} was a single job: submit the file again",
+                       "sweep", str(job_file))
+    return _prepare_variant(variants[0], job_file, text, home)
 
 
 def prepare_all(job_files: Sequence[str | Path], home: Home) -> tuple[list[Prepared], list[JobError]]:

@@ -1,0 +1,402 @@
+"""The queue's rough edges: outputs two jobs would share, homes without a queue, retry of an
+edited job file, forgetting finished jobs, a listing that fits the terminal, CSV, closed
+pipes, and a sweep's results as a table."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import sqlite3
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+import zarr
+
+from sevenfold.cli import main
+from sevenfold.queue import child, files
+from sevenfold.queue.commands import PUBLIC_FIELDS, public
+from sevenfold.queue.db import NewJob, Queue
+from sevenfold.queue.files import read_runs, write_text_atomic
+from sevenfold.queue.home import Home, locate
+from sevenfold.queue.tomlwrite import dumps
+from sevenfold.residual_log import log_path
+from sevenfold.runner import probes_csv_path
+from sevenfold.store import is_complete
+
+from queue_support import small_job
+
+SWEEP = """
+name = "sw"
+physics = "heat"
+[grid]
+cells = [6, 6, 6]
+size = [0.1, 0.1, 0.1]
+[material]
+value = 10.0
+[source]
+value = 1.0e3
+[boundary]
+x_min = {{ type = "dirichlet", value = 300.0 }}
+[[hold]]
+name = "sink"
+box = {{ min = [0.08, 0.0, 0.0], max = [0.1, 0.1, 0.1] }}
+value = 290.0
+[[probe]]
+name = "c"
+point = [0.05, 0.05, 0.05]
+[[probe]]
+name = "across"
+line = {{ start = [0.0, 0.05, 0.05], end = [0.1, 0.05, 0.05], points = 5 }}
+[solver]
+method = "direct"
+[output]
+path = "res/{{name}}.zarr"
+[sweep]
+mode = "zip"
+"material.value" = {k}
+"source.value" = {q}
+"""
+
+
+@pytest.fixture
+def home(tmp_path: Path) -> Home:
+    return locate(tmp_path / "home")
+
+
+def run(home: Home, *args: str, capsys) -> tuple[int, str, str]:
+    code = main([*args, "--home", str(home.root)])
+    got = capsys.readouterr()
+    return code, got.out, got.err
+
+
+def listing(home: Home, capsys) -> list[dict]:
+    code, out, _ = run(home, "list", "--json", capsys=capsys)
+    assert code == 0
+    return json.loads(out)
+
+
+def finish(home: Home, job_id: int) -> dict:
+    """Run a queued job to its end the way a worker's slot does, in this process."""
+    with Queue(home) as q:
+        c = q.claim("test").claim
+        assert c is not None and c.id == job_id
+    write_text_atomic(home.job_file(c.id), dumps(c.job_table))
+    reply = child.execute({"job": c.id, "run": c.run_id, "attempt": 1, "output": c.output, "worker": "test"},
+                          home, child.ChildState(os.getppid()))
+    with Queue(home) as q:
+        assert q.finish(c.id, c.run_id, reply["summary"]) if reply["status"] == "done" else \
+            q.fail(c.id, c.run_id, reply["error"])
+    return reply
+
+
+# ---------------------------------------------------------------- one output, one live job
+def test_submit_refuses_an_output_a_queued_job_writes_and_names_it(tmp_path: Path, home: Home, capsys) -> None:
+    first = small_job(tmp_path, "first")
+    assert run(home, "submit", str(first), capsys=capsys)[0] == 0
+    other = small_job(tmp_path, "other", output="results/first.zarr")  # another file, the same result
+    code, _, err = run(home, "submit", str(other), capsys=capsys)
+    line = " ".join(err.split())
+    assert code == 2 and "Traceback" not in err
+    assert "is already the output of job 1 (first, queued)" in line and "output.path" in line
+    assert [j["id"] for j in listing(home, capsys)] == [1]
+    # two files of one submit that write one result: refused together, nothing queued
+    third = small_job(tmp_path, "third", output="results/shared.zarr")
+    fourth = small_job(tmp_path, "fourth", output="results/shared.zarr")
+    code, _, err = run(home, "submit", str(third), str(fourth), capsys=capsys)
+    assert code == 2 and "also the output of a job from" in " ".join(err.split())
+    assert [j["id"] for j in listing(home, capsys)] == [1]
+    # once the first is cancelled, its output is free again
+    assert run(home, "cancel", "1", capsys=capsys)[0] == 0
+    assert run(home, "submit", str(other), capsys=capsys)[0] == 0
+    # ... and retrying the cancelled one would now clash: it stays cancelled, saying why
+    code, out, _ = run(home, "retry", "1", capsys=capsys)
+    assert code == 0 and "not queued" in out and "job 2" in out
+    assert {j["id"]: j["state"] for j in listing(home, capsys)} == {1: "cancelled", 2: "queued"}
+
+
+# ---------------------------------------------------------------- a home without a queue
+@pytest.mark.parametrize("command", [["list"], ["list", "--csv"], ["show", "1"], ["watch", "1", "--lines"],
+                                     ["log", "1"], ["cancel", "1"], ["retry", "1"], ["forget", "1"],
+                                     ["table", "b1"]])
+def test_commands_refuse_a_home_without_a_queue(tmp_path: Path, command: list[str], capsys) -> None:
+    where = tmp_path / "typo"
+    assert main([*command, "--home", str(where)]) == 2
+    got = capsys.readouterr()
+    assert got.err.strip().count("\n") == 0 and "there is no queue in" in got.err  # one line
+    assert not where.exists()  # nothing was created
+
+
+def test_submit_and_worker_start_a_queue_and_say_so(tmp_path: Path, capsys, monkeypatch) -> None:
+    job = small_job(tmp_path, "fresh")
+    assert main(["submit", str(job), "--home", str(tmp_path / "new")]) == 0
+    assert "new queue in" in capsys.readouterr().err and (tmp_path / "new" / "queue.db").is_file()
+    assert main(["submit", str(small_job(tmp_path, "again")), "--home", str(tmp_path / "new")]) == 0
+    assert "new queue" not in capsys.readouterr().err  # only the first time
+    from sevenfold.queue import worker
+
+    monkeypatch.setattr(worker.Worker, "run", lambda self, handle_signals=True: 0)
+    assert main(["worker", "--drain", "--home", str(tmp_path / "other")]) == 0
+    assert "new queue in" in capsys.readouterr().err and (tmp_path / "other").is_dir()
+
+
+# ---------------------------------------------------------------- retry of an edited job file
+def test_retry_says_the_file_changed_and_from_file_runs_the_edit(tmp_path: Path, home: Home, capsys) -> None:
+    path = small_job(tmp_path, "edited", k=20.0)
+    assert run(home, "submit", str(path), capsys=capsys)[0] == 0
+    run(home, "cancel", "1", capsys=capsys)
+    code, out, _ = run(home, "retry", "1", capsys=capsys)  # unchanged: no note
+    assert code == 0 and "changed" not in out
+    run(home, "cancel", "1", capsys=capsys)
+    path.write_text(path.read_text().replace("value = 20.0", "value = 35.0"))
+    code, out, _ = run(home, "show", "1", capsys=capsys)
+    assert "changed since submit" in " ".join(out.split())
+    code, out, _ = run(home, "retry", "1", capsys=capsys)
+    line = " ".join(out.split())
+    assert code == 0 and "queued again" in line and "changed since submit" in line and "--from-file 1" in line
+    with Queue(home) as q:
+        assert q.get(1).job_table["material"]["value"] == 20.0  # the snapshot, as documented
+    run(home, "cancel", "1", capsys=capsys)
+    code, out, _ = run(home, "retry", "1", "--from-file", capsys=capsys)
+    assert code == 0 and "from the edited job file" in out
+    with Queue(home) as q:
+        job = q.get(1)
+        assert job.job_table["material"]["value"] == 35.0 and job.job_text == path.read_text()
+        assert job.state == "queued" and job.attempts == 0
+        assert "from the job file as it is now" in q.events(1)[-1].detail
+    # an edit that breaks the file is refused like submit refuses it, and nothing changes
+    run(home, "cancel", "1", capsys=capsys)
+    path.write_text(path.read_text().replace("value = 35.0", "value = -1.0"))
+    code, _, err = run(home, "retry", "1", "--from-file", capsys=capsys)
+    assert code == 2 and "must be positive" in " ".join(err.split()) and "Traceback" not in err
+    with Queue(home) as q:
+        assert q.get(1).state == "cancelled" and q.get(1).job_table["material"]["value"] == 35.0
+
+
+def test_retry_from_file_keeps_a_sweep_jobs_combination(tmp_path: Path, home: Home, capsys) -> None:
+    path = tmp_path / "sw.toml"
+    path.write_text(SWEEP.format(k="[10.0, 20.0]", q="[1e3, 2e3]"))
+    assert run(home, "submit", str(path), capsys=capsys)[0] == 0
+    run(home, "cancel", "b1", capsys=capsys)
+    path.write_text(path.read_text().replace("value = 300.0", "value = 310.0"))
+    assert run(home, "retry", "2", "--from-file", capsys=capsys)[0] == 0
+    with Queue(home) as q:
+        t = q.get(2).job_table
+        assert (t["material"]["value"], t["source"]["value"]) == (20.0, 2e3)  # its own combination
+        assert t["boundary"]["x_min"]["value"] == 310.0  # with the edit
+    # a combination the edited sweep no longer makes is refused
+    run(home, "cancel", "2", capsys=capsys)
+    path.write_text(path.read_text().replace('"material.value" = [10.0, 20.0]', '"material.value" = [10.0, 30.0]'))
+    code, _, err = run(home, "retry", "2", "--from-file", capsys=capsys)
+    assert code == 2 and "no longer makes" in " ".join(err.split())
+
+
+def test_a_changed_input_file_is_noticed(tmp_path: Path, home: Home, capsys) -> None:
+    np.save(tmp_path / "k.npy", np.full((6, 6, 6), 3.0))
+    path = small_job(tmp_path, "arr")
+    path.write_text(path.read_text().replace("value = 20.0", 'file = "k.npy"', 1))
+    assert run(home, "submit", str(path), capsys=capsys)[0] == 0
+    run(home, "cancel", "1", capsys=capsys)
+    np.save(tmp_path / "k.npy", np.full((6, 6, 6), 4.0))
+    code, out, _ = run(home, "retry", "1", capsys=capsys)
+    assert code == 0 and "material.file" in out and "changed" in out
+
+
+# ---------------------------------------------------------------- forget
+def test_forget_removes_finished_jobs_and_keeps_results_unless_asked(tmp_path: Path, home: Home, capsys,
+                                                                      monkeypatch) -> None:
+    np.save(tmp_path / "k.npy", np.full((6, 6, 6), 3.0))
+    kept = small_job(tmp_path, "kept")
+    kept.write_text(kept.read_text().replace("value = 20.0", 'file = "k.npy"', 1))
+    gone = small_job(tmp_path, "gone")
+    waiting = small_job(tmp_path, "waiting")
+    for p in (kept, gone):
+        assert run(home, "submit", str(p), capsys=capsys)[0] == 0
+        finish(home, listing(home, capsys)[-1]["id"])
+    assert run(home, "submit", str(waiting), capsys=capsys)[0] == 0
+    out_kept, out_gone = (Path(j["output"]) for j in listing(home, capsys)[:2])
+    assert is_complete(out_kept) and is_complete(out_gone) and probes_csv_path(out_gone) is not None
+    with Queue(home) as q:
+        snapshot = Path(q.get(1).inputs[0]["snapshot"])
+
+    # queued jobs are never touched, whatever is asked
+    code, out, _ = run(home, "forget", "3", "--delete-results", capsys=capsys)
+    assert code == 0 and "not forgotten" in out and [j["id"] for j in listing(home, capsys)] == [1, 2, 3]
+
+    code, out, _ = run(home, "forget", "1", capsys=capsys)
+    assert code == 0 and "forgotten; result kept" in out
+    assert [j["id"] for j in listing(home, capsys)] == [2, 3]
+    assert is_complete(out_kept) and log_path(out_kept).exists()  # the result stays
+    assert not home.job_dir(1).exists()
+    assert snapshot.exists()  # used within the grace period: a submit may be using it
+
+    monkeypatch.setattr(files, "INPUT_GRACE", 0.0)
+    code, out, _ = run(home, "forget", "--state", "done", "--delete-results", capsys=capsys)
+    assert code == 0 and "result deleted" in out
+    assert [j["id"] for j in listing(home, capsys)] == [3]
+    assert not out_gone.exists() and not log_path(out_gone).exists() and read_runs(out_gone) == []
+    assert not list(out_gone.parent.glob(f".{out_gone.name}*"))  # nothing hidden left behind
+    with sqlite3.connect(home.db) as c:
+        assert c.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        assert c.execute("SELECT COUNT(*) FROM events WHERE job IN (1, 2)").fetchone()[0] == 0
+    # the snapshot of job 1 is no one's now and old enough: the next forget removes it
+    np.save(tmp_path / "k.npy", np.full((6, 6, 6), 3.0))
+    assert run(home, "submit", str(kept), capsys=capsys)[0] == 0  # job 4 shares its content
+    run(home, "cancel", "4", capsys=capsys)
+    assert snapshot.exists()
+    assert run(home, "forget", "4", capsys=capsys)[0] == 0
+    assert not snapshot.exists() and not snapshot.parent.exists()
+
+
+def test_forget_of_a_batch_and_an_unusable_request(tmp_path: Path, home: Home, capsys) -> None:
+    path = tmp_path / "sw.toml"
+    path.write_text(SWEEP.format(k="[10.0, 20.0]", q="[1e3, 2e3]"))
+    assert run(home, "submit", str(path), capsys=capsys)[0] == 0
+    run(home, "cancel", "b1", capsys=capsys)
+    assert run(home, "forget", capsys=capsys)[0] == 2  # neither ids nor a state
+    assert run(home, "forget", "b1", capsys=capsys)[0] == 0
+    assert listing(home, capsys) == []
+    with sqlite3.connect(home.db) as c:
+        assert c.execute("SELECT COUNT(*) FROM batches").fetchone()[0] == 0
+    assert run(home, "forget", "b1", capsys=capsys)[0] == 2  # gone: an unknown batch now
+
+
+def test_a_killed_forget_leaves_the_database_as_before(tmp_path: Path, home: Home, capsys, monkeypatch) -> None:
+    """The deletion is one transaction: an error inside it changes nothing."""
+    assert run(home, "submit", str(small_job(tmp_path, "a")), capsys=capsys)[0] == 0
+    run(home, "cancel", "1", capsys=capsys)
+    real = Queue.write
+
+    def dies(self, fn):
+        def half(c):
+            fn(c)
+            raise KeyboardInterrupt  # stands for the process being killed before COMMIT
+        return real(self, half)
+
+    monkeypatch.setattr(Queue, "write", dies)
+    with pytest.raises(KeyboardInterrupt):
+        with Queue(home) as q:
+            q.forget([1])
+    monkeypatch.undo()
+    assert [j["id"] for j in listing(home, capsys)] == [1]
+
+
+# ---------------------------------------------------------------- list: terminal, CSV, pipes
+def _subprocess(home: Home, *args: str, columns: int = 60) -> subprocess.Popen:
+    env = {**os.environ, "COLUMNS": str(columns)}
+    env.pop("SEVENFOLD_HOME", None)
+    return subprocess.Popen([sys.executable, "-m", "sevenfold.cli", *args, "--home", str(home.root)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env)
+
+
+def test_list_fits_the_terminal_and_show_has_the_full_text(tmp_path: Path, home: Home) -> None:
+    long_name = "a-rather-long-job-name-" + "x" * 60
+    long_error = "input: " + " ".join(f"word{i}" for i in range(60))
+    assert main(["submit", str(small_job(tmp_path, long_name)), "--home", str(home.root)]) == 0
+    with Queue(home) as q:
+        c = q.claim("test").claim
+        q.fail(c.id, c.run_id, long_error)
+    proc = _subprocess(home, "list", columns=60)
+    out, err = proc.communicate(timeout=120)
+    text = out.decode()
+    assert proc.returncode == 0, err
+    rows = text.splitlines()
+    assert all(len(r) <= 60 for r in rows), [len(r) for r in rows]
+    assert "\u2026" in text and "show ID" in text
+    assert long_name not in text and "word59" not in text
+    proc = _subprocess(home, "list", columns=40)  # narrow: less needed columns go, id and state stay
+    out, _ = proc.communicate(timeout=120)
+    rows = out.decode().splitlines()
+    assert all(len(r) <= 40 for r in rows) and rows[0].split()[:3] == ["id", "name", "state"]
+    assert rows[1].split()[0] == "1" and "failed" in rows[1] and "submitted" not in rows[0]
+    proc = _subprocess(home, "show", "1", columns=60)
+    out, _ = proc.communicate(timeout=120)
+    flat = "".join(out.decode().split())
+    assert long_name in flat and "".join(long_error.split()) in flat
+
+
+def test_list_csv_is_the_json_as_rows(tmp_path: Path, home: Home, capsys) -> None:
+    path = tmp_path / "sw.toml"
+    path.write_text(SWEEP.format(k="[10.0, 20.0]", q="[1e3, 2e3]"))
+    assert run(home, "submit", str(path), capsys=capsys)[0] == 0
+    as_json = listing(home, capsys)
+    assert tuple(as_json[0]) == PUBLIC_FIELDS
+    with Queue(home) as q:
+        assert tuple(public(q.get(1))) == PUBLIC_FIELDS
+    code, out, _ = run(home, "list", "--csv", capsys=capsys)
+    rows = list(csv.DictReader(io.StringIO(out)))
+    assert code == 0 and len(rows) == len(as_json) == 2
+    for r, j in zip(rows, as_json):
+        assert tuple(r) == PUBLIC_FIELDS
+        assert int(r["id"]) == j["id"] and r["name"] == j["name"] and r["output"] == j["output"]
+        assert json.loads(r["variant"]) == j["variant"] and r["error"] == ""
+
+
+def _many_jobs(home: Home, n: int) -> None:
+    """``n`` queued jobs entered directly (no validation): output long enough to fill a pipe."""
+    with Queue(home) as q:
+        q.add([(NewJob(f"job-{i}", f"/tmp/out-{i}.zarr", "/tmp/x.toml", "", {}, [], 8, "direct", 1), None, 0)
+               for i in range(n)])
+
+
+@pytest.mark.parametrize("args", [["list", "--json"], ["list", "--csv"], ["list"]])
+def test_a_reader_that_stops_early_ends_the_command_quietly(tmp_path: Path, home: Home, args: list[str]) -> None:
+    _many_jobs(home, 3000)  # ~2 MB of JSON: the writer meets the closed pipe mid-way
+    proc = _subprocess(home, *args, columns=200)
+    first = proc.stdout.readline()
+    proc.stdout.close()  # what `| head -1` does once it has its line
+    _, err = proc.communicate(timeout=120)
+    assert first and proc.returncode == 0, err.decode()
+    assert err.decode() == ""  # no traceback, no "Exception ignored"
+
+
+# ---------------------------------------------------------------- table
+def test_table_puts_swept_values_against_result_numbers(tmp_path: Path, home: Home, capsys) -> None:
+    path = tmp_path / "sw.toml"
+    path.write_text(SWEEP.format(k="[10.0, 20.0, 20.0]", q="[1e3, 2e3, 4e3]"))
+    assert run(home, "submit", str(path), capsys=capsys)[0] == 0
+    for job_id in (1, 2):
+        assert finish(home, job_id)["status"] == "done"
+    # a result that carries more numbers (e.g. headline numbers) gives them as columns
+    out2 = Path(listing(home, capsys)[1]["output"])
+    zarr.open_group(str(out2), mode="r+").attrs["headline"] = {
+        "maximum": {"value": 1.5, "at": [0.1, 0.2, 0.3], "note": "text is skipped"},
+        "regions": [{"name": "die", "mean": 2.5, "cells": 8}], "flag": True}
+    code, out, _ = run(home, "table", "b1", "--csv", capsys=capsys)
+    rows = list(csv.DictReader(io.StringIO(out)))
+    assert code == 0 and [r["id"] for r in rows] == ["1", "2", "3"]
+    assert list(rows[0])[:5] == ["id", "name", "state", "material.value", "source.value"]
+    assert [r["state"] for r in rows] == ["done", "done", "queued"]
+    assert [(float(r["material.value"]), float(r["source.value"])) for r in rows] == [(10.0, 1e3), (20.0, 2e3), (20.0, 4e3)]
+    for r in rows[:2]:  # each number is what the result holds, read independently here
+        g = zarr.open_group(str(Path(listing(home, capsys)[int(r["id"]) - 1]["output"])), mode="r")
+        u = g["temperature"][:]
+        assert float(r["temperature.max"]) == float(u.max()) and float(r["temperature.min"]) == float(u.min())
+        assert float(r["probe.c"]) == float(g["probe_c"][0])
+        assert float(r["probe.across.max"]) == float(g["probe_across"][:].max())
+        bal = g.attrs["balance"]
+        assert float(r["out.x_min"]) == bal["faces"]["x_min"] and float(r["into.sink"]) == bal["holds"][0]["inflow"]
+        assert int(float(r["iterations"])) == g.attrs["solver"]["iterations"]
+    # -k lap T = q with fixed boundary values and uniform k: T depends on q/k only (linearity,
+    # common practice), so (10, 1e3) and (20, 2e3) give one temperature field
+    assert float(rows[0]["temperature.max"]) == pytest.approx(float(rows[1]["temperature.max"]), rel=1e-12)
+    assert float(rows[0]["probe.c"]) == pytest.approx(float(rows[1]["probe.c"]), rel=1e-12)
+    assert rows[1]["headline.maximum.value"] == "1.5" and rows[1]["headline.regions.die.mean"] == "2.5"
+    assert rows[0]["headline.maximum.value"] == "" and "headline.flag" not in rows[1]
+    assert "headline.maximum.note" not in rows[1] and "headline.maximum.at.0" in rows[1]
+    assert rows[2]["temperature.max"] == ""  # not run yet: no numbers
+    code, out, _ = run(home, "table", "b1", capsys=capsys)
+    assert code == 0 and "material.value" in out and "2 of 3 jobs done" in " ".join(out.split())
+    code, out, _ = run(home, "table", "b1", "--json", capsys=capsys)
+    assert code == 0 and json.loads(out)[1]["headline.regions.die.mean"] == 2.5
+    # a result deleted behind the queue's back gives an empty row, not an error
+    import shutil
+
+    shutil.rmtree(out2)
+    code, out, _ = run(home, "table", "b1", "--csv", capsys=capsys)
+    assert code == 0 and list(csv.DictReader(io.StringIO(out)))[1]["temperature.max"] == ""
