@@ -34,7 +34,7 @@ JOB = """
 name = "short"
 physics = "heat"
 [grid]
-cells = [14, 12, 10]
+cells = [24, 20, 18]  # above gmg's 16^3 coarsest level, so gmg iterates
 size = [0.14, 0.12, 0.10]
 [material]
 value = 20.0
