@@ -207,7 +207,7 @@ def test_a_failing_write_fails_with_the_os_error_then_retry_after_the_fix(worker
 
 def test_a_solve_that_stops_short_fails_and_keeps_its_result(worker_home) -> None:
     home, root, _ = worker_home
-    path = small_job(root, "short", n=10, method="gmg")
+    path = small_job(root, "short", n=24, method="gmg")  # above gmg's 16^3 coarsest level, so it iterates
     path.write_text(path.read_text().replace('method = "gmg"', 'method = "gmg"\nrtol = 1e-14\nmax_iterations = 2'))
     (s,) = submit(home, path)
     wait_for(lambda: job(home, s["id"]).state == "failed", "the job to fail")

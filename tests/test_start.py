@@ -95,7 +95,7 @@ def test_the_compile_notice_shows_on_a_first_run_only(tmp_path: Path) -> None:
     and a run after it in another process, load the cached kernels and say nothing."""
     environ = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
     path = job(tmp_path, "fft")  # fft compiles one kernel (for the balance): the cheapest first run
-    first, text = command("run", "--quiet", str(path), environ=environ)
+    first, text = command("run", "--no-progress", str(path), environ=environ)
     assert first["code"] == 0
     assert text.count("compiling the numerical kernels once") == 1, text
     assert text.index("compiling the numerical kernels") < text.index("converged")  # said before
