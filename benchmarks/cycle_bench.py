@@ -53,8 +53,8 @@ KEPT = "W(1,1) z-line scaled f32 + FMG (kept)"
 
 
 def _v(cycle, smoother, transfer, precision="float64", start="zero", **extra):
-    return dict(cycle=cycle, smoothing=1, smoother=smoother, transfer=transfer,
-                precision=precision, start=start, **extra)
+    return {**dict(cycle=cycle, smoothing=1, smoother=smoother, transfer=transfer,
+                   precision=precision, start=start), **extra}
 
 
 VARIANTS = {
@@ -68,9 +68,11 @@ VARIANTS = {
     "W(1,1) z-line scaled": _v("W", "line", "scaled"),
     "W(1,1) z-line scaled f32": _v("W", "line", "scaled", "float32"),
     KEPT: _v("W", "line", "scaled", "float32", "fmg"),
+    "W(2,2) z-line scaled f32 + FMG": _v("W", "line", "scaled", "float32", "fmg", smoothing=2),
+    "V(2,2) z-line scaled f32 + FMG": _v("V", "line", "scaled", "float32", "fmg", smoothing=2),
 }
 BIG_VARIANTS = ("before", KEPT)
-CASES = ("constant", "layered", "inclusions", "thin", "graded", "graded job")
+CASES = ("constant", "layered", "inclusions", "column", "thin", "graded", "graded job")
 
 
 def spec_table(n: int, case: str) -> dict:
@@ -106,7 +108,22 @@ def graded_job_table(n: int) -> dict:
             "solver": {"method": "gmg"}}
 
 
+def column_table(n: int) -> dict:
+    """Issue 10's speed case: k = 1000 in 0.3 < x, y < 0.7 through the full height, 1 around
+    it, source sin(pi x) sin(pi y) sin(pi z), u = 0 on every face (benchmarks/column.py)."""
+    faces = {face: {"type": "dirichlet", "value": 0.0}
+             for face in ("x_min", "x_max", "y_min", "y_max", "z_min", "z_max")}
+    return {"name": f"column-{n}", "grid": {"cells": [n, n, n], "size": [1.0, 1.0, 1.0]},
+            "material": {"value": 1.0, "region": [{"box": {"min": [0.3, 0.3, 0.0],
+                                                           "max": [0.7, 0.7, 1.0]},
+                                                   "value": 1000.0}]},
+            "source": {"value": "sin(pi*x)*sin(pi*y)*sin(pi*z)"}, "boundary": faces,
+            "solver": {"method": "gmg"}}
+
+
 def problem_level(n: int, case: str):
+    if case == "column":
+        return fine_level(build_problem(parse_job(column_table(n), "bench")))
     if case == "graded":
         return graded_level(n)
     if case == "graded job":

@@ -31,51 +31,62 @@ def line_factor(tz, diag, inv_w):
                 inv_w[i, j, m] = 1.0 / w
 
 
+# Columns one line sweep solves side by side (a SIMD register of float32)
+LINE_BLOCK = 8
+
+
 @njit(cache=True, parallel=True)
 def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
     """Exact solves along every z column (i, j) with (i + j) % 2 == colour, x and y
     neighbours taken from the current u (zebra line Gauss-Seidel; the columns of one colour
-    are independent). Unit stride along each column; two columns (j and j + 2) advance
-    together so that their Thomas recurrences overlap (measured 1.3 to 1.4 times faster than
-    one column at a time, and 1.5 times faster than all columns of a slab plane by plane)."""
+    are independent).
+
+    Columns go in blocks of LINE_BLOCK: their right-hand sides, pivots and couplings are
+    gathered at unit stride into small (nz, LINE_BLOCK) arrays, and the Thomas recurrences
+    then advance all columns of the block together, so the inner loop runs across columns
+    and vectorises (1.6 times faster than two interleaved columns at 128^3, float32;
+    benchmarks/RESULTS.md). A missing x or y neighbour is read through the last plane's
+    coupling, which is zero by the face-array convention, so no weights are needed.
+    """
     nx, ny, nz = u.shape
     for i in prange(nx):
         im = max(i - 1, 0)
         ip = min(i + 1, nx - 1)
-        wxm = 1.0 if i > 0 else 0.0
-        wxp = 1.0 if i < nx - 1 else 0.0
-        for j in range((i + colour) & 1, ny, 4):
-            j2 = j + 2
-            two = j2 < ny
-            jb = j2 if two else j  # the second column (a harmless repeat when there is none)
-            jm = max(j - 1, 0)
-            jp = min(j + 1, ny - 1)
-            wym = 1.0 if j > 0 else 0.0
-            wyp = 1.0 if j < ny - 1 else 0.0
-            jm2 = max(jb - 1, 0)
-            jp2 = min(jb + 1, ny - 1)
-            wym2 = 1.0 if jb > 0 else 0.0
-            wyp2 = 1.0 if jb < ny - 1 else 0.0
-            y = 0.0
-            y2 = 0.0
-            for m in range(nz):
-                rhs = (b[i, j, m] + wxm * tx[im, j, m] * u[im, j, m] + wxp * tx[i, j, m] * u[ip, j, m]
-                       + wym * ty[i, jm, m] * u[i, jm, m] + wyp * ty[i, j, m] * u[i, jp, m])
-                rhs2 = (b[i, jb, m] + wxm * tx[im, jb, m] * u[im, jb, m]
-                        + wxp * tx[i, jb, m] * u[ip, jb, m]
-                        + wym2 * ty[i, jm2, m] * u[i, jm2, m] + wyp2 * ty[i, jb, m] * u[i, jp2, m])
-                if m > 0:
-                    rhs += tz[i, j, m - 1] * y
-                    rhs2 += tz[i, jb, m - 1] * y2
-                y = rhs * inv_w[i, j, m]
-                y2 = rhs2 * inv_w[i, jb, m]
-                u[i, j, m] = y
-                if two:
-                    u[i, jb, m] = y2
+        itm = i - 1 if i > 0 else nx - 1  # the zero plane stands in for a missing coupling
+        y = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
+        w = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
+        t = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
+        j0 = (i + colour) & 1
+        while j0 < ny:
+            nb = min(LINE_BLOCK, (ny - j0 + 1) // 2)
+            for c in range(nb):
+                j = j0 + 2 * c
+                jm = max(j - 1, 0)
+                jtm = j - 1 if j > 0 else ny - 1
+                jp = min(j + 1, ny - 1)
+                for m in range(nz):
+                    y[m, c] = (b[i, j, m] + tx[itm, j, m] * u[im, j, m] + tx[i, j, m] * u[ip, j, m]
+                               + ty[i, jtm, m] * u[i, jm, m] + ty[i, j, m] * u[i, jp, m])
+                    w[m, c] = inv_w[i, j, m]
+                    t[m, c] = tz[i, j, m]
+            for c in range(nb, LINE_BLOCK):  # a short last block solves zero columns
+                for m in range(nz):
+                    y[m, c] = 0.0
+                    w[m, c] = 0.0
+                    t[m, c] = 0.0
+            for c in range(LINE_BLOCK):
+                y[0, c] = y[0, c] * w[0, c]
+            for m in range(1, nz):
+                for c in range(LINE_BLOCK):
+                    y[m, c] = (y[m, c] + t[m - 1, c] * y[m - 1, c]) * w[m, c]
             for m in range(nz - 2, -1, -1):
-                u[i, j, m] += tz[i, j, m] * inv_w[i, j, m] * u[i, j, m + 1]
-                if two:
-                    u[i, jb, m] += tz[i, jb, m] * inv_w[i, jb, m] * u[i, jb, m + 1]
+                for c in range(LINE_BLOCK):
+                    y[m, c] += t[m, c] * w[m, c] * y[m + 1, c]
+            for c in range(nb):
+                j = j0 + 2 * c
+                for m in range(nz):
+                    u[i, j, m] = y[m, c]
+            j0 += 2 * LINE_BLOCK
 
 
 @njit(cache=True, parallel=True)

@@ -185,38 +185,55 @@ def gauss_seidel_colour(tx, ty, tz, diag, b, u, colour):
 
 
 @njit(cache=True, parallel=True)
-def restrict(r, free, step, rc):
-    """rc = P^T r for piecewise-constant prolongation over aggregates of ``step`` cells per axis."""
+def restrict(r, step, rc):
+    """rc = P^T r for piecewise-constant prolongation over aggregates of ``step`` cells per axis.
+
+    Sums every child, held ones included: a residual is zero on held cells (b = 0, u = 0,
+    no couplings), which is what lets the inner loop run without a mask and vectorise.
+    """
     nx, ny, nz = r.shape
     sx, sy, sz = step[0], step[1], step[2]
     ncx, ncy, ncz = rc.shape
     for I in prange(ncx):
         for J in range(ncy):
             for K in range(ncz):
-                s = 0.0
-                for i in range(I * sx, min(I * sx + sx, nx)):
-                    for j in range(J * sy, min(J * sy + sy, ny)):
-                        for m in range(K * sz, min(K * sz + sz, nz)):
-                            if free[i, j, m]:
-                                s += r[i, j, m]
-                rc[I, J, K] = s
+                rc[I, J, K] = 0.0
+            for i in range(I * sx, min(I * sx + sx, nx)):
+                for j in range(J * sy, min(J * sy + sy, ny)):
+                    if sz == 1:
+                        for K in range(nz):
+                            rc[I, J, K] += r[i, j, K]
+                    elif sz == 2:
+                        for K in range(nz // 2):
+                            rc[I, J, K] += r[i, j, 2 * K] + r[i, j, 2 * K + 1]
+                        if nz % 2:
+                            rc[I, J, ncz - 1] += r[i, j, nz - 1]
+                    else:
+                        for m in range(nz):
+                            rc[I, J, m // sz] += r[i, j, m]
 
 
 @njit(cache=True, parallel=True)
 def prolong_add(ec, free, step, scale, u):
-    """u += scale * P ec on the free cells (loops over aggregates: no integer division)."""
+    """u += scale * P ec on the free cells (P piecewise constant over the aggregates)."""
     nx, ny, nz = u.shape
     sx, sy, sz = step[0], step[1], step[2]
-    ncx, ncy, ncz = ec.shape
-    for I in prange(ncx):
-        for i in range(I * sx, min(I * sx + sx, nx)):
-            for J in range(ncy):
-                for j in range(J * sy, min(J * sy + sy, ny)):
-                    for K in range(ncz):
-                        e = scale * ec[I, J, K]
-                        for m in range(K * sz, min(K * sz + sz, nz)):
-                            if free[i, j, m]:
-                                u[i, j, m] += e
+    for i in prange(nx):
+        I = i // sx
+        for j in range(ny):
+            J = j // sy
+            if sz == 1:
+                for m in range(nz):
+                    if free[i, j, m]:
+                        u[i, j, m] += scale * ec[I, J, m]
+            elif sz == 2:
+                for m in range(nz):
+                    if free[i, j, m]:
+                        u[i, j, m] += scale * ec[I, J, m >> 1]
+            else:
+                for m in range(nz):
+                    if free[i, j, m]:
+                        u[i, j, m] += scale * ec[I, J, m // sz]
 
 
 @njit(cache=True, parallel=True)

@@ -217,7 +217,7 @@ class Hierarchy:
         if self.transfer == "linear":
             multigrid.restrict_linear(r, lv.free, lv.step, rc)
         else:
-            stencil.restrict(r, lv.free, lv.step, rc)
+            stencil.restrict(r, lv.step, rc)
 
     def _prolong_add(self, lv: Level, ec: np.ndarray, scale: float, u: np.ndarray) -> None:
         if self.transfer == "linear":
