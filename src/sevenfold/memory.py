@@ -9,17 +9,19 @@ import os
 # (benchmarks/memory_fit.py prints the fit and its errors). The base alone varies by about
 # 50 MiB between installs (how much of the shared libraries the kernel maps in), so small
 # jobs are estimated to within that. Per cell, for the default outputs:
-#   gmg:    face arrays, rhs, CG vectors, coarse levels, result buffer, and the float32
-#           preconditioner's copy of the finest level with its line pivots and work arrays;
-#           k, f and the held values are dropped while CG runs (solvers.select.FieldLease)
-#           and rebuilt after it
+#   gmg:    float64 face arrays and rhs (40), CG's x, r, p and one buffer shared by A p and
+#           the preconditioned residual (32), the float32 preconditioner's line pivots and
+#           correction on the finest level (8; it smooths on the float64 face arrays
+#           themselves), coarse levels (~4); k, f and the held values are dropped as soon as
+#           the face arrays exist (solvers.select.FieldLease) and rebuilt after the solve
 #   amg:    CSR matrix, pyamg's smoothed-aggregation hierarchy, CG vectors
 #   fft:    fields and the transformed right-hand side
 #   direct: fields and CSR, plus the LU factors, which grow like n^(4/3) on a 3D grid
-# Refitted 2026-12-02 after graded grids and the lease (gmg 205/390/592 MiB at 64/128/160^3,
-# fft 197/316/427, amg 343/1461 at 64/128, direct 624/1469 at 32/40^3).
+# Refitted 2026-12-02 after graded grids and the lease (fft 197/316/427, amg 343/1461 at
+# 64/128, direct 624/1469 at 32/40^3); gmg refitted after the lean preconditioner (219, 385,
+# 526 and 775 MiB at 64, 128, 160 and 192^3).
 BASE_BYTES = 200 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
-BYTES_PER_CELL = {"gmg": 125, "amg": 640, "fft": 63, "direct": 100}
+BYTES_PER_CELL = {"gmg": 88, "amg": 640, "fft": 63, "direct": 100}
 LU_BYTES_PER_FILL = 520  # times unknowns^(4/3) (SuperLU with COLAMD fills faster at 40^3)
 FIELD_BYTES_PER_CELL = 8  # each derived array stored with the result
 

@@ -89,6 +89,16 @@ def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
             j0 += 2 * LINE_BLOCK
 
 
+@njit(cache=True, parallel=True, fastmath={"reassoc", "nsz", "contract"})
+def widen_dot(e, r, z):
+    """z = e in z's (wider) float type; returns r . z (CG's r . z in the same pass)."""
+    s = 0.0
+    for i in prange(z.shape[0]):
+        z[i] = e[i]
+        s += r[i] * z[i]
+    return s
+
+
 @njit(cache=True, parallel=True)
 def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
     """Count, over every ``stride``-th free cell per axis, the cells where an axis is weak.

@@ -172,6 +172,50 @@ def residual(tx, ty, tz, diag, b, u, r):
                     tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz)
 
 
+@njit(cache=True, parallel=True, fastmath={"reassoc", "nsz", "contract"})
+def apply_dot(tx, ty, tz, diag, u, out):
+    """out = A u; returns u . A u (CG's curvature p . A p in the same pass over memory; the
+    sum may be reordered so that it vectorises)."""
+    nx, ny, nz = u.shape
+    s = 0.0
+    for i in prange(nx):
+        for j in range(ny):
+            wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
+            for m in range(nz):
+                v = diag[i, j, m] * u[i, j, m] - _offdiag_row(
+                    tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz)
+                out[i, j, m] = v
+                s += v * u[i, j, m]
+    return s
+
+
+@njit(cache=True, parallel=True)
+def residual_restrict(tx, ty, tz, diag, b, u, step, rc):
+    """rc = P^T (b - A u) for piecewise-constant P over aggregates of ``step`` cells per axis,
+    without storing the fine residual (each coarse x-plane is one thread's). As in
+    :func:`restrict`, held cells add nothing because their residual is zero."""
+    nx, ny, nz = u.shape
+    sx, sy, sz = step[0], step[1], step[2]
+    ncx, ncy, ncz = rc.shape
+    for I in prange(ncx):
+        for J in range(ncy):
+            for K in range(ncz):
+                rc[I, J, K] = 0.0
+        for i in range(I * sx, min(I * sx + sx, nx)):
+            for j in range(ny):
+                J = j // sy
+                wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
+                for m in range(nz):
+                    r = b[i, j, m] - diag[i, j, m] * u[i, j, m] + _offdiag_row(
+                        tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz)
+                    if sz == 2:
+                        rc[I, J, m >> 1] += r
+                    elif sz == 1:
+                        rc[I, J, m] += r
+                    else:
+                        rc[I, J, m // sz] += r
+
+
 @njit(cache=True, parallel=True)
 def gauss_seidel_colour(tx, ty, tz, diag, b, u, colour):
     """One Gauss-Seidel sweep over the cells with (i + j + k) % 2 == colour."""

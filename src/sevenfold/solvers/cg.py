@@ -88,10 +88,17 @@ class SolveResult:
         }
 
 
+def residual_into(A, x: np.ndarray, b: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+    """b - A x, written over A's product (``A @ x`` returns a fresh array or a buffer that the
+    next product overwrites, so either may be reused) or into ``out``: no full-size temporary."""
+    q = A @ x
+    return np.subtract(b, q, out=q if out is None else out)
+
+
 def relative_residual(A, x: np.ndarray, b: np.ndarray) -> float:
     """||b - A x|| / ||b|| (and ||A x|| when b = 0)."""
     nb = float(np.linalg.norm(b))
-    r = float(np.linalg.norm(b - A @ x))
+    r = float(np.linalg.norm(residual_into(A, x, b)))
     return r / nb if nb > 0 else r
 
 
@@ -108,6 +115,11 @@ def pcg(
     x0: np.ndarray | None = None,
 ) -> SolveResult:
     """Solve the SPD system A x = b from x0 (default 0) until ||r|| <= rtol ||b||.
+
+    ``A`` needs ``A @ p``; when it has ``apply_dot(p)`` -> (A p, p . A p) that is used instead,
+    and a ``precondition`` with ``precondition_dot(r)`` -> (z, r . z) likewise (one pass over
+    memory fewer each). Products returned by A and the preconditioner may share one buffer:
+    CG is done with A p before it preconditions.
 
     The recorded history starts with x0's relative residual; ``x0`` is not modified.
 
@@ -129,7 +141,7 @@ def pcg(
         return SolveResult(x, method, 0, True, 0.0, setup_seconds, 0.0, history, times)
     if x0 is not None:
         x[...] = x0
-        r = b - A @ x
+        r = residual_into(A, x, b, np.empty(n))
         history[0] = float(np.linalg.norm(r)) / nb
         if history[0] >= 1.0:  # a start worse than zero (possible on extreme grids): drop it
             x[...] = 0.0
@@ -143,9 +155,19 @@ def pcg(
                            time.perf_counter() - start, history, times)
     ops = vector_ops(n)
     dot = ops.dot
-    z = precondition(r)
+
+    def apply_dot(p: np.ndarray) -> tuple[np.ndarray, float]:
+        q = A @ p
+        return q, dot(p, q)
+
+    def precondition_dot(r: np.ndarray) -> tuple[np.ndarray, float]:
+        z = precondition(r)
+        return z, dot(r, z)
+
+    apply_dot = getattr(A, "apply_dot", apply_dot)
+    precondition_dot = getattr(precondition, "precondition_dot", precondition_dot)
+    z, rz = precondition_dot(r)
     p = z.copy()
-    rz = dot(r, z)
     best_before = np.inf
     restarts = 0
 
@@ -159,8 +181,7 @@ def pcg(
     for it in range(1, max_iterations + 1):
         if monitor.stop_requested():
             raise Cancelled("the solve was cancelled")
-        q = A @ p
-        pq = dot(p, q)
+        q, pq = apply_dot(p)
         if not np.isfinite(pq) or pq <= 0.0:
             raise SolverError(
                 "conjugate gradients broke down (non-finite or non-positive curvature); "
@@ -188,11 +209,10 @@ def pcg(
                     f"ill-conditioned (coefficient contrast) for rtol {rtol:.1e}; loosen solver.rtol",
                     elapsed,
                 )
-            r = b - A @ x  # restart from the true residual
+            residual_into(A, x, b, r)  # restart from the true residual
             history[-1] = final
-            z = precondition(r)
+            z, rz = precondition_dot(r)
             p = z.copy()
-            rz = dot(r, z)
             continue
         if it > stagnation_window:
             best_before = min(best_before, history[it - stagnation_window])
@@ -203,8 +223,7 @@ def pcg(
                     f"(relative residual {res:.3e}, asked for {rtol:.1e})",
                     elapsed,
                 )
-        z = precondition(r)
-        rz_new = dot(r, z)
+        z, rz_new = precondition_dot(r)
         ops.update_direction(p, z, rz_new / rz)
         rz = rz_new
     raise stopped_short(

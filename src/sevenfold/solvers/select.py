@@ -116,10 +116,15 @@ class FieldLease:
 
 
 class _Releasing:
-    """Passes progress on; the first report (the operator is built by then) releases the lease."""
+    """Passes progress on; the first report (the operator is built by then) releases the lease,
+    or earlier :meth:`operator_built`, which a solver calls as soon as its operator exists (gmg:
+    before the hierarchy, so the fields and the levels are never held at once)."""
 
     def __init__(self, inner: Monitor, lease: FieldLease) -> None:
         self.inner, self.lease = inner, lease
+
+    def operator_built(self) -> None:
+        self.lease.release()
 
     def iteration(self, iteration: int, relative_residual: float, elapsed: float) -> None:
         self.lease.release()
