@@ -81,6 +81,7 @@ U_X_MIN = 1.0
 U_X_MAX = 0.0
 FACES = ("x_min", "x_max", "y_min", "y_max", "z_min", "z_max")
 X_FACES = {"x_min": U_X_MIN, "x_max": U_X_MAX}  # every pattern but column; other faces insulated
+COLUMN_FACES = dict.fromkeys(FACES, 0.0)  # the column pattern holds every face at 0
 RTOL = 1e-8
 MAX_ITERATIONS = 500
 
@@ -114,7 +115,7 @@ def problem(pattern: str, n: int) -> tuple[np.ndarray, dict[str, float], np.ndar
     c = centres(n)
     s = np.sin(np.pi * c)
     f = s[:, None, None] * s[None, :, None] * s[None, None, :]
-    return coefficient(n, (COLUMN,), c), dict.fromkeys(FACES, 0.0), f
+    return coefficient(n, (COLUMN,), c), dict(COLUMN_FACES), f
 
 
 def assemble(
