@@ -1,13 +1,17 @@
 """The plain numpy + scipy + pyamg script that sevenfold is measured against.
 
-Steady -div(k grad u) = 0 on the unit cube split into n^3 cells (cell-centred finite
+Steady -div(k grad u) = f on the unit cube split into n^3 cells (cell-centred finite
 volumes, 7-point stencil). The coefficient is 1 with low-conductivity walls and
 inclusions of 1e-3 (contrast 1000:1), laid out in :data:`BOXES`; a cell takes a box's
 value when its centre lies in the box (boundary included), later boxes winning. The x_min
 face is held at 1 and x_max at 0, half a cell from the boundary cells' centres; the other
-faces are insulated. Equations are written per unit cell volume, as sevenfold writes them.
+faces are insulated; f = 0. Equations are written per unit cell volume.
 
-    python benchmarks/baseline.py --cells 128 --out sol.npy [--pattern layered]
+``--pattern column`` is a different problem: k = 1000 in the column 0.3 < x, y < 0.7 through
+the full height (k = 1 elsewhere), all six faces held at 0 (again half a cell from the
+boundary centres), f = sin(pi x) sin(pi y) sin(pi z) at the cell centres.
+
+    python benchmarks/baseline.py --cells 128 --out sol.npy [--pattern layered|column]
 
 prints one JSON line of timings (seconds), iterations and peak RSS (bytes).
 """
@@ -26,6 +30,7 @@ from scipy.sparse.linalg import cg
 
 K_BACKGROUND = 1.0
 K_LOW = 1.0e-3
+K_HIGH = 1.0e3  # the column pattern's column
 # (min corner, max corner, coefficient) on the unit cube; edges on multiples of 1/8.
 BOXES: tuple[tuple[tuple[float, float, float], tuple[float, float, float], float], ...] = (
     ((0.25, 0.0, 0.0), (0.375, 1.0, 0.75), K_LOW),     # wall across x, open above z = 0.75
@@ -34,18 +39,20 @@ BOXES: tuple[tuple[tuple[float, float, float], tuple[float, float, float], float
     ((0.375, 0.625, 0.5), (0.625, 0.875, 0.875), K_LOW),    # inclusion between the walls
 )
 Box = tuple[tuple[float, float, float], tuple[float, float, float], float]
-PATTERNS = ("walls", "constant", "layered", "inclusions")
+PATTERNS = ("walls", "constant", "layered", "inclusions", "column")
+COLUMN: Box = ((0.3, 0.3, 0.0), (0.7, 0.7, 1.0), K_HIGH)
 INCLUSIONS = 60
 INCLUSION_SEED = 20261201
 
 
 def pattern_boxes(pattern: str) -> tuple[Box, ...]:
-    """The coefficient boxes of a named pattern (k = 1 outside them, 1e-3 inside).
+    """The coefficient boxes of a named pattern (k = 1 outside them, the box's value inside).
 
     walls: :data:`BOXES`. constant: none. layered: five 1000:1 layers across x with edges off
     the dyadic planes, shifted between the halves y < 0.5 and y > 0.5 (a fault), so no layer
     lines up with coarse cells and every path from x_min to x_max crosses them. inclusions:
     :data:`INCLUSIONS` random boxes (seed :data:`INCLUSION_SEED`), edges rounded to 1e-4.
+    All of these are 1e-3. column: :data:`COLUMN`, one box of 1000 (see :func:`problem`).
     """
     if pattern == "walls":
         return BOXES
@@ -58,6 +65,8 @@ def pattern_boxes(pattern: str) -> tuple[Box, ...]:
             for x0, x1 in layers:
                 out.append(((round(x0 + shift, 4), y0, 0.0), (round(x1 + shift, 4), y1, 1.0), K_LOW))
         return tuple(out)
+    if pattern == "column":
+        return (COLUMN,)
     if pattern == "inclusions":
         rng = np.random.default_rng(INCLUSION_SEED)
         centre = rng.uniform(0.05, 0.95, (INCLUSIONS, 3))
@@ -70,14 +79,17 @@ def pattern_boxes(pattern: str) -> tuple[Box, ...]:
 
 U_X_MIN = 1.0
 U_X_MAX = 0.0
+FACES = ("x_min", "x_max", "y_min", "y_max", "z_min", "z_max")
+X_FACES = {"x_min": U_X_MIN, "x_max": U_X_MAX}  # every pattern but column; other faces insulated
+COLUMN_FACES = dict.fromkeys(FACES, 0.0)  # the column pattern holds every face at 0
 RTOL = 1e-8
 MAX_ITERATIONS = 500
 
 
-def coefficient(n: int, boxes: tuple[Box, ...] = BOXES) -> np.ndarray:
-    """k on the n^3 cells of the unit cube, indexed [x, y, z]."""
-    h = 1.0 / n
-    c = (np.arange(n) + 0.5) * h
+def coefficient(n: int, boxes: tuple[Box, ...] = BOXES, c: np.ndarray | None = None) -> np.ndarray:
+    """k on the n^3 cells of the unit cube, indexed [x, y, z]; ``c`` holds the cell centres
+    along each axis, by default (i + 1/2) / n."""
+    c = (np.arange(n) + 0.5) * (1.0 / n) if c is None else c
     x, y, z = c[:, None, None], c[None, :, None], c[None, None, :]
     k = np.full((n, n, n), K_BACKGROUND)
     for lo, hi, value in boxes:
@@ -86,8 +98,35 @@ def coefficient(n: int, boxes: tuple[Box, ...] = BOXES) -> np.ndarray:
     return k
 
 
-def assemble(k: np.ndarray, spacing: tuple[float, float, float]) -> tuple[sp.csr_matrix, np.ndarray]:
-    """The 7-point matrix and right-hand side, from COO triplets of every interior face."""
+def centres(n: int) -> np.ndarray:
+    """Cell centres along one axis of the unit cube cut into n cells, rounded as sevenfold
+    rounds them (midpoints of the edges i * (1/n)). (i + 1/2) / n can differ in the last bit,
+    which moves a cell in or out of a box when its centre lies on the box's face: for the
+    column that happens when n is an odd multiple of 5."""
+    e = np.arange(n + 1) * (1.0 / n)
+    return 0.5 * (e[:-1] + e[1:])
+
+
+def problem(pattern: str, n: int) -> tuple[np.ndarray, dict[str, float], np.ndarray | None]:
+    """``pattern`` on n^3 cells: k, the Dirichlet faces (name -> value; the faces not named are
+    insulated) and the source per unit volume at the cell centres (None for none)."""
+    if pattern != "column":
+        return coefficient(n, pattern_boxes(pattern)), X_FACES, None
+    c = centres(n)
+    s = np.sin(np.pi * c)
+    f = s[:, None, None] * s[None, :, None] * s[None, None, :]
+    return coefficient(n, (COLUMN,), c), dict(COLUMN_FACES), f
+
+
+def assemble(
+    k: np.ndarray, spacing: tuple[float, float, float],
+    dirichlet: dict[str, float] | None = None, source: np.ndarray | None = None,
+) -> tuple[sp.csr_matrix, np.ndarray]:
+    """The 7-point matrix and right-hand side, from COO triplets of every interior face.
+
+    ``dirichlet`` maps face names (:data:`FACES`) to held values, default :data:`X_FACES`;
+    ``source`` is f per unit volume per cell, default none.
+    """
     shape = k.shape
     cells = k.size
     index = np.arange(cells).reshape(shape)
@@ -105,15 +144,16 @@ def assemble(k: np.ndarray, spacing: tuple[float, float, float]) -> tuple[sp.csr
         cols += [p, q, q, p]
         vals += [t, t, -t, -t]
     # Dirichlet faces: the face value sits half a cell from the boundary cell's centre
-    b = np.zeros(shape)
-    hx = spacing[0]
-    for side, value in ((0, U_X_MIN), (-1, U_X_MAX)):
-        g = 2.0 * k[side] / hx**2
-        p = index[side].ravel()
+    b = np.zeros(shape) if source is None else np.array(source, dtype=np.float64).reshape(shape)
+    for face, value in (X_FACES if dirichlet is None else dirichlet).items():
+        axis = "xyz".index(face[0])
+        plane = (slice(None),) * axis + (0 if face.endswith("_min") else -1,)
+        g = 2.0 * k[plane] / spacing[axis] ** 2
+        p = index[plane].ravel()
         rows.append(p)
         cols.append(p)
         vals.append(g.ravel())
-        b[side] += g * value
+        b[plane] += g * value
     A = sp.coo_matrix(
         (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(cells, cells)
     ).tocsr()
@@ -150,9 +190,9 @@ def main(argv: list[str] | None = None) -> None:
     h = 1.0 / n
 
     t0 = time.perf_counter()
-    k = coefficient(n, pattern_boxes(args.pattern))
+    k, dirichlet, source = problem(args.pattern, n)
     t1 = time.perf_counter()
-    A, b = assemble(k, (h, h, h))
+    A, b = assemble(k, (h, h, h), dirichlet, source)
     t2 = time.perf_counter()
     x, iterations, setup, solve_s = solve(A, b, args.rtol)
     residual = float(np.linalg.norm(b - A @ x) / np.linalg.norm(b))
