@@ -170,6 +170,7 @@ def test_level_cell_counts() -> None:
 
 VARIANTS = [
     dict(DEFAULTS),
+    dict(DEFAULTS, finest="copy"),
     dict(DEFAULTS, precision="float64"),
     dict(DEFAULTS, cycle="V", precision="float64"),
     dict(DEFAULTS, smoother="point", precision="float64"),
@@ -178,7 +179,7 @@ VARIANTS = [
 ]
 
 
-@pytest.mark.parametrize("variant", VARIANTS, ids=lambda v: "-".join(str(v[k]) for k in ("cycle", "smoother", "transfer", "precision")))
+@pytest.mark.parametrize("variant", VARIANTS, ids=lambda v: "-".join(str(v[k]) for k in ("cycle", "smoother", "transfer", "precision", "finest")))
 def test_preconditioner_is_symmetric_positive_definite(variant) -> None:
     """CG needs an SPD preconditioner M: x^T M y == y^T M x to rounding (float64 levels:
     1e-12 relative; float32 levels: 1e-5, float32's rounding) and x^T M x > 0, on the graded
@@ -266,3 +267,113 @@ def test_auto_keeps_gmg_on_thin_anisotropic_cells() -> None:
     _, result = select.solve_problem(problem, spec_auto, "gmg")
     assert result.method == "gmg" and "amg" not in result.notes
     assert result.converged and result.iterations <= 14, result.iterations
+
+
+# ---------------------------------------------------------------- kernels against references
+def _random_level(shape, seed=5):
+    """Face arrays with random positive couplings (zero on each axis's last plane and around a
+    few held cells, as the face-array convention has it) and a dominant diagonal."""
+    rng = np.random.default_rng(seed)
+    tx, ty, tz = (rng.uniform(0.1, 2.0, shape) for _ in range(3))
+    tx[-1], ty[:, -1], tz[:, :, -1] = 0.0, 0.0, 0.0
+    free = rng.random(shape) > 0.1
+    for t, axis in ((tx, 0), (ty, 1), (tz, 2)):
+        nxt = np.roll(free, -1, axis=axis)
+        t[~free | ~nxt] = 0.0
+    diag = np.ones(shape)
+    for t, axis in ((tx, 0), (ty, 1), (tz, 2)):
+        diag += t + np.roll(t, 1, axis=axis) * (np.arange(shape[axis]) > 0).reshape(
+            [-1 if a == axis else 1 for a in range(3)])
+    diag[~free] = 1.0
+    return tx, ty, tz, diag, free
+
+
+@pytest.mark.parametrize("shape", [(5, 7, 9), (4, 19, 6), (3, 1, 5), (6, 35, 4)])
+@pytest.mark.parametrize("dtype", [np.float64, np.float32])
+def test_line_sweep_solves_each_column_exactly(shape, dtype) -> None:
+    """One colour of the blocked z-line Gauss-Seidel against scipy's banded solver column by
+    column (Thomas algorithm, common practice): every column of the colour satisfies its
+    tridiagonal system with the x and y neighbours' current values, every other column is
+    untouched. Shapes with ny not a multiple of the block (short last blocks) and ny = 1."""
+    from scipy.linalg import solve_banded
+
+    from sevenfold.kernels import multigrid
+
+    tx, ty, tz, diag, _ = _random_level(shape)
+    tx, ty, tz, diag = (a.astype(dtype) for a in (tx, ty, tz, diag))
+    rng = np.random.default_rng(8)
+    b = rng.standard_normal(shape).astype(dtype)
+    u0 = rng.standard_normal(shape).astype(dtype)
+    inv_w = np.empty(shape, dtype=dtype)
+    multigrid.line_factor(tz, diag, inv_w)
+    nx, ny, nz = shape
+    for colour in (0, 1):
+        u = u0.copy()
+        multigrid.line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour)
+        for i in range(nx):
+            for j in range(ny):
+                if (i + j) % 2 != colour:
+                    assert np.array_equal(u[i, j], u0[i, j])
+                    continue
+                rhs = b[i, j].astype(np.float64)
+                if i > 0:
+                    rhs = rhs + tx[i - 1, j] * u0[i - 1, j]
+                if i < nx - 1:
+                    rhs = rhs + tx[i, j] * u0[i + 1, j]
+                if j > 0:
+                    rhs = rhs + ty[i, j - 1] * u0[i, j - 1]
+                if j < ny - 1:
+                    rhs = rhs + ty[i, j] * u0[i, j + 1]
+                band = np.zeros((3, nz))
+                band[0, 1:] = -tz[i, j, :-1]
+                band[1] = diag[i, j]
+                band[2, :-1] = -tz[i, j, :-1]
+                exact = solve_banded((1, 1), band, rhs)
+                tol = 1e-12 if dtype == np.float64 else 1e-5
+                assert np.abs(u[i, j] - exact).max() <= tol * max(1.0, np.abs(exact).max())
+
+
+@pytest.mark.parametrize("shape, step", [((8, 6, 10), (2, 2, 2)), ((7, 5, 9), (2, 1, 2)),
+                                         ((6, 9, 5), (1, 2, 1)), ((5, 4, 7), (2, 2, 1))])
+def test_fused_residual_restriction_and_products(shape, step) -> None:
+    """residual_restrict = P^T (b - A u) with P piecewise constant (numpy's own sums over the
+    aggregates, odd last aggregates included), restrict = P^T r, prolong_add = u + s P e on free
+    cells, apply_dot = (A u, u . A u), widen_dot = (float64 copy, r . z); A from the face arrays
+    written out independently with numpy (common practice: 7-point stencil)."""
+    from sevenfold.kernels import multigrid, stencil
+
+    tx, ty, tz, diag, free = _random_level(shape)
+    rng = np.random.default_rng(9)
+    u = np.where(free, rng.standard_normal(shape), 0.0)
+    b = np.where(free, rng.standard_normal(shape), 0.0)
+    au = diag * u
+    au[:-1] -= tx[:-1] * u[1:]
+    au[1:] -= tx[:-1] * u[:-1]
+    au[:, :-1] -= ty[:, :-1] * u[:, 1:]
+    au[:, 1:] -= ty[:, :-1] * u[:, :-1]
+    au[:, :, :-1] -= tz[:, :, :-1] * u[:, :, 1:]
+    au[:, :, 1:] -= tz[:, :, :-1] * u[:, :, :-1]
+    r = b - au
+    step = np.array(step, dtype=np.int64)
+    cshape = tuple(-(-n // s) for n, s in zip(shape, step))
+    agg = np.ix_(*(np.arange(n) // s for n, s in zip(shape, step)))
+    expected = np.zeros(cshape)
+    np.add.at(expected, tuple(np.broadcast_arrays(*agg)), r)
+    rc = np.empty(cshape)
+    stencil.residual_restrict(tx, ty, tz, diag, b, u, step, rc)
+    assert np.abs(rc - expected).max() <= 1e-12 * np.abs(expected).max()
+    stencil.restrict(r, step, rc)
+    assert np.abs(rc - expected).max() <= 1e-12 * np.abs(expected).max()
+    ec = rng.standard_normal(cshape)
+    v = u.copy()
+    stencil.prolong_add(ec, free, step, 0.7, v)
+    assert np.array_equal(v, u + np.where(free, 0.7 * ec[agg], 0.0))
+    out = np.empty(shape)
+    udotau = stencil.apply_dot(tx, ty, tz, diag, u, out)
+    assert np.abs(out - au).max() <= 1e-12 * np.abs(au).max()
+    assert abs(udotau - float(np.sum(u * au))) <= 1e-12 * float(np.sum(np.abs(u * au)))
+    e32 = rng.standard_normal(u.size).astype(np.float32)
+    z = np.empty(u.size)
+    rz = multigrid.widen_dot(e32, r.ravel(), z)
+    assert np.array_equal(z, e32.astype(np.float64))
+    assert abs(rz - float(r.ravel() @ z)) <= 1e-12 * float(np.abs(r.ravel() * z).sum())
