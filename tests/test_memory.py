@@ -110,3 +110,33 @@ def test_the_lease_drops_the_fields_during_the_solve_and_the_answer_is_unchanged
     u, result = solve_problem(leased, auto, "gmg", None, FieldLease(leased, lambda: build_problem(spec)))
     assert result.method.startswith("amg") and "solved with amg instead" in result.notes
     assert np.abs(u - u_plain).max() <= 1e-6 * np.abs(u_plain).max()
+
+
+def test_gmg_goes_lean_when_the_copy_does_not_fit(tmp_path: Path, monkeypatch) -> None:
+    """With too little memory for the float32 copy of the finest level, gmg smooths on the
+    float64 face arrays instead: it says so in its notes, the estimate drops to the lean
+    figure, and the answer is the usual one to the solver's tolerance (the preconditioner
+    differs only in rounding)."""
+    import numpy as np
+
+    from sevenfold import memory
+    from sevenfold.problem import build_problem
+    from sevenfold.solvers.select import solve_problem
+    from sevenfold.spec import load_job
+
+    job = tmp_path / "job.toml"
+    job.write_text(JOB.format(method="gmg", n=24, region=LAYER))
+    spec = load_job(job)
+    cells = 24**3
+    u_copy, copy = solve_problem(build_problem(spec), spec.solver, "gmg")
+    assert memory.gmg_finest(cells) == "copy" and "save memory" not in copy.notes
+    usual = memory.estimate_bytes(cells, cells, "gmg")
+    short = int(memory.GMG_SOLVE_BYTES_PER_CELL * cells)  # less than the solve needs with a tenth spare
+    monkeypatch.setattr(memory, "available_bytes", lambda: short)
+    assert memory.gmg_finest(cells) == "operator"
+    lean = memory.estimate_bytes(cells, cells, "gmg")
+    assert usual - lean == (memory.BYTES_PER_CELL["gmg"] - memory.LEAN_GMG_BYTES_PER_CELL) * cells
+    u_lean, result = solve_problem(build_problem(spec), spec.solver, "gmg")
+    assert "finest level smoothed on the float64 arrays to save memory" in result.notes
+    assert result.converged
+    assert np.abs(u_lean - u_copy).max() <= 1e-6 * np.abs(u_copy).max()

@@ -10,28 +10,45 @@ import os
 # 50 MiB between installs (how much of the shared libraries the kernel maps in), so small
 # jobs are estimated to within that. Per cell, for the default outputs:
 #   gmg:    float64 face arrays and rhs (40), CG's x, r, p and one buffer shared by A p and
-#           the preconditioned residual (32), the float32 preconditioner's line pivots and
-#           correction on the finest level (8; it smooths on the float64 face arrays
-#           themselves), coarse levels (~4); k, f and the held values are dropped as soon as
-#           the face arrays exist (solvers.select.FieldLease) and rebuilt after the solve
+#           the preconditioned residual (32), the float32 preconditioner's copy of the finest
+#           face arrays (16) with its line pivots and correction (8), coarse levels (~4);
+#           k, f and the held values are dropped as soon as the face arrays exist
+#           (solvers.select.FieldLease) and rebuilt after the solve. Where that does not fit,
+#           the lean variant smooths on the float64 arrays themselves (no copy: 16 less,
+#           sweeps about 1.4 times slower, they read twice the bytes per coupling)
 #   amg:    CSR matrix, pyamg's smoothed-aggregation hierarchy, CG vectors
 #   fft:    fields and the transformed right-hand side
 #   direct: fields and CSR, plus the LU factors, which grow like n^(4/3) on a 3D grid
 # Refitted 2026-12-02 after graded grids and the lease (fft 197/316/427, amg 343/1461 at
-# 64/128, direct 624/1469 at 32/40^3); gmg refitted after the lean preconditioner (219, 385,
-# 526 and 775 MiB at 64, 128, 160 and 192^3).
+# 64/128, direct 624/1469 at 32/40^3); gmg refitted after the memory work of issue 10 (lean:
+# 219, 385, 526 and 775 MiB at 64, 128, 160 and 192^3; 21.0 GiB at 640^3).
 BASE_BYTES = 200 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
-BYTES_PER_CELL = {"gmg": 88, "amg": 640, "fft": 63, "direct": 100}
+LEAN_GMG_BYTES_PER_CELL = 88
+# what the gmg solve still allocates once the face arrays exist, with the float32 copy: CG's
+# four vectors (32), the copy (16), pivots and correction (8), coarse levels (4)
+GMG_SOLVE_BYTES_PER_CELL = 60
+BYTES_PER_CELL = {"gmg": 104, "amg": 640, "fft": 63, "direct": 100}
 LU_BYTES_PER_FILL = 520  # times unknowns^(4/3) (SuperLU with COLAMD fills faster at 40^3)
 FIELD_BYTES_PER_CELL = 8  # each derived array stored with the result
 
 
 def estimate_bytes(cells: int, unknowns: int, method: str, derived_arrays: int = 0) -> int:
-    """Estimated peak resident memory of a job in bytes (``derived_arrays`` extra outputs)."""
-    total = BASE_BYTES + (BYTES_PER_CELL.get(method, BYTES_PER_CELL["amg"]) + FIELD_BYTES_PER_CELL * derived_arrays) * cells
+    """Estimated peak resident memory of a job in bytes (``derived_arrays`` extra outputs);
+    for gmg the lean variant's when the usual one would not fit in the available memory."""
+    per_cell = BYTES_PER_CELL.get(method, BYTES_PER_CELL["amg"]) + FIELD_BYTES_PER_CELL * derived_arrays
+    total = BASE_BYTES + per_cell * cells
+    if method == "gmg" and total > available_bytes():
+        total -= (BYTES_PER_CELL["gmg"] - LEAN_GMG_BYTES_PER_CELL) * cells
     if method == "direct":
         total += int(LU_BYTES_PER_FILL * unknowns ** (4 / 3))
     return int(total)
+
+
+def gmg_finest(cells: int) -> str:
+    """How gmg smooths its finest level, decided once its face arrays exist: on a float32
+    copy ("copy", faster) when the rest of the solve fits in the available memory with a
+    tenth to spare, else on the float64 arrays themselves ("operator", 16 bytes per cell less)."""
+    return "copy" if 1.1 * GMG_SOLVE_BYTES_PER_CELL * cells <= available_bytes() else "operator"
 
 
 def _meminfo(key: str, pages: str) -> int:

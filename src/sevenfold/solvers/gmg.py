@@ -283,9 +283,10 @@ class Hierarchy:
         z = self._out.ravel()
         return z, multigrid.widen_dot(top.e.ravel(), r, z)
 
-    def full_multigrid(self, b: np.ndarray, cycles: int = 1) -> np.ndarray:
+    def full_multigrid(self, b: np.ndarray, cycles: int = 1, cycle: str = "V") -> np.ndarray:
         """A start near discretisation accuracy: restrict b to every level, solve the coarsest,
-        then on each finer level interpolate (linear, cell-centred) and run ``cycles`` cycles.
+        then on each finer level interpolate (linear, cell-centred) and run ``cycles`` cycles
+        of type ``cycle`` ("V", the usual choice in full multigrid, or "W").
 
         Returns the finest level's u as a flat float64 array that the next call of
         :meth:`precondition` overwrites (copy it to keep it). The finest level works in the
@@ -299,14 +300,18 @@ class Hierarchy:
             rhs.append(rc)
         u = np.empty(self.levels[-1].shape, dtype=self.dtype)
         self._coarsest_solve(rhs[-1], u)
-        for level in range(len(self.levels) - 2, -1, -1):
-            lv = self.levels[level]
-            fine_u = top.e if level == 0 else np.empty(lv.shape, dtype=self.dtype)
-            fine_u[...] = 0.0
-            multigrid.prolong_linear_add(u, lv.free, lv.step, self.overcorrection, fine_u)
-            for _ in range(cycles):
-                self.cycle(level, rhs[level], fine_u)
-            u = fine_u
+        gamma, self.gamma = self.gamma, (2 if cycle == "W" else 1)
+        try:
+            for level in range(len(self.levels) - 2, -1, -1):
+                lv = self.levels[level]
+                fine_u = top.e if level == 0 else np.empty(lv.shape, dtype=self.dtype)
+                fine_u[...] = 0.0
+                multigrid.prolong_linear_add(u, lv.free, lv.step, self.overcorrection, fine_u)
+                for _ in range(cycles):
+                    self.cycle(level, rhs[level], fine_u)
+                u = fine_u
+        finally:
+            self.gamma = gamma
         self._out[...] = u
         return self._out.ravel()
 
@@ -346,8 +351,8 @@ def fine_level(problem) -> tuple[Level, np.ndarray]:
     return level, faces.b
 
 
-DEFAULTS = dict(cycle="W", smoothing=1, smoother="line", transfer="scaled", precision="float32",
-                start="fmg", finest="operator")
+DEFAULTS = dict(cycle="W", smoothing=2, smoother="line", transfer="scaled", precision="float32",
+                start="zero")
 
 
 def solve_levels(fine: Level, b: np.ndarray, rtol: float, max_iterations: int,
@@ -373,6 +378,8 @@ def solve_levels(fine: Level, b: np.ndarray, rtol: float, max_iterations: int,
                  monitor, stagnation_window, "gmg", setup, x0=x0)
     result.solve_seconds += start_seconds  # the full multigrid start is part of the solve
     precision = "" if hierarchy.dtype == fine.diag.dtype else f", {hierarchy.dtype.name} preconditioner"
+    if opts.get("finest") == "operator" and precision:
+        precision += " (finest level smoothed on the float64 arrays to save memory)"
     result.notes = ("levels " + " > ".join("x".join(map(str, s)) for s in hierarchy.shapes)
                     + f"; {'W' if hierarchy.gamma == 2 else 'V'}-cycle, "
                     + ("z-line" if hierarchy.lines else "point") + f" smoothing{precision}"
@@ -384,10 +391,13 @@ def solve_gmg(problem, rtol: float, max_iterations: int, monitor: Monitor | None
               stagnation_window: int = 50, **options) -> tuple[np.ndarray, SolveResult]:
     """CG preconditioned by the multigrid cycle; returns u on the full grid (0 on held cells)
     and the solve's record (face arrays built in ``assembly_seconds``, levels in ``setup``)."""
+    from ..memory import gmg_finest
+
     t0 = time.perf_counter()
     fine, b = fine_level(problem)
     if hasattr(monitor, "operator_built"):  # the problem's cell fields may go now
         monitor.operator_built()
+    options.setdefault("finest", gmg_finest(fine.diag.size))
     t1 = time.perf_counter()
     result, hierarchy = solve_levels(fine, b, rtol, max_iterations, monitor, stagnation_window,
                                      **options)
