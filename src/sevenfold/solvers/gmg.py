@@ -14,18 +14,26 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   consistent with a rediscretisation on the aggregates (the factor piecewise-constant
   aggregation loses on smooth errors, Braess 1995, per axis rather than one overcorrection),
   and so usable by full multigrid;
-* piecewise-constant transfers in the cycle (restriction P^T), linear interpolation between
-  cell centres for the full-multigrid start;
-* z-line Gauss-Seidel smoothing (tridiagonal solves along z, columns in two colours), one
-  sweep red then black before and black then red after the coarse correction, so the cycle
-  is a symmetric positive definite preconditioner and CG stays valid; lines make strong z
-  couplings (thin cells, a graded z axis) harmless;
+* piecewise-constant transfers in the cycle (restriction P^T, fused with the residual so the
+  fine residual is never stored), linear interpolation between cell centres for full
+  multigrid;
+* z-line Gauss-Seidel smoothing (tridiagonal solves along z, columns in two colours, blocks of
+  columns solved side by side so the recurrences vectorise), two sweeps red then black before
+  and black then red after the coarse correction, so the cycle is a symmetric positive
+  definite preconditioner and CG stays valid; lines make strong z couplings (thin cells, a
+  graded z axis) harmless;
 * a W-cycle (the V-cycle of aggregation multigrid loses accuracy with every level), a
   sparse LU of the coarsest level (at most 16^3 cells);
 * the preconditioner's levels in float32 by default, CG, the residual-defining operator and
-  the true-residual check in float64;
-* a full-multigrid start: the right-hand side restricted to every level, the coarsest solved,
-  then one cycle per level after interpolating up, so CG begins near discretisation accuracy.
+  the true-residual check in float64; the finest level is smoothed on a float32 copy of its
+  face arrays, or, where memory is short (:func:`sevenfold.memory.gmg_finest`), on the
+  float64 arrays themselves (16 bytes per cell less, sweeps about 1.4 times slower);
+* CG starts from zero: W(2,2) cycles reach rtol 1e-8 in fewer work units from zero than
+  W(1,1) cycles after a full-multigrid start (benchmarks/RESULTS_CYCLE.md);
+  :meth:`Hierarchy.full_multigrid` (coarsest first, interpolated up, one V-cycle per level)
+  stays available (``start="fmg"``) and reaches discretisation accuracy by itself;
+* CG's two dot products ride on the operator's pass (p . A p) and on the pass that widens the
+  preconditioned residual to float64 (r . z), and A p and z share one buffer.
 
 The finest level is never stored as a CSR matrix: only its face arrays (tx, ty, tz, diag).
 """
