@@ -71,6 +71,9 @@ VARIANTS = {
         "W", "line", "scaled", "float32", "zero", smoothing=2, finest="operator"),
     "V(2,2) z-line scaled f32 + FMG": _v("V", "line", "scaled", "float32", "fmg", smoothing=2),
     "W(2,2) z-line scaled f32 + FMG": _v("W", "line", "scaled", "float32", "fmg", smoothing=2),
+    "W(2,2) point scaled f32": _v("W", "point", "scaled", "float32", "zero", smoothing=2),
+    "W(2,2) z-line where z is strong, else point, scaled f32": _v(
+        "W", "auto", "scaled", "float32", "zero", smoothing=2),
     KEPT: _v("W", "line", "scaled", "float32", "zero", smoothing=2),
 }
 BIG_VARIANTS = ("W(1,1) z-line scaled f32 + FMG", KEPT)

@@ -174,6 +174,7 @@ VARIANTS = [
     dict(DEFAULTS, precision="float64"),
     dict(DEFAULTS, cycle="V", precision="float64"),
     dict(DEFAULTS, smoother="point", precision="float64"),
+    dict(DEFAULTS, smoother="auto"),
     dict(DEFAULTS, transfer="constant", precision="float64"),
     dict(DEFAULTS, transfer="linear", precision="float64"),
 ]

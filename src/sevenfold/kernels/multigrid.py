@@ -108,10 +108,11 @@ def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
     many fine faces, so this keeps coarse levels comparable with a rediscretisation). x is
     weak where ``ratio`` times its coupling is below the strongest other axis's; with
     ``lines`` (z-line smoothing solves strong z) x and y are compared only with each other.
-    Returns (weak x, weak y, weak z, cells counted).
+    Returns (weak x, weak y, weak z, cells counted, cells where z is strong: ``ratio`` times
+    the stronger of x and y below z's coupling).
     """
     nx, ny, nz = free.shape
-    counts = np.zeros((nx, 4), dtype=np.int64)
+    counts = np.zeros((nx, 5), dtype=np.int64)
     for i in prange(nx):
         if i % stride != 0:
             continue
@@ -145,6 +146,8 @@ def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
                     counts[i, 1] += 1
                 if ratio * cz < max(cx if nx > 1 else 0.0, cy if ny > 1 else 0.0):
                     counts[i, 2] += 1
+                if nz > 1 and ratio * max(cx if nx > 1 else 0.0, cy if ny > 1 else 0.0) < cz:
+                    counts[i, 4] += 1
     return counts.sum(axis=0)
 
 

@@ -79,6 +79,7 @@ class Level:
     e: np.ndarray | None = None
     b: np.ndarray | None = None
     inv_w: np.ndarray | None = None  # z-line pivots (line smoother)
+    lines: bool = True  # smoothed by z-lines (else red-black points)
     boost: np.ndarray | None = None  # per-axis factor of unscaled Galerkin couplings
 
     @property
@@ -115,6 +116,17 @@ class Level:
         )
 
 
+def strong_z(lv: Level) -> bool:
+    """Whether z is the strong axis (WEAK_RATIO times the stronger of x and y below z's
+    coupling) in more than WEAK_FRACTION of the sampled cells: where a point smoother leaves
+    errors smooth along z only, which z-lines remove (thin cells, a graded z axis)."""
+    stride = max(1, int(round((lv.diag.size / SAMPLE_CELLS) ** (1.0 / 3.0))))
+    boost = lv.boost if lv.boost is not None else np.ones(3)
+    counts = multigrid.axis_weakness(lv.tx, lv.ty, lv.tz, lv.free, boost.astype(np.float64),
+                                     WEAK_RATIO, stride, False)
+    return counts[4] > WEAK_FRACTION * max(int(counts[3]), 1)
+
+
 def coarsening_step(lv: Level, lines: bool) -> np.ndarray:
     """Aggregate size per axis (1 or 2) for the next level, read from the operator.
 
@@ -148,7 +160,9 @@ class Hierarchy:
     ``transfer``: "linear" (cell-centred linear interpolation, its transpose as restriction,
     and per-axis scaled aggregation Galerkin coarse operators) or "constant" (piecewise-
     constant aggregation with plain Galerkin operators and an overcorrected coarse correction).
-    ``smoother``: "line" (zebra z-line Gauss-Seidel) or "point" (red-black Gauss-Seidel).
+    ``smoother``: "line" (zebra z-line Gauss-Seidel), "point" (red-black Gauss-Seidel) or
+    "auto" (lines on the levels where z is strong, :func:`strong_z`, points elsewhere; measured
+    no faster than lines everywhere, benchmarks/RESULTS_CYCLE_SMOOTHERS.md, so not the default).
     ``precision``: float type of the levels the preconditioner runs on; the caller's fine
     operator is not touched (float32 keeps a float32 copy of it for smoothing).
     ``coarsest_cells``: the level size that is factorised (default COARSEST_CELLS).
@@ -163,11 +177,11 @@ class Hierarchy:
                  smoothing: int = 1, smoother: str = "line", transfer: str = "linear",
                  precision: str = "float64", coarsest_cells: int | None = None,
                  finest: str = "copy", out: np.ndarray | None = None) -> None:
-        if transfer not in ("linear", "constant", "scaled") or smoother not in ("line", "point"):
+        if transfer not in ("linear", "constant", "scaled") or smoother not in ("line", "point", "auto"):
             raise ValueError(f"unknown transfer {transfer!r} or smoother {smoother!r}")
         self.dtype = np.dtype(precision)
         self.transfer = transfer
-        self.lines = smoother == "line"
+        self.smoother = smoother
         self.overcorrection = (overcorrection if overcorrection is not None
                                else (1.8 if transfer == "constant" else 1.0))
         self.gamma = 2 if cycle == "W" else 1
@@ -185,7 +199,8 @@ class Hierarchy:
             lv = self.levels[-1]
             if int(np.prod(lv.shape)) <= (coarsest_cells or COARSEST_CELLS):
                 break
-            step = coarsening_step(lv, self.lines)
+            lv.lines = strong_z(lv) if smoother == "auto" else smoother == "line"
+            step = coarsening_step(lv, lv.lines)
             if not (step > 1).any():
                 break
             lv.step = step
@@ -210,8 +225,8 @@ class Hierarchy:
         if transfer == "linear":
             for lv in self.levels[:-1]:
                 lv.r = np.empty(lv.shape, dtype=self.dtype)
-        if self.lines:
-            for lv in self.levels[:-1]:
+        for lv in self.levels[:-1]:
+            if lv.lines:
                 lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
                 multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
         # minimum degree on A^T + A with symmetric pivoting suits an SPD 7-point matrix: at
@@ -221,6 +236,14 @@ class Hierarchy:
                                  options={"SymmetricMode": True})
         self._out = out.reshape(fine.shape) if out is not None else np.empty(fine.shape)
 
+    def smoothing_note(self) -> str:
+        lines = [lv.lines for lv in self.levels[:-1]]
+        if all(lines) or not lines:
+            return "z-line"
+        if not any(lines):
+            return "point"
+        return "z-line (levels " + ", ".join(str(i) for i, x in enumerate(lines) if x) + ") and point"
+
     @property
     def shapes(self) -> list[tuple[int, int, int]]:
         return [lv.shape for lv in self.levels]
@@ -228,7 +251,7 @@ class Hierarchy:
     def _smooth(self, lv: Level, b: np.ndarray, u: np.ndarray, order: tuple[int, int]) -> None:
         for _ in range(self.smoothing):
             for colour in order:
-                if self.lines:
+                if lv.lines:
                     multigrid.line_gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, colour)
                 else:
                     stencil.gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.diag, b, u, colour)
@@ -390,7 +413,7 @@ def solve_levels(fine: Level, b: np.ndarray, rtol: float, max_iterations: int,
         precision += " (finest level smoothed on the float64 arrays to save memory)"
     result.notes = ("levels " + " > ".join("x".join(map(str, s)) for s in hierarchy.shapes)
                     + f"; {'W' if hierarchy.gamma == 2 else 'V'}-cycle, "
-                    + ("z-line" if hierarchy.lines else "point") + f" smoothing{precision}"
+                    + hierarchy.smoothing_note() + f" smoothing{precision}"
                     + (", full multigrid start" if start == "fmg" else ""))
     return result, hierarchy
 
