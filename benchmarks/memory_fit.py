@@ -10,7 +10,6 @@ in src/sevenfold/memory.py are fitted from this output.
 from __future__ import annotations
 
 import argparse
-import os
 import subprocess
 import sys
 import tempfile

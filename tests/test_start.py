@@ -10,8 +10,6 @@ import subprocess
 import sys
 from pathlib import Path
 
-import numpy as np
-import pytest
 
 JOB = """
 name = "start"

@@ -9,7 +9,6 @@ import argparse
 import math
 import os
 import sys
-import time
 from pathlib import Path
 
 from rich.console import Console
@@ -180,7 +179,6 @@ def _run(args: argparse.Namespace) -> int:
 
 def _capacitance(args: argparse.Namespace) -> int:
     from .capacitance import capacitance_matrix
-    from .conditions import placed_rows
     from .runner import plan_job, prepare_problem
 
     plan = plan_job(args.job)
