@@ -99,7 +99,7 @@ def widen_dot(e, r, z):
     return s
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True)  # serial: it reads a subsample, and a parallel build compiles seconds longer
 def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
     """Count, over every ``stride``-th free cell per axis, the cells where an axis is weak.
 
@@ -113,7 +113,7 @@ def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
     """
     nx, ny, nz = free.shape
     counts = np.zeros((nx, 5), dtype=np.int64)
-    for i in prange(nx):
+    for i in range(nx):
         if i % stride != 0:
             continue
         for j in range(0, ny, stride):
@@ -148,7 +148,11 @@ def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
                     counts[i, 2] += 1
                 if nz > 1 and ratio * max(cx if nx > 1 else 0.0, cy if ny > 1 else 0.0) < cz:
                     counts[i, 4] += 1
-    return counts.sum(axis=0)
+    total = np.zeros(5, dtype=np.int64)  # by hand: numba's sum(axis=0) takes seconds to compile
+    for i in range(nx):
+        for c in range(5):
+            total[c] += counts[i, c]
+    return total
 
 
 @njit(cache=True, parallel=True)
