@@ -380,3 +380,40 @@ def test_fused_residual_restriction_and_products(shape, step) -> None:
     rz = multigrid.widen_dot(e32, r.ravel(), z)
     assert np.array_equal(z, e32.astype(np.float64))
     assert abs(rz - float(r.ravel() @ z)) <= 1e-12 * float(np.abs(r.ravel() * z).sum())
+
+
+def test_finest_level_passes_per_iteration(monkeypatch) -> None:
+    """Work per CG iteration on the finest level, counted in kernel passes (not times): one
+    operator pass (with p . A p), and per preconditioner application eight line-sweep colour
+    passes (W(2,2): two sweeps of two colours before and after), one fused residual-
+    restriction, one prolongation and one widening pass (with r . z). These counts are what
+    the work units of benchmarks/RESULTS_CYCLE.md are made of; a change that adds a pass
+    shows here first."""
+    from sevenfold.kernels import multigrid, stencil
+    from sevenfold.solvers import gmg
+
+    fine, b = graded_level(24)
+    counts: dict[str, int] = {}
+
+    def counting(module, name, size_of):
+        kernel = getattr(module, name)
+
+        def wrapper(*args):
+            if size_of(args) == fine.diag.size:
+                counts[name] = counts.get(name, 0) + 1
+            return kernel(*args)
+        monkeypatch.setattr(module, name, wrapper)
+
+    counting(multigrid, "line_gauss_seidel_colour", lambda a: a[5].size)
+    counting(stencil, "residual_restrict", lambda a: a[5].size)
+    counting(stencil, "prolong_add", lambda a: a[4].size)
+    counting(multigrid, "widen_dot", lambda a: a[2].size)
+    counting(stencil, "apply_dot", lambda a: a[4].size)
+    result, _ = gmg.solve_levels(fine, b, 1e-8, 100)
+    # one before the first iteration and one after each but the last
+    applications = result.iterations
+    assert counts["line_gauss_seidel_colour"] == 8 * applications, counts
+    assert counts["residual_restrict"] == applications and counts["prolong_add"] == applications, counts
+    assert counts["widen_dot"] == applications, counts
+    # A p per iteration and the final true residual b - A x (a zero start needs no product)
+    assert counts["apply_dot"] == result.iterations + 1, (counts, result.iterations)
