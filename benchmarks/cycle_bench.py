@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import argparse
 import datetime
+import shlex
 import sys
 import time
 from pathlib import Path
@@ -221,7 +222,7 @@ def fmg_study(n: int, cycles_list=((1, "V"), (1, "W"), (2, "V"))) -> list[dict]:
 
 # ---------------------------------------------------------------- report
 def report(rows: list[dict], fmg_rows: list[dict], info: dict, command: str) -> str:
-    out = ["# Multigrid cycle designs", "",
+    out = [f"# {info.pop('title', 'Multigrid cycle designs')}", "",
            f"Written by `{command}` on {info['date']}; every number below comes from that run. "
            "Do not edit by hand: run the command again.", "",
            "gmg-CG to rtol 1e-8 (true residual). All times are CPU seconds of this process on one "
@@ -279,6 +280,7 @@ def main(argv=None) -> int:
     parser.add_argument("--variants", nargs="+", default=list(VARIANTS))
     parser.add_argument("--results", default=str(HERE / "RESULTS_CYCLE.md"))
     parser.add_argument("--repeats", type=int, default=3, help="solves per design, best kept")
+    parser.add_argument("--title", default="Multigrid cycle designs", help="the report's heading")
     args = parser.parse_args(argv)
     import numba
 
@@ -287,6 +289,7 @@ def main(argv=None) -> int:
     info["load average before"] = " ".join(f"{x:.2f}" for x in __import__("os").getloadavg())
     info["sevenfold revision"] = __import__("subprocess").run(
         ["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, cwd=HERE).stdout.strip()
+    info["title"] = args.title
     info["date"] = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
     for case in ("constant", "graded"):  # compile every kernel once before timing
         run_case(20, case, [v for v in VARIANTS if v in args.variants])
@@ -300,7 +303,7 @@ def main(argv=None) -> int:
             rows += run_case(n, case, [v for v in BIG_VARIANTS if v in args.variants], args.repeats)
     fmg_rows = [r for n in args.fmg_sizes for r in fmg_study(n)]
     info["load average after"] = " ".join(f"{x:.2f}" for x in __import__("os").getloadavg())
-    command = "python benchmarks/cycle_bench.py " + " ".join(argv if argv is not None else sys.argv[1:])
+    command = "python benchmarks/cycle_bench.py " + shlex.join(argv if argv is not None else sys.argv[1:])
     Path(args.results).write_text(report(rows, fmg_rows, info, command.strip()))
     print(f"wrote {args.results}")
     return 0
