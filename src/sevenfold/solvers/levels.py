@@ -1,0 +1,107 @@
+"""Multigrid levels: the face-array format of one level, and the rule that reads from a
+level's operator which axes to coarsen and whether z-lines are needed (see
+:mod:`sevenfold.solvers.gmg` for the hierarchy and cycle built on them)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+from ..kernels import multigrid, stencil
+
+# An axis is weak in a cell when its coupling times WEAK_RATIO is below the strongest other
+# axis's (2.25 = 1.5^2: cells 1.5 times longer along it); an axis that is weak in more than
+# WEAK_FRACTION of the sampled cells is not coarsened on that level.
+WEAK_RATIO = 2.25
+WEAK_FRACTION = 0.1
+SAMPLE_CELLS = 200_000  # cells the coarsening rule looks at per level (a regular subsample)
+
+
+@dataclass
+class Level:
+    tx: np.ndarray
+    ty: np.ndarray
+    tz: np.ndarray
+    diag: np.ndarray
+    free: np.ndarray  # bool: cells (aggregates) carrying an unknown
+    step: np.ndarray  # aggregate size per axis towards the next coarser level (1 or 2)
+    spacing: tuple[float, float, float] | None = None  # unused by the hierarchy (kept for callers)
+    r: np.ndarray | None = None  # work arrays
+    e: np.ndarray | None = None
+    b: np.ndarray | None = None
+    inv_w: np.ndarray | None = None  # z-line pivots (line smoother)
+    lines: bool = True  # smoothed by z-lines (else red-black points)
+    boost: np.ndarray | None = None  # per-axis factor of unscaled Galerkin couplings
+
+    @property
+    def shape(self) -> tuple[int, int, int]:
+        return self.diag.shape
+
+    def apply(self, u: np.ndarray, out: np.ndarray) -> np.ndarray:
+        stencil.apply(self.tx, self.ty, self.tz, self.diag, u, out)
+        return out
+
+    def astype(self, dtype) -> "Level":
+        """A copy of the operator in another float type (free and step shared)."""
+        return Level(*(a.astype(dtype) for a in (self.tx, self.ty, self.tz, self.diag)),
+                     self.free, self.step.copy(), self.spacing)
+
+    def to_csr(self) -> sp.csr_matrix:
+        """The level's matrix (only for the small coarsest level)."""
+        shape = self.shape
+        n = int(np.prod(shape))
+        idx = np.arange(n).reshape(shape)
+        rows, cols, vals = [idx.ravel()], [idx.ravel()], [self.diag.ravel()]
+        for t, axis in ((self.tx, 0), (self.ty, 1), (self.tz, 2)):
+            lo = [slice(None)] * 3
+            hi = [slice(None)] * 3
+            lo[axis] = slice(0, shape[axis] - 1)
+            hi[axis] = slice(1, shape[axis])
+            a, c, v = idx[tuple(lo)].ravel(), idx[tuple(hi)].ravel(), t[tuple(lo)].ravel()
+            rows += [a, c]
+            cols += [c, a]
+            vals += [-v, -v]
+        return sp.csr_matrix(
+            (np.concatenate(vals).astype(np.float64), (np.concatenate(rows), np.concatenate(cols))),
+            shape=(n, n),
+        )
+
+
+def strong_z(lv: Level) -> bool:
+    """Whether z is the strong axis (WEAK_RATIO times the stronger of x and y below z's
+    coupling) in more than WEAK_FRACTION of the sampled cells: where a point smoother leaves
+    errors smooth along z only, which z-lines remove (thin cells, a graded z axis)."""
+    stride = max(1, int(round((lv.diag.size / SAMPLE_CELLS) ** (1.0 / 3.0))))
+    boost = lv.boost if lv.boost is not None else np.ones(3)
+    counts = multigrid.axis_weakness(lv.tx, lv.ty, lv.tz, lv.free, boost.astype(np.float64),
+                                     WEAK_RATIO, stride, False)
+    return counts[4] > WEAK_FRACTION * max(int(counts[3]), 1)
+
+
+def coarsening_step(lv: Level, lines: bool) -> np.ndarray:
+    """Aggregate size per axis (1 or 2) for the next level, read from the operator.
+
+    An axis is coarsened unless it is weakly coupled (see WEAK_RATIO) in more than
+    WEAK_FRACTION of the cells: errors smooth along a strong axis but rough along a weak one
+    are what point smoothers leave, and only a grid that keeps the weak axis fine represents
+    them (semi-coarsening). With z-line smoothing strong z is solved by the lines, so x and y
+    are only compared with each other. Couplings are compared per cell, so a grid graded
+    along z that is anisotropic only near its fine end keeps z fine on every level.
+    """
+    shape = lv.shape
+    stride = max(1, int(round((lv.diag.size / SAMPLE_CELLS) ** (1.0 / 3.0))))
+    boost = lv.boost if lv.boost is not None else np.ones(3)
+    counts = multigrid.axis_weakness(lv.tx, lv.ty, lv.tz, lv.free, boost.astype(np.float64),
+                                     WEAK_RATIO, stride, lines)
+    total = max(int(counts[3]), 1)
+    step = np.array([2 if n > 1 and counts[a] <= WEAK_FRACTION * total else 1
+                     for a, n in enumerate(shape)], dtype=np.int64)
+    if not (step > 1).any():
+        # weak somewhere along every axis (strong heterogeneity rather than anisotropy):
+        # coarsen the axes that are weak least often rather than stop on a large level
+        least = min(counts[a] for a, n in enumerate(shape) if n > 1) if max(shape) > 1 else 0
+        step = np.array([2 if n > 1 and counts[a] == least else 1 for a, n in enumerate(shape)],
+                        dtype=np.int64)
+    return step
