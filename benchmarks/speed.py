@@ -207,8 +207,10 @@ def report(command: str, info: dict[str, str], cases: list[Case], fft_rows: list
       "(`python benchmarks/fft_bench.py`), [RESULTS_QUEUE.md](RESULTS_QUEUE.md) "
       "(`python benchmarks/queue_bench.py`), [RESULTS_CYCLE.md](RESULTS_CYCLE.md) (multigrid "
       "cycle designs, with the thin-cell and graded anisotropic cases beside the uniform ones, "
-      "`python benchmarks/cycle_bench.py`) and [RESULTS_CYCLE_GRADED.md](RESULTS_CYCLE_GRADED.md) "
-      "(issue 9's graded job: three decades of grading, 100:1 conductivity).\n")
+      "`python benchmarks/cycle_bench.py`), [RESULTS_CYCLE_GRADED.md](RESULTS_CYCLE_GRADED.md) "
+      "(issue 9's graded job: three decades of grading, 100:1 conductivity) and "
+      "[RESULTS_COLUMN.md](RESULTS_COLUMN.md) (issue 10's 1000:1 column, `python benchmarks/column.py`); "
+      "[ANALYSIS.md](ANALYSIS.md) reads them against issue 10's targets.\n")
     w("## Problem\n")
     w("Steady -div(k grad u) = 0 on the unit cube, n^3 cells, cell-centred finite volumes, 7-point stencil; "
       "x_min held at 1 and x_max at 0 (half a cell from the boundary centres), other faces insulated, "
