@@ -299,21 +299,7 @@ def report(command: str, info: dict[str, str], sizes: list[Size], load: dict, ru
               + ", ".join(f"{r.process.wall:.2f} ({r.own:.2f})" for r in s.baseline))
         w("")
 
-    w("## Machine\n")
-    w("| | |\n|---|---|")
-    for key, value in info.items():
-        w(f"| {key} | {value} |")
-    w(f"| load average before | {load['start']} |")
-    w(f"| load average after | {load['end']} |")
-    w("")
-    others = load.get("others") or []
-    if others:
-        w(f"Other processes running at the start: {len(others)} "
-          f"({'; '.join(f'`{c}`' for c in others[:4])}).\n")
-    timed = [r.process for s in sizes for r in s.sevenfold + s.baseline]
-    w(f"The machine is shared: other processes used {sum(r.other_cpu for r in timed):.0f} CPU s during the "
-      f"{sum(r.wall for r in timed):.0f} s of timed child processes. Compare ratios within this run, not "
-      "times across runs.\n")
+    out += speed.machine_section(info, load, [r.process for s in sizes for r in s.sevenfold + s.baseline])
     return "\n".join(out)
 
 

@@ -347,23 +347,26 @@ def report(command: str, info: dict[str, str], cases: list[Case], fft_rows: list
               f"{_v(r.ratio <= FFT_RATIO)} |")
         w("")
 
-    w("## Machine\n")
-    w("| | |\n|---|---|")
-    for key, value in info.items():
-        w(f"| {key} | {value} |")
-    w(f"| load average before | {load['start']} |")
-    w(f"| load average after | {load['end']} |")
-    w("")
+    timed = [r for c in cases for r in (c.sevenfold, c.baseline) if r is not None]
+    out += machine_section(info, load, timed, "One run per side and case; children ran one at a time. ")
+    return "\n".join(out)
+
+
+def machine_section(info: dict[str, str], load: dict, timed: list, note: str = "") -> list[str]:
+    """The report's Machine section: ``info``, the load before and after, the processes that
+    were running, and the CPU time other work used during the ``timed`` child processes
+    (``run.ProcessRun``); ``note`` goes before the closing advice."""
+    out = ["## Machine\n", "| | |\n|---|---|"]
+    out += [f"| {key} | {value} |" for key, value in info.items()]
+    out += [f"| load average before | {load['start']} |", f"| load average after | {load['end']} |", ""]
     others = load.get("others") or []
     if others:
-        w(f"Other processes running at the start: {len(others)} "
-          f"({'; '.join(f'`{c}`' for c in others[:4])}).\n")
-    busy = sum(r.other_cpu for c in cases for r in (c.sevenfold, c.baseline) if r is not None)
-    total = sum(r.wall for c in cases for r in (c.sevenfold, c.baseline) if r is not None)
-    w(f"The machine is shared (2 cores): other processes used {busy:.0f} CPU s during the {total:.0f} s of "
-      "timed child processes. One run per side and case; children ran one at a time. Compare ratios "
-      "within this run, not times across runs.\n")
-    return "\n".join(out)
+        out.append(f"Other processes running at the start: {len(others)} "
+                   f"({'; '.join(f'`{c}`' for c in others[:4])}).\n")
+    out.append(f"The machine is shared (2 cores): other processes used {sum(r.other_cpu for r in timed):.0f} "
+               f"CPU s during the {sum(r.wall for r in timed):.0f} s of timed child processes. {note}"
+               "Compare ratios within this run, not times across runs.\n")
+    return out
 
 
 def plot(cases: list[Case], path: Path) -> None:
