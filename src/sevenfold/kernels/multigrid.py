@@ -35,58 +35,99 @@ def line_factor(tz, diag, inv_w):
 LINE_BLOCK = 8
 
 
-@njit(cache=True, parallel=True)
-def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
-    """Exact solves along every z column (i, j) with (i + j) % 2 == colour, x and y
-    neighbours taken from the current u (zebra line Gauss-Seidel; the columns of one colour
-    are independent).
+@njit(cache=True, inline="always")
+def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, y, w, t):
+    """Exact z-line solves for the columns (i, j) of plane i with (i + j) % 2 == colour, x and
+    y neighbours taken from the current u.
 
     Columns go in blocks of LINE_BLOCK: their right-hand sides, pivots and couplings are
-    gathered at unit stride into small (nz, LINE_BLOCK) arrays, and the Thomas recurrences
-    then advance all columns of the block together, so the inner loop runs across columns
-    and vectorises (1.6 times faster than two interleaved columns at 128^3, float32;
-    benchmarks/RESULTS.md). A missing x or y neighbour is read through the last plane's
-    coupling, which is zero by the face-array convention, so no weights are needed.
+    gathered at unit stride into the small (nz, LINE_BLOCK) arrays y, w, t, and the Thomas
+    recurrences then advance all columns of the block together, so the inner loop runs across
+    columns and vectorises (1.6 times faster than two interleaved columns at 128^3, float32).
+    A missing x or y neighbour is read through the last plane's coupling, which is zero by the
+    face-array convention, so no weights are needed.
     """
     nx, ny, nz = u.shape
+    im = max(i - 1, 0)
+    ip = min(i + 1, nx - 1)
+    itm = i - 1 if i > 0 else nx - 1  # the zero plane stands in for a missing coupling
+    j0 = (i + colour) & 1
+    while j0 < ny:
+        nb = min(LINE_BLOCK, (ny - j0 + 1) // 2)
+        for c in range(nb):
+            j = j0 + 2 * c
+            jm = max(j - 1, 0)
+            jtm = j - 1 if j > 0 else ny - 1
+            jp = min(j + 1, ny - 1)
+            for m in range(nz):
+                y[m, c] = (b[i, j, m] + tx[itm, j, m] * u[im, j, m] + tx[i, j, m] * u[ip, j, m]
+                           + ty[i, jtm, m] * u[i, jm, m] + ty[i, j, m] * u[i, jp, m])
+                w[m, c] = inv_w[i, j, m]
+                t[m, c] = tz[i, j, m]
+        for c in range(nb, LINE_BLOCK):  # a short last block solves zero columns
+            for m in range(nz):
+                y[m, c] = 0.0
+                w[m, c] = 0.0
+                t[m, c] = 0.0
+        for c in range(LINE_BLOCK):
+            y[0, c] = y[0, c] * w[0, c]
+        for m in range(1, nz):
+            for c in range(LINE_BLOCK):
+                y[m, c] = (y[m, c] + t[m - 1, c] * y[m - 1, c]) * w[m, c]
+        for m in range(nz - 2, -1, -1):
+            for c in range(LINE_BLOCK):
+                y[m, c] += t[m, c] * w[m, c] * y[m + 1, c]
+        for c in range(nb):
+            j = j0 + 2 * c
+            for m in range(nz):
+                u[i, j, m] = y[m, c]
+        j0 += 2 * LINE_BLOCK
+
+
+@njit(cache=True, parallel=True)
+def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
+    """One colour of zebra z-line Gauss-Seidel: exact solves along every z column (i, j) with
+    (i + j) % 2 == colour (:func:`_line_plane`); the columns of one colour are independent."""
+    nx, nz = u.shape[0], u.shape[2]
     for i in prange(nx):
-        im = max(i - 1, 0)
-        ip = min(i + 1, nx - 1)
-        itm = i - 1 if i > 0 else nx - 1  # the zero plane stands in for a missing coupling
         y = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
         w = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
         t = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
-        j0 = (i + colour) & 1
-        while j0 < ny:
-            nb = min(LINE_BLOCK, (ny - j0 + 1) // 2)
-            for c in range(nb):
-                j = j0 + 2 * c
-                jm = max(j - 1, 0)
-                jtm = j - 1 if j > 0 else ny - 1
-                jp = min(j + 1, ny - 1)
-                for m in range(nz):
-                    y[m, c] = (b[i, j, m] + tx[itm, j, m] * u[im, j, m] + tx[i, j, m] * u[ip, j, m]
-                               + ty[i, jtm, m] * u[i, jm, m] + ty[i, j, m] * u[i, jp, m])
-                    w[m, c] = inv_w[i, j, m]
-                    t[m, c] = tz[i, j, m]
-            for c in range(nb, LINE_BLOCK):  # a short last block solves zero columns
-                for m in range(nz):
-                    y[m, c] = 0.0
-                    w[m, c] = 0.0
-                    t[m, c] = 0.0
-            for c in range(LINE_BLOCK):
-                y[0, c] = y[0, c] * w[0, c]
-            for m in range(1, nz):
-                for c in range(LINE_BLOCK):
-                    y[m, c] = (y[m, c] + t[m - 1, c] * y[m - 1, c]) * w[m, c]
-            for m in range(nz - 2, -1, -1):
-                for c in range(LINE_BLOCK):
-                    y[m, c] += t[m, c] * w[m, c] * y[m + 1, c]
-            for c in range(nb):
-                j = j0 + 2 * c
-                for m in range(nz):
-                    u[i, j, m] = y[m, c]
-            j0 += 2 * LINE_BLOCK
+        _line_plane(tx, ty, tz, inv_w, b, u, i, colour, y, w, t)
+
+
+@njit(cache=True, parallel=True)
+def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, chunks):
+    """One zebra z-line Gauss-Seidel sweep, colour ``first`` then the other, in one pass over
+    memory: the same result, bit for bit, as :func:`line_gauss_seidel_colour` for ``first``
+    and then for ``1 - first``, for about half the memory traffic.
+
+    The second colour trails the first by one x-plane (a wavefront): once plane i's first
+    colour is done, plane i - 1's second colour has all its neighbours' new values, and plane
+    i + 1's first colour still sees the old ones it needs. The x-planes are split into
+    ``chunks`` runs, one per thread; the second colour of each run's first and last plane
+    borders another run, so it waits until every run's first colour is done.
+    """
+    nx, nz = u.shape[0], u.shape[2]
+    chunks = max(1, min(chunks, nx))
+    second = 1 - first
+    for k in prange(chunks):
+        y = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
+        w = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
+        t = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
+        lo, hi = k * nx // chunks, (k + 1) * nx // chunks
+        for i in range(lo, hi):
+            _line_plane(tx, ty, tz, inv_w, b, u, i, first, y, w, t)
+            if i - 1 > lo:
+                _line_plane(tx, ty, tz, inv_w, b, u, i - 1, second, y, w, t)
+    for k in prange(chunks):
+        y = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
+        w = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
+        t = np.empty((nz, LINE_BLOCK), dtype=u.dtype)
+        lo, hi = k * nx // chunks, (k + 1) * nx // chunks
+        _line_plane(tx, ty, tz, inv_w, b, u, lo, second, y, w, t)
+        if hi - 1 > lo:
+            _line_plane(tx, ty, tz, inv_w, b, u, hi - 1, second, y, w, t)
 
 
 @njit(cache=True, parallel=True, fastmath={"reassoc", "nsz", "contract"})

@@ -18,7 +18,8 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   fine residual is never stored), linear interpolation between cell centres for full
   multigrid;
 * z-line Gauss-Seidel smoothing (tridiagonal solves along z, columns in two colours, blocks of
-  columns solved side by side so the recurrences vectorise), two sweeps red then black before
+  columns solved side by side so the recurrences vectorise, the second colour trailing the
+  first by one x-plane so a sweep is one pass over memory), two sweeps red then black before
   and black then red after the coarse correction, so the cycle is a symmetric positive
   definite preconditioner and CG stays valid; lines make strong z couplings (thin cells, a
   graded z axis) harmless;
@@ -152,12 +153,14 @@ class Hierarchy:
     def shapes(self) -> list[tuple[int, int, int]]:
         return [lv.shape for lv in self.levels]
 
-    def _smooth(self, lv: Level, b: np.ndarray, u: np.ndarray, order: tuple[int, int]) -> None:
+    def _smooth(self, lv: Level, b: np.ndarray, u: np.ndarray, first: int) -> None:
+        """``smoothing`` sweeps, colour ``first`` then the other in each."""
         for _ in range(self.smoothing):
-            for colour in order:
-                if lv.lines:
-                    multigrid.line_gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, colour)
-                else:
+            if lv.lines:
+                multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, first,
+                                            numba.get_num_threads())
+            else:
+                for colour in (first, 1 - first):
                     stencil.gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.diag, b, u, colour)
 
     def _restrict(self, lv: Level, r: np.ndarray, rc: np.ndarray) -> None:
@@ -190,7 +193,7 @@ class Hierarchy:
             self._coarsest_solve(b, u)
             return
         coarse = self.levels[level + 1]
-        self._smooth(lv, b, u, (0, 1))
+        self._smooth(lv, b, u, 0)
         if self.transfer == "linear":
             stencil.residual(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.r)
             multigrid.restrict_linear(lv.r, lv.free, lv.step, coarse.b)
@@ -201,7 +204,7 @@ class Hierarchy:
         for _ in range(self.gamma if level + 2 < len(self.levels) else 1):
             self.cycle(level + 1, coarse.b, coarse.e)
         self._prolong_add(lv, coarse.e, self.overcorrection, u)
-        self._smooth(lv, b, u, (1, 0))
+        self._smooth(lv, b, u, 1)
 
     def precondition(self, r: np.ndarray) -> np.ndarray:
         """One cycle from zero for A z = r (float64 in and out, whatever the levels' type).
