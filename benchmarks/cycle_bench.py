@@ -217,7 +217,9 @@ def manufactured_table(n: int) -> dict:
             "boundary": faces, "solver": {"method": "gmg"}}
 
 
-def fmg_study(n: int, cycles_list=((1, "V"), (1, "W"), (2, "V"))) -> list[dict]:
+def fmg_study(n: int, cycles_list=((1, "V", (2, 1)), (1, "V", (1, 2)), (1, "V", (2, 2)),
+                                    (1, "V", (1, 1)), (1, "W", (2, 1)), (2, "V", (2, 1)))) -> list[dict]:
+    """Full multigrid alone: ``cycles`` cycles of ``kind`` with (before, after) sweeps per level."""
     from sevenfold.solvers.gmg import DEFAULTS, Hierarchy
 
     problem = build_problem(parse_job(manufactured_table(n), "bench"))
@@ -226,19 +228,22 @@ def fmg_study(n: int, cycles_list=((1, "V"), (1, "W"), (2, "V"))) -> list[dict]:
     exact = (np.sin(np.pi * x)[:, None, None] * np.sin(np.pi * x)[None, :, None]
              * np.sin(np.pi * x)[None, None, :])
     result, _ = solve_levels(fine, b, 1e-12, 200)
-    unit = unit_seconds(fine, 21)
     discrete = result.x.reshape(fine.shape)
     e_disc = np.abs(discrete - exact).max()
     rows = []
     options = {k: v for k, v in DEFAULTS.items() if k != "start"}
-    for cycles, kind in cycles_list:
-        t = CLOCK()
-        hierarchy = Hierarchy(fine, **options)
-        t_setup = CLOCK() - t
-        u = hierarchy.full_multigrid(b.ravel(), cycles, kind).reshape(fine.shape)
-        seconds = CLOCK() - t
-        rows.append(dict(n=n, cycles=f"{cycles} {kind}", e_disc=e_disc, e_fmg=np.abs(u - exact).max(),
-                         wu=seconds / unit, wu_fmg=(seconds - t_setup) / unit))
+    for cycles, kind, sweeps in cycles_list:
+        seconds = alone = np.inf
+        for _ in range(3):  # the best of three: other processes only add time
+            t = CLOCK()
+            hierarchy = Hierarchy(fine, **options)
+            t_setup = CLOCK()
+            u = hierarchy.full_multigrid(b.ravel(), cycles, kind, sweeps).reshape(fine.shape)
+            seconds, alone = min(seconds, CLOCK() - t), min(alone, CLOCK() - t_setup)
+        unit = unit_seconds(fine, 21)
+        rows.append(dict(n=n, cycles=f"{cycles} {kind}({sweeps[0]},{sweeps[1]})", e_disc=e_disc,
+                         e_fmg=np.abs(u - exact).max(), e_alg=np.abs(u - discrete).max(),
+                         wu=seconds / unit, wu_fmg=alone / unit))
         print(rows[-1], flush=True)
     return rows
 
@@ -280,14 +285,18 @@ def report(rows: list[dict], fmg_rows: list[dict], info: dict, command: str) -> 
                 "Manufactured u = sin(pi x) sin(pi y) sin(pi z), k = 2 + x + 0.5 sin(2y), u = 0 on "
                 "every face. *discretisation error* = max |u_h - u| at cell centres of the "
                 "converged discrete solution (rtol 1e-12); *FMG error* = the same for full "
-                "multigrid alone (the kept design's hierarchy; cycles per level as given); *work "
-                "units* include building the hierarchy, *FMG work units* do not.", "",
-                "| cells | cycles per level | discretisation error | FMG error | ratio | work units "
-                "| FMG work units |",
-                "|---|---|---|---|---|---|---|"]
+                "multigrid alone (the kept design's hierarchy; cycles per level as given, "
+                "V(before, after) sweeps); *ratio* = FMG error / discretisation error; "
+                "*algebraic* = max |u_FMG - u_h| / discretisation error (below 1: the ratio does "
+                "not rest on the two errors cancelling); *work units* include building the "
+                "hierarchy, *FMG work units* do not (best of three, CPU time).", "",
+                "| cells | cycles per level | discretisation error | FMG error | ratio | algebraic "
+                "| work units | FMG work units |",
+                "|---|---|---|---|---|---|---|---|"]
         for r in fmg_rows:
             out.append(f"| {r['n']}^3 | {r['cycles']} | {r['e_disc']:.3e} | {r['e_fmg']:.3e} | "
-                       f"{r['e_fmg'] / r['e_disc']:.2f} | {r['wu']:.1f} | {r['wu_fmg']:.1f} |")
+                       f"{r['e_fmg'] / r['e_disc']:.2f} | {r['e_alg'] / r['e_disc']:.2f} | "
+                       f"{r['wu']:.1f} | {r['wu_fmg']:.1f} |")
         out.append("")
     out += ["## Machine", "", "| | |", "|---|---|"]
     out += [f"| {k} | {v} |" for k, v in info.items()]

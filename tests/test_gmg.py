@@ -217,21 +217,27 @@ def manufactured(n: int):
     return problem, c[:, None, None] * c[None, :, None] * c[None, None, :]
 
 
-def test_full_multigrid_reaches_discretisation_accuracy() -> None:
-    """Full multigrid alone (one V(2,2) cycle per level, the default) against a manufactured
+@pytest.mark.parametrize("sweeps", [(2, 1), (2, 2)])
+def test_full_multigrid_reaches_discretisation_accuracy(sweeps) -> None:
+    """Full multigrid alone (one V-cycle per level, V(2,1) the default) against a manufactured
     solution: its error is within 1.2 times the converged discrete solution's at 16^3, 32^3
-    and 64^3, and falls with observed order at least 1.8 (second-order scheme). Measured:
-    ratios 1.00 (16^3 is the coarsest level itself), 0.74 and 0.68 (the algebraic and
-    discretisation errors partly cancel; two cycles per level give 0.94 and 0.94)."""
+    and 64^3 and falls with observed order at least 1.8 (second-order scheme), and its
+    algebraic error (against the converged discrete solution) is below the discretisation
+    error, so the first bound does not rest on cancellation (measured: 0.58 and 0.71 of it for
+    V(2,1), 0.30 and 0.34 for V(2,2); V(1,2) reaches 1.19 at 64^3). The cycle's symmetric
+    sweeps are back afterwards (the hierarchy still preconditions CG)."""
     errors = []
     for n in (16, 32, 64):
         problem, exact = manufactured(n)
         fine, b = fine_level(problem)
         converged = solve_levels(fine, b, 1e-12, 100)[0].x.reshape(fine.shape)
         options = {k: v for k, v in DEFAULTS.items() if k != "start"}
-        fmg = Hierarchy(fine, **options).full_multigrid(b.ravel()).reshape(fine.shape)
+        hierarchy = Hierarchy(fine, **options)
+        fmg = hierarchy.full_multigrid(b.ravel(), sweeps=sweeps).reshape(fine.shape)
+        assert hierarchy.sweeps == (DEFAULTS["smoothing"],) * 2
         e_disc, e_fmg = np.abs(converged - exact).max(), np.abs(fmg - exact).max()
         assert e_fmg <= 1.2 * e_disc, (n, e_fmg, e_disc)
+        assert np.abs(fmg - converged).max() <= e_disc, (n, np.abs(fmg - converged).max(), e_disc)
         errors.append(e_fmg)
     orders = np.log2(np.array(errors[:-1]) / np.array(errors[1:]))
     assert orders.min() >= 1.8, orders

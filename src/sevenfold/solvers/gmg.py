@@ -90,7 +90,7 @@ class Hierarchy:
         self.overcorrection = (overcorrection if overcorrection is not None
                                else (1.8 if transfer == "constant" else 1.0))
         self.gamma = 2 if cycle == "W" else 1
-        self.smoothing = smoothing
+        self.sweeps = (smoothing, smoothing)  # before and after the coarse correction
         if finest not in ("copy", "operator"):
             raise ValueError(f"unknown finest {finest!r}")
         if fine.diag.dtype == self.dtype or finest == "operator":
@@ -154,8 +154,9 @@ class Hierarchy:
         return [lv.shape for lv in self.levels]
 
     def _smooth(self, lv: Level, b: np.ndarray, u: np.ndarray, first: int) -> None:
-        """``smoothing`` sweeps, colour ``first`` then the other in each."""
-        for _ in range(self.smoothing):
+        """The sweeps before (``first`` = 0: red then black) or after (1: black then red) the
+        coarse correction."""
+        for _ in range(self.sweeps[first]):
             if lv.lines:
                 multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, first,
                                             numba.get_num_threads())
@@ -221,10 +222,16 @@ class Hierarchy:
         z = self._out.ravel()
         return z, multigrid.widen_dot(top.e.ravel(), r, z)
 
-    def full_multigrid(self, b: np.ndarray, cycles: int = 1, cycle: str = "V") -> np.ndarray:
+    def full_multigrid(self, b: np.ndarray, cycles: int = 1, cycle: str = "V",
+                       sweeps: tuple[int, int] = (2, 1)) -> np.ndarray:
         """A start near discretisation accuracy: restrict b to every level, solve the coarsest,
         then on each finer level interpolate (linear, cell-centred) and run ``cycles`` cycles
-        of type ``cycle`` ("V", the usual choice in full multigrid, or "W").
+        of type ``cycle`` ("V", the usual choice in full multigrid, or "W") with ``sweeps``
+        smoothing sweeps before and after each coarse correction. V(2,1) is the cheapest
+        measured whose algebraic error stays below the discretisation error
+        (benchmarks/RESULTS_CYCLE.md; at 128^3 V(1,1) leaves 3.3 times it, and V(1,2) reaches it
+        only through cancellation with the discretisation error); full multigrid is not a
+        preconditioner, so it need not be symmetric.
 
         Returns the finest level's u as a flat float64 array that the next call of
         :meth:`precondition` overwrites (copy it to keep it). The finest level works in the
@@ -238,7 +245,8 @@ class Hierarchy:
             rhs.append(rc)
         u = np.empty(self.levels[-1].shape, dtype=self.dtype)
         self._coarsest_solve(rhs[-1], u)
-        gamma, self.gamma = self.gamma, (2 if cycle == "W" else 1)
+        kept = self.gamma, self.sweeps
+        self.gamma, self.sweeps = (2 if cycle == "W" else 1), tuple(sweeps)
         try:
             for level in range(len(self.levels) - 2, -1, -1):
                 lv = self.levels[level]
@@ -249,7 +257,7 @@ class Hierarchy:
                     self.cycle(level, rhs[level], fine_u)
                 u = fine_u
         finally:
-            self.gamma = gamma
+            self.gamma, self.sweeps = kept
         self._out[...] = u
         return self._out.ravel()
 
