@@ -207,66 +207,78 @@ def galerkin_scaled(tx, ty, tz, diag, free, step, txc, tyc, tzc, diagc, freec):
     operator consistent with linear interpolation (P_lin^T A P_lin on smooth errors) and with
     full multigrid. A cell's diagonal excess (boundary faces, couplings to held cells) is
     split equally over its faces that store no coupling, and scaled with their axis.
+
+    Each thread builds one coarse x-plane, reading its fine rows along z at unit stride (an
+    aggregate's cells are visited in the same order as aggregate by aggregate, so the sums are
+    the same bit for bit; 2 to 3 times faster than looping over aggregates).
     """
     nx, ny, nz = diag.shape
     sx, sy, sz = step[0], step[1], step[2]
     fx, fy, fz = 1.0 / sx, 1.0 / sy, 1.0 / sz
     ncx, ncy, ncz = diagc.shape
     for I in prange(ncx):
+        d = np.zeros((ncy, ncz))
+        cxs = np.zeros((ncy, ncz))
+        cys = np.zeros((ncy, ncz))
+        czs = np.zeros((ncy, ncz))
+        nfree = np.zeros((ncy, ncz), dtype=np.int64)
+        i0 = I * sx
+        i1 = min(i0 + sx, nx)
+        for i in range(i0, i1):
+            for j in range(ny):
+                J = j // sy
+                j0 = J * sy
+                j1 = min(j0 + sy, ny)
+                for m in range(nz):
+                    if not free[i, j, m]:
+                        continue
+                    K = m // sz
+                    k0 = K * sz
+                    k1 = min(k0 + sz, nz)
+                    nfree[J, K] += 1
+                    txm = tx[i - 1, j, m] if i > 0 else 0.0
+                    tym = ty[i, j - 1, m] if j > 0 else 0.0
+                    tzm = tz[i, j, m - 1] if m > 0 else 0.0
+                    txp = tx[i, j, m]
+                    typ = ty[i, j, m]
+                    tzp = tz[i, j, m]
+                    excess = diag[i, j, m] - (txm + txp + tym + typ + tzm + tzp)
+                    missing_x = (1 if txm == 0.0 else 0) + (1 if txp == 0.0 else 0)
+                    missing_y = (1 if tym == 0.0 else 0) + (1 if typ == 0.0 else 0)
+                    missing_z = (1 if tzm == 0.0 else 0) + (1 if tzp == 0.0 else 0)
+                    missing = missing_x + missing_y + missing_z
+                    a = d[J, K]
+                    if missing > 0:
+                        share = excess / missing
+                        a += share * (missing_x * fx + missing_y * fy + missing_z * fz)
+                    else:
+                        a += excess * (fx + fy + fz) / 3.0
+                    # faces leaving the aggregate add to its diagonal; plus faces are also the
+                    # coupling to the next aggregate
+                    if i == i0:
+                        a += fx * txm
+                    if i + 1 == i1:
+                        a += fx * txp
+                        cxs[J, K] += txp
+                    if j == j0:
+                        a += fy * tym
+                    if j + 1 == j1:
+                        a += fy * typ
+                        cys[J, K] += typ
+                    if m == k0:
+                        a += fz * tzm
+                    if m + 1 == k1:
+                        a += fz * tzp
+                        czs[J, K] += tzp
+                    d[J, K] = a
         for J in range(ncy):
             for K in range(ncz):
-                i0, j0, k0 = I * sx, J * sy, K * sz
-                i1, j1, k1 = min(i0 + sx, nx), min(j0 + sy, ny), min(k0 + sz, nz)
-                d = 0.0
-                cxs = 0.0
-                cys = 0.0
-                czs = 0.0
-                nfree = 0
-                for i in range(i0, i1):
-                    for j in range(j0, j1):
-                        for m in range(k0, k1):
-                            if not free[i, j, m]:
-                                continue
-                            nfree += 1
-                            txm = tx[i - 1, j, m] if i > 0 else 0.0
-                            tym = ty[i, j - 1, m] if j > 0 else 0.0
-                            tzm = tz[i, j, m - 1] if m > 0 else 0.0
-                            txp = tx[i, j, m]
-                            typ = ty[i, j, m]
-                            tzp = tz[i, j, m]
-                            excess = diag[i, j, m] - (txm + txp + tym + typ + tzm + tzp)
-                            missing_x = (1 if txm == 0.0 else 0) + (1 if txp == 0.0 else 0)
-                            missing_y = (1 if tym == 0.0 else 0) + (1 if typ == 0.0 else 0)
-                            missing_z = (1 if tzm == 0.0 else 0) + (1 if tzp == 0.0 else 0)
-                            missing = missing_x + missing_y + missing_z
-                            if missing > 0:
-                                share = excess / missing
-                                d += share * (missing_x * fx + missing_y * fy + missing_z * fz)
-                            else:
-                                d += excess * (fx + fy + fz) / 3.0
-                            # faces leaving the aggregate add to its diagonal; plus faces are
-                            # also the coupling to the next aggregate
-                            if i == i0:
-                                d += fx * txm
-                            if i + 1 == i1:
-                                d += fx * txp
-                                cxs += txp
-                            if j == j0:
-                                d += fy * tym
-                            if j + 1 == j1:
-                                d += fy * typ
-                                cys += typ
-                            if m == k0:
-                                d += fz * tzm
-                            if m + 1 == k1:
-                                d += fz * tzp
-                                czs += tzp
-                freec[I, J, K] = nfree > 0
-                diagc[I, J, K] = d if nfree > 0 else 1.0
-                txc[I, J, K] = fx * cxs
-                tyc[I, J, K] = fy * cys
-                tzc[I, J, K] = fz * czs
-
+                n = nfree[J, K]
+                freec[I, J, K] = n > 0
+                diagc[I, J, K] = d[J, K] if n > 0 else 1.0
+                txc[I, J, K] = fx * cxs[J, K]
+                tyc[I, J, K] = fy * cys[J, K]
+                tzc[I, J, K] = fz * czs[J, K]
 
 @njit(cache=True, inline="always")
 def _partner(i, s, nc):
