@@ -342,6 +342,61 @@ def test_line_sweep_solves_each_column_exactly(shape, dtype) -> None:
                 assert np.abs(u[i, j] - exact).max() <= tol * max(1.0, np.abs(exact).max())
 
 
+def _linear_interpolation_matrix(n: int, s: int) -> np.ndarray:
+    """1D interpolation between cell centres from n // s coarse cells (s = 1 or 2): each fine
+    centre from its own and the nearer coarse centre (3/4, 1/4), linear extrapolation at the
+    faces (5/4, -1/4); common practice for cell-centred multigrid."""
+    nc = -(-n // s)
+    if s == 1:
+        return np.eye(n)
+    xf, xc = np.arange(n) + 0.5, (np.arange(nc) + 0.5) * s
+    p = np.zeros((n, nc))
+    for i, x in enumerate(xf):
+        if nc == 1:
+            p[i, 0] = 1.0
+            continue
+        left = min(max(int(np.floor((x - s / 2) / s)), 0), nc - 2)
+        w = (x - xc[left]) / s
+        p[i, left], p[i, left + 1] = 1.0 - w, w
+    return p
+
+
+@pytest.mark.parametrize("shape, step", [((8, 6, 10), (2, 2, 2)), ((7, 5, 9), (2, 1, 2)),
+                                         ((6, 9, 5), (1, 2, 1)), ((2, 4, 7), (2, 2, 1))])
+def test_linear_transfers_against_numpy(shape, step) -> None:
+    """prolong_linear_add = u + s P e on free cells with P the tensor product of the 1D
+    interpolation matrices written out with numpy; it reproduces a linear field exactly (where
+    every coarsened axis has two coarse cells or more and no odd last cell, whose lone centre
+    is not midway); restrict_linear is its transpose
+    (<P e, r> = <e, P^T r>)."""
+    from sevenfold.kernels import multigrid
+
+    _, _, _, _, free = _random_level(shape)
+    coarse = tuple(-(-n // s) for n, s in zip(shape, step))
+    px, py, pz = (_linear_interpolation_matrix(n, s) for n, s in zip(shape, step))
+    rng = np.random.default_rng(11)
+    e = rng.standard_normal(coarse)
+    u0 = rng.standard_normal(shape)
+    u = u0.copy()
+    multigrid.prolong_linear_add(e, free, np.array(step, dtype=np.int64), 0.7, u)
+    want = u0 + 0.7 * np.where(free, np.einsum("ia,jb,kc,abc->ijk", px, py, pz, e), 0.0)
+    assert np.allclose(u, want, rtol=1e-13, atol=1e-13), np.abs(u - want).max()
+    if all(n % s == 0 and (s == 1 or n > s) for n, s in zip(shape, step)):
+        centres = [np.arange(nc) * s + s / 2 for nc, s in zip(coarse, step)]
+        linear = lambda x, y, z: 1.0 + 0.3 * x - 0.2 * y + 0.5 * z  # noqa: E731
+        ec = linear(*np.meshgrid(*centres, indexing="ij"))
+        u = np.zeros(shape)
+        multigrid.prolong_linear_add(ec, np.ones(shape, dtype=np.bool_), np.array(step, dtype=np.int64), 1.0, u)
+        fine = linear(*np.meshgrid(*(np.arange(n) + 0.5 for n in shape), indexing="ij"))
+        assert np.allclose(u, fine, rtol=1e-12), np.abs(u - fine).max()
+    r = np.where(free, rng.standard_normal(shape), 0.0)
+    rc = np.empty(coarse)
+    multigrid.restrict_linear(r, free, np.array(step, dtype=np.int64), rc)
+    pe = np.zeros(shape)
+    multigrid.prolong_linear_add(e, free, np.array(step, dtype=np.int64), 1.0, pe)
+    assert abs(float((pe * r).sum()) - float((e * rc).sum())) <= 1e-12 * float(np.abs(pe * r).sum())
+
+
 def _galerkin_scaled_reference(tx, ty, tz, diag, free, step):
     """The scaled aggregation coarse operator written out with numpy, cell contributions first
     and then summed per aggregate (the definition in kernels.multigrid.galerkin_scaled's

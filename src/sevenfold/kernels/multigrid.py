@@ -313,31 +313,46 @@ def _w1(i, c, s, nc):
 @njit(cache=True, parallel=True)
 def prolong_linear_add(ec, free, step, scale, u):
     """u += scale * P ec on free cells, P the tensor product of linear interpolation between
-    cell centres along each coarsened axis (see :func:`_partner`)."""
+    cell centres along each coarsened axis (see :func:`_partner`).
+
+    Per fine row (i, j) the x and y interpolation is done once on the coarse z-row (at most
+    four coarse rows combined), then each fine cell takes its two z weights from that row: a
+    third of the multiplications of interpolating cell by cell, and unit-stride inner loops.
+    """
     nx, ny, nz = u.shape
     sx, sy, sz = step[0], step[1], step[2]
     ncx, ncy, ncz = ec.shape
+    ka = np.empty(nz, dtype=np.int64)
+    kb = np.empty(nz, dtype=np.int64)
+    wka = np.empty(nz)
+    wkb = np.empty(nz)
+    for m in range(nz):
+        ka[m], wka[m], kb[m], wkb[m] = _partner(m, sz, ncz)
+        if kb[m] < 0:
+            kb[m], wkb[m] = ka[m], 0.0
     for i in prange(nx):
         ia, wia, ib, wib = _partner(i, sx, ncx)
+        row = np.empty(ncz, dtype=ec.dtype)
         for j in range(ny):
             ja, wja, jb, wjb = _partner(j, sy, ncy)
+            waa = wia * wja
+            for K in range(ncz):
+                row[K] = waa * ec[ia, ja, K]
+            if jb >= 0:
+                wab = wia * wjb
+                for K in range(ncz):
+                    row[K] += wab * ec[ia, jb, K]
+            if ib >= 0:
+                wba = wib * wja
+                for K in range(ncz):
+                    row[K] += wba * ec[ib, ja, K]
+                if jb >= 0:
+                    wbb = wib * wjb
+                    for K in range(ncz):
+                        row[K] += wbb * ec[ib, jb, K]
             for m in range(nz):
-                if not free[i, j, m]:
-                    continue
-                ka, wka, kb, wkb = _partner(m, sz, ncz)
-                s = 0.0
-                for a in range(2):
-                    I = ia if a == 0 else ib
-                    wx = wia if a == 0 else wib
-                    if I < 0:
-                        continue
-                    for c in range(2):
-                        J = ja if c == 0 else jb
-                        wy = wja if c == 0 else wjb
-                        if J < 0:
-                            continue
-                        s += wx * wy * (wka * ec[I, J, ka] + (wkb * ec[I, J, kb] if kb >= 0 else 0.0))
-                u[i, j, m] += scale * s
+                if free[i, j, m]:
+                    u[i, j, m] += scale * (wka[m] * row[ka[m]] + wkb[m] * row[kb[m]])
 
 
 @njit(cache=True, parallel=True)
