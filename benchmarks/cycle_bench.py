@@ -78,6 +78,8 @@ VARIANTS = {
         "W", "auto", "scaled", "float32", "zero", smoothing=2),
     "W(2,2) z-line scaled f32, sweep as two colour passes": _v(
         "W", "line", "scaled", "float32", "zero", smoothing=2, two_pass=True),
+    "W(2,2) z-line scaled f32, finest level W(1,1)": _v(
+        "W", "line", "scaled", "float32", "zero", smoothing=2, finest_sweeps=1),
     KEPT: _v("W", "line", "scaled", "float32", "zero", smoothing=2),
 }
 BIG_VARIANTS = ("W(1,1) z-line scaled f32 + FMG", KEPT)
@@ -155,21 +157,35 @@ def unit_seconds(level, repeats: int = 9) -> float:
 
 
 @contextlib.contextmanager
-def two_colour_passes(active: bool):
-    """The line sweep as it was before the one-pass sweep: each colour its own pass over
-    memory (the same numbers, more memory traffic)."""
+def patched(two_pass: bool = False, finest_sweeps: int | None = None):
+    """Designs measured by patching the kept one: ``two_pass``, the line sweep as it was before
+    the one-pass sweep (each colour its own pass over memory: the same numbers, more memory
+    traffic); ``finest_sweeps``, that many sweeps each side on the finest level only."""
     from sevenfold.kernels import multigrid
+    from sevenfold.solvers.gmg import Hierarchy
 
-    one_pass = multigrid.line_gauss_seidel
+    one_pass, smooth = multigrid.line_gauss_seidel, Hierarchy._smooth
 
     def sweep(tx, ty, tz, inv_w, b, u, first, chunks):
         for colour in (first, 1 - first):
             multigrid.line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour)
-    multigrid.line_gauss_seidel = sweep if active else one_pass
+
+    def fewer_on_finest(self, lv, b, u, first):
+        kept = self.sweeps
+        if lv is self.levels[0]:
+            self.sweeps = (finest_sweeps, finest_sweeps)
+        try:
+            smooth(self, lv, b, u, first)
+        finally:
+            self.sweeps = kept
+    if two_pass:
+        multigrid.line_gauss_seidel = sweep
+    if finest_sweeps is not None:
+        Hierarchy._smooth = fewer_on_finest
     try:
         yield
     finally:
-        multigrid.line_gauss_seidel = one_pass
+        multigrid.line_gauss_seidel, Hierarchy._smooth = one_pass, smooth
 
 
 def run_case(n: int, case: str, names, repeats: int = 1) -> list[dict]:
@@ -180,7 +196,7 @@ def run_case(n: int, case: str, names, repeats: int = 1) -> list[dict]:
         try:
             seconds = np.inf
             options = dict(VARIANTS[name])
-            with two_colour_passes(options.pop("two_pass", False)):
+            with patched(options.pop("two_pass", False), options.pop("finest_sweeps", None)):
                 for _ in range(repeats):  # the best of several: other processes only add time
                     t = CLOCK()
                     result, hierarchy = solve_levels(fine, b, RTOL, MAX_ITERATIONS, **options)
