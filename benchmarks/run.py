@@ -557,6 +557,9 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--big", type=int, nargs="+",
                    help="speed: sizes run by sevenfold alone, layered (default 512; 0 skips); the first "
                         "is timed against the 60 s target, the others only have to fit in 24 GB")
+    p.add_argument("--lean", type=int, nargs="*", default=[],
+                   help="speed: sizes whose layered job runs again with gmg's finest level smoothed on "
+                        "the float64 arrays (what it does when memory is short), for its memory")
     p.add_argument("--quick", action="store_true",
                    help="speed: 64^3 only, no big run; engine: small sizes, assembly at 64^3, one run, "
                         "prints the report unless --results")

@@ -70,10 +70,17 @@ def job_text(n: int, pattern: str, output: str) -> str:
     return "\n".join(lines)
 
 
+# `sevenfold run` with gmg's finest level forced onto the float64 arrays, as memory.gmg_finest
+# chooses when memory is short (the lean path), for --lean
+LEAN = ("import sys, sevenfold.memory as m; m.gmg_finest = lambda cells: 'operator'; "
+        "from sevenfold.cli import main; sys.exit(main(sys.argv[1:]))")
+
+
 @dataclass
 class Case:
     pattern: str
     n: int
+    lean: bool = False
     method: str = ""
     notes: str = ""
     sevenfold: engine.ProcessRun | None = None
@@ -144,11 +151,12 @@ def sevenfold_job_seconds(stdout: str) -> float:
     return float(m.group(1)) if m else float("nan")
 
 
-def run_case(folder: Path, pattern: str, n: int, with_baseline: bool, repeats: int) -> Case:
+def run_case(folder: Path, pattern: str, n: int, with_baseline: bool, repeats: int,
+             lean: bool = False) -> Case:
     """One pattern and size: baseline process, sevenfold process, then the in-process kernels."""
     import zarr
 
-    case = Case(pattern, n)
+    case = Case(pattern, n, lean)
     job = folder / f"speed-{pattern}-{n}.toml"
     zarr_path = folder / f"speed-{pattern}-{n}.zarr"
     npy_path = folder / f"baseline-{pattern}-{n}.npy"
@@ -158,7 +166,8 @@ def run_case(folder: Path, pattern: str, n: int, with_baseline: bool, repeats: i
             [sys.executable, str(HERE / "baseline.py"), "--cells", str(n), "--pattern", pattern,
              "--out", str(npy_path)], folder)
         case.base = json.loads(case.baseline.stdout.strip().splitlines()[-1])
-    case.sevenfold = engine.run_process(engine.sevenfold_command() + ["run", "--no-progress", str(job)], folder)
+    command = [sys.executable, "-c", LEAN] if lean else engine.sevenfold_command()
+    case.sevenfold = engine.run_process(command + ["run", "--no-progress", str(job)], folder)
     case.job_seconds = sevenfold_job_seconds(case.sevenfold.stdout)
     group = zarr.open_group(str(zarr_path), mode="r")
     case.seconds = dict(group.attrs["seconds"])
@@ -262,12 +271,12 @@ def report(command: str, info: dict[str, str], cases: list[Case], fft_rows: list
         bw = min(gmg, key=lambda c: c.bandwidth / c.copy_bandwidth)
         w(f"| operator >= {BANDWIDTH:.0%} of copy bandwidth (every size) | worst "
           f"{bw.bandwidth / bw.copy_bandwidth:.0%} ({bw.n}^3) | {_v(bw.bandwidth / bw.copy_bandwidth >= BANDWIDTH)} |")
-        bigs = [c.n for c in cases if c.baseline is None and c.method == "gmg"]
+        bigs = [c.n for c in cases if c.baseline is None and c.method == "gmg" and not c.lean]
         largest = bigs[0] if bigs else max(c.n for c in gmg)  # the first big size, else the largest
-        mem = [c for c in gmg if c.n == largest]
+        mem = [c for c in gmg if c.n == largest and not c.lean]
         m = max(mem, key=lambda c: c.sevenfold.peak_rss)
         bpu = m.sevenfold.peak_rss / m.cells
-        lay = sorted((c for c in gmg if c.pattern == "layered"), key=lambda c: c.n)
+        lay = sorted((c for c in gmg if c.pattern == "layered" and not c.lean), key=lambda c: c.n)
         marginal = ""
         if len(lay) >= 2:
             a, b = lay[-2], lay[-1]
@@ -275,7 +284,12 @@ def report(command: str, info: dict[str, str], cases: list[Case], fft_rows: list
                         f"between layered {a.n}^3 and {b.n}^3")
         w(f"| <= {BYTES_PER_UNKNOWN:g} B/unknown peak on the gmg path ({largest}^3) | "
           f"{bpu:.0f} ({m.pattern}){marginal} | {_v(bpu <= BYTES_PER_UNKNOWN)} |")
-    bigc = [c for c in cases if c.baseline is None]
+        for c in (c for c in gmg if c.lean):
+            bpu = c.sevenfold.peak_rss / c.cells
+            w(f"| <= {BYTES_PER_UNKNOWN:g} B/unknown, {c.n}^3 {c.pattern} on the lean path (finest level "
+              f"smoothed on the float64 arrays) | {bpu:.0f}, {c.sevenfold.wall:.1f} s whole process, "
+              f"{c.iterations} iterations | {_v(bpu <= BYTES_PER_UNKNOWN)} |")
+    bigc = [c for c in cases if c.baseline is None and not c.lean]
     for i, c in enumerate(bigc):
         if i == 0:
             ok = c.sevenfold.wall < BIG_SECONDS and c.sevenfold.peak_rss < BIG_BYTES
@@ -311,7 +325,7 @@ def report(command: str, info: dict[str, str], cases: list[Case], fft_rows: list
             ratio_o = f"{c.base_own / c.job_seconds:.1f}x" if c.baseline else ""
             agree = (f"{c.difference:.1e} ({'met' if c.difference <= AGREEMENT else '**not met**'})"
                      if c.baseline else "")
-            w(f"| {c.n}^3 | sevenfold | {c.method} | {s.wall:.2f} | {c.job_seconds:.2f} | "
+            w(f"| {c.n}^3{' lean' if c.lean else ''} | sevenfold | {c.method} | {s.wall:.2f} | {c.job_seconds:.2f} | "
               f"{sec.get('assemble', np.nan):.3f} | {sec.get('setup', np.nan):.3f} | {sec.get('solve', np.nan):.3f} | "
               f"{c.iterations} | {c.work_units:.1f} | {s.peak_rss / 2**20:,.0f} | {s.peak_rss / c.cells:.0f} | "
               f"{c.bandwidth / 1e9:.1f} | {c.copy_bandwidth / 1e9:.1f} | {c.bandwidth / c.copy_bandwidth:.0%} | "
@@ -324,7 +338,7 @@ def report(command: str, info: dict[str, str], cases: list[Case], fft_rows: list
         w("")
         notes = [c for c in rows if c.notes]
         for c in notes:
-            w(f"- {c.n}^3: {c.notes}")
+            w(f"- {c.n}^3{' lean' if c.lean else ''}: {c.notes}")
         for c in rows:
             if c.baseline:
                 w(f"- {c.n}^3: relative residual in the baseline's own matrix and right-hand side: "
@@ -437,8 +451,8 @@ def main(args, command: str) -> int:
                 print(f"{n}^3 {p}: sevenfold {c.method} {c.sevenfold.wall:.2f} s whole, {c.job_seconds:.2f} s own, "
                       f"{c.iterations} it, {c.work_units:.1f} WU; baseline {c.baseline.wall:.2f} s whole, "
                       f"{c.base_own:.2f} s own; difference {c.difference:.1e}", flush=True)
-        for n in big:
-            c = run_case(folder, "layered", n, False, max(3, args.repeats // 2))
+        for n, lean in [(n, False) for n in big] + [(n, True) for n in getattr(args, "lean", [])]:
+            c = run_case(folder, "layered", n, False, max(3, args.repeats // 2), lean)
             cases.append(c)
             print(f"{n}^3 layered: sevenfold {c.method} {c.sevenfold.wall:.2f} s whole, peak "
                   f"{_gb(c.sevenfold.peak_rss)} GB, {c.iterations} it", flush=True)
