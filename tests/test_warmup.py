@@ -80,7 +80,8 @@ def probe(folder: Path, cells: list[int], mode: str, cache: Path | None) -> dict
     path.write_text(JOB.format(cells=json.dumps(cells)))
     env = {**os.environ, **({"NUMBA_CACHE_DIR": str(cache)} if cache else {})}
     proc = subprocess.run([sys.executable, "-c", PROBE, str(path), str(folder / "out.zarr"), mode,
-                           json.dumps(cells)], capture_output=True, text=True, env=env, timeout=900)
+                           json.dumps(cells)], capture_output=True, text=True, env=env, timeout=900,
+                          check=False)
     assert proc.returncode == 0, proc.stderr
     return json.loads(proc.stdout.strip().splitlines()[-1])
 
