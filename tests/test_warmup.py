@@ -139,6 +139,9 @@ def test_serial_builds_give_identical_results() -> None:
         for x, y in zip(a, b):
             assert np.array_equal(x, y), name
     assert serial("line_factor") is serial("line_factor")  # built once
+    from sevenfold.kernels import builds, vector
+
+    assert builds.PARALLEL_FROM == vector.PARALLEL_FROM
 
 
 def test_a_child_that_cannot_start_leaves_a_working_run(tmp_path: Path, monkeypatch) -> None:

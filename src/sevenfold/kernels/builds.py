@@ -17,8 +17,9 @@ from importlib import import_module
 
 from numba import njit
 
-from .vector import PARALLEL_FROM
-
+# The same size as vector.PARALLEL_FROM (tests/test_warmup.py checks it), not imported from
+# there so that a run without CG (fft) does not load the vector kernels
+PARALLEL_FROM = 100_000
 # kernel name -> the module that defines its threaded build
 SETUP_KERNELS = {"transmissibility": "stencil", "fine_stencil": "stencil",
                  "galerkin_scaled": "multigrid", "line_factor": "multigrid"}
