@@ -4,6 +4,7 @@ same run, and optionally against an older revision of the code in the same run.
     python benchmarks/start_bench.py                    # warm run and check of a 32^3 job
     python benchmarks/start_bench.py --base 6d2df71     # the same commands from that revision
     python benchmarks/start_bench.py --cold             # first runs from an empty numba cache
+    python benchmarks/start_bench.py --cold --base def0f19 --cold-methods gmg --cold-repeats 2
 
 Each command runs ``--repeats`` times as its own process; the table shows the minimum and the
 median wall time and the median CPU time (user + system, from wait4), which a busy machine
@@ -11,7 +12,8 @@ inflates less than wall time. Baselines: ``python -c pass`` and ``python -c "imp
 scipy"``. The job is the speed suite's 1000:1 column at 32^3 (gmg, rtol 1e-8, Dirichlet 0
 on all faces, a sine source). ``--cold`` runs each method's first job with a fresh
 ``NUMBA_CACHE_DIR`` and reports compile seconds as the cold run minus a warm run of the same
-job. Writes benchmarks/RESULTS_START.md (replacing it) and prints the same text.
+job (CPU includes the child processes a run waits for, such as the warm-up's compiler; with
+``--base`` the old code's first runs alternate with this code's). Writes benchmarks/RESULTS_START.md (replacing it) and prints the same text.
 """
 
 from __future__ import annotations
@@ -139,6 +141,10 @@ def main() -> None:
     p.add_argument("--repeats", type=int, default=7)
     p.add_argument("--base", help="also measure this git revision's code (e.g. 6d2df71)")
     p.add_argument("--cold", action="store_true", help="first runs per method from an empty numba cache")
+    p.add_argument("--cold-methods", default="gmg,amg,direct,fft",
+                   help="methods whose first run --cold measures (comma-separated)")
+    p.add_argument("--cold-repeats", type=int, default=1,
+                   help="cold runs per method and code (each from its own empty cache)")
     p.add_argument("--tree", action="append", default=[], metavar="LABEL=SRC",
                    help="also measure an experimental copy of the package source (a src folder)")
     p.add_argument("--output", default=str(HERE / "RESULTS_START.md"))
@@ -169,16 +175,18 @@ def main() -> None:
         rows.append((label, "sevenfold run -q constant32, fft (warm)", measure(sevenfold + ["run", "-q", str(jobs["fft"])], tree_env, args.repeats)))
     profile = import_profile(env, jobs["gmg"])
     cold_rows = []
-    if args.cold:
-        for method in ("gmg", "amg", "direct", "fft"):
-            cache = work / f"cache-{method}"
-            shutil.rmtree(cache, ignore_errors=True)
-            cold_env = {**env, "NUMBA_CACHE_DIR": str(cache)}
+    if args.cold:  # every code's cold runs alternate, so a load change hits them alike
+        for method in args.cold_methods.split(","):
             argv = sevenfold + ["run", "-q", str(jobs[method])]
-            wall, cpu, out = timed(argv, cold_env)
-            warm = measure(argv, cold_env, 3)
-            said = "compiling the numerical kernels once" in out
-            cold_rows.append((method, wall, cpu, warm["median"], warm["cpu"], said))
+            for i in range(args.cold_repeats):
+                for label, tree_env in trees:
+                    cache = work / f"cache-{method}-{label}-{i}"
+                    shutil.rmtree(cache, ignore_errors=True)
+                    cold_env = {**tree_env, "NUMBA_CACHE_DIR": str(cache)}
+                    wall, cpu, out = timed(argv, cold_env)
+                    warm = measure(argv, cold_env, 3)
+                    said = "compiling the numerical kernels once" in out
+                    cold_rows.append((label, method, wall, cpu, warm["median"], warm["cpu"], said))
     load_end = load_average()
     text = report(rows, cold_rows, profile, args, load_start, load_end)
     out = Path(args.output)
@@ -219,10 +227,10 @@ def report(rows, cold_rows, profile, args, load_start, load_end) -> str:
     if cold_rows:
         lines += ["", "First run after a fresh install (empty `NUMBA_CACHE_DIR`), then the same job warm "
                   "(median of 3); compile = cold minus warm:", "",
-                  "| method | cold wall (s) | cold CPU (s) | warm wall (s) | warm CPU (s) | compile wall (s) | compile CPU (s) | notice said |",
-                  "|---|---:|---:|---:|---:|---:|---:|---|"]
-        for method, wall, cpu, wwall, wcpu, said in cold_rows:
-            lines.append(f"| {method} | {wall:.1f} | {cpu:.1f} | {wwall:.2f} | {wcpu:.2f} | {wall - wwall:.1f} | "
+                  "| code | method | cold wall (s) | cold CPU (s) | warm wall (s) | warm CPU (s) | compile wall (s) | compile CPU (s) | notice said |",
+                  "|---|---|---:|---:|---:|---:|---:|---:|---|"]
+        for label, method, wall, cpu, wwall, wcpu, said in cold_rows:
+            lines.append(f"| {label} | {method} | {wall:.1f} | {cpu:.1f} | {wwall:.2f} | {wcpu:.2f} | {wall - wwall:.1f} | "
                          f"{cpu - wcpu:.1f} | {'yes' if said else 'NO'} |")
     return "\n".join(lines) + "\n"
 

@@ -261,6 +261,10 @@ def run_job(
     compiling = cold_notice(plan.method)  # said before the kernels compile, on a first run
     if compiling and hasattr(monitor, "note"):
         monitor.note(compiling)
+    if compiling:  # compiled on both cores before the solve (kernels/warmup.py)
+        from .kernels.warmup import warm_up
+
+        warm_up(plan.method, problem.grid.cells)
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
     stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written

@@ -19,11 +19,13 @@ import sys
 from pathlib import Path
 
 # Seconds of compiling on a first run, measured from an empty cache on the reference machine
-# (2 cores; CPU seconds of cold minus warm runs, benchmarks/start_bench.py --cold, in
-# benchmarks/RESULTS_START.md, 2026-12-02 12:30: gmg 31.2, amg 16.9, direct 13.4, fft 1.3).
-# Compiling is single-threaded, so an idle machine takes about that long; a busy one longer,
-# hence "about".
-COMPILE_SECONDS = {"gmg": 30, "amg": 17, "direct": 13, "fft": 1}
+# (2 cores; cold minus warm runs, benchmarks/start_bench.py --cold, benchmarks/RESULTS_START.md).
+# gmg (2026-12-02 13:47): 23 s of CPU compiled in two processes at once (kernels/warmup.py),
+# about 13 s of wall time on two free cores, 24-27 s measured with the machine saturated. The
+# others (12:30, before the serial setup builds, which make small jobs' compiles cheaper):
+# amg 16.9, direct 13.4, fft 1.3 s of CPU, compiled single-threaded. A busy machine takes
+# longer, hence "about".
+COMPILE_SECONDS = {"gmg": 15, "amg": 17, "direct": 13, "fft": 1}
 
 
 def _kernel_files() -> list[Path]:
