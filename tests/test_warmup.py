@@ -92,7 +92,7 @@ def test_after_a_two_process_warm_up_the_run_compiles_nothing(tmp_path: Path) ->
     two = probe(tmp_path, [30, 30, 30], "two", tmp_path / "cache")
     assert two["mine"], "this process compiled no half"
     assert two["compiled"] == [], f"the run compiled {two['compiled']} after the warm-up"
-    assert "line_gauss_seidel_colour" in two["run"] and "fine_stencil_serial" in two["run"]
+    assert "line_gauss_seidel" in two["run"] and "fine_stencil_serial" in two["run"]
 
 
 def test_the_warm_up_compiles_exactly_what_the_run_uses(tmp_path: Path) -> None:
@@ -112,7 +112,7 @@ def test_the_warm_up_compiles_exactly_what_the_run_uses(tmp_path: Path) -> None:
     assert "fine_stencil" in runs[48] and "fine_stencil_serial" not in runs[48]
     assert "fine_stencil_serial" in runs[30] and "fine_stencil" not in runs[30]
     assert "galerkin_scaled_serial" in runs[48]  # the second level (24^3) builds serially
-    assert "line_gauss_seidel_colour" not in runs[8]  # 960 cells: the coarsest level alone
+    assert "line_gauss_seidel" not in runs[8]  # 960 cells: the coarsest level alone
 
 
 def test_serial_builds_give_identical_results() -> None:

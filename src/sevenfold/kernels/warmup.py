@@ -35,7 +35,7 @@ COST = {
     "transmissibility": 2.0, "transmissibility_serial": 0.6, "fine_stencil": 5.0,
     "fine_stencil_serial": 1.7, "axis_weakness": 1.5, "galerkin_scaled": 4.3,
     "galerkin_scaled_serial": 1.3, "line_factor": 1.2, "line_factor_serial": 0.3,
-    "line_gauss_seidel_colour": 4.2, "line_gauss_seidel_colour_coarse": 3.4,
+    "line_gauss_seidel": 4.2, "line_gauss_seidel_coarse": 3.4,
     "residual_restrict": 3.4, "residual_restrict_coarse": 3.5, "prolong_add": 1.6,
     "apply_dot": 3.3, "widen_dot": 0.9, "vectors_threaded": 1.3, "vectors_serial": 0.4,
 }
@@ -144,15 +144,15 @@ def _items(plan: GmgPlan) -> tuple[dict[str, Callable[[], None]], dict[str, int]
             setup("line_factor", cells,
                   lambda k, t=level: _build(k, *_arrays(t, count=2), _arrays(f32)), (level,))
         # the finest level's right-hand side is CG's float64 residual
-        items["line_gauss_seidel_colour"] = lambda: _build(
-            multigrid.line_gauss_seidel_colour, *_arrays(top, count=3), _arrays(f32), _arrays(f64),
-            _arrays(f32), 0)
+        items["line_gauss_seidel"] = lambda: _build(
+            multigrid.line_gauss_seidel, *_arrays(top, count=3), _arrays(f32), _arrays(f64),
+            _arrays(f32), 0, 1)
         items["residual_restrict"] = lambda: _build(
             stencil.residual_restrict, *_arrays(top, count=4), _arrays(f64), _arrays(f32),
             _steps(), _arrays(f32, small))
         if coarse:
-            items["line_gauss_seidel_colour_coarse"] = lambda: _build(
-                multigrid.line_gauss_seidel_colour, *_arrays(f32, count=6), 0)
+            items["line_gauss_seidel_coarse"] = lambda: _build(
+                multigrid.line_gauss_seidel, *_arrays(f32, count=6), 0, 1)
             items["residual_restrict_coarse"] = lambda: _build(
                 stencil.residual_restrict, *_arrays(f32, count=6), _steps(), _arrays(f32, small))
         items["prolong_add"] = lambda: _build(stencil.prolong_add, _arrays(f32, small), free,
