@@ -55,9 +55,8 @@ def conductances(problem: Problem, start: int = 0, stop: int | None = None,
     ``tx[i]`` couples cell ``start + i`` with the next one; the slab's last x plane couples to
     the cell after ``stop`` when there is one (so slabs tile the whole grid).
     """
-    from .kernels.builds import setup_kernel
+    from .kernels.stencil import transmissibility
 
-    transmissibility = setup_kernel("transmissibility", problem.grid.size)  # by the whole grid
     nx = problem.grid.cells[0]
     stop = nx if stop is None else stop
     hi = min(stop + 1, nx)
@@ -73,10 +72,9 @@ def conductances(problem: Problem, start: int = 0, stop: int | None = None,
 
 def face_arrays(problem: Problem) -> FaceArrays:
     """The finest level's face arrays, diagonal and right-hand side."""
-    from .kernels.builds import setup_kernel
+    from .kernels.stencil import fine_stencil
 
     grid = problem.grid
-    fine_stencil = setup_kernel("fine_stencil", grid.size)
     dx, dy, dz = widths(problem)
     shape = grid.shape
     tx, ty, tz = conductances(problem)

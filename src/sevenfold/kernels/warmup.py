@@ -28,14 +28,11 @@ from pathlib import Path
 import numpy as np
 
 # Compile seconds of each item on the reference machine (numba's compile events, 2 cores,
-# benchmarks/RESULTS_START.md): only for balancing the two halves. "_serial" items are the
-# serial builds of the setup kernels (kernels/builds.py); a kernel's items compile each of its
-# signatures the run needs (galerkin_scaled: one per source type).
+# benchmarks/RESULTS_START.md): only for balancing the two halves. A kernel's item compiles
+# each of its signatures the run needs (galerkin_scaled: one per source type).
 COST = {
-    "transmissibility": 2.0, "transmissibility_serial": 0.6, "fine_stencil": 5.0,
-    "fine_stencil_serial": 1.7, "axis_weakness": 1.5, "galerkin_scaled": 4.3,
-    "galerkin_scaled_serial": 1.3, "line_factor": 1.2, "line_factor_serial": 0.3,
-    "line_gauss_seidel": 4.2, "line_gauss_seidel_coarse": 3.4,
+    "transmissibility": 2.0, "fine_stencil": 5.0, "axis_weakness": 1.5, "galerkin_scaled": 4.3,
+    "line_factor": 1.2, "line_gauss_seidel": 7.3, "line_gauss_seidel_coarse": 4.0,
     "residual_restrict": 3.4, "residual_restrict_coarse": 3.5, "prolong_add": 1.6,
     "apply_dot": 3.3, "widen_dot": 0.9, "vectors_threaded": 1.3, "vectors_serial": 0.4,
 }
@@ -47,7 +44,7 @@ CHILD_GRACE = 60.0
 
 @dataclass(frozen=True)
 class GmgPlan:
-    """What decides which kernels, builds and argument types a gmg run compiles."""
+    """What decides which kernels and argument types a gmg run compiles."""
 
     levels: tuple[int, ...]  # cells of each smoothed level, finest first (the coarsest is LU)
     cells: int  # the finest grid's cells
@@ -96,11 +93,10 @@ def _steps() -> np.ndarray:
 
 
 def _items(plan: GmgPlan) -> tuple[dict[str, Callable[[], None]], dict[str, int]]:
-    """Each item compiles kernels for tiny arrays of the argument types and builds of the real
+    """Each item compiles kernels for tiny arrays of the argument types of the real
     run (solvers/gmg.py, solvers/levels.py, solvers/cg.py, operator.py); and how many
     signatures each item compiles."""
     from . import multigrid, stencil, vector
-    from .builds import is_threaded, serial, threaded
 
     f64, f32 = np.float64, np.float32
     top = f32 if plan.finest == "copy" else f64  # the finest level's smoothing arrays
@@ -111,21 +107,19 @@ def _items(plan: GmgPlan) -> tuple[dict[str, Callable[[], None]], dict[str, int]
     items: dict[str, Callable[[], None]] = {}
     signatures: dict[str, set] = {}
 
-    def setup(name: str, cells: int, call: Callable[[object], None], types: tuple = ()) -> None:
-        """Add ``call(build)`` to the item of the build that a grid of ``cells`` takes, unless
-        that build already gets the argument ``types``."""
-        key = name if is_threaded(cells) else f"{name}_serial"
+    def setup(kernel, call: Callable[[object], None], types: tuple = ()) -> None:
+        """Add ``call(kernel)`` to ``kernel``'s item, unless it already gets the argument ``types``."""
+        key = kernel.py_func.__name__
         if types in signatures.setdefault(key, set()):
             return
         signatures[key].add(types)
-        build = threaded(name) if is_threaded(cells) else serial(name)
         before = items.get(key)
-        items[key] = (lambda: (before(), call(build))) if before else (lambda: call(build))
+        items[key] = (lambda: (before(), call(kernel))) if before else (lambda: call(kernel))
 
-    setup("transmissibility", plan.cells,
+    setup(stencil.transmissibility,
           lambda k: _build(k, *_arrays(f64, count=3), *widths, *_arrays(f64, count=3)))
     faces = tuple(np.ones((4, 4)) for _ in range(6))
-    setup("fine_stencil", plan.cells,
+    setup(stencil.fine_stencil,
           lambda k: _build(k, *_arrays(f64, count=3), ~free, _arrays(f64), _arrays(f64), *widths,
                            faces, faces, *_arrays(f64, count=2)))
     small = (2, 2, 2)
@@ -136,12 +130,12 @@ def _items(plan: GmgPlan) -> tuple[dict[str, Callable[[], None]], dict[str, int]
                        True)
 
         items["axis_weakness"] = axis_weakness
-        for i, cells in enumerate(plan.levels):
+        for i in range(len(plan.levels)):
             source, level = (f64, top) if i == 0 else (f32, f32)  # the finest builds from float64
-            setup("galerkin_scaled", cells,
+            setup(multigrid.galerkin_scaled,
                   lambda k, s=source: _build(k, *_arrays(s, count=4), free, _steps(),
                                              *_arrays(f32, small, 4), freec.copy()), (source,))
-            setup("line_factor", cells,
+            setup(multigrid.line_factor,
                   lambda k, t=level: _build(k, *_arrays(t, count=2), _arrays(f32)), (level,))
         # the finest level's right-hand side is CG's float64 residual
         items["line_gauss_seidel"] = lambda: _build(

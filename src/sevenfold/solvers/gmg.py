@@ -48,7 +48,6 @@ import numpy as np
 import scipy.sparse.linalg as sla
 
 from ..kernels import multigrid, stencil
-from ..kernels.builds import setup_kernel
 from .cg import Monitor, SolveResult, pcg
 from .levels import Level, coarsening_step, strong_z
 
@@ -115,8 +114,8 @@ class Hierarchy:
             freec = np.empty(cshape, dtype=np.bool_)
             source = fine if len(self.levels) == 1 else lv  # build from float64 when we can
             if transfer in ("linear", "scaled"):
-                setup_kernel("galerkin_scaled", source.diag.size)(
-                    source.tx, source.ty, source.tz, source.diag, lv.free, step, *arrays, freec)
+                multigrid.galerkin_scaled(source.tx, source.ty, source.tz, source.diag, lv.free,
+                                          step, *arrays, freec)
                 boost = lv.boost
             else:
                 stencil.galerkin(source.tx, source.ty, source.tz, source.diag, lv.free, step,
@@ -134,7 +133,7 @@ class Hierarchy:
         for lv in self.levels[:-1]:
             if lv.lines:
                 lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
-                setup_kernel("line_factor", lv.diag.size)(lv.tz, lv.diag, lv.inv_w)
+                multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
         # minimum degree on A^T + A with symmetric pivoting suits an SPD 7-point matrix: at
         # 16^3 it halved the factor's fill, factor time (110 to 53 ms) and solve time (2.8 to
         # 1.3 ms) against the default column ordering
