@@ -47,9 +47,8 @@ def partial_path(final: Path) -> Path:
 
 
 def _compressors():
-    """Blosc's LZ4 after a byte shuffle: 4 times faster than zarr's default zstd on a 256^3
-    float64 solution (0.26 s against 1.02 s) for the same size (a third of raw there);
-    benchmarks/RESULTS.md's 512^3 row writes 1 GB."""
+    """Blosc's LZ4 after a byte shuffle: several times faster than zarr's default zstd on a
+    smooth float64 field for about the same stored size (benchmarks/RESULTS_WRITE.md)."""
     from zarr.codecs import BloscCodec
 
     return [BloscCodec(cname="lz4", clevel=5, shuffle="shuffle")]

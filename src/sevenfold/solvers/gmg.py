@@ -229,7 +229,7 @@ class Hierarchy:
         of type ``cycle`` ("V", the usual choice in full multigrid, or "W") with ``sweeps``
         smoothing sweeps before and after each coarse correction. V(2,1) is the cheapest
         measured whose algebraic error stays below the discretisation error
-        (benchmarks/RESULTS_CYCLE.md; at 128^3 V(1,1) leaves 3.3 times it, and V(1,2) reaches it
+        (benchmarks/RESULTS_CYCLE_SWEEP.md; at 128^3 V(1,1) leaves 3.3 times it, and V(1,2) reaches it
         only through cancellation with the discretisation error); full multigrid is not a
         preconditioner, so it need not be symmetric.
 
