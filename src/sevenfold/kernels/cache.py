@@ -19,13 +19,11 @@ import sys
 from pathlib import Path
 
 # Seconds of compiling on a first run, measured from an empty cache on the reference machine
-# (2 cores; cold minus warm runs, benchmarks/start_bench.py --cold, benchmarks/RESULTS_START.md).
-# gmg (2026-12-02 13:47): 23 s of CPU compiled in two processes at once (kernels/warmup.py),
-# about 13 s of wall time on two free cores, 24-27 s measured with the machine saturated. The
-# others (12:30, before the serial setup builds, which make small jobs' compiles cheaper):
-# amg 16.9, direct 13.4, fft 1.3 s of CPU, compiled single-threaded. A busy machine takes
-# longer, hence "about".
-COMPILE_SECONDS = {"gmg": 15, "amg": 17, "direct": 13, "fft": 1}
+# (2 cores; cold minus warm wall time, benchmarks/start_bench.py --cold, RESULTS_START.md,
+# 2026-12-02 14:48, load average about 1): gmg 19.2 (compiled in two processes at once,
+# kernels/warmup.py; 37.6 s of CPU), amg 18.6; direct 13.4 and fft 1.3 (12:30), compiled
+# single-threaded. A busy machine takes longer, hence "about".
+COMPILE_SECONDS = {"gmg": 20, "amg": 19, "direct": 13, "fft": 1}
 
 
 def _kernel_files() -> list[Path]:
