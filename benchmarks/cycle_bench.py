@@ -293,7 +293,8 @@ def report(rows: list[dict], fmg_rows: list[dict], info: dict, command: str) -> 
         for r in sub:
             out.append(f"| {r['n']}^3 | {r['name']} | {r['iterations']} | "
                        f"{'yes' if r['converged'] else 'no'} | {r['seconds'] / r['unit']:.1f} | "
-                       f"{r['setup'] / r['unit']:.1f} | {r['seconds']:.2f} | {r['ratio']:.2f} |")
+                       f"{r['setup'] / r['unit']:.1f} | {r['seconds']:.2f} | "
+                       + (f"{r['ratio']:.2f} |" if np.isfinite(r["ratio"]) else "n/a (no `before` run) |"))
         levels = sorted({(r["n"], r["levels"]) for r in sub if r["name"] == KEPT})
         out += [""] + [f"- {n}^3 levels (kept design): {lv}" for n, lv in levels] + [""]
     if fmg_rows:
