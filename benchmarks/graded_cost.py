@@ -98,7 +98,7 @@ def operator_seconds(jobs: dict[str, Path], rounds: int = 6) -> dict[str, tuple[
             u = np.random.default_rng(1).standard_normal(problem.grid.shape)
             out = np.empty_like(u)
             for _ in range(3):
-                best[k][1] = min(best[k][1], _timed(lambda: stencil.apply(fa.tx, fa.ty, fa.tz, fa.diag, u, out)))
+                best[k][1] = min(best[k][1], _timed(lambda fa=fa, u=u, out=out: stencil.apply(fa.tx, fa.ty, fa.tz, fa.diag, u, out)))
             del fa
     return {k: (v[0], v[1]) for k, v in best.items()}
 

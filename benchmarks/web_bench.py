@@ -25,10 +25,8 @@ The machine is shared: compare numbers within one run.
 from __future__ import annotations
 
 import argparse
-import datetime
 import json
 import os
-import platform
 import sqlite3
 import statistics
 import subprocess
@@ -260,7 +258,7 @@ def write(results: Path, m: dict, pages: dict, ld: dict) -> None:
               "", f"Queue JSON with every row: {pages['queue_json_bytes'] / 1024:.0f} KiB before compression "
               f"(sent gzipped). Entering the {pages['jobs']:,} jobs took {pages['fill_seconds']:.1f} s.", "",
               "## Load", "", "| measurement | value |", "|---|---|",
-              f"| clients, polling | 20, queue + one job each every 1 s, as the pages do |",
+              "| clients, polling | 20, queue + one job each every 1 s, as the pages do |",
               f"| duration | {ld['seconds']:.1f} s (the worker drained the 30 jobs after {ld['drained_after']:.1f} s) |",
               f"| requests | {ld['requests']} ({ld['requests'] / ld['seconds']:.0f} per s), failures {ld['failures']}, codes {ld['codes']} |",
               f"| response time | median {ms(ld['median'])}, p95 {ms(ld['p95'])}, max {ms(ld['max'])} |",

@@ -39,8 +39,8 @@ def started_order(home) -> list[int]:
 
 
 # ---------------------------------------------------------------- throughput and exclusivity
-def test_three_workers_run_thirty_jobs_once_each_by_priority(tmp_path: Path) -> None:
-    home = make_home(tmp_path / "home")  # empty numba cache: three first compiles at once
+def test_three_workers_run_thirty_jobs_once_each_by_priority(tmp_path: Path, warm_cache: Path) -> None:
+    home = make_home(tmp_path / "home", warm_cache)  # (first starts at once: the warm_cache fixture)
     jobs = tmp_path / "jobs"
     jobs.mkdir()
     priority = {}

@@ -116,6 +116,46 @@ def test_the_marker_follows_the_kernels(tmp_path: Path, monkeypatch) -> None:
     assert cache.is_cold("gmg")
 
 
+def test_a_first_run_at_another_size_is_cold_for_the_signatures_it_adds(tmp_path: Path,
+                                                                           monkeypatch) -> None:
+    """gmg compiles different signatures for a grid without smoothed levels (at most 4096
+    cells), with them, and with threaded vector updates (100,000 cells and more): a run of a
+    tiny job does not make a large one warm, and the large one's notice estimates only what
+    it adds (the reference 128^3 run is the measured COMPILE_SECONDS)."""
+    from sevenfold.kernels import cache, warmup
+    from sevenfold.runner import kernel_signatures
+
+    monkeypatch.setattr(cache, "cache_dir", lambda: tmp_path)
+    tiny, large = kernel_signatures("gmg", (12, 12, 12)), kernel_signatures("gmg", (48, 48, 48))
+    assert "line_gauss_seidel[coarse]" in large - tiny and tiny - large == {"vectors_serial[f64]"}
+    assert kernel_signatures("amg", (48, 48, 48)) == frozenset()
+    # 48^3 needs the signatures of the measured 128^3 run; 12^3 fewer
+    assert f"about {cache.COMPILE_SECONDS['gmg']} s" in cache.cold_notice("gmg", large)
+    assert warmup.estimate(tiny) < cache.COMPILE_SECONDS["gmg"] / 2
+    cache.mark_warm("gmg", tiny)
+    assert not cache.is_cold("gmg", tiny) and cache.is_cold("gmg", large)
+    assert cache.missing("gmg", large) == large - tiny
+    seconds = warmup.estimate(large - tiny)
+    assert 0 < seconds < warmup.estimate(large) <= cache.COMPILE_SECONDS["gmg"]
+    assert f"about {round(seconds)} s" in cache.cold_notice("gmg", large)
+    cache.mark_warm("gmg", large)
+    assert cache.cold_notice("gmg", large) is None
+
+
+def test_a_workers_warm_up_compiles_what_the_shipped_examples_need() -> None:
+    """A new queue home's warm-up (queue/child.py) covers the gmg signatures of every shipped
+    example, so a worker that said it compiled the kernels does not compile again mid-job."""
+    from sevenfold.demo import examples_dir
+    from sevenfold.queue.child import _needs, warm_tables
+    from sevenfold.runner import job_grid, kernel_signatures
+    from sevenfold.spec import load_job
+
+    covered = _needs(warm_tables())["gmg"]
+    for path in sorted(examples_dir().glob("*.toml")):
+        cells = job_grid(load_job(path), path).cells
+        assert kernel_signatures("gmg", cells) <= covered, path.name
+
+
 def _normalised(sig) -> tuple:
     """A signature with the accidents removed: array layout, integer width, int vs float scalars."""
     from numba.core import types

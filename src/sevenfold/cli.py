@@ -10,6 +10,7 @@ import math
 import os
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from rich.console import Console
 from rich.markup import escape
@@ -17,6 +18,9 @@ from rich.table import Table
 
 from . import __version__
 from .errors import Cancelled, JobError, SevenfoldError, SolverError
+
+if TYPE_CHECKING:  # rich.progress loads only when a run shows progress
+    from rich.progress import Progress
 
 EXIT_OK, EXIT_SOLVER, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
 

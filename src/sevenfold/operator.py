@@ -11,6 +11,7 @@ solvers use the face arrays, the others the CSR matrix built from them here.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -20,6 +21,9 @@ from .conditions import add_exchanges, apply_contacts
 from .problem import Problem, complete_field
 from .spec import FACES
 from .wells import add_wells
+
+if TYPE_CHECKING:
+    import scipy.sparse as sp
 
 INT32_MAX = np.iinfo(np.int32).max
 

@@ -169,6 +169,16 @@ def prepare_problem(plan: Plan) -> tuple[Plan, Problem]:
     return replace(plan, method=method, memory_bytes=memory), problem
 
 
+def kernel_signatures(method: str, cells: tuple[int, int, int]) -> frozenset[str]:
+    """The compiled kernel signatures a run of ``method`` on ``cells`` needs, where they depend
+    on the grid (gmg: its levels, the finest level's precision, serial or threaded vectors)."""
+    if method != "gmg":
+        return frozenset()
+    from .kernels.warmup import signatures
+
+    return signatures(cells)
+
+
 def derived_arrays(spec: JobSpec) -> int:
     """How many (x, y, z) arrays the requested derived fields add to the result."""
     catalogue = DERIVED[spec.physics]
@@ -256,15 +266,16 @@ def run_job(
 
     with writing(plan.output, "the result"):  # an unusable folder fails before the solve
         plan.output.parent.mkdir(parents=True, exist_ok=True)
-    from .kernels.cache import cold_notice, mark_warm
+    from .kernels.cache import cold_notice, mark_warm, missing
 
-    compiling = cold_notice(plan.method)  # said before the kernels compile, on a first run
+    needs = kernel_signatures(plan.method, problem.grid.cells)
+    compiling = cold_notice(plan.method, needs)  # said before the kernels compile, on a first run
     if compiling and hasattr(monitor, "note"):
         monitor.note(compiling)
     if compiling:  # compiled on both cores before the solve (kernels/warmup.py)
         from .kernels.warmup import warm_up
 
-        warm_up(plan.method, problem.grid.cells)
+        warm_up(plan.method, problem.grid.cells, compiled=needs - missing(plan.method, needs))
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
     stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written
@@ -349,7 +360,9 @@ def run_job(
     seconds["write"] = time.perf_counter() - t_write
     seconds["job"] = time.perf_counter() - t0
     if compiling:
-        mark_warm(plan.method, *(["amg"] if result.method.startswith("amg") else []))
+        mark_warm(plan.method, needs)
+    if compiling and result.method.startswith("amg"):  # auto switched: amg compiled as it ran
+        mark_warm("amg")
     if stopped is not None:
         stopped.output = plan.output
         raise stopped

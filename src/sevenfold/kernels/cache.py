@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import hashlib
 import sys
+from collections.abc import Iterable
 from pathlib import Path
 
 # Seconds of compiling on a first run, measured from an empty cache on the reference machine
@@ -54,42 +55,65 @@ def cache_dir() -> Path:
     return Path(FunctionCache(_probe)._cache_path)
 
 
-def marker(method: str) -> Path:
-    return cache_dir() / f"sevenfold-{method}-{key()}.warm"
+def marker(method: str, signature: str | None = None) -> Path:
+    """The marker of ``method``, or of one of its kernel signatures (``item[tag]``, from
+    :func:`.warmup.signatures`)."""
+    what = method if signature is None else f"{method}-{signature.replace('[', '.').rstrip(']')}"
+    return cache_dir() / f"sevenfold-{what}-{key()}.warm"
 
 
-def is_cold(method: str) -> bool:
-    """True when ``method`` has not run with the kernels as they are now. Never raises:
-    when the cache cannot be located the answer is False (no notice)."""
+def missing(method: str, needs: Iterable[str] = ()) -> frozenset[str]:
+    """Those of ``needs`` (kernel signatures of ``method``) not compiled yet. Never raises:
+    when the cache cannot be located the answer is none (no notice)."""
+    try:
+        return frozenset(s for s in needs if not marker(method, s).exists())
+    except Exception:  # a numba without the attribute, an unreadable folder: say nothing
+        return frozenset()
+
+
+def is_cold(method: str, needs: Iterable[str] = ()) -> bool:
+    """True when ``method`` has not run with the kernels as they are now, or has not yet
+    compiled every signature in ``needs`` (gmg: which ones depend on the grid's size). Never
+    raises: when the cache cannot be located the answer is False (no notice)."""
     if method not in COMPILE_SECONDS:
         return False
     try:
-        return not marker(method).exists()
+        return not marker(method).exists() or bool(missing(method, needs))
     except Exception:  # a numba without the attribute, an unreadable folder: say nothing
         return False
 
 
-def mark_warm(*methods: str) -> None:
-    """Record that these methods' kernels are compiled (after a solve that used them)."""
-    for method in methods:
-        if method not in COMPILE_SECONDS:
-            continue
-        try:
-            path = marker(method)
+def mark_warm(method: str, needs: Iterable[str] = ()) -> None:
+    """Record that ``method``'s kernels, with the signatures ``needs``, are compiled (after a
+    solve that used them)."""
+    if method not in COMPILE_SECONDS:
+        return
+    try:
+        for path in [marker(method), *(marker(method, s) for s in needs)]:
             path.parent.mkdir(parents=True, exist_ok=True)
             path.touch()
-        except Exception:  # a read-only cache: the notice just shows again next time
-            pass
+    except Exception:  # a read-only cache: the notice just shows again next time
+        pass
 
 
-def notice(methods: list[str] | tuple[str, ...]) -> str:
-    """The sentence said before a first run compiles the kernels of ``methods``."""
-    seconds = sum(COMPILE_SECONDS.get(m, 0) for m in methods)
+def notice(methods: list[str] | tuple[str, ...], seconds: float | None = None) -> str:
+    """The sentence said before a first run compiles the kernels of ``methods`` (``seconds``:
+    the estimate, when known better than the methods' whole compile)."""
+    if seconds is None:
+        seconds = sum(COMPILE_SECONDS.get(m, 0) for m in methods)
     which = ", ".join(methods)
-    return (f"first run of {which} here: compiling the numerical kernels once, about {seconds} s "
-            "on a 2-core machine (later runs load them from the cache)")
+    return (f"first run of {which} here: compiling the numerical kernels once, about "
+            f"{max(round(seconds), 1)} s on a 2-core machine (later runs load them from the cache)")
 
 
-def cold_notice(method: str) -> str | None:
-    """The notice for a run with ``method``, or None when its kernels are cached."""
-    return notice([method]) if is_cold(method) else None
+def cold_notice(method: str, needs: frozenset[str] = frozenset()) -> str | None:
+    """The notice for a run with ``method`` that needs the signatures ``needs``, or None when
+    its kernels are cached. With ``needs``, the estimate covers the missing signatures only."""
+    if not is_cold(method, needs):
+        return None
+    lacking = missing(method, needs)
+    if not lacking:
+        return notice([method])
+    from .warmup import estimate
+
+    return notice([method], estimate(lacking))

@@ -27,13 +27,12 @@ from pathlib import Path
 
 import numpy as np
 
-# Compile seconds of each item on the reference machine (numba's compile events, 2 cores,
-# benchmarks/RESULTS_START.md): only for balancing the two halves. A kernel's item compiles
-# each of its signatures the run needs (galerkin_scaled: one per source type).
+# Compile seconds of one signature of each kernel on the reference machine (numba's compile
+# events, 2 cores, benchmarks/RESULTS_START.md): for balancing the two halves and for the
+# notice's estimate (scaled to the measured wall time, kernels/cache.py).
 COST = {
-    "transmissibility": 2.0, "fine_stencil": 5.0, "axis_weakness": 1.5, "galerkin_scaled": 4.3,
-    "line_factor": 1.2, "line_gauss_seidel": 7.3, "line_gauss_seidel_coarse": 4.0,
-    "residual_restrict": 3.4, "residual_restrict_coarse": 3.5, "prolong_add": 1.6,
+    "transmissibility": 2.0, "fine_stencil": 5.0, "axis_weakness": 1.5, "galerkin_scaled": 2.15,
+    "line_factor": 1.2, "line_gauss_seidel": 5.6, "residual_restrict": 3.45, "prolong_add": 1.6,
     "apply_dot": 3.3, "widen_dot": 0.9, "vectors_threaded": 1.3, "vectors_serial": 0.4,
 }
 # What starting the child costs before it compiles (the interpreter, numba, the kernel modules)
@@ -92,10 +91,13 @@ def _steps() -> np.ndarray:
     return np.array([2, 2, 2], dtype=np.int64)
 
 
-def _items(plan: GmgPlan) -> tuple[dict[str, Callable[[], None]], dict[str, int]]:
-    """Each item compiles kernels for tiny arrays of the argument types of the real
-    run (solvers/gmg.py, solvers/levels.py, solvers/cg.py, operator.py); and how many
-    signatures each item compiles."""
+Items = dict[str, Callable[[], None]]
+
+
+def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
+    """Each item compiles one kernel for tiny arrays of the argument types of the real run
+    (solvers/gmg.py, solvers/levels.py, solvers/cg.py, operator.py), one signature per tag; and
+    each item's tags (``item[tag]`` names one compiled signature in the cache's markers)."""
     from . import multigrid, stencil, vector
 
     f64, f32 = np.float64, np.float32
@@ -103,73 +105,93 @@ def _items(plan: GmgPlan) -> tuple[dict[str, Callable[[], None]], dict[str, int]
     free = np.ones((4, 4, 4), dtype=np.bool_)
     freec = np.ones((2, 2, 2), dtype=np.bool_)
     widths = [np.ones(4) for _ in range(3)]
-    coarse = len(plan.levels) > 1
-    items: dict[str, Callable[[], None]] = {}
-    signatures: dict[str, set] = {}
-
-    def setup(kernel, call: Callable[[object], None], types: tuple = ()) -> None:
-        """Add ``call(kernel)`` to ``kernel``'s item, unless it already gets the argument ``types``."""
-        key = kernel.py_func.__name__
-        if types in signatures.setdefault(key, set()):
-            return
-        signatures[key].add(types)
-        before = items.get(key)
-        items[key] = (lambda: (before(), call(kernel))) if before else (lambda: call(kernel))
-
-    setup(stencil.transmissibility,
-          lambda k: _build(k, *_arrays(f64, count=3), *widths, *_arrays(f64, count=3)))
-    faces = tuple(np.ones((4, 4)) for _ in range(6))
-    setup(stencil.fine_stencil,
-          lambda k: _build(k, *_arrays(f64, count=3), ~free, _arrays(f64), _arrays(f64), *widths,
-                           faces, faces, *_arrays(f64, count=2)))
     small = (2, 2, 2)
-    if plan.levels:
-        def axis_weakness():
-            for dt in [top] + ([f32] if coarse and top != f32 else []):
-                _build(multigrid.axis_weakness, *_arrays(dt, count=3), free, np.ones(3), 2.25, 1,
-                       True)
+    items: Items = {}
+    tags: dict[str, set[str]] = {}
 
-        items["axis_weakness"] = axis_weakness
-        for i in range(len(plan.levels)):
-            source, level = (f64, top) if i == 0 else (f32, f32)  # the finest builds from float64
-            setup(multigrid.galerkin_scaled,
-                  lambda k, s=source: _build(k, *_arrays(s, count=4), free, _steps(),
-                                             *_arrays(f32, small, 4), freec.copy()), (source,))
-            setup(multigrid.line_factor,
-                  lambda k, t=level: _build(k, *_arrays(t, count=2), _arrays(f32)), (level,))
-        # the finest level's right-hand side is CG's float64 residual
-        items["line_gauss_seidel"] = lambda: _build(
-            multigrid.line_gauss_seidel, *_arrays(top, count=3), _arrays(f32), _arrays(f64),
-            _arrays(f32), 0, 1)
-        items["residual_restrict"] = lambda: _build(
-            stencil.residual_restrict, *_arrays(top, count=4), _arrays(f64), _arrays(f32),
-            _steps(), _arrays(f32, small))
-        if coarse:
-            items["line_gauss_seidel_coarse"] = lambda: _build(
-                multigrid.line_gauss_seidel, *_arrays(f32, count=6), 0, 1)
-            items["residual_restrict_coarse"] = lambda: _build(
-                stencil.residual_restrict, *_arrays(f32, count=6), _steps(), _arrays(f32, small))
-        items["prolong_add"] = lambda: _build(stencil.prolong_add, _arrays(f32, small), free,
-                                              _steps(), 1.0, _arrays(f32))
-    items["apply_dot"] = lambda: _build(stencil.apply_dot, *_arrays(f64, count=6))
-    items["widen_dot"] = lambda: _build(multigrid.widen_dot, np.ones(8, dtype=f32), np.ones(8),
-                                        np.ones(8))
-    ops, key = ((vector.THREADED, "vectors_threaded") if plan.cells >= vector.PARALLEL_FROM
-                else (vector.SERIAL, "vectors_serial"))
+    def add(name: str, tag: str, call: Callable[[], None]) -> None:
+        """Add ``call`` (one signature, named ``tag``) to item ``name``, unless it has it."""
+        if tag in tags.setdefault(name, set()):
+            return
+        tags[name].add(tag)
+        before = items.get(name)
+        items[name] = (lambda: (before(), call())) if before else call
+
+    add("transmissibility", "f64", lambda: _build(
+        stencil.transmissibility, *_arrays(f64, count=3), *widths, *_arrays(f64, count=3)))
+    faces = tuple(np.ones((4, 4)) for _ in range(6))
+    add("fine_stencil", "f64", lambda: _build(
+        stencil.fine_stencil, *_arrays(f64, count=3), ~free, _arrays(f64), _arrays(f64), *widths,
+        faces, faces, *_arrays(f64, count=2)))
+    for i in range(len(plan.levels)):
+        # the finest level builds from float64 arrays and smooths CG's float64 residual
+        source, level, b = (f64, top, f64) if i == 0 else (f32, f32, f32)
+        where = f"finest-{np.dtype(top).name}" if i == 0 else "coarse"
+        add("axis_weakness", np.dtype(level).name, lambda t=level: _build(
+            multigrid.axis_weakness, *_arrays(t, count=3), free, np.ones(3), 2.25, 1, True))
+        add("galerkin_scaled", np.dtype(source).name, lambda s=source: _build(
+            multigrid.galerkin_scaled, *_arrays(s, count=4), free, _steps(),
+            *_arrays(f32, small, 4), freec.copy()))
+        add("line_factor", np.dtype(level).name, lambda t=level: _build(
+            multigrid.line_factor, *_arrays(t, count=2), _arrays(f32)))
+        add("line_gauss_seidel", where, lambda t=level, b=b: _build(
+            multigrid.line_gauss_seidel, *_arrays(t, count=3), _arrays(f32), _arrays(b),
+            _arrays(f32), 0, 1))
+        add("residual_restrict", where, lambda t=level, b=b: _build(
+            stencil.residual_restrict, *_arrays(t, count=4), _arrays(b), _arrays(f32),
+            _steps(), _arrays(f32, small)))
+        add("prolong_add", "f32", lambda: _build(
+            stencil.prolong_add, _arrays(f32, small), free, _steps(), 1.0, _arrays(f32)))
+    add("apply_dot", "f64", lambda: _build(stencil.apply_dot, *_arrays(f64, count=6)))
+    add("widen_dot", "f32", lambda: _build(
+        multigrid.widen_dot, np.ones(8, dtype=f32), np.ones(8), np.ones(8)))
+    ops, name = ((vector.THREADED, "vectors_threaded") if plan.cells >= vector.PARALLEL_FROM
+                 else (vector.SERIAL, "vectors_serial"))
 
     def vectors():
         _build(ops.update_solution_and_residual, *(np.ones(8) for _ in range(4)), 0.5)
         _build(ops.update_direction, np.ones(8), np.ones(8), 0.5)
 
-    items[key] = vectors
-    return items, {k: len(v) for k, v in signatures.items()}
+    add(name, "f64", vectors)
+    return items, {k: frozenset(v) for k, v in tags.items()}
 
 
-def _cost(name: str, signatures: dict[str, int]) -> float:
-    return COST.get(name, 2.0) * signatures.get(name, 1)
+def signatures(cells: tuple[int, int, int]) -> frozenset[str]:
+    """Every compiled signature a gmg run on ``cells`` needs, as ``item[tag]`` names."""
+    return frozenset(f"{name}[{tag}]" for name, tags in _items(gmg_plan(cells))[1].items()
+                     for tag in tags)
 
 
-def split(names: list[str], signatures: dict[str, int]) -> tuple[list[str], list[str]]:
+# The run whose first-run compile kernels/cache.py states (COMPILE_SECONDS["gmg"], measured)
+REFERENCE_CELLS = (128, 128, 128)
+
+
+def estimate(missing: frozenset[str]) -> float:
+    """Seconds of compiling the gmg signatures ``missing``, scaled to the measured whole."""
+    from .cache import COMPILE_SECONDS
+
+    whole = compile_seconds(signatures(REFERENCE_CELLS))
+    return COMPILE_SECONDS["gmg"] * compile_seconds(missing) / whole
+
+
+def compile_seconds(missing: frozenset[str] | set[str]) -> float:
+    """The longer half of compiling the signatures ``missing`` on two processes (COST units)."""
+    counts: dict[str, int] = {}
+    for sig in missing:
+        name = sig.split("[", 1)[0]
+        counts[name] = counts.get(name, 0) + 1
+    mine, theirs = split(list(counts), counts)
+    return max(sum(_cost(n, counts) for n in mine),
+               sum(_cost(n, counts) for n in theirs) + (CHILD_START if theirs else 0.0))
+
+
+def _cost(name: str, signatures: dict[str, int] | dict[str, frozenset[str]]) -> float:
+    count = signatures.get(name, 1)
+    return COST.get(name, 2.0) * (count if isinstance(count, int) else len(count))
+
+
+def split(names: list[str], signatures: dict[str, int] | dict[str, frozenset[str]]
+          ) -> tuple[list[str], list[str]]:
     """(this process's, the child's) items: the longest first to whichever half ends sooner,
     the child's half starting CHILD_START later. Each half in the order the run uses them."""
     mine, theirs, t_mine, t_theirs = [], [], 0.0, CHILD_START
@@ -200,16 +222,18 @@ def _spawn(names: list[str], plan: GmgPlan) -> subprocess.Popen | None:
                             stderr=subprocess.DEVNULL, env=env, close_fds=True)
 
 
-def warm_up(method: str, cells: tuple[int, int, int], child: bool = True) -> list[str]:
+def warm_up(method: str, cells: tuple[int, int, int], child: bool = True,
+            compiled: frozenset[str] = frozenset()) -> list[str]:
     """Compile ``method``'s kernels for a run on ``cells`` over two processes (only gmg has a
-    plan; other methods compile as they run). With ``child`` False everything is compiled in
-    this process. Returns the items this process compiled; never raises."""
+    plan; other methods compile as they run), leaving out the items whose signatures are all
+    in ``compiled`` (``item[tag]`` names, :func:`signatures`). With ``child`` False everything
+    is compiled in this process. Returns the items this process compiled; never raises."""
     try:
         if method != "gmg":
             return []
         plan = gmg_plan(cells)
         items, signatures = _items(plan)
-        names = list(items)
+        names = [n for n in items if any(f"{n}[{t}]" not in compiled for t in signatures[n])]
         mine, theirs = split(names, signatures) if child else (names, [])
         proc = _spawn(theirs, plan) if theirs else None
     except Exception:  # noqa: BLE001  (the run compiles whatever is missing itself)
