@@ -138,6 +138,14 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, chunks):
                 _line_plane(tx, ty, tz, inv_w, b, u, plane, second, y, w, t)
 
 
+@njit(cache=True, parallel=True)
+def narrow(r, b):
+    """b = r in b's (narrower) float type: CG's float64 residual as a float32 level's
+    right-hand side (one signature of each level kernel instead of two)."""
+    for i in prange(b.shape[0]):
+        b[i] = r[i]
+
+
 @njit(cache=True, parallel=True, fastmath={"reassoc", "nsz", "contract"})
 def widen_dot(e, r, z):
     """z = e in z's (wider) float type; returns r . z (CG's r . z in the same pass)."""

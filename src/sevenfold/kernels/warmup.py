@@ -33,7 +33,8 @@ import numpy as np
 COST = {
     "transmissibility": 2.0, "fine_stencil": 5.0, "axis_weakness": 1.5, "galerkin_scaled": 2.15,
     "line_factor": 1.2, "line_gauss_seidel": 5.6, "residual_restrict": 3.45, "prolong_add": 1.6,
-    "apply_dot": 3.3, "widen_dot": 0.9, "vectors_threaded": 1.3, "vectors_serial": 0.4,
+    "apply_dot": 3.3, "widen_dot": 0.9, "narrow": 0.5, "vectors_threaded": 1.3,
+    "vectors_serial": 0.4,
 }
 # What starting the child costs before it compiles (the interpreter, numba, the kernel modules)
 CHILD_START = 1.5
@@ -124,24 +125,27 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         stencil.fine_stencil, *_arrays(f64, count=3), ~free, _arrays(f64), _arrays(f64), *widths,
         faces, faces, *_arrays(f64, count=2)))
     for i in range(len(plan.levels)):
-        # the finest level builds from float64 arrays and smooths CG's float64 residual
-        source, level, b = (f64, top, f64) if i == 0 else (f32, f32, f32)
-        where = f"finest-{np.dtype(top).name}" if i == 0 else "coarse"
-        add("axis_weakness", np.dtype(level).name, lambda t=level: _build(
+        # every level's arrays and right-hand side are float32 (the finest smooths a float32
+        # copy of CG's residual), except a finest level smoothed on the float64 operator
+        level = top if i == 0 else f32
+        tag = np.dtype(level).name
+        add("axis_weakness", tag, lambda t=level: _build(
             multigrid.axis_weakness, *_arrays(t, count=3), free, np.ones(3), 2.25, 1, True))
-        add("galerkin_scaled", np.dtype(source).name, lambda s=source: _build(
-            multigrid.galerkin_scaled, *_arrays(s, count=4), free, _steps(),
+        add("galerkin_scaled", tag, lambda t=level: _build(
+            multigrid.galerkin_scaled, *_arrays(t, count=4), free, _steps(),
             *_arrays(f32, small, 4), freec.copy()))
-        add("line_factor", np.dtype(level).name, lambda t=level: _build(
+        add("line_factor", tag, lambda t=level: _build(
             multigrid.line_factor, *_arrays(t, count=2), _arrays(f32)))
-        add("line_gauss_seidel", where, lambda t=level, b=b: _build(
-            multigrid.line_gauss_seidel, *_arrays(t, count=3), _arrays(f32), _arrays(b),
+        add("line_gauss_seidel", tag, lambda t=level: _build(
+            multigrid.line_gauss_seidel, *_arrays(t, count=3), _arrays(f32), _arrays(t),
             _arrays(f32), 0, 1))
-        add("residual_restrict", where, lambda t=level, b=b: _build(
-            stencil.residual_restrict, *_arrays(t, count=4), _arrays(b), _arrays(f32),
+        add("residual_restrict", tag, lambda t=level: _build(
+            stencil.residual_restrict, *_arrays(t, count=4), _arrays(t), _arrays(f32),
             _steps(), _arrays(f32, small)))
-        add("prolong_add", "f32", lambda: _build(
+        add("prolong_add", "float32", lambda: _build(
             stencil.prolong_add, _arrays(f32, small), free, _steps(), 1.0, _arrays(f32)))
+    if plan.levels and top == f32:
+        add("narrow", "float32", lambda: _build(multigrid.narrow, np.ones(8), np.ones(8, dtype=f32)))
     add("apply_dot", "f64", lambda: _build(stencil.apply_dot, *_arrays(f64, count=6)))
     add("widen_dot", "f32", lambda: _build(
         multigrid.widen_dot, np.ones(8, dtype=f32), np.ones(8), np.ones(8)))

@@ -112,7 +112,7 @@ class Hierarchy:
             cshape = tuple(int((n + s - 1) // s) for n, s in zip(lv.shape, step))
             arrays = [np.empty(cshape, dtype=self.dtype) for _ in range(4)]
             freec = np.empty(cshape, dtype=np.bool_)
-            source = fine if len(self.levels) == 1 else lv  # build from float64 when we can
+            source = lv  # (from a float32 copy the finest Galerkin product compiles once)
             if transfer in ("linear", "scaled"):
                 multigrid.galerkin_scaled(source.tx, source.ty, source.tz, source.diag, lv.free,
                                           step, *arrays, freec)
@@ -124,9 +124,13 @@ class Hierarchy:
             coarse = Level(*arrays, freec, np.ones(3, dtype=np.int64), boost=boost)
             coarse.e, coarse.b = (np.empty(cshape, dtype=self.dtype) for _ in range(2))
             self.levels.append(coarse)
-        # the finest level's right-hand side is CG's float64 residual itself; a stored fine
+        # the finest level's right-hand side: CG's float64 residual itself when the finest
+        # level is float64, else a copy in the levels' type (4 bytes per cell), so that each
+        # level kernel has one signature (half the compile of a first run); a stored fine
         # residual only for the linear restriction (the others fuse residual and restriction)
         top.e = np.empty(top.shape, dtype=self.dtype)
+        narrow = top.diag.dtype != np.float64 and len(self.levels) > 1  # (LU takes float64)
+        top.b = np.empty(top.shape, dtype=top.diag.dtype) if narrow else None
         if transfer == "linear":
             for lv in self.levels[:-1]:
                 lv.r = np.empty(lv.shape, dtype=self.dtype)
@@ -214,11 +218,19 @@ class Hierarchy:
 
     __call__ = precondition
 
+    def _rhs(self, r: np.ndarray) -> np.ndarray:
+        """The finest level's right-hand side for the float64 vector ``r`` (flat)."""
+        top = self.levels[0]
+        if top.b is None:
+            return r.reshape(top.shape)
+        multigrid.narrow(r, top.b.ravel())
+        return top.b
+
     def precondition_dot(self, r: np.ndarray) -> tuple[np.ndarray, float]:
         """:meth:`precondition`, and r . z from the same pass that widens z to float64."""
         top = self.levels[0]
         top.e[...] = 0.0
-        self.cycle(0, r.reshape(top.shape), top.e)
+        self.cycle(0, self._rhs(r), top.e)
         z = self._out.ravel()
         return z, multigrid.widen_dot(top.e.ravel(), r, z)
 
@@ -238,7 +250,7 @@ class Hierarchy:
         hierarchy's own arrays, so no full-grid array is allocated.
         """
         top = self.levels[0]
-        rhs = [b.reshape(top.shape)]
+        rhs = [self._rhs(b)]
         for lv, coarse in zip(self.levels[:-1], self.levels[1:]):
             rc = np.empty(coarse.shape, dtype=self.dtype)
             self._restrict(lv, rhs[-1], rc)
