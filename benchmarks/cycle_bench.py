@@ -80,6 +80,8 @@ VARIANTS = {
         "W", "line", "scaled", "float32", "zero", smoothing=2, two_pass=True),
     "W(2,2) z-line scaled f32, finest level W(1,1)": _v(
         "W", "line", "scaled", "float32", "zero", smoothing=2, finest_sweeps=1),
+    "W(2,2) z-line scaled f32, float64 finest right-hand side": _v(
+        "W", "line", "scaled", "float32", "zero", smoothing=2, wide_rhs=True),
     KEPT: _v("W", "line", "scaled", "float32", "zero", smoothing=2),
 }
 BIG_VARIANTS = ("W(1,1) z-line scaled f32 + FMG", KEPT)
@@ -157,14 +159,16 @@ def unit_seconds(level, repeats: int = 9) -> float:
 
 
 @contextlib.contextmanager
-def patched(two_pass: bool = False, finest_sweeps: int | None = None):
+def patched(two_pass: bool = False, finest_sweeps: int | None = None, wide_rhs: bool = False):
     """Designs measured by patching the kept one: ``two_pass``, the line sweep as it was before
     the one-pass sweep (each colour its own pass over memory: the same numbers, more memory
-    traffic); ``finest_sweeps``, that many sweeps each side on the finest level only."""
+    traffic); ``finest_sweeps``, that many sweeps each side on the finest level only;
+    ``wide_rhs``, the finest level smoothing CG's float64 residual itself (as before the
+    float32 copy: a second signature of each level kernel, no narrowing pass)."""
     from sevenfold.kernels import multigrid
     from sevenfold.solvers.gmg import Hierarchy
 
-    one_pass, smooth = multigrid.line_gauss_seidel, Hierarchy._smooth
+    one_pass, smooth, rhs = multigrid.line_gauss_seidel, Hierarchy._smooth, Hierarchy._rhs
 
     def sweep(tx, ty, tz, inv_w, b, u, first, chunks):
         for colour in (first, 1 - first):
@@ -182,10 +186,12 @@ def patched(two_pass: bool = False, finest_sweeps: int | None = None):
         multigrid.line_gauss_seidel = sweep
     if finest_sweeps is not None:
         Hierarchy._smooth = fewer_on_finest
+    if wide_rhs:
+        Hierarchy._rhs = lambda self, r: r.reshape(self.levels[0].shape)
     try:
         yield
     finally:
-        multigrid.line_gauss_seidel, Hierarchy._smooth = one_pass, smooth
+        multigrid.line_gauss_seidel, Hierarchy._smooth, Hierarchy._rhs = one_pass, smooth, rhs
 
 
 def run_case(n: int, case: str, names, repeats: int = 1) -> list[dict]:
@@ -196,7 +202,8 @@ def run_case(n: int, case: str, names, repeats: int = 1) -> list[dict]:
         try:
             seconds = np.inf
             options = dict(VARIANTS[name])
-            with patched(options.pop("two_pass", False), options.pop("finest_sweeps", None)):
+            with patched(options.pop("two_pass", False), options.pop("finest_sweeps", None),
+                         options.pop("wide_rhs", False)):
                 for _ in range(repeats):  # the best of several: other processes only add time
                     t = CLOCK()
                     result, hierarchy = solve_levels(fine, b, RTOL, MAX_ITERATIONS, **options)

@@ -142,7 +142,8 @@ def main() -> None:
     p.add_argument("--base", help="also measure this git revision's code (e.g. 6d2df71)")
     p.add_argument("--cold", action="store_true", help="first runs per method from an empty numba cache")
     p.add_argument("--cold-methods", default="gmg,amg,direct,fft",
-                   help="methods whose first run --cold measures (comma-separated)")
+                   help="methods whose first run --cold measures (comma-separated; gmg64: "
+                        "gmg on column64, whose levels need what column32's single level does not)")
     p.add_argument("--cold-repeats", type=int, default=1,
                    help="cold runs per method and code (each from its own empty cache)")
     p.add_argument("--tree", action="append", default=[], metavar="LABEL=SRC",
@@ -158,6 +159,7 @@ def main() -> None:
     env.pop("PYTHONDONTWRITEBYTECODE", None)
     jobs = {m: write_job(work, m) for m in ("gmg", "fft", "amg", "direct")}
     jobs["direct"] = write_job(work, "direct", 16)
+    jobs["gmg64"] = write_job(work, "gmg", 64)  # two smoothed levels, threaded vector updates
     sevenfold = [py, "-m", "sevenfold.cli"]
     rows: list[tuple[str, str, dict[str, float]]] = []
     rows.append(("baseline", "python -c pass", measure([py, "-c", "pass"], env, args.repeats)))

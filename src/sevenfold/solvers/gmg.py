@@ -124,13 +124,16 @@ class Hierarchy:
             coarse = Level(*arrays, freec, np.ones(3, dtype=np.int64), boost=boost)
             coarse.e, coarse.b = (np.empty(cshape, dtype=self.dtype) for _ in range(2))
             self.levels.append(coarse)
+        self._out = out.reshape(fine.shape) if out is not None else np.empty(fine.shape)
         # the finest level's right-hand side: CG's float64 residual itself when the finest
-        # level is float64, else a copy in the levels' type (4 bytes per cell), so that each
-        # level kernel has one signature (half the compile of a first run); a stored fine
-        # residual only for the linear restriction (the others fuse residual and restriction)
+        # level is float64, else a copy in the levels' type, so that each level kernel has
+        # one signature (a first run compiles about a third less). The copy lives in the first
+        # half of the output buffer's bytes: no memory of its own, and free until the cycle
+        # ends and z is written there. A stored fine residual only for the linear restriction
+        # (the others fuse residual and restriction).
         top.e = np.empty(top.shape, dtype=self.dtype)
-        narrow = top.diag.dtype != np.float64 and len(self.levels) > 1  # (LU takes float64)
-        top.b = np.empty(top.shape, dtype=top.diag.dtype) if narrow else None
+        if top.diag.dtype != np.float64 and len(self.levels) > 1:  # (the LU takes float64)
+            top.b = self._out.reshape(-1).view(top.diag.dtype)[:top.diag.size].reshape(top.shape)
         if transfer == "linear":
             for lv in self.levels[:-1]:
                 lv.r = np.empty(lv.shape, dtype=self.dtype)
@@ -143,7 +146,6 @@ class Hierarchy:
         # 1.3 ms) against the default column ordering
         self.coarsest = sla.splu(self.levels[-1].to_csr().tocsc(), permc_spec="MMD_AT_PLUS_A",
                                  options={"SymmetricMode": True})
-        self._out = out.reshape(fine.shape) if out is not None else np.empty(fine.shape)
 
     def smoothing_note(self) -> str:
         lines = [lv.lines for lv in self.levels[:-1]]
