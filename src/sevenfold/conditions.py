@@ -149,11 +149,18 @@ def apply_patches(patches: tuple[PatchSpec, ...], grid: Grid,
     return out, terms
 
 
+def _volumes_at(grid: Grid, where: np.ndarray) -> np.ndarray:
+    """Volumes (m^3) of the cells selected by ``where``, in C order (as ``array[where]``),
+    without a full-grid array: a job without exchanges computed one at every build (0.27 s
+    and 8 bytes per cell at 256^3)."""
+    i, j, k = np.nonzero(where)
+    return grid.widths(0)[i] * grid.widths(1)[j] * grid.widths(2)[k]
+
+
 def build_exchanges(exchanges: tuple[ExchangeSpec, ...], grid: Grid) -> tuple[ExchangeTerms, ...]:
     """Each exchange's cells, conductances and references; refuses one that selects no cell,
     a negative or non-finite coefficient and a non-finite reference."""
     out = []
-    volumes = grid.cell_volumes()
     for i, (e, m) in enumerate(zip(exchanges, region_masks(exchanges, grid, "exchange"))):
         where = f"exchange.{i}"
         if e.conductance is not None:
@@ -169,7 +176,7 @@ def build_exchanges(exchanges: tuple[ExchangeSpec, ...], grid: Grid) -> tuple[Ex
         if not np.all(np.isfinite(reference)):
             raise JobError("evaluates to NaN or infinity in the region", f"{where}.reference")
         out.append(ExchangeTerms(e.name or f"exchange {i}", np.flatnonzero(m),
-                                 coefficient * np.broadcast_to(volumes, grid.shape)[m], reference,
+                                 coefficient * _volumes_at(grid, m), reference,
                                  outflow_only=e.only == "outflow"))
     return tuple(out)
 
