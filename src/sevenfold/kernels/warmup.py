@@ -27,14 +27,15 @@ from pathlib import Path
 
 import numpy as np
 
-# Compile seconds of one signature of each kernel on the reference machine (numba's compile
-# events, 2 cores, benchmarks/RESULTS_START.md): for balancing the two halves and for the
-# notice's estimate (scaled to the measured wall time, kernels/cache.py).
+# Compile seconds of one signature of each kernel, one after another in one process (column64's
+# items, 2026-12-02 16:50, load about 1.5; the first, transmissibility, includes numba's own
+# start; benchmarks/RESULTS_START.md): for balancing the two halves and for the notice's
+# estimate (scaled to the measured wall time, kernels/cache.py).
 COST = {
-    "transmissibility": 2.0, "fine_stencil": 5.0, "axis_weakness": 1.5, "galerkin_scaled": 2.15,
-    "line_factor": 1.2, "line_gauss_seidel": 5.6, "residual_restrict": 3.45, "prolong_add": 1.6,
-    "apply_dot": 3.3, "widen_dot": 0.9, "narrow": 0.5, "vectors_threaded": 1.3,
-    "vectors_serial": 0.4,
+    "transmissibility": 2.6, "fine_stencil": 7.4, "axis_weakness": 2.3, "galerkin_scaled": 7.4,
+    "line_factor": 1.9, "line_gauss_seidel": 8.9, "residual_restrict": 4.3, "prolong_add": 2.1,
+    "apply_dot": 3.1, "widen_dot": 0.6, "narrow": 0.6, "vectors_threaded": 1.6,
+    "vectors_serial": 0.5,
 }
 # What starting the child costs before it compiles (the interpreter, numba, the kernel modules)
 CHILD_START = 1.5
@@ -118,10 +119,10 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         before = items.get(name)
         items[name] = (lambda: (before(), call())) if before else call
 
-    add("transmissibility", "f64", lambda: _build(
+    add("transmissibility", "float64", lambda: _build(
         stencil.transmissibility, *_arrays(f64, count=3), *widths, *_arrays(f64, count=3)))
     faces = tuple(np.ones((4, 4)) for _ in range(6))
-    add("fine_stencil", "f64", lambda: _build(
+    add("fine_stencil", "float64", lambda: _build(
         stencil.fine_stencil, *_arrays(f64, count=3), ~free, _arrays(f64), _arrays(f64), *widths,
         faces, faces, *_arrays(f64, count=2)))
     for i in range(len(plan.levels)):
@@ -146,8 +147,8 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
             stencil.prolong_add, _arrays(f32, small), free, _steps(), 1.0, _arrays(f32)))
     if plan.levels and top == f32:
         add("narrow", "float32", lambda: _build(multigrid.narrow, np.ones(8), np.ones(8, dtype=f32)))
-    add("apply_dot", "f64", lambda: _build(stencil.apply_dot, *_arrays(f64, count=6)))
-    add("widen_dot", "f32", lambda: _build(
+    add("apply_dot", "float64", lambda: _build(stencil.apply_dot, *_arrays(f64, count=6)))
+    add("widen_dot", "float32", lambda: _build(
         multigrid.widen_dot, np.ones(8, dtype=f32), np.ones(8), np.ones(8)))
     ops, name = ((vector.THREADED, "vectors_threaded") if plan.cells >= vector.PARALLEL_FROM
                  else (vector.SERIAL, "vectors_serial"))
@@ -156,7 +157,7 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         _build(ops.update_solution_and_residual, *(np.ones(8) for _ in range(4)), 0.5)
         _build(ops.update_direction, np.ones(8), np.ones(8), 0.5)
 
-    add(name, "f64", vectors)
+    add(name, "float64", vectors)
     return items, {k: frozenset(v) for k, v in tags.items()}
 
 
