@@ -13,9 +13,6 @@ result (checked to 1e-14 relative). Writes benchmarks/RESULTS_OPERATOR.md.
 from __future__ import annotations
 
 import argparse
-import datetime
-import os
-import subprocess
 import sys
 import time
 from pathlib import Path
@@ -87,23 +84,14 @@ def main(argv: list[str] | None = None) -> int:
         copy_bw = 16 * n**3 / t_copy
         rows.append((n, 48 * n**3 / t_apply / copy_bw, 48 * n**3 / t_free / copy_bw, copy_bw, error))
         print(rows[-1], flush=True)
-    info = engine.machine()
-    info["sevenfold revision"] = subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True,
-                                                text=True, cwd=HERE, check=False).stdout.strip()
-    info["load average"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
-    date = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-    command = "python benchmarks/operator_bench.py " + " ".join(sys.argv[1:] if argv is None else argv)
-    out_lines = ["# The operator against the copy bandwidth", "",
-                 f"Written by `{command.strip()}` on {date}; every number below comes from that run. Do not "
-                 "edit by hand: run the command again.", "",
+    head, info = engine.report_head("operator_bench.py", argv, "The operator against the copy bandwidth")
+    out_lines = head + [
                  "Share of `np.copyto`'s bandwidth (16 B per cell) reached by 48 B per cell per application; "
                  "best times, the three interleaved.", "",
                  "| cells | stencil.apply | branch-free z loop | copy GB/s | variant's max difference |",
                  "|---|---|---|---|---|"]
     out_lines += [f"| {n}^3 | {a:.0%} | {f:.0%} | {c / 1e9:.1f} | {e:.1e} |" for n, a, f, c, e in rows]
-    out_lines += ["", "## Machine", "", "| | |", "|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
-    args.results.write_text("\n".join(out_lines) + "\n")
-    print(f"wrote {args.results}")
+    engine.write_report(args.results, out_lines, info)
     return 0
 
 

@@ -135,6 +135,28 @@ def machine() -> dict[str, str]:
     }
 
 
+def report_head(script: str, argv: list[str] | None, title: str) -> tuple[list[str], dict[str, str]]:
+    """A result file's heading (title, the command and its date) and the machine's table with
+    the revision and load average, for the small benchmarks that write one file per run."""
+    import datetime
+
+    info = machine()
+    info["sevenfold revision"] = subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True,
+                                                text=True, cwd=HERE, check=False).stdout.strip()
+    info["load average"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
+    date = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    command = f"python benchmarks/{script} " + " ".join(sys.argv[1:] if argv is None else argv)
+    return [f"# {title}", "", f"Written by `{command.strip()}` on {date}; every number below comes "
+            "from that run. Do not edit by hand: run the command again.", ""], info
+
+
+def write_report(path: Path, lines: list[str], info: dict[str, str]) -> None:
+    """Write a result file: ``lines``, then the machine's table ``info`` (:func:`machine`)."""
+    lines = lines + ["", "## Machine", "", "| | |", "|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
+    path.write_text("\n".join(lines) + "\n")
+    print(f"wrote {path}")
+
+
 def busy_cpu_seconds() -> float:
     """CPU seconds the whole machine has spent busy since boot (from /proc/stat)."""
     try:

@@ -101,9 +101,7 @@ def main(argv: list[str] | None = None) -> int:
     for loaded, case, name, s, it, layer in rows:
         out.append(f"| {'beside a busy process' if loaded else 'quiet'} | {case} | {name} | {s:.2f} | "
                    f"{s / one[(loaded, case)]:.2f} | {it} | {layer} |")
-    out += ["", "## Machine", "", "| | |", "|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
-    args.results.write_text("\n".join(out) + "\n")
-    print(f"wrote {args.results}")
+    engine.write_report(args.results, out, info)
     return 0
 
 

@@ -12,10 +12,7 @@ Writes benchmarks/RESULTS_WRITE.md.
 from __future__ import annotations
 
 import argparse
-import datetime
-import os
 import shutil
-import subprocess
 import sys
 import tempfile
 import time
@@ -69,23 +66,14 @@ def main(argv: list[str] | None = None) -> int:
             print(f"{name}: {best:.2f} s, {size / u.nbytes:.2f} of raw", flush=True)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
-    info = engine.machine()
-    info["sevenfold revision"] = subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True,
-                                                text=True, cwd=HERE, check=False).stdout.strip()
-    info["load average"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
-    date = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-    command = "python benchmarks/write_bench.py " + " ".join(sys.argv[1:] if argv is None else argv)
+    head, info = engine.report_head("write_bench.py", argv, "Writing a result: compressors")
     base = rows[0][1]
-    out = ["# Writing a result: compressors", "",
-           f"Written by `{command.strip()}` on {date}; every number below comes from that run. Do not "
-           "edit by hand: run the command again.", "",
+    out = head + [
            f"The speed suite's layered solution at {args.n}^3 (float64, {u.nbytes / 1e6:.0f} MB raw) written "
            f"as one zarr v3 array in chunks of {chunks}, best of {args.repeats}.", "",
            "| codecs | seconds | ratio to the default | stored / raw |", "|---|---|---|---|"]
     out += [f"| {name} | {s:.2f} | {s / base:.2f} | {r:.2f} |" for name, s, r in rows]
-    out += ["", "## Machine", "", "| | |", "|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
-    args.results.write_text("\n".join(out) + "\n")
-    print(f"wrote {args.results}")
+    engine.write_report(args.results, out, info)
     return 0
 
 
