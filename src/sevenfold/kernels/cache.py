@@ -109,9 +109,15 @@ def notice(methods: list[str] | tuple[str, ...], seconds: float | None = None) -
 def cold_notice(method: str, needs: frozenset[str] = frozenset()) -> str | None:
     """The notice for a run with ``method`` that needs the signatures ``needs``, or None when
     its kernels are cached. With ``needs``, the estimate covers the missing signatures only."""
-    if not is_cold(method, needs):
+    if method not in COMPILE_SECONDS:
         return None
-    lacking = missing(method, needs)
+    try:
+        ran = marker(method).exists()
+    except Exception:  # a numba without the attribute, an unreadable folder: say nothing
+        return None
+    lacking = missing(method, needs)  # each marker looked at once
+    if ran and not lacking:
+        return None
     if not lacking:
         return notice([method])
     from .warmup import estimate
