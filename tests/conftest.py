@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import copy
 import math
+import os
 import shutil
 from pathlib import Path
 from typing import Any
@@ -241,6 +242,13 @@ def eliminate(A, b, held, held_value):
 
 
 # ---------------------------------------------------------------- queue tests
+@pytest.fixture(scope="session", autouse=True)
+def own_queue_home(tmp_path_factory) -> None:
+    """An empty default queue home: `sevenfold run` hands its job to an idle worker of the
+    default home, and a developer's own worker must not take the tests' jobs."""
+    os.environ["SEVENFOLD_HOME"] = str(tmp_path_factory.mktemp("default-home") / "home")
+
+
 @pytest.fixture(scope="session")
 def warm_cache(tmp_path_factory) -> Path:
     """A numba cache with the kernels compiled: a draining worker on an empty queue makes it.

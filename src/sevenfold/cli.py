@@ -10,95 +10,16 @@ import math
 import os
 import sys
 from pathlib import Path
-from typing import TYPE_CHECKING
 
-from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
 
 from . import __version__
+from .console import (ProgressMonitor, err, out, print_run_end, quiet_result,
+                      run_progress, warn)
 from .errors import Cancelled, JobError, SevenfoldError, SolverError
 
-if TYPE_CHECKING:  # rich.progress loads only when a run shows progress
-    from rich.progress import Progress
-
 EXIT_OK, EXIT_SOLVER, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
-
-class _Console(Console):
-    """rich's Console, except that a closed stdout (``| head``) raises BrokenPipeError for
-    :func:`main` to end quietly, instead of rich's own exit with status 1."""
-
-    def on_broken_pipe(self) -> None:
-        self.quiet = True
-        raise BrokenPipeError
-
-
-out = _Console(highlight=False)
-err = _Console(stderr=True, highlight=False)
-
-
-def quiet_result(path: Path | str) -> int:
-    """``--quiet``: the result's path alone on stdout, unwrapped."""
-    print(str(path), flush=True)
-    return EXIT_OK
-
-
-class ProgressMonitor:
-    """Shows iteration and relative residual; the bar fills as log(residual) nears log(rtol)."""
-
-    def __init__(self, progress: Progress, task, rtol: float) -> None:
-        self.progress, self.task, self.goal = progress, task, -math.log10(rtol)
-
-    def iteration(self, iteration: int, relative_residual: float, elapsed: float) -> None:
-        done = -math.log10(relative_residual) if relative_residual > 0 else self.goal
-        self.progress.update(
-            self.task, completed=min(max(done, 0.0), self.goal),
-            info=f"iteration {iteration:4d}  residual {relative_residual:.2e}",
-        )
-
-    def switched(self, info: dict) -> None:
-        """``auto`` changed method mid-solve: a marked line above the bar."""
-        from .queue.watch import switch_text
-
-        self.progress.console.print(f"[yellow]***[/yellow] {escape(switch_text(info))}", soft_wrap=True)
-
-    def stop_requested(self) -> bool:
-        return False
-
-    def note(self, text: str) -> None:
-        """A line above the bar (the first run's compile notice), shown with --quiet too."""
-        self.progress.console.print(f"[yellow]{escape(text)}[/yellow]")
-
-
-def balance_table(balance: dict, title: str = "balance") -> Table:
-    """A result's balance (``attrs["balance"]``) as a table: amounts and the imbalance."""
-    from .balance import balance_rows
-
-    table = Table(title=title, box=None, title_justify="left")
-    table.add_column("term")
-    table.add_column(balance.get("units", ""), justify="right")
-    for label, value in balance_rows(balance):
-        table.add_row(escape(label), f"{value:.6g}")
-    table.add_row("relative imbalance", f"{balance['relative_imbalance']:.2e}")
-    return table
-
-
-def headline_table(headline: dict, title: str = "headline numbers") -> Table:
-    """A result's headline numbers (``attrs["headline"]``) as a two-column table."""
-    from .headline import headline_rows
-
-    table = Table(title=title, box=None, title_justify="left", show_header=False)
-    table.add_column("quantity", no_wrap=True)
-    table.add_column("value", overflow="fold")
-    for label, text in headline_rows(headline):
-        table.add_row(escape(label), escape(text))
-    return table
-
-
-def warn(text: str) -> None:
-    """One warning line (the cautions channel): printed, never a refusal."""
-    out.print(f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True)
-
 
 def _check(args: argparse.Namespace) -> int:
     from .cautions import job_warnings
@@ -143,15 +64,14 @@ def _check(args: argparse.Namespace) -> int:
 
 
 def _run(args: argparse.Namespace) -> int:
-    from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
-
+    if not args.here:
+        code = _run_on_worker(args)
+        if code is not None:
+            return code
     from .runner import plan_job, run_job
 
     plan = plan_job(args.job, args.output)
-    with Progress(
-        TextColumn("[bold]{task.description}"), BarColumn(), TextColumn("{task.fields[info]}"),
-        TimeElapsedColumn(), console=out, transient=False, disable=args.quiet or args.no_progress,
-    ) as progress:
+    with run_progress(disable=args.quiet or args.no_progress) as progress:
         task = progress.add_task(plan.spec.name, total=-math.log10(plan.spec.solver.rtol), info="building")
         monitor = ProgressMonitor(progress, task, plan.spec.solver.rtol)
         if args.quiet:  # stdout holds the result's path alone; warnings go to stderr
@@ -161,24 +81,69 @@ def _run(args: argparse.Namespace) -> int:
                              f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True))
     if args.quiet:
         return quiet_result(result.output)
-    s = result.solve
-    switched = (f" (auto switched from {s.switch['from']} after {s.switch['after_iterations']} "
-                f"{s.switch['from']} iterations)" if s.switch else "")
-    out.print(
-        f"{'converged' if s.converged else 'stopped'}: {s.method}{switched}, {s.iterations} iterations, "
-        f"relative residual {s.final_relative_residual:.2e}, job {result.seconds['job']:.2f} s "
-        f"(assembly {result.seconds['assemble']:.2f} s, setup {s.setup_seconds:.2f} s, "
-        f"solve {s.solve_seconds:.2f} s, write {result.seconds['write']:.2f} s)"
-    )
-    if result.balance is not None:
-        out.print(balance_table(result.balance.to_dict()))
-    if result.headline is not None:
-        out.print(headline_table(result.headline))
-    out.print(f"result: {escape(str(result.output))}")
-    out.print(f"residuals: {escape(str(result.residual_log))}")
-    if result.probes_csv is not None:
-        out.print(f"probes: {escape(str(result.probes_csv))}")
+    print_run_end({**result.solve.summary(), "seconds": result.seconds},
+                  None if result.balance is None else result.balance.to_dict(), result.headline,
+                  result.output, result.probes_csv)
     return EXIT_OK
+
+
+def _run_on_worker(args: argparse.Namespace) -> int | None:
+    """``run`` by an idle queue worker on this machine (:mod:`sevenfold.queue.handoff`), shown
+    as a run in this process would be; None when there is no such worker."""
+    from .queue.handoff import follow, hand_off
+    from .runner import probes_csv_path
+    from .store import read_attrs
+
+    handed = hand_off(args.job, args.output, args.home)
+    if handed is None:
+        return None
+    job = handed.job
+    say = err if args.quiet else out
+    with run_progress(disable=args.quiet or args.no_progress) as progress:
+        task = progress.add_task(job.name, total=None, info=f"job {job.id} on worker {handed.worker}")
+        monitor: ProgressMonitor | None = None
+        switches = 0
+
+        def on_progress(j, p) -> None:  # the residual log grew
+            nonlocal monitor, switches
+            if monitor is None and p.rtol:  # the solve's start record gives rtol
+                monitor = ProgressMonitor(progress, task, p.rtol)
+                progress.update(task, total=monitor.goal)
+            if monitor is None:
+                return
+            if p.history:
+                monitor.iteration(p.iteration, p.history[-1], 0.0)
+            for sw in p.switches[switches:] if not args.quiet else ():
+                monitor.switched(sw)
+            switches = len(p.switches)
+
+        try:
+            job = follow(handed, on_progress)
+        except KeyboardInterrupt:
+            handed.queue.cancel([job.id])
+            err.print(f"interrupted; queue job {job.id} is cancelled (its worker stops it at the next "
+                      "iteration); no result was written")
+            return EXIT_INTERRUPTED
+    if job is None:  # the worker went away before taking it
+        say.print("the worker stopped before taking the job; running it here")
+        return None
+    attrs = read_attrs(Path(job.output)) if job.state != "cancelled" else {}
+    for text in attrs.get("warnings") or []:
+        say.print(f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True)
+    if job.state == "done":
+        if args.quiet:
+            return quiet_result(job.output)
+        out.print(f"run by worker {escape(job.worker or handed.worker)} as queue job {job.id} "
+                  "(--here runs it in this process)")
+        print_run_end(job.summary or {}, attrs.get("balance"), attrs.get("headline"), Path(job.output),
+                      probes_csv_path(Path(job.output)) if attrs.get("probes") else None)
+        return EXIT_OK
+    if job.state == "cancelled":
+        err.print(f"cancelled: queue job {job.id}: {escape(job.error or '')}", soft_wrap=True)
+        return EXIT_SOLVER
+    kind = (job.summary or {}).get("failure")
+    err.print(f"[red]error:[/red] {escape(job.error or 'failed')} (queue job {job.id})", soft_wrap=True)
+    return EXIT_INPUT if kind in ("input", "os") else EXIT_SOLVER
 
 
 def _capacitance(args: argparse.Namespace) -> int:
@@ -341,6 +306,11 @@ def parser() -> argparse.ArgumentParser:
     r.add_argument("--output", "-o", help="result path (overrides output.path)")
     r.add_argument("--quiet", "-q", action="store_true", help="print only the result path (and errors)")
     r.add_argument("--no-progress", action="store_true", help="no progress bar; the summary as usual")
+    r.add_argument("--here", action="store_true",
+                   help="solve in this process even when an idle queue worker on this machine could take "
+                        "the job (it does by default: same result, kernels already loaded)")
+    r.add_argument("--home", metavar="DIR", help="queue home whose worker may take the job (default "
+                                                 "$SEVENFOLD_HOME, else the user data directory)")
     r.set_defaults(func=_run)
 
     cap = sub.add_parser("capacitance", help="capacitance matrix of an electrostatics job's electrodes")

@@ -123,6 +123,18 @@ def is_complete(path: Path) -> bool:
         return False
 
 
+def read_attrs(path: Path) -> dict[str, Any]:
+    """A result's group attributes, read from its ``zarr.json`` (the zarr v3 group metadata)
+    without loading zarr; {} when there is none. Complete only when ``complete`` is true."""
+    import json
+
+    try:
+        with open(Path(path) / "zarr.json", encoding="utf-8") as f:
+            return dict(json.load(f).get("attributes") or {})
+    except (OSError, ValueError, AttributeError):
+        return {}
+
+
 def not_converged_warning(attrs: dict[str, Any]) -> str | None:
     """The one warning line for a result whose solve stopped short, else None."""
     if attrs.get("converged", True):

@@ -342,7 +342,7 @@ class ClusterWorker:
             else:
                 self.say(f"{c.id} {c.name}: finished, but the job was taken back from this worker meanwhile")
         elif reply is not None and reply.get("status") == "failed":
-            queue.fail(c.id, c.run_id, reply.get("error", "failed for an unknown reason"))
+            queue.fail(c.id, c.run_id, reply.get("error", "failed for an unknown reason"), reply.get("kind"))
             self.say(f"failed {c.id} {c.name}: {reply.get('error')}")
         elif error is not None and r.reason is None:
             queue.fail(c.id, c.run_id, error)

@@ -29,7 +29,7 @@ STATE_STYLE = {"queued": "cyan", "running": "yellow", "done": "green", "failed":
 
 
 def _consoles():
-    from ..cli import err, out
+    from ..console import err, out
 
     return out, err
 
@@ -304,7 +304,7 @@ def show_rows(job: Job, now: float, last_residual: str | None = None) -> list[tu
         rows.append((i["key"], f"{i['original']} (snapshot {i['snapshot']}, sha256 {i['sha256'][:16]})"))
     rows.append(("plan", f"{job.cells:,} cells, method {job.method}, about {human(job.memory_bytes)}"))
     s = job.summary
-    if s:
+    if s and "method" in s:  # a failed run's summary holds only its kind of failure
         rows.append(("solver", f"{s.get('method')}, {s.get('iterations')} iterations, "
                                f"{'converged' if s.get('converged') else 'not converged'}, final relative residual "
                                f"{s.get('final_relative_residual', float('nan')):.3e}"))
@@ -352,7 +352,7 @@ def _show(args: argparse.Namespace) -> int:
     attrs = _result_attrs(out_path) if is_complete(out_path) else None
     out.print(t)
     if attrs is not None:
-        from ..cli import balance_table, headline_table, warn
+        from ..console import balance_table, headline_table, warn
         from ..store import not_converged_warning
 
         warning = not_converged_warning(attrs)

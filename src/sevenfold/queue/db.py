@@ -661,8 +661,11 @@ class Queue:
         detail = f"{iters} iterations, relative residual {res:.2e}" if isinstance(res, float) else ""
         return self._end_run(job_id, run_id, "done", "done", detail, None, summary)
 
-    def fail(self, job_id: int, run_id: str, error: str) -> bool:
-        return self._end_run(job_id, run_id, "failed", "failed", error, error)
+    def fail(self, job_id: int, run_id: str, error: str, kind: str | None = None) -> bool:
+        """The run failed; ``kind`` (input, os, solver, memory, internal), when the run said
+        which, is kept as the summary's ``failure``, so a client can exit as ``run`` would."""
+        return self._end_run(job_id, run_id, "failed", "failed", error, error,
+                             None if kind is None else {"failure": kind})
 
     def cancelled(self, job_id: int, run_id: str, reason: str) -> bool:
         return self._end_run(job_id, run_id, "cancelled", "cancelled", reason, reason)

@@ -75,17 +75,19 @@ def _read(job_file: Path) -> tuple[str, dict[str, Any]]:
     raise JobError("the file keeps changing while it is read; submit it again", source=str(job_file))
 
 
-def _check(variant: Variant, job_file: Path, source: str):
-    """Validate one job table through the engine; returns its plan."""
+def _check(variant: Variant, job_file: Path, source: str, output: str | Path | None = None,
+           build: bool = True):
+    """Validate one job table through the engine; returns its plan. ``build=False`` stops
+    at the spec and plan (what the worker's run finds later fails the job there)."""
     from ..memory import total_bytes
     from ..runner import plan_job, prepare_problem, refuse_if_too_large
     from ..spec import parse_job
 
     spec = parse_job(variant.table, source)
-    plan = plan_job(job_file, spec=spec)
+    plan = plan_job(job_file, output, spec=spec)
     # Whether it fits now is the worker's question; one larger than the machine never will.
     refuse_if_too_large(dataclasses.replace(plan, available_bytes=total_bytes()))
-    if plan.cells <= FULL_CHECK_CELLS:
+    if build and plan.cells <= FULL_CHECK_CELLS:
         # The memory check belongs to the worker that will run the job, not to this machine now.
         settled, _ = prepare_problem(dataclasses.replace(plan, available_bytes=2**62))
         plan = dataclasses.replace(settled, available_bytes=plan.available_bytes)  # fft known now
@@ -117,8 +119,13 @@ def _snapshot(table: dict[str, Any], job_file: Path, home: Home) -> tuple[dict[s
     return table, inputs
 
 
-def prepare(job_file: str | Path, home: Home) -> Prepared:
-    """Validate and snapshot one job file (every combination of its sweep); JobError if bad."""
+def prepare(job_file: str | Path, home: Home, output: str | Path | None = None,
+            build: bool = True) -> Prepared:
+    """Validate and snapshot one job file (every combination of its sweep); JobError if bad.
+
+    ``output`` overrides ``output.path`` as ``run --output`` does; ``build=False`` checks
+    the spec and the plan but does not build the problem (see :func:`_check`).
+    """
     job_file = Path(job_file)
     source = str(job_file)
     text, table = _read(job_file)
@@ -126,7 +133,7 @@ def prepare(job_file: str | Path, home: Home) -> Prepared:
     jobs: list[NewJob] = []
     outputs: dict[str, int | None] = {}
     for v in variants:
-        job = _prepare_variant(v, job_file, text, home)
+        job = _prepare_variant(v, job_file, text, home, output, build)
         if job.output in outputs:
             raise JobError(
                 f"sweep combinations {outputs[job.output]} and {v.index} would both write {job.output!r}; "
@@ -138,16 +145,19 @@ def prepare(job_file: str | Path, home: Home) -> Prepared:
     return Prepared(job_file, jobs, batch)
 
 
-def _prepare_variant(v: Variant, job_file: Path, text: str, home: Home) -> NewJob:
+def _prepare_variant(v: Variant, job_file: Path, text: str, home: Home,
+                     output: str | Path | None = None, build: bool = True) -> NewJob:
     source = str(job_file)
     try:
-        plan = _check(v, job_file, source)
+        plan = _check(v, job_file, source, output, build)
     except JobError as exc:
         if v.index is None:
             raise
         raise JobError(f"{exc.reason} (sweep combination {v.index}: {v.label})",
                        exc.where, exc.source or source) from None
     run_table, inputs = _snapshot(v.table, job_file, home)
+    if output is not None:  # the table says where the result goes, as the run will write it
+        run_table.setdefault("output", {})["path"] = str(plan.output)
     return NewJob(
         name=plan.spec.name, output=str(plan.output), source=os.path.abspath(job_file), job_text=text,
         job_table=run_table, inputs=inputs, cells=plan.cells, method=plan.method,

@@ -308,7 +308,7 @@ class Slot(threading.Thread):
             self._stopped(queue, claim, reason, "stopped at its next iteration", limit)
         else:
             error = msg.get("error", "failed for an unknown reason")
-            queue.fail(claim.id, claim.run_id, error)
+            queue.fail(claim.id, claim.run_id, error, msg.get("kind"))
             w.say(f"failed {claim.id} {claim.name}: {error}")
 
     def _stopped(self, queue: Queue, claim: Claim, reason: str | None, how: str, limit: float | None) -> None:

@@ -1,0 +1,124 @@
+"""``sevenfold run`` handed to a running worker: the same job, run by a process whose
+kernels are already loaded.
+
+A worker on this machine with a free slot, in the queue home ``run`` would use, and an
+empty queue (so the job starts at once): then ``run`` validates the job file as ``submit``
+does (the spec and the plan; the worker builds the problem), queues it with one attempt,
+follows its residual log and reports as if it had run it. Otherwise nothing is touched (no
+queue home is made) and ``run`` solves in its own process. Queue logic only: what is shown
+is the caller's (:mod:`sevenfold.cli`).
+"""
+
+from __future__ import annotations
+
+import socket
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+from ..errors import QueueError
+from .db import FINISHED, Job, Queue
+from .files import pid_alive, remove_partials
+from .home import Home, home_root
+from .watch import Progress, read_progress
+
+POLL = 0.05  # s between looks at the job and its residual log (two small reads)
+LOST_AFTER = 2.0  # s a queued hand-off may wait with no worker left to take it
+RECOVER_EVERY = 5.0  # s between looks for runs of workers that died
+
+
+@dataclass(frozen=True)
+class Handed:
+    """A job ``run`` queued for ``worker``."""
+
+    queue: Queue
+    job: Job
+    worker: str
+
+
+def idle_worker(queue: Queue) -> str | None:
+    """A live slot worker on this machine with a free slot, when no job waits; else None.
+
+    Cluster workers (``worker --cluster``) are left out: their jobs run elsewhere.
+    """
+    if queue.counts()["queued"]:
+        return None
+    host = socket.gethostname()
+    running = {}
+    for j in queue.jobs(state="running"):
+        running[j.worker] = running.get(j.worker, 0) + 1
+    for w in queue.workers(alive_only=True):
+        if (w["host"] == host and not w["id"].endswith(":dask") and pid_alive(int(w["pid"]))
+                and running.get(w["id"], 0) < int(w["slots"])):
+            return str(w["id"])
+    return None
+
+
+def open_queue(home: str | Path | None = None) -> Queue | None:
+    """The queue in ``home`` (else ``$SEVENFOLD_HOME``, else the user data folder) when one
+    exists there; None (and nothing made) when there is none or it cannot be opened."""
+    root = home_root(home)
+    if not (root / "queue.db").is_file():
+        return None
+    try:
+        return Queue(Home(root))
+    except QueueError:
+        return None
+
+
+def hand_off(job_file: str | Path, output: str | Path | None, home: str | Path | None = None) -> Handed | None:
+    """Queue ``job_file`` for an idle worker; None when there is no such worker (or the
+    file is a sweep, which ``run`` does not take). A bad job raises its JobError here."""
+    from .submit import enqueue, prepare
+
+    queue = open_queue(home)
+    if queue is None:
+        return None
+    worker = idle_worker(queue)
+    if worker is None:
+        queue.close()
+        return None
+    prepared = prepare(job_file, queue.home, output, build=False)
+    if prepared.batch is not None or len(prepared.jobs) != 1:
+        queue.close()
+        return None
+    job = enqueue(queue, [prepared], max_attempts=1)[0]
+    return Handed(queue, job, worker)
+
+
+def follow(handed: Handed, on_progress: Callable[[Job, Progress], None],
+           poll: float = POLL) -> Job | None:
+    """Wait for the handed job to end, calling ``on_progress`` whenever its residual log
+    grew; returns the finished job, or None when it was still queued with no worker left to
+    take it (it is then cancelled, and the caller runs it itself)."""
+    queue, job_id = handed.queue, handed.job.id
+    seen = -1
+    waiting_since: float | None = None
+    last_recovery = time.monotonic()
+    while True:
+        if time.monotonic() - last_recovery > RECOVER_EVERY:  # a dead worker's run comes back
+            for r in queue.recover_stale():
+                remove_partials(Path(r.output))
+            last_recovery = time.monotonic()
+        job = queue.get(job_id)
+        if job.state in FINISHED:
+            p = read_progress(job.output, since=job.started)
+            if len(p.rows) != seen:
+                on_progress(job, p)
+            return job
+        if job.state == "queued":
+            now = time.monotonic()
+            waiting_since = waiting_since or now
+            if now - waiting_since > LOST_AFTER and idle_worker(queue) is None:
+                done = dict((j.id, what) for j, what in queue.cancel([job_id]))
+                if done.get(job_id) == "cancelled":
+                    return None
+            time.sleep(poll)
+            continue
+        waiting_since = None
+        p = read_progress(job.output, since=job.started)
+        if len(p.rows) != seen:
+            seen = len(p.rows)
+            on_progress(job, p)
+        time.sleep(poll)

@@ -1,0 +1,147 @@
+"""``sevenfold run`` handed to an idle worker on this machine (sevenfold.queue.handoff).
+
+The hand-off must give what a run in the process gives: the same solution (to the solve's
+rtol), the same summary and exit codes, and no queue made where there was none.
+"""
+
+from __future__ import annotations
+
+import os
+import socket
+from pathlib import Path
+
+import numpy as np
+import pytest
+import zarr
+
+from sevenfold.cli import main
+from sevenfold.queue import handoff
+from sevenfold.queue.db import Queue
+from sevenfold.queue.handoff import Handed, follow, idle_worker
+from sevenfold.queue.home import Timing, locate
+from sevenfold.queue.submit import enqueue, prepare
+
+from queue_support import WorkerProcess, job, make_home, small_job, wait_for
+
+COLUMN = """
+name = "{name}"
+physics = "generic"
+[grid]
+cells = [24, 20, 16]
+size = [1.0, 1.0, 1.0]
+[material]
+value = 1.0
+[[material.region]]
+box = {{ min = [0.25, 0.25, 0.0], max = [0.75, 0.75, 1.0] }}
+value = 1000.0
+[source]
+expression = "sin(pi * x) * sin(pi * y) * sin(pi * z)"
+[boundary]
+x_min = {{ type = "dirichlet", value = 0.0 }}
+x_max = {{ type = "dirichlet", value = 0.0 }}
+[solver]
+method = "gmg"
+rtol = 1e-8
+{extra}
+[output]
+path = "{name}.zarr"
+"""
+
+
+def column_job(folder: Path, name: str, extra: str = "") -> Path:
+    path = folder / f"{name}.toml"
+    path.write_text(COLUMN.format(name=name, extra=extra))
+    return path
+
+
+@pytest.fixture(scope="module")
+def idle_home(tmp_path_factory, warm_cache: Path):
+    """A queue with one running slot worker on this machine."""
+    root = tmp_path_factory.mktemp("handoff")
+    home = make_home(root / "home", warm_cache)
+    w = WorkerProcess(home)
+    wait_for(lambda: "ready" in w.output(), "the worker's slot to be ready")
+    yield home, root
+    w.stop()
+
+
+def test_run_is_handed_to_an_idle_worker_and_matches_a_run_here(idle_home, capsys) -> None:
+    home, root = idle_home
+    there = column_job(root, "there")
+    assert main(["run", str(there), "--home", str(home.root)]) == 0
+    printed = capsys.readouterr().out
+    assert "run by worker" in printed and "converged: gmg" in printed and "balance" in printed
+    attrs = dict(zarr.open_group(str(root / "there.zarr"), mode="r").attrs)
+    assert attrs["complete"] and attrs["converged"]
+    assert attrs["queue"]["worker"] and attrs["queue"]["pid"] != os.getpid()  # solved by the worker
+
+    here = column_job(root, "here")
+    assert main(["run", str(here), "--here", "--home", str(home.root), "-q"]) == 0
+    assert capsys.readouterr().out.strip() == str(root / "here.zarr")
+    here_attrs = dict(zarr.open_group(str(root / "here.zarr"), mode="r").attrs)
+    assert "queue" not in here_attrs  # --here: solved in this process
+    u_there = zarr.open_group(str(root / "there.zarr"), mode="r")["u"][...]
+    u_here = zarr.open_group(str(root / "here.zarr"), mode="r")["u"][...]
+    # both are CG solves of one system to rtol 1e-8 (common practice: agree to about rtol)
+    assert np.abs(u_there - u_here).max() <= 1e-6 * np.abs(u_here).max()
+
+
+def test_quiet_hand_off_prints_the_path_alone_and_honours_output(idle_home, capsys) -> None:
+    home, root = idle_home
+    target = root / "elsewhere" / "given.zarr"
+    assert main(["run", str(column_job(root, "quiet")), "-q", "-o", str(target), "--home", str(home.root)]) == 0
+    assert capsys.readouterr().out.strip() == str(target)
+    attrs = dict(zarr.open_group(str(target), mode="r").attrs)
+    assert attrs["complete"] and "queue" in attrs
+
+
+def test_a_failing_hand_off_exits_as_a_run_here_would(idle_home, capsys) -> None:
+    home, root = idle_home
+    # stops short: the result is kept, marked, and the exit code is the solver's (1)
+    short = column_job(root, "short", extra="max_iterations = 2")
+    assert main(["run", str(short), "--home", str(home.root)]) == 1
+    assert "result kept" in capsys.readouterr().err
+    attrs = dict(zarr.open_group(str(root / "short.zarr"), mode="r").attrs)
+    assert attrs["complete"] and attrs["converged"] is False
+    # an input error the worker finds when it builds the problem: fft needs one k
+    fft = column_job(root, "fft").read_text().replace('method = "gmg"', 'method = "fft"')
+    (root / "fft.toml").write_text(fft)
+    assert main(["run", str(root / "fft.toml"), "--home", str(home.root)]) == 2
+    assert "fft" in capsys.readouterr().err
+    assert main(["run", str(root / "fft.toml"), "--here", "--home", str(home.root)]) == 2
+
+
+def test_no_queue_means_a_run_here_and_no_queue_made(tmp_path: Path, capsys) -> None:
+    home = tmp_path / "never"
+    assert main(["run", str(small_job(tmp_path, "plain")), "-q", "--home", str(home)]) == 0
+    assert not home.exists()
+    assert "queue" not in dict(zarr.open_group(str(tmp_path / "results" / "plain.zarr"), mode="r").attrs)
+
+
+def _register(q: Queue, worker: str, host: str, pid: int, slots: int = 1) -> None:
+    q.register_worker(worker, host, pid, slots)
+
+
+def test_idle_worker_takes_only_a_live_local_slot_worker_with_nothing_queued(tmp_path: Path) -> None:
+    home = locate(tmp_path / "home")
+    with Queue(home, Timing()) as q:
+        assert idle_worker(q) is None  # no worker
+        host = socket.gethostname()
+        _register(q, f"{host}:1:dask", host, os.getpid())
+        _register(q, "far:1", "another-host", os.getpid())
+        assert idle_worker(q) is None  # a cluster worker and another machine's worker
+        _register(q, f"{host}:dead", host, 2**22 + 12345)  # no such process
+        assert idle_worker(q) is None
+        _register(q, f"{host}:me", host, os.getpid())
+        assert idle_worker(q) == f"{host}:me"
+        enqueue(q, [prepare(small_job(tmp_path, "waiting"), home)])
+        assert idle_worker(q) is None  # a job waits: a hand-off would wait behind it
+
+
+def test_a_hand_off_no_worker_takes_is_cancelled_and_left_to_the_caller(tmp_path: Path, monkeypatch) -> None:
+    monkeypatch.setattr(handoff, "LOST_AFTER", 0.2)
+    home = locate(tmp_path / "home")
+    with Queue(home, Timing()) as q:
+        (queued,) = enqueue(q, [prepare(small_job(tmp_path, "orphan"), home)], max_attempts=1)
+        assert follow(Handed(q, queued, "gone"), lambda j, p: None, poll=0.02) is None
+    assert job(home, queued.id).state == "cancelled"
