@@ -11,9 +11,9 @@ the other (alternating when --runs > 1, never two at once; best kept), wall time
 from /usr/bin/time (``run.run_process``). Then, in this process, the last runs' solutions are
 compared, sevenfold's solution is put into the baseline's system, and sevenfold's own matrix
 (``sevenfold.operator.assemble``) is checked against the baseline's. Unless --no-queue, the
-same job also goes through the queue with a worker running (started before the sizes, warmed
-by the warm-up jobs): ``submit`` then ``watch`` until it ends, timed from the first command's
-start to the second's exit. Writes benchmarks/RESULTS_COLUMN.md unless --results says otherwise.
+same job is also run with a worker running (started before the sizes, warmed by the warm-up
+jobs): ``sevenfold run -q`` hands it to the idle worker and follows it to its end, timed as
+one process. Writes benchmarks/RESULTS_COLUMN.md unless --results says otherwise.
 """
 
 from __future__ import annotations
@@ -94,7 +94,7 @@ class Size:
     matrix_difference: float = float("nan")
     rhs_difference: float = float("nan")
     resident: float = float("nan")  # sevenfold's own seconds in a warm, resident process
-    queued: float = float("nan")  # wall seconds of `submit` + `watch` with a worker running
+    queued: float = float("nan")  # wall seconds of `run` handed to a running worker
     queued_own: float = float("nan")  # the worker's job time for that run
 
     def best(self, side: str, kind: str) -> Run:
@@ -164,8 +164,8 @@ def run_resident(folder: Path, job: Path) -> float:
 
 
 class Worker:
-    """``sevenfold worker`` (one slot, every core) on its own queue home, for the queued flow:
-    its slot child imports and loads the kernels once, then runs submitted jobs."""
+    """``sevenfold worker`` (one slot, every core) on its own queue home, for the handed-off
+    run: its slot child imports and loads the kernels once, then runs the jobs it is given."""
 
     def __init__(self, folder: Path) -> None:
         import subprocess
@@ -176,27 +176,34 @@ class Worker:
                                      stdout=self.log, stderr=subprocess.STDOUT, cwd=folder)
 
     def flow(self, job: Path, result: Path) -> tuple[float, float]:
-        """What a user types with a worker running: ``sevenfold submit -q JOB`` then ``sevenfold
-        watch --lines ID`` until the job ends. Returns the wall seconds from the start of submit
-        to the end of watch, and the job's own seconds from its result."""
+        """What a user types with a worker running: ``sevenfold run -q JOB``, which hands the
+        job to the idle worker and follows it to its end. Returns the wall seconds of that
+        process, and the job's own seconds from its result."""
         import subprocess
         import time
 
         import zarr
 
-        cli = engine.sevenfold_command()
         t0 = time.perf_counter()
-        sub = subprocess.run(cli + ["submit", "--home", str(self.home), "-q", str(job)],
-                             capture_output=True, text=True, check=False)
-        if sub.returncode != 0:
-            raise RuntimeError(f"sevenfold submit {job} failed:\n{sub.stderr}")
-        watch = subprocess.run(cli + ["watch", "--home", str(self.home), "--lines", "--interval", "0.1",
-                                      sub.stdout.split()[0]], capture_output=True, text=True, check=False)
+        proc = subprocess.run(engine.sevenfold_command() + ["run", "--home", str(self.home), "-q", str(job)],
+                              capture_output=True, text=True, check=False)
         wall = time.perf_counter() - t0
         attrs = dict(zarr.open_group(str(result), mode="r").attrs)
-        if watch.returncode != 0 or not attrs.get("converged"):
-            raise RuntimeError(f"the queued run of {job} did not finish converged:\n{watch.stdout}{watch.stderr}")
+        if proc.returncode != 0 or not attrs.get("converged") or "queue" not in attrs:
+            raise RuntimeError(f"the handed-off run of {job} did not finish converged on the worker:\n"
+                               f"{proc.stdout}{proc.stderr}")
         return wall, float(attrs["seconds"]["job"])
+
+    def wait_ready(self, timeout: float = 900.0) -> None:
+        """Until the worker's slot has loaded (or compiled) its kernels."""
+        import time
+
+        deadline = time.monotonic() + timeout
+        log = Path(self.log.name)
+        while "ready" not in log.read_text():
+            if self.proc.poll() is not None or time.monotonic() > deadline:
+                raise RuntimeError(f"the worker did not get ready:\n{log.read_text()}")
+            time.sleep(0.2)
 
     def stop(self) -> None:
         self.proc.terminate()
@@ -305,8 +312,8 @@ def report(command: str, info: dict[str, str], sizes: list[Size], load: dict, ru
     for n, target in WHOLE_TARGETS.items():
         if n in by and np.isfinite(by[n].queued):
             tb, ts = by[n].seconds("whole")[0], by[n].queued
-            w(f"| whole process >= {target:g}x faster at {n}^3, queued to a running worker (`submit` + "
-              f"`watch`, from typing the first to the second's exit) | {tb:.2f} s / {ts:.2f} s = "
+            w(f"| whole process >= {target:g}x faster at {n}^3, `sevenfold run` handed to a running "
+              f"worker | {tb:.2f} s / {ts:.2f} s = "
               f"{tb / ts:.1f}x | {_verdict(tb / ts >= target)} |")
     worst = max(sizes, key=lambda s: s.difference)
     w(f"| solutions agree to {AGREEMENT:g} (every size) | worst {worst.difference:.1e} ({worst.n}^3) | "
@@ -334,8 +341,8 @@ def report(command: str, info: dict[str, str], sizes: list[Size], load: dict, ru
           f"process sees: modules imported, kernels loaded): {s.resident:.2f} s, "
           f"{s.seconds('own')[0] / s.resident:.1f}x the baseline's own time")
         if np.isfinite(s.queued):
-            w(f"- queued to a running worker: `sevenfold submit -q` then `sevenfold watch --lines` until "
-              f"the job ends took {s.queued:.2f} s wall (the job itself {s.queued_own:.2f} s in the "
+            w(f"- handed to a running worker: `sevenfold run -q`, which queues the job for the idle "
+              f"worker and follows it to its end, took {s.queued:.2f} s wall (the job itself {s.queued_own:.2f} s in the "
               f"worker's resident slot), {s.seconds('whole')[0] / s.queued:.1f}x the baseline's whole process")
         sec, tb = so.info["seconds"], bo.info
         w(f"- own time split: sevenfold assembly {sec.get('assemble', np.nan):.3f} s, setup "
@@ -369,7 +376,7 @@ def main(argv: list[str] | None = None) -> int:
                    help="where to write the report (default benchmarks/RESULTS_COLUMN.md)")
     p.add_argument("--keep", action="store_true", help="keep the temporary folder of jobs and results")
     p.add_argument("--no-queue", action="store_true",
-                   help="skip the queued flow (a worker running, `submit` + `watch` timed)")
+                   help="skip the run handed to a running worker")
     args = p.parse_args(argv)
     if args.runs < 1 or min(args.sizes) < 2:
         p.error("--runs must be at least 1 and every size at least 2")
@@ -390,6 +397,7 @@ def main(argv: list[str] | None = None) -> int:
         run_baseline(folder, WARM_UP[0], folder / "warm.npy")
         worker = None if args.no_queue else Worker(folder)
         if worker is not None:
+            worker.wait_ready()
             for n in WARM_UP:  # the slot's first jobs, untimed
                 worker.flow(folder / f"warm-{n}.toml", folder / f"warm-{n}.zarr")
         for n in args.sizes:

@@ -59,7 +59,7 @@ def peak_bytes(job: Path) -> int:
     rather than from this one, whose own peak grows as it builds problems for the estimates.
     """
     exe = Path(sys.executable).with_name("sevenfold")
-    out = subprocess.run([sys.executable, "-c", MEASURE, str(exe), "run", "--no-progress", str(job)],
+    out = subprocess.run([sys.executable, "-c", MEASURE, str(exe), "run", "--here", "--no-progress", str(job)],
                          capture_output=True, text=True, check=True).stdout.split()
     if out[0] != "0":
         raise RuntimeError(f"{job} failed with status {out[0]}")

@@ -38,6 +38,10 @@ from pathlib import Path
 
 import numpy as np
 
+# Timed `sevenfold run` processes solve in their own process: an empty default queue home of
+# their own, so that `run` hands nothing to a worker the user may have running.
+os.environ["SEVENFOLD_HOME"] = os.path.join(tempfile.gettempdir(), "sevenfold-bench-no-queue")
+
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import baseline  # noqa: E402

@@ -1,7 +1,8 @@
 """How fast sevenfold starts: whole `sevenfold` processes, measured against a baseline in the
 same run, and optionally against an older revision of the code in the same run.
 
-    python benchmarks/start_bench.py                    # warm run and check of a 32^3 job
+    python benchmarks/start_bench.py                    # warm run and check of a 32^3 job, and
+                                                        # the run handed to a running worker
     python benchmarks/start_bench.py --base 6d2df71     # the same commands from that revision
     python benchmarks/start_bench.py --cold             # first runs from an empty numba cache
     python benchmarks/start_bench.py --cold --base def0f19 --cold-methods gmg --cold-repeats 2
@@ -136,6 +137,32 @@ def import_profile(env: dict[str, str], job: Path) -> list[tuple[str, float]]:
     return rows[:12]
 
 
+def handed_off(sevenfold: list[str], env: dict[str, str], job: Path, work: Path, repeats: int) -> dict[str, float]:
+    """``sevenfold run -q`` with a worker (one slot) of a fresh queue home running: the job is
+    handed to it. The worker's first start compiles into that home's cache, untimed; CPU is
+    the client process's own (the worker's is not counted)."""
+    home = work / "queue-home"
+    log = work / "worker.out"
+    with open(log, "w") as fh:
+        worker = subprocess.Popen(sevenfold + ["worker", "--home", str(home), "--slots", "1"],
+                                  stdout=fh, stderr=subprocess.STDOUT, env=env)
+    try:
+        deadline = time.monotonic() + 900
+        while "ready" not in log.read_text():
+            if worker.poll() is not None or time.monotonic() > deadline:
+                raise SystemExit(f"the worker did not get ready:\n{log.read_text()}")
+            time.sleep(0.2)
+        result = measure(sevenfold + ["run", "-q", "--home", str(home), str(job)], env, repeats)
+        from sevenfold.store import read_attrs
+
+        if "queue" not in read_attrs(job.with_suffix(".zarr")):
+            raise SystemExit("the measured run was not handed to the worker")
+        return result
+    finally:
+        worker.terminate()
+        worker.wait(120)
+
+
 def main() -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--repeats", type=int, default=7)
@@ -148,6 +175,8 @@ def main() -> None:
                    help="cold runs per method and code (each from its own empty cache)")
     p.add_argument("--tree", action="append", default=[], metavar="LABEL=SRC",
                    help="also measure an experimental copy of the package source (a src folder)")
+    p.add_argument("--no-worker", action="store_true",
+                   help="skip the run handed to a running worker (its first start compiles, ~40 s)")
     p.add_argument("--output", default=str(HERE / "RESULTS_START.md"))
     args = p.parse_args()
     load_start = load_average()
@@ -175,6 +204,9 @@ def main() -> None:
         rows.append((label, "sevenfold check column32 (gmg)", measure(sevenfold + ["check", str(jobs["gmg"])], tree_env, args.repeats)))
         rows.append((label, "sevenfold run -q column32, gmg (warm)", measure(sevenfold + ["run", "-q", str(jobs["gmg"])], tree_env, args.repeats)))
         rows.append((label, "sevenfold run -q constant32, fft (warm)", measure(sevenfold + ["run", "-q", str(jobs["fft"])], tree_env, args.repeats)))
+    if not args.no_worker:
+        rows.append(("this", "sevenfold run -q column32, gmg, handed to a running worker",
+                     handed_off(sevenfold, env, jobs["gmg"], work, args.repeats)))
     profile = import_profile(env, jobs["gmg"])
     cold_rows = []
     if args.cold:  # every code's cold runs alternate, so a load change hits them alike

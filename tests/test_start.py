@@ -222,3 +222,15 @@ def test_no_kernel_is_compiled_twice_for_accidental_type_differences(tmp_path: P
             kinds = [_normalised(s) for s in d.signatures]
             assert len(kinds) == len(set(kinds)), f"{module.__name__}.{name}: {d.signatures}"
     assert compiled >= 10  # the test did compile the kernels it checks
+
+
+def test_a_workers_first_start_announces_the_shared_kernels_once() -> None:
+    """Every method compiled at once (a queue worker's first start) shares the operator, the
+    vector updates and the assembly: the notice says the measured whole, less than the sum
+    of the methods' separate first runs, and a single method keeps its own figure."""
+    from sevenfold.kernels import cache
+
+    every = tuple(cache.COMPILE_SECONDS)
+    assert f"about {cache.ALL_METHODS_SECONDS} s" in cache.notice(every)
+    assert cache.ALL_METHODS_SECONDS < sum(cache.COMPILE_SECONDS.values())
+    assert f"about {cache.COMPILE_SECONDS['amg']} s" in cache.notice(("amg",))

@@ -25,6 +25,11 @@ from pathlib import Path
 # kernels/warmup.py; 37.6 s of CPU), amg 18.6; direct 13.4 and fft 1.3 (12:30), compiled
 # single-threaded. A busy machine takes longer, hence "about".
 COMPILE_SECONDS = {"gmg": 20, "amg": 19, "direct": 13, "fft": 1}
+# A queue worker's first start compiles every method at once: the kernels the methods share
+# (operator, vector updates, assembly) once, not once per method as the sum above counts
+# them. Measured from a new queue home (its slot's "kernels warm in" line): 30.1 s at load
+# 0.3 (2026-12-02 19:05), 38.4 s at load 1.5 (the same day, `sevenfold demo`).
+ALL_METHODS_SECONDS = 35
 
 
 def _kernel_files() -> list[Path]:
@@ -100,7 +105,8 @@ def notice(methods: list[str] | tuple[str, ...], seconds: float | None = None) -
     """The sentence said before a first run compiles the kernels of ``methods`` (``seconds``:
     the estimate, when known better than the methods' whole compile)."""
     if seconds is None:
-        seconds = sum(COMPILE_SECONDS.get(m, 0) for m in methods)
+        seconds = (ALL_METHODS_SECONDS if set(methods) >= set(COMPILE_SECONDS)
+                   else sum(COMPILE_SECONDS.get(m, 0) for m in methods))
     which = ", ".join(methods)
     return (f"first run of {which} here: compiling the numerical kernels once, about "
             f"{max(round(seconds), 1)} s on a 2-core machine (later runs load them from the cache)")
