@@ -22,6 +22,7 @@ from .db import FINISHED, Job, Queue
 from .files import pid_alive, remove_partials
 from .home import Home, home_root
 from .watch import Progress, read_progress
+from .worker import cores
 
 POLL = 0.05  # s between looks at the job and its residual log (two small reads)
 LOST_AFTER = 2.0  # s a queued hand-off may wait with no worker left to take it
@@ -40,17 +41,21 @@ class Handed:
 def idle_worker(queue: Queue) -> str | None:
     """A live slot worker on this machine with a free slot, when no job waits; else None.
 
-    Cluster workers (``worker --cluster``) are left out: their jobs run elsewhere.
+    Only a worker whose slot has every core (one slot) qualifies: a slot of a worker with
+    several has a share of them, and the job would solve on fewer threads than ``run`` uses
+    here. Cluster workers (``worker --cluster``) are left out: their jobs run elsewhere.
     """
     if queue.counts()["queued"]:
         return None
+    every_core = cores()
     host = socket.gethostname()
     running = {}
     for j in queue.jobs(state="running"):
         running[j.worker] = running.get(j.worker, 0) + 1
     for w in queue.workers(alive_only=True):
+        slots = int(w["slots"])
         if (w["host"] == host and not w["id"].endswith(":dask") and pid_alive(int(w["pid"]))
-                and running.get(w["id"], 0) < int(w["slots"])):
+                and max(1, every_core // slots) >= every_core and running.get(w["id"], 0) < slots):
             return str(w["id"])
     return None
 
