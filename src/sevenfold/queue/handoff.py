@@ -24,7 +24,9 @@ from .home import Home, home_root
 from .watch import Progress, read_progress
 from .worker import cores
 
-POLL = 0.05  # s between looks at the job and its residual log (two small reads)
+POLL = 0.05  # s between looks at the job and its residual log, for a job's first seconds
+SLOW_POLL = 0.5  # s between looks after QUICK (the whole log is read each time, as watch does)
+QUICK = 2.0  # s
 LOST_AFTER = 2.0  # s a queued hand-off may wait with no worker left to take it
 RECOVER_EVERY = 5.0  # s between looks for runs of workers that died
 
@@ -98,6 +100,7 @@ def follow(handed: Handed, on_progress: Callable[[Job, Progress], None],
     grew; returns the finished job, or None when it was still queued with no worker left to
     take it (it is then cancelled, and the caller runs it itself)."""
     queue, job_id = handed.queue, handed.job.id
+    start = time.monotonic()
     seen = -1
     waiting_since: float | None = None
     last_recovery = time.monotonic()
@@ -126,4 +129,4 @@ def follow(handed: Handed, on_progress: Callable[[Job, Progress], None],
         if len(p.rows) != seen:
             seen = len(p.rows)
             on_progress(job, p)
-        time.sleep(poll)
+        time.sleep(poll if time.monotonic() - start < QUICK else max(poll, SLOW_POLL))
