@@ -1,13 +1,28 @@
-"""The matrix-free operator against the copy bandwidth, and a branch-free variant of it.
+"""The matrix-free operator against the copy bandwidth, a branch-free variant of it, and
+variants that store the diagonal implicitly.
 
-    python benchmarks/operator_bench.py [--sizes 256 512] [--repeats 7]
+    python benchmarks/operator_bench.py [--sizes 256 512] [--repeats 7] [--results FILE]
 
-Random face arrays of n^3 cells (float64, zero couplings on the last planes): the time of
-``stencil.apply`` (48 B per cell: read u, tx, ty, tz, diag, write out), of a variant whose
-inner z loop has no branches (the first and last cell of each column handled outside it, so
-the loop body is the same for every cell), and of ``np.copyto`` of one n^3 array (16 B per
-cell), best of ``--repeats`` each, interleaved; two numba threads. The variant gives the same
-result (checked to 1e-14 relative). Writes benchmarks/RESULTS_OPERATOR.md.
+Test data of n^3 cells (float64), built with the structure of a finest level: random face
+couplings tx, ty, tz (zero on the last planes); a positive conductance on every cell face of the
+six outer planes (as Dirichlet faces give; an edge or corner cell gets one per outer face it
+has); ``--interior`` random interior cells with a positive extra (as holds, exchanges and wells
+give); diag = the sum of the cell's couplings + those extras.
+
+Variants, each checked against ``stencil.apply`` on the same data (max |difference| / max |A u|
+must stay below ``TOLERANCE``, else the script stops):
+
+* ``stencil.apply``: reads u, tx, ty, tz, diag and writes out: 48 B per cell.
+* branch-free: the same arrays, the inner z loop without branches (the first and last cell of
+  each column handled outside it): 48 B per cell.
+* implicit: no diag array; a cell's diagonal is the sum of its six couplings plus ``extra``,
+  held as six 2D planes (one per outer face of the block, added, so edge and corner cells get
+  each of their faces') and a list of (flat index, value) for the interior cells, added after
+  the main loop: 40 B per cell (the planes add 48 B per n cells).
+* implicit + branch-free: the implicit diagonal with the branch-free z loop: 40 B per cell.
+
+The times are best of ``--repeats`` each, the four and ``np.copyto`` of one n^3 array (16 B per
+cell) interleaved three times; two numba threads. Writes benchmarks/RESULTS_OPERATOR.md.
 """
 
 from __future__ import annotations
@@ -23,6 +38,8 @@ from numba import njit, prange
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import run as engine  # noqa: E402
+
+TOLERANCE = 2e-15  # max |variant - stencil.apply| / max |stencil.apply|
 
 
 @njit(parallel=True)
@@ -46,6 +63,198 @@ def apply_branch_free(tx, ty, tz, diag, u, out):
                 out[i, j, nz - 1] -= tz[i, j, nz - 2] * u[i, j, nz - 2]
 
 
+@njit(inline="always")
+def _coupling_sum(tx, ty, tz, i, j, m, nx, ny, nz):
+    """The sum of cell (i, j, m)'s six couplings, in one fixed order (the split and the test
+    data use this, so a cell without extra has diag == this sum exactly)."""
+    s = 0.0
+    if i > 0:
+        s += tx[i - 1, j, m]
+    if i < nx - 1:
+        s += tx[i, j, m]
+    if j > 0:
+        s += ty[i, j - 1, m]
+    if j < ny - 1:
+        s += ty[i, j, m]
+    if m > 0:
+        s += tz[i, j, m - 1]
+    if m < nz - 1:
+        s += tz[i, j, m]
+    return s
+
+
+@njit(parallel=True)
+def _build_diag(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, idx, val, diag):
+    """diag = sum of couplings + each outer face's conductance on its plane + val at idx."""
+    nx, ny, nz = diag.shape
+    for i in prange(nx):
+        for j in range(ny):
+            for m in range(nz):
+                d = _coupling_sum(tx, ty, tz, i, j, m, nx, ny, nz)
+                if i == 0:
+                    d += ex0[j, m]
+                if i == nx - 1:
+                    d += ex1[j, m]
+                if j == 0:
+                    d += ey0[i, m]
+                if j == ny - 1:
+                    d += ey1[i, m]
+                if m == 0:
+                    d += ez0[i, j]
+                if m == nz - 1:
+                    d += ez1[i, j]
+                diag[i, j, m] = d
+    flat = diag.reshape(-1)
+    for k in range(idx.size):
+        flat[idx[k]] += val[k]
+
+
+@njit
+def _interior_extra(tx, ty, tz, diag, count_only, idx, val):
+    """The interior cells whose diag differs from the sum of their couplings: their number,
+    and (unless ``count_only``) their flat indices and diag - sum in idx, val."""
+    nx, ny, nz = diag.shape
+    n = 0
+    for i in range(1, nx - 1):
+        for j in range(1, ny - 1):
+            for m in range(1, nz - 1):
+                e = diag[i, j, m] - _coupling_sum(tx, ty, tz, i, j, m, nx, ny, nz)
+                if e != 0.0:
+                    if not count_only:
+                        idx[n] = (i * ny + j) * nz + m
+                        val[n] = e
+                    n += 1
+    return n
+
+
+@njit(parallel=True)
+def _plane_extra(tx, ty, tz, diag, ex0, ex1, ey0, ey1, ez0, ez1):
+    """diag - sum of couplings on the six outer planes, each cell's in exactly one plane (x
+    planes first, then y, then z), so that adding the six planes gives it once."""
+    nx, ny, nz = diag.shape
+    for i in prange(nx):
+        for j in range(ny):
+            for m in range(nz):
+                on_x = i == 0 or i == nx - 1
+                on_y = j == 0 or j == ny - 1
+                on_z = m == 0 or m == nz - 1
+                if not (on_x or on_y or on_z):
+                    continue
+                e = diag[i, j, m] - _coupling_sum(tx, ty, tz, i, j, m, nx, ny, nz)
+                if on_x:
+                    if i == 0:
+                        ex0[j, m] = e
+                    else:
+                        ex1[j, m] = e
+                elif on_y:
+                    if j == 0:
+                        ey0[i, m] = e
+                    else:
+                        ey1[i, m] = e
+                elif m == 0:
+                    ez0[i, j] = e
+                else:
+                    ez1[i, j] = e
+
+
+def split_diag(tx, ty, tz, diag):
+    """(ex0, ex1, ey0, ey1, ez0, ez1), idx, val with diag = sum of couplings + the planes' extra
+    (x planes indexed [j, m], y planes [i, m], z planes [i, j]) + val at the flat indices idx.
+    Here a cell on several outer planes gets its whole extra in one of them and zero in the
+    others; the kernels add all six, so planes holding each face's own conductance work too."""
+    nx, ny, nz = diag.shape
+    planes = tuple(np.zeros(s) for s in ((ny, nz), (ny, nz), (nx, nz), (nx, nz), (nx, ny), (nx, ny)))
+    _plane_extra(tx, ty, tz, diag, *planes)
+    n = _interior_extra(tx, ty, tz, diag, True, np.empty(0, np.int64), np.empty(0))
+    idx, val = np.empty(n, np.int64), np.empty(n)
+    _interior_extra(tx, ty, tz, diag, False, idx, val)
+    return planes, idx, val
+
+
+@njit(inline="always")
+def _add_planes(ex0, ex1, ey0, ey1, ez0, ez1, u, out, i, j, nx, ny, nz):
+    """out += extra * u for column (i, j) from the six outer planes (the column is in cache)."""
+    out[i, j, 0] += ez0[i, j] * u[i, j, 0]
+    out[i, j, nz - 1] += ez1[i, j] * u[i, j, nz - 1]
+    if i == 0:
+        for m in range(nz):
+            out[i, j, m] += ex0[j, m] * u[i, j, m]
+    if i == nx - 1:
+        for m in range(nz):
+            out[i, j, m] += ex1[j, m] * u[i, j, m]
+    if j == 0:
+        for m in range(nz):
+            out[i, j, m] += ey0[i, m] * u[i, j, m]
+    if j == ny - 1:
+        for m in range(nz):
+            out[i, j, m] += ey1[i, m] * u[i, j, m]
+
+
+@njit
+def _add_sparse(idx, val, u, out):
+    """out += val * u at the flat indices idx (after the parallel loop: no races)."""
+    fu, fo = u.reshape(-1), out.reshape(-1)
+    for k in range(idx.size):
+        fo[idx[k]] += val[k] * fu[idx[k]]
+
+
+@njit(parallel=True)
+def apply_implicit_diag(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, idx, val, u, out):
+    """out = A u without a diag array: diag = sum of the couplings (computed in the loop) +
+    the outer planes' extra (per column) + the interior list's (after the loop)."""
+    nx, ny, nz = u.shape
+    for i in prange(nx):
+        im, ip = max(i - 1, 0), min(i + 1, nx - 1)
+        wxm, wxp = (1.0 if i > 0 else 0.0), (1.0 if i < nx - 1 else 0.0)
+        for j in range(ny):
+            jm, jp = max(j - 1, 0), min(j + 1, ny - 1)
+            wym, wyp = (1.0 if j > 0 else 0.0), (1.0 if j < ny - 1 else 0.0)
+            for m in range(nz):
+                a, b = wxm * tx[im, j, m], wxp * tx[i, j, m]
+                c, d = wym * ty[i, jm, m], wyp * ty[i, j, m]
+                s = a + b + c + d
+                v = a * u[im, j, m] + b * u[ip, j, m] + c * u[i, jm, m] + d * u[i, jp, m]
+                if m > 0:
+                    e = tz[i, j, m - 1]
+                    s += e
+                    v += e * u[i, j, m - 1]
+                if m < nz - 1:
+                    e = tz[i, j, m]
+                    s += e
+                    v += e * u[i, j, m + 1]
+                out[i, j, m] = s * u[i, j, m] - v
+            _add_planes(ex0, ex1, ey0, ey1, ez0, ez1, u, out, i, j, nx, ny, nz)
+    _add_sparse(idx, val, u, out)
+
+
+@njit(parallel=True)
+def apply_implicit_branch_free(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, idx, val, u, out):
+    """apply_implicit_diag with the z couplings in a second, branch-free loop over the column
+    (the first and last cell outside it), as in apply_branch_free."""
+    nx, ny, nz = u.shape
+    for i in prange(nx):
+        im, ip = max(i - 1, 0), min(i + 1, nx - 1)
+        wxm, wxp = (1.0 if i > 0 else 0.0), (1.0 if i < nx - 1 else 0.0)
+        for j in range(ny):
+            jm, jp = max(j - 1, 0), min(j + 1, ny - 1)
+            wym, wyp = (1.0 if j > 0 else 0.0), (1.0 if j < ny - 1 else 0.0)
+            for m in range(nz):
+                a, b = wxm * tx[im, j, m], wxp * tx[i, j, m]
+                c, d = wym * ty[i, jm, m], wyp * ty[i, j, m]
+                out[i, j, m] = ((a + b + c + d) * u[i, j, m] - a * u[im, j, m] - b * u[ip, j, m]
+                                - c * u[i, jm, m] - d * u[i, jp, m])
+            for m in range(1, nz - 1):
+                e, f = tz[i, j, m - 1], tz[i, j, m]
+                out[i, j, m] += (e + f) * u[i, j, m] - e * u[i, j, m - 1] - f * u[i, j, m + 1]
+            if nz > 1:
+                f = tz[i, j, 0]
+                out[i, j, 0] += f * (u[i, j, 0] - u[i, j, 1])
+                e = tz[i, j, nz - 2]
+                out[i, j, nz - 1] += e * (u[i, j, nz - 1] - u[i, j, nz - 2])
+            _add_planes(ex0, ex1, ey0, ey1, ez0, ez1, u, out, i, j, nx, ny, nz)
+    _add_sparse(idx, val, u, out)
+
+
 def best(f, repeats: int) -> float:
     f()
     times = []
@@ -56,10 +265,27 @@ def best(f, repeats: int) -> float:
     return min(times)
 
 
+def test_data(n: int, interior: int, rng):
+    """tx, ty, tz, diag, u and the extras the diagonal was built from (planes, idx, val)."""
+    shape = (n, n, n)
+    tx, ty, tz = (rng.uniform(0.5, 1.5, shape) for _ in range(3))
+    tx[-1], ty[:, -1], tz[:, :, -1] = 0.0, 0.0, 0.0
+    planes = tuple(rng.uniform(1.0, 3.0, (n, n)) for _ in range(6))  # about 2 k A / h
+    inner = np.arange(1, n - 1)
+    cells = (rng.choice(inner, (interior, 3)) if n > 2 else np.empty((0, 3), np.int64))
+    idx = np.unique((cells[:, 0] * n + cells[:, 1]) * n + cells[:, 2]).astype(np.int64)
+    val = rng.uniform(0.1, 5.0, idx.size)
+    diag = np.empty(shape)
+    _build_diag(tx, ty, tz, *planes, idx, val, diag)
+    u = rng.standard_normal(shape)
+    return tx, ty, tz, diag, u, planes, idx, val
+
+
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     p.add_argument("--sizes", type=int, nargs="+", default=[256, 512])
     p.add_argument("--repeats", type=int, default=7)
+    p.add_argument("--interior", type=int, default=300, help="interior cells with an extra diagonal")
     p.add_argument("--results", type=Path, default=HERE / "RESULTS_OPERATOR.md")
     args = p.parse_args(argv)
     from sevenfold.kernels import stencil
@@ -67,30 +293,68 @@ def main(argv: list[str] | None = None) -> int:
     rows = []
     for n in args.sizes:
         rng = np.random.default_rng(1)
-        shape = (n, n, n)
-        tx, ty, tz = (rng.uniform(0.5, 1.5, shape) for _ in range(3))
-        tx[-1], ty[:, -1], tz[:, :, -1] = 0.0, 0.0, 0.0
-        diag = 7.0 + rng.uniform(0.0, 1.0, shape)
-        u = rng.standard_normal(shape)
-        out, ref = np.empty(shape), np.empty(shape)
+        tx, ty, tz, diag, u, built_planes, built_idx, _ = test_data(n, args.interior, rng)
+        planes, idx, val = split_diag(tx, ty, tz, diag)
+        if not np.array_equal(idx, built_idx):
+            raise SystemExit(f"{n}^3: the split found {idx.size} interior cells with extra, "
+                             f"the data has {built_idx.size}")
+        del built_planes
+        out, ref = np.empty(u.shape), np.empty(u.shape)
         stencil.apply(tx, ty, tz, diag, u, ref)
-        apply_branch_free(tx, ty, tz, diag, u, out)
-        error = float(np.abs(out - ref).max() / np.abs(ref).max())
-        t_apply, t_free, t_copy = np.inf, np.inf, np.inf
-        for _ in range(3):  # interleaved, so a change in the machine's load hits all three
-            t_apply = min(t_apply, best(lambda: stencil.apply(tx, ty, tz, diag, u, out), args.repeats))
-            t_free = min(t_free, best(lambda: apply_branch_free(tx, ty, tz, diag, u, out), args.repeats))
-            t_copy = min(t_copy, best(lambda: np.copyto(out, u), args.repeats))
-        copy_bw = 16 * n**3 / t_copy
-        rows.append((n, 48 * n**3 / t_apply / copy_bw, 48 * n**3 / t_free / copy_bw, copy_bw, error))
-        print(rows[-1], flush=True)
+        scale = float(np.abs(ref).max())
+        variants = {
+            "branch-free": lambda: apply_branch_free(tx, ty, tz, diag, u, out),
+            "implicit": lambda: apply_implicit_diag(tx, ty, tz, *planes, idx, val, u, out),
+            "implicit + branch-free": lambda: apply_implicit_branch_free(tx, ty, tz, *planes, idx, val,
+                                                                         u, out),
+        }
+        errors = {}
+        for name, f in variants.items():
+            out.fill(np.nan)
+            f()
+            errors[name] = float(np.abs(out - ref).max() / scale)
+            if not errors[name] < TOLERANCE:  # (also catches NaN: a cell not written)
+                raise SystemExit(f"{n}^3: {name} differs from stencil.apply by {errors[name]:.2e} "
+                                 f"relative (tolerance {TOLERANCE:.0e})")
+        times = dict.fromkeys(["stencil.apply", *variants, "copy"], np.inf)
+        calls = {"stencil.apply": lambda: stencil.apply(tx, ty, tz, diag, u, out), **variants,
+                 "copy": lambda: np.copyto(out, u)}
+        for _ in range(3):  # interleaved, so a change in the machine's load hits all of them
+            for name, f in calls.items():
+                times[name] = min(times[name], best(f, args.repeats))
+        copy_bw = 16 * n**3 / times["copy"]
+        cell_bytes = {"stencil.apply": 48, "branch-free": 48, "implicit": 40, "implicit + branch-free": 40}
+        share = {k: b * n**3 / times[k] / copy_bw for k, b in cell_bytes.items()}
+        ratio = {k: times[k] / times["stencil.apply"] for k in variants}
+        saved = (diag.nbytes - sum(a.nbytes for a in planes) - idx.nbytes - val.nbytes) / n**3
+        rows.append((n, share, ratio, copy_bw, errors, saved, idx.size))
+        print(n, {k: f"{v:.0%}" for k, v in share.items()}, {k: f"{v:.3f}" for k, v in ratio.items()},
+              f"copy {copy_bw / 1e9:.1f} GB/s", errors, f"saves {saved:.2f} B/unknown", flush=True)
     head, info = engine.report_head("operator_bench.py", argv, "The operator against the copy bandwidth")
     out_lines = head + [
-                 "Share of `np.copyto`'s bandwidth (16 B per cell) reached by 48 B per cell per application; "
-                 "best times, the three interleaved.", "",
-                 "| cells | stencil.apply | branch-free z loop | copy GB/s | variant's max difference |",
-                 "|---|---|---|---|---|"]
-    out_lines += [f"| {n}^3 | {a:.0%} | {f:.0%} | {c / 1e9:.1f} | {e:.1e} |" for n, a, f, c, e in rows]
+        "Share of `np.copyto`'s bandwidth (16 B per cell) reached per application, each variant "
+        "counted with its own bytes per cell: 48 for `stencil.apply` and the branch-free z loop "
+        "(read u, tx, ty, tz, diag; write out), 40 for the two implicit-diagonal variants (no diag "
+        "array; a cell's diagonal is the sum of its couplings plus an extra held in six 2D planes "
+        "for the outer faces and a list for the interior cells). Test data: diag = sum of couplings "
+        "+ a positive conductance on each outer face + an extra on a few hundred random interior "
+        "cells. Best times, all five interleaved.", "",
+        "* time / apply: the variant's best time per application over `stencil.apply`'s in the "
+        "same run (below 1 is faster).",
+        "* max difference: max |variant - stencil.apply| / max |stencil.apply| (the script stops "
+        f"above {TOLERANCE:.0e}).",
+        "* saved: memory of the dropped diag array minus the planes and the interior list, per "
+        "unknown.", "",
+        "| cells | stencil.apply | branch-free z loop | implicit diag | implicit + branch-free "
+        "| time / apply: branch-free, implicit, implicit + branch-free | copy GB/s "
+        "| max difference: branch-free, implicit, implicit + branch-free | interior extras | saved B/unknown |",
+        "|---|---|---|---|---|---|---|---|---|---|"]
+    for n, share, ratio, copy_bw, errors, saved, count in rows:
+        out_lines.append(
+            f"| {n}^3 | {share['stencil.apply']:.0%} | {share['branch-free']:.0%} | {share['implicit']:.0%} "
+            f"| {share['implicit + branch-free']:.0%} | " + ", ".join(f"{v:.3f}" for v in ratio.values())
+            + f" | {copy_bw / 1e9:.1f} | " + ", ".join(f"{v:.1e}" for v in errors.values())
+            + f" | {count} | {saved:.2f} |")
     engine.write_report(args.results, out_lines, info)
     return 0
 
