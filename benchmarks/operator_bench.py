@@ -1,7 +1,8 @@
 """The matrix-free operator against the copy bandwidth, a branch-free variant of it, and
 variants that store the diagonal implicitly.
 
-    python benchmarks/operator_bench.py [--sizes 256 512] [--repeats 7] [--results FILE]
+    python benchmarks/operator_bench.py [--sizes 256 512] [--repeats 7] [--interior 300]
+                                        [--jblock 32] [--results FILE]
 
 Test data of n^3 cells (float64), built with the structure of a finest level: random face
 couplings tx, ty, tz (zero on the last planes); a positive conductance on every cell face of the
@@ -20,9 +21,17 @@ must stay below ``TOLERANCE``, else the script stops):
   each of their faces') and a list of (flat index, value) for the interior cells, added after
   the main loop: 40 B per cell (the planes add 48 B per n cells).
 * implicit + branch-free: the implicit diagonal with the branch-free z loop: 40 B per cell.
+* branch-free, y bands and implicit + branch-free, y bands: the same arithmetic as branch-free
+  and implicit + branch-free, with the loops reordered: each thread walks its slab of x planes
+  in bands of ``--jblock`` y rows, so that u's plane i - 1 is still in cache when plane i + 1
+  reads it (48 and 40 B per cell).
 
-The times are best of ``--repeats`` each, the four and ``np.copyto`` of one n^3 array (16 B per
-cell) interleaved three times; two numba threads. Writes benchmarks/RESULTS_OPERATOR.md.
+The times are best of ``--repeats`` each, the six variants and ``np.copyto`` of one n^3 array
+(16 B per cell) interleaved three times; two numba threads. The result file gives each
+variant's share of the copy bandwidth (its own bytes per cell over its time, against 16 B per
+cell over the copy's time), its time over ``stencil.apply``'s, its max difference, the number of
+interior cells in the list and the memory saved per unknown by dropping diag (less the planes and
+the list). Writes benchmarks/RESULTS_OPERATOR.md.
 """
 
 from __future__ import annotations
@@ -33,7 +42,7 @@ import time
 from pathlib import Path
 
 import numpy as np
-from numba import njit, prange
+from numba import get_num_threads, njit, prange
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
@@ -255,6 +264,62 @@ def apply_implicit_branch_free(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, idx, va
     _add_sparse(idx, val, u, out)
 
 
+@njit(parallel=True)
+def apply_implicit_blocked(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, idx, val, u, out, jblock):
+    """apply_implicit_branch_free with the loops reordered: each thread takes one slab of x
+    planes and walks it in bands of ``jblock`` y rows (all its planes for one band, then the
+    next band), so that u's plane i - 1 is still in cache when plane i + 1 needs it."""
+    nx, ny, nz = u.shape
+    slabs = min(get_num_threads(), nx)
+    for t in prange(slabs):
+        for j0 in range(0, ny, jblock):
+            for i in range(t * nx // slabs, (t + 1) * nx // slabs):
+                im, ip = max(i - 1, 0), min(i + 1, nx - 1)
+                wxm, wxp = (1.0 if i > 0 else 0.0), (1.0 if i < nx - 1 else 0.0)
+                for j in range(j0, min(j0 + jblock, ny)):
+                    jm, jp = max(j - 1, 0), min(j + 1, ny - 1)
+                    wym, wyp = (1.0 if j > 0 else 0.0), (1.0 if j < ny - 1 else 0.0)
+                    for m in range(nz):
+                        a, b = wxm * tx[im, j, m], wxp * tx[i, j, m]
+                        c, d = wym * ty[i, jm, m], wyp * ty[i, j, m]
+                        out[i, j, m] = ((a + b + c + d) * u[i, j, m] - a * u[im, j, m] - b * u[ip, j, m]
+                                        - c * u[i, jm, m] - d * u[i, jp, m])
+                    for m in range(1, nz - 1):
+                        e, f = tz[i, j, m - 1], tz[i, j, m]
+                        out[i, j, m] += (e + f) * u[i, j, m] - e * u[i, j, m - 1] - f * u[i, j, m + 1]
+                    if nz > 1:
+                        f = tz[i, j, 0]
+                        out[i, j, 0] += f * (u[i, j, 0] - u[i, j, 1])
+                        e = tz[i, j, nz - 2]
+                        out[i, j, nz - 1] += e * (u[i, j, nz - 1] - u[i, j, nz - 2])
+                    _add_planes(ex0, ex1, ey0, ey1, ez0, ez1, u, out, i, j, nx, ny, nz)
+    _add_sparse(idx, val, u, out)
+
+
+@njit(parallel=True)
+def apply_branch_free_blocked(tx, ty, tz, diag, u, out, jblock):
+    """apply_branch_free (with diag, 48 B per cell) in the loop order of apply_implicit_blocked."""
+    nx, ny, nz = u.shape
+    slabs = min(get_num_threads(), nx)
+    for t in prange(slabs):
+        for j0 in range(0, ny, jblock):
+            for i in range(t * nx // slabs, (t + 1) * nx // slabs):
+                im, ip = max(i - 1, 0), min(i + 1, nx - 1)
+                wxm, wxp = (1.0 if i > 0 else 0.0), (1.0 if i < nx - 1 else 0.0)
+                for j in range(j0, min(j0 + jblock, ny)):
+                    jm, jp = max(j - 1, 0), min(j + 1, ny - 1)
+                    wym, wyp = (1.0 if j > 0 else 0.0), (1.0 if j < ny - 1 else 0.0)
+                    for m in range(nz):
+                        out[i, j, m] = (diag[i, j, m] * u[i, j, m] - wxm * tx[im, j, m] * u[im, j, m]
+                                        - wxp * tx[i, j, m] * u[ip, j, m] - wym * ty[i, jm, m] * u[i, jm, m]
+                                        - wyp * ty[i, j, m] * u[i, jp, m])
+                    for m in range(1, nz - 1):
+                        out[i, j, m] -= tz[i, j, m - 1] * u[i, j, m - 1] + tz[i, j, m] * u[i, j, m + 1]
+                    if nz > 1:
+                        out[i, j, 0] -= tz[i, j, 0] * u[i, j, 1]
+                        out[i, j, nz - 1] -= tz[i, j, nz - 2] * u[i, j, nz - 2]
+
+
 def best(f, repeats: int) -> float:
     f()
     times = []
@@ -281,11 +346,18 @@ def test_data(n: int, interior: int, rng):
     return tx, ty, tz, diag, u, planes, idx, val
 
 
+VARIANTS = ("stencil.apply", "branch-free", "implicit", "implicit + branch-free", "branch-free, y bands",
+            "implicit + branch-free, y bands")
+BYTES = {"stencil.apply": 48, "branch-free": 48, "implicit": 40, "implicit + branch-free": 40,
+         "branch-free, y bands": 48, "implicit + branch-free, y bands": 40}
+
+
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     p.add_argument("--sizes", type=int, nargs="+", default=[256, 512])
     p.add_argument("--repeats", type=int, default=7)
     p.add_argument("--interior", type=int, default=300, help="interior cells with an extra diagonal")
+    p.add_argument("--jblock", type=int, default=32, help="y rows per band in the banded variants")
     p.add_argument("--results", type=Path, default=HERE / "RESULTS_OPERATOR.md")
     args = p.parse_args(argv)
     from sevenfold.kernels import stencil
@@ -302,59 +374,69 @@ def main(argv: list[str] | None = None) -> int:
         out, ref = np.empty(u.shape), np.empty(u.shape)
         stencil.apply(tx, ty, tz, diag, u, ref)
         scale = float(np.abs(ref).max())
-        variants = {
+        jb = args.jblock
+        calls = {
+            "stencil.apply": lambda: stencil.apply(tx, ty, tz, diag, u, out),
             "branch-free": lambda: apply_branch_free(tx, ty, tz, diag, u, out),
             "implicit": lambda: apply_implicit_diag(tx, ty, tz, *planes, idx, val, u, out),
             "implicit + branch-free": lambda: apply_implicit_branch_free(tx, ty, tz, *planes, idx, val,
                                                                          u, out),
+            "branch-free, y bands": lambda: apply_branch_free_blocked(tx, ty, tz, diag, u, out, jb),
+            "implicit + branch-free, y bands": lambda: apply_implicit_blocked(tx, ty, tz, *planes, idx, val,
+                                                                              u, out, jb),
+            "copy": lambda: np.copyto(out, u),
         }
         errors = {}
-        for name, f in variants.items():
+        for name in VARIANTS[1:]:
             out.fill(np.nan)
-            f()
+            calls[name]()
             errors[name] = float(np.abs(out - ref).max() / scale)
             if not errors[name] < TOLERANCE:  # (also catches NaN: a cell not written)
                 raise SystemExit(f"{n}^3: {name} differs from stencil.apply by {errors[name]:.2e} "
                                  f"relative (tolerance {TOLERANCE:.0e})")
-        times = dict.fromkeys(["stencil.apply", *variants, "copy"], np.inf)
-        calls = {"stencil.apply": lambda: stencil.apply(tx, ty, tz, diag, u, out), **variants,
-                 "copy": lambda: np.copyto(out, u)}
+        times = dict.fromkeys(calls, np.inf)
         for _ in range(3):  # interleaved, so a change in the machine's load hits all of them
             for name, f in calls.items():
                 times[name] = min(times[name], best(f, args.repeats))
         copy_bw = 16 * n**3 / times["copy"]
-        cell_bytes = {"stencil.apply": 48, "branch-free": 48, "implicit": 40, "implicit + branch-free": 40}
-        share = {k: b * n**3 / times[k] / copy_bw for k, b in cell_bytes.items()}
-        ratio = {k: times[k] / times["stencil.apply"] for k in variants}
+        share = {k: BYTES[k] * n**3 / times[k] / copy_bw for k in VARIANTS}
+        ratio = {k: times[k] / times["stencil.apply"] for k in VARIANTS[1:]}
         saved = (diag.nbytes - sum(a.nbytes for a in planes) - idx.nbytes - val.nbytes) / n**3
         rows.append((n, share, ratio, copy_bw, errors, saved, idx.size))
         print(n, {k: f"{v:.0%}" for k, v in share.items()}, {k: f"{v:.3f}" for k, v in ratio.items()},
-              f"copy {copy_bw / 1e9:.1f} GB/s", errors, f"saves {saved:.2f} B/unknown", flush=True)
+              f"copy {copy_bw / 1e9:.1f} GB/s", {k: f"{v:.1e}" for k, v in errors.items()},
+              f"saves {saved:.2f} B/unknown", flush=True)
     head, info = engine.report_head("operator_bench.py", argv, "The operator against the copy bandwidth")
+    names = " | ".join(VARIANTS)
     out_lines = head + [
+        "Variants (see the script's docstring): `stencil.apply`, the production operator; branch-free: "
+        "its z loop without branches; implicit: no diag array, a cell's diagonal is the sum of its "
+        "six couplings plus an extra held in six 2D planes (the outer faces) and a list (interior "
+        "cells); implicit + branch-free: both; y bands: the same arithmetic with each thread walking "
+        f"its x slab in bands of {args.jblock} y rows. Test data: diag = sum of couplings + a positive "
+        "conductance on each outer face + an extra on a few hundred random interior cells. Best "
+        "times of each, all interleaved in one run.", "",
         "Share of `np.copyto`'s bandwidth (16 B per cell) reached per application, each variant "
-        "counted with its own bytes per cell: 48 for `stencil.apply` and the branch-free z loop "
-        "(read u, tx, ty, tz, diag; write out), 40 for the two implicit-diagonal variants (no diag "
-        "array; a cell's diagonal is the sum of its couplings plus an extra held in six 2D planes "
-        "for the outer faces and a list for the interior cells). Test data: diag = sum of couplings "
-        "+ a positive conductance on each outer face + an extra on a few hundred random interior "
-        "cells. Best times, all five interleaved.", "",
-        "* time / apply: the variant's best time per application over `stencil.apply`'s in the "
-        "same run (below 1 is faster).",
-        "* max difference: max |variant - stencil.apply| / max |stencil.apply| (the script stops "
-        f"above {TOLERANCE:.0e}).",
-        "* saved: memory of the dropped diag array minus the planes and the interior list, per "
-        "unknown.", "",
-        "| cells | stencil.apply | branch-free z loop | implicit diag | implicit + branch-free "
-        "| time / apply: branch-free, implicit, implicit + branch-free | copy GB/s "
-        "| max difference: branch-free, implicit, implicit + branch-free | interior extras | saved B/unknown |",
-        "|---|---|---|---|---|---|---|---|---|---|"]
-    for n, share, ratio, copy_bw, errors, saved, count in rows:
-        out_lines.append(
-            f"| {n}^3 | {share['stencil.apply']:.0%} | {share['branch-free']:.0%} | {share['implicit']:.0%} "
-            f"| {share['implicit + branch-free']:.0%} | " + ", ".join(f"{v:.3f}" for v in ratio.values())
-            + f" | {copy_bw / 1e9:.1f} | " + ", ".join(f"{v:.1e}" for v in errors.values())
-            + f" | {count} | {saved:.2f} |")
+        "counted with its own bytes per cell: " + ", ".join(f"{k} {b}" for k, b in BYTES.items())
+        + " (48: read u, tx, ty, tz, diag, write out; 40: no diag).", "",
+        f"| cells | {names} | copy GB/s |", "|---|" + "---|" * (len(VARIANTS) + 1)]
+    for n, share, _, copy_bw, *_ in rows:
+        out_lines.append(f"| {n}^3 | " + " | ".join(f"{share[k]:.0%}" for k in VARIANTS)
+                         + f" | {copy_bw / 1e9:.1f} |")
+    out_lines += [
+        "", "Time per application over `stencil.apply`'s in the same run (below 1 is faster):", "",
+        f"| cells | {' | '.join(VARIANTS[1:])} |", "|---|" + "---|" * (len(VARIANTS) - 1)]
+    for n, _, ratio, *_ in rows:
+        out_lines.append(f"| {n}^3 | " + " | ".join(f"{ratio[k]:.3f}" for k in VARIANTS[1:]) + " |")
+    out_lines += [
+        "", f"Max |variant - stencil.apply| / max |stencil.apply| (the script stops above {TOLERANCE:.0e}); "
+        "interior extras: the list's length from the split; saved: the dropped diag array minus the "
+        "planes and the list, bytes per unknown:", "",
+        f"| cells | {' | '.join(VARIANTS[1:])} | interior extras | saved B/unknown |",
+        "|---|" + "---|" * (len(VARIANTS) + 1)]
+    for n, _, _, _, errors, saved, count in rows:
+        out_lines.append(f"| {n}^3 | " + " | ".join(f"{errors[k]:.1e}" for k in VARIANTS[1:])
+                         + f" | {count} | {saved:.2f} |")
     engine.write_report(args.results, out_lines, info)
     return 0
 
