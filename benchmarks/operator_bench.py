@@ -13,7 +13,10 @@ give); diag = the sum of the cell's couplings + those extras.
 Variants, each checked against ``stencil.apply`` on the same data (max |difference| / max |A u|
 must stay below ``TOLERANCE``, else the script stops):
 
-* ``stencil.apply``: reads u, tx, ty, tz, diag and writes out: 48 B per cell.
+* ``stencil.apply``: reads u, tx, ty, tz, diag and writes out: 48 B per cell. Since
+  2026-12-02 it is branch-free and walks large planes in bands (``stencil._bands``).
+* plain order: the operator as it was before that, one x plane per prange iteration, the z
+  couplings with branches in the inner loop: 48 B per cell.
 * branch-free: the same arrays, the inner z loop without branches (the first and last cell of
   each column handled outside it): 48 B per cell.
 * implicit: no diag array; a cell's diagonal is the sum of its six couplings plus ``extra``,
@@ -49,6 +52,26 @@ sys.path.insert(0, str(HERE))
 import run as engine  # noqa: E402
 
 TOLERANCE = 2e-15  # max |variant - stencil.apply| / max |stencil.apply|
+
+
+@njit(parallel=True)
+def apply_plain(tx, ty, tz, diag, u, out):
+    """out = A u in the plain order with branches: ``stencil.apply`` before its bands."""
+    nx, ny, nz = u.shape
+    for i in prange(nx):
+        im, ip = max(i - 1, 0), min(i + 1, nx - 1)
+        wxm, wxp = (1.0 if i > 0 else 0.0), (1.0 if i < nx - 1 else 0.0)
+        for j in range(ny):
+            jm, jp = max(j - 1, 0), min(j + 1, ny - 1)
+            wym, wyp = (1.0 if j > 0 else 0.0), (1.0 if j < ny - 1 else 0.0)
+            for m in range(nz):
+                s = (wxm * tx[im, j, m] * u[im, j, m] + wxp * tx[i, j, m] * u[ip, j, m]
+                     + wym * ty[i, jm, m] * u[i, jm, m] + wyp * ty[i, j, m] * u[i, jp, m])
+                if m > 0:
+                    s += tz[i, j, m - 1] * u[i, j, m - 1]
+                if m < nz - 1:
+                    s += tz[i, j, m] * u[i, j, m + 1]
+                out[i, j, m] = diag[i, j, m] * u[i, j, m] - s
 
 
 @njit(parallel=True)
@@ -346,9 +369,9 @@ def test_data(n: int, interior: int, rng):
     return tx, ty, tz, diag, u, planes, idx, val
 
 
-VARIANTS = ("stencil.apply", "branch-free", "implicit", "implicit + branch-free", "branch-free, y bands",
+VARIANTS = ("stencil.apply", "plain order", "branch-free", "implicit", "implicit + branch-free", "branch-free, y bands",
             "implicit + branch-free, y bands")
-BYTES = {"stencil.apply": 48, "branch-free": 48, "implicit": 40, "implicit + branch-free": 40,
+BYTES = {"stencil.apply": 48, "plain order": 48, "branch-free": 48, "implicit": 40, "implicit + branch-free": 40,
          "branch-free, y bands": 48, "implicit + branch-free, y bands": 40}
 
 
@@ -377,6 +400,7 @@ def main(argv: list[str] | None = None) -> int:
         jb = args.jblock
         calls = {
             "stencil.apply": lambda: stencil.apply(tx, ty, tz, diag, u, out),
+            "plain order": lambda: apply_plain(tx, ty, tz, diag, u, out),
             "branch-free": lambda: apply_branch_free(tx, ty, tz, diag, u, out),
             "implicit": lambda: apply_implicit_diag(tx, ty, tz, *planes, idx, val, u, out),
             "implicit + branch-free": lambda: apply_implicit_branch_free(tx, ty, tz, *planes, idx, val,
@@ -409,8 +433,9 @@ def main(argv: list[str] | None = None) -> int:
     head, info = engine.report_head("operator_bench.py", argv, "The operator against the copy bandwidth")
     names = " | ".join(VARIANTS)
     out_lines = head + [
-        "Variants (see the script's docstring): `stencil.apply`, the production operator; branch-free: "
-        "its z loop without branches; implicit: no diag array, a cell's diagonal is the sum of its "
+        "Variants (see the script's docstring): `stencil.apply`, the production operator (branch-free, "
+        "large planes in bands); plain order: the production operator before that; branch-free: "
+        "the plain order's z loop without branches; implicit: no diag array, a cell's diagonal is the sum of its "
         "six couplings plus an extra held in six 2D planes (the outer faces) and a list (interior "
         "cells); implicit + branch-free: both; y bands: the same arithmetic with each thread walking "
         f"its x slab in bands of {args.jblock} y rows. Test data: diag = sum of couplings + a positive "

@@ -531,6 +531,36 @@ def test_fused_residual_restriction_and_products(shape, step) -> None:
     assert abs(rz - float(r.ravel() @ z)) <= 1e-12 * float(np.abs(r.ravel() * z).sum())
 
 
+@pytest.mark.parametrize("shape", [(3, 410, 400), (17, 370, 360), (9, 2, 70000)])
+def test_operator_in_bands_on_large_planes(shape) -> None:
+    """Planes above stencil.BAND_PLANE cells are walked in slabs and bands of y rows: apply and
+    apply_dot still give A u and u . A u on every cell (odd last slabs and bands, a slab count
+    below the threads, one row per band) against the face arrays written out with numpy
+    (common practice: 7-point stencil)."""
+    from sevenfold.kernels import stencil
+
+    nx, ny, nz = shape
+    assert ny * nz > stencil.BAND_PLANE  # the banded traversal, not the plain one
+    per, rows = stencil._bands.py_func(nx, ny, nz)
+    assert rows < ny and (nx % per or ny % rows or rows == 1)  # uneven or single-row bands
+    tx, ty, tz, diag, free = _random_level(shape)
+    u = np.random.default_rng(4).standard_normal(shape)
+    au = diag * u
+    au[:-1] -= tx[:-1] * u[1:]
+    au[1:] -= tx[:-1] * u[:-1]
+    au[:, :-1] -= ty[:, :-1] * u[:, 1:]
+    au[:, 1:] -= ty[:, :-1] * u[:, :-1]
+    au[:, :, :-1] -= tz[:, :, :-1] * u[:, :, 1:]
+    au[:, :, 1:] -= tz[:, :, :-1] * u[:, :, :-1]
+    out = np.full(shape, np.nan)
+    stencil.apply(tx, ty, tz, diag, u, out)
+    assert np.abs(out - au).max() <= 1e-12 * np.abs(au).max()  # NaN (a cell missed) fails too
+    out.fill(np.nan)
+    udotau = stencil.apply_dot(tx, ty, tz, diag, u, out)
+    assert np.abs(out - au).max() <= 1e-12 * np.abs(au).max()
+    assert abs(udotau - float(np.sum(u * au))) <= 1e-12 * float(np.sum(np.abs(u * au)))
+
+
 def test_finest_level_passes_per_iteration(monkeypatch) -> None:
     """Work per CG iteration on the finest level, counted in kernel passes (not times): one
     operator pass (with p . A p), and per preconditioner application four one-pass line
