@@ -3,7 +3,8 @@
 # revision's, alternating so that a change in the shared machine's load hits both alike.
 #   benchmarks/ab_big.sh BASE_REVISION [N] [PATTERN]     (defaults: 512, layered)
 # Prints each run's wall time, peak resident memory and the job's own split; each code first
-# runs the 64^3 job unmeasured (it compiles or loads the kernels).
+# runs the 64^3 job unmeasured (it compiles or loads the kernels). Runs solve in their own
+# process (an empty queue home: no running worker takes them).
 set -euo pipefail
 base=$1; n=${2:-512}; pattern=${3:-layered}
 root=$(cd "$(dirname "$0")/.." && pwd)
@@ -23,9 +24,9 @@ cd "$work"
 echo "# $(date -u '+%Y-%m-%d %H:%M UTC'), $(git -C "$root" rev-parse --short HEAD) (+ working tree) against $base, ${n}^3 $pattern, $(nproc) cores, load $(cut -d' ' -f1-3 /proc/loadavg)"
 for code in this "$base" this "$base"; do
   src=$root/src; [ "$code" = this ] || src=$work/base/src
-  PYTHONPATH=$src "$py" -m sevenfold.cli run -q small.toml >/dev/null 2>&1
+  SEVENFOLD_HOME="$work/no-queue" PYTHONPATH=$src "$py" -m sevenfold.cli run -q small.toml >/dev/null 2>&1
   rm -rf big.zarr
-  out=$(/usr/bin/time -f "wall %e s, peak %M KiB" env PYTHONPATH="$src" COLUMNS=200 \
+  out=$(/usr/bin/time -f "wall %e s, peak %M KiB" env PYTHONPATH="$src" COLUMNS=200 SEVENFOLD_HOME="$work/no-queue" \
         "$py" -m sevenfold.cli run --no-progress big.toml 2>&1 | tr '\n' ' ')
   echo "$code: $(grep -oE 'wall [0-9.]+ s, peak [0-9]+ KiB' <<<"$out"); $(grep -oE 'job [0-9.]+ s \([^)]*\)' <<<"$out")"
 done
