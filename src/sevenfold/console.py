@@ -104,10 +104,9 @@ def run_summary(summary: dict[str, Any]) -> str:
     """The line that ends a run: how the solve stopped, its iterations and residual, and
     where the time went. ``summary``: :meth:`SolveResult.summary` with the run's
     ``seconds`` (build, assemble, setup, solve, write, job) added, as a queue job keeps it."""
-    from .queue.watch import switch_text
-
     secs = summary.get("seconds") or {}
-    switched = f" ({switch_text(summary['switch'])})" if summary.get("switch") else ""
+    sw = summary.get("switch")  # the marked line above gave its reason
+    switched = f" (auto switched from {sw['from']} after {sw['after_iterations']} {sw['from']} iterations)" if sw else ""
     return (f"{'converged' if summary.get('converged') else 'stopped'}: {summary.get('method')}{switched}, "
             f"{summary.get('iterations')} iterations, relative residual "
             f"{summary.get('final_relative_residual', math.nan):.2e}, job {secs.get('job', math.nan):.2f} s "

@@ -40,26 +40,30 @@ class Handed:
     worker: str
 
 
-def idle_worker(queue: Queue) -> str | None:
-    """A live slot worker on this machine with a free slot, when no job waits; else None.
+def _free_workers(queue: Queue) -> list[str]:
+    """Live slot workers on this machine whose slot has every core (one slot) and is free.
 
-    Only a worker whose slot has every core (one slot) qualifies: a slot of a worker with
-    several has a share of them, and the job would solve on fewer threads than ``run`` uses
-    here. Cluster workers (``worker --cluster``) are left out: their jobs run elsewhere.
+    A slot of a worker with several has a share of the cores, and the job would solve on
+    fewer threads than ``run`` uses here. Cluster workers (``worker --cluster``) are left
+    out: their jobs run elsewhere.
     """
-    if queue.counts()["queued"]:
-        return None
     every_core = cores()
     host = socket.gethostname()
-    running = {}
+    running: dict[str | None, int] = {}
     for j in queue.jobs(state="running"):
         running[j.worker] = running.get(j.worker, 0) + 1
-    for w in queue.workers(alive_only=True):
-        slots = int(w["slots"])
-        if (w["host"] == host and not w["id"].endswith(":dask") and pid_alive(int(w["pid"]))
-                and max(1, every_core // slots) >= every_core and running.get(w["id"], 0) < slots):
-            return str(w["id"])
-    return None
+    return [str(w["id"]) for w in queue.workers(alive_only=True)
+            if w["host"] == host and not w["id"].endswith(":dask") and pid_alive(int(w["pid"]))
+            and max(1, every_core // int(w["slots"])) >= every_core and running.get(w["id"], 0) < int(w["slots"])]
+
+
+def idle_worker(queue: Queue) -> str | None:
+    """A free worker (:func:`_free_workers`) when no job waits, so a job queued now starts at
+    once; else None."""
+    if queue.counts()["queued"]:
+        return None
+    free = _free_workers(queue)
+    return free[0] if free else None
 
 
 def open_queue(home: str | Path | None = None) -> Queue | None:
@@ -97,8 +101,9 @@ def hand_off(job_file: str | Path, output: str | Path | None, home: str | Path |
 def follow(handed: Handed, on_progress: Callable[[Job, Progress], None],
            poll: float = POLL) -> Job | None:
     """Wait for the handed job to end, calling ``on_progress`` whenever its residual log
-    grew; returns the finished job, or None when it was still queued with no worker left to
-    take it (it is then cancelled, and the caller runs it itself)."""
+    grew; returns the finished job, or None when it waited :data:`LOST_AFTER` s with no
+    free worker to take it (the worker stopped, or another job took its slot first): it is
+    then cancelled, and the caller runs it itself."""
     queue, job_id = handed.queue, handed.job.id
     start = time.monotonic()
     seen = -1
@@ -118,7 +123,7 @@ def follow(handed: Handed, on_progress: Callable[[Job, Progress], None],
         if job.state == "queued":
             now = time.monotonic()
             waiting_since = waiting_since or now
-            if now - waiting_since > LOST_AFTER and idle_worker(queue) is None:
+            if now - waiting_since > LOST_AFTER and not _free_workers(queue):
                 done = dict((j.id, what) for j, what in queue.cancel([job_id]))
                 if done.get(job_id) == "cancelled":
                     return None
