@@ -50,6 +50,7 @@ from numba import get_num_threads, njit, prange
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import run as engine  # noqa: E402
+from sevenfold.kernels.stencil import _apply_row  # noqa: E402  (the production operator's row)
 
 TOLERANCE = 2e-15  # max |variant - stencil.apply| / max |stencil.apply|
 
@@ -76,23 +77,12 @@ def apply_plain(tx, ty, tz, diag, u, out):
 
 @njit(parallel=True)
 def apply_branch_free(tx, ty, tz, diag, u, out):
-    """out = A u with the z ends peeled off the inner loop (x and y weights as in stencil.apply)."""
+    """out = A u in the plain order (one x plane per prange iteration) with the production
+    operator's branch-free rows (``stencil._apply_row``: the z ends peeled off)."""
     nx, ny, nz = u.shape
     for i in prange(nx):
-        im, ip = max(i - 1, 0), min(i + 1, nx - 1)
-        wxm, wxp = (1.0 if i > 0 else 0.0), (1.0 if i < nx - 1 else 0.0)
         for j in range(ny):
-            jm, jp = max(j - 1, 0), min(j + 1, ny - 1)
-            wym, wyp = (1.0 if j > 0 else 0.0), (1.0 if j < ny - 1 else 0.0)
-            for m in range(nz):
-                out[i, j, m] = (diag[i, j, m] * u[i, j, m] - wxm * tx[im, j, m] * u[im, j, m]
-                                - wxp * tx[i, j, m] * u[ip, j, m] - wym * ty[i, jm, m] * u[i, jm, m]
-                                - wyp * ty[i, j, m] * u[i, jp, m])
-            for m in range(1, nz - 1):
-                out[i, j, m] -= tz[i, j, m - 1] * u[i, j, m - 1] + tz[i, j, m] * u[i, j, m + 1]
-            if nz > 1:
-                out[i, j, 0] -= tz[i, j, 0] * u[i, j, 1]
-                out[i, j, nz - 1] -= tz[i, j, nz - 2] * u[i, j, nz - 2]
+            _apply_row(tx, ty, tz, diag, u, out, i, j, nx, ny, nz)
 
 
 @njit(inline="always")
@@ -321,26 +311,15 @@ def apply_implicit_blocked(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, idx, val, u
 
 @njit(parallel=True)
 def apply_branch_free_blocked(tx, ty, tz, diag, u, out, jblock):
-    """apply_branch_free (with diag, 48 B per cell) in the loop order of apply_implicit_blocked."""
+    """The branch-free rows (with diag, 48 B per cell) in the loop order of
+    apply_implicit_blocked: one slab of x planes per thread."""
     nx, ny, nz = u.shape
     slabs = min(get_num_threads(), nx)
     for t in prange(slabs):
         for j0 in range(0, ny, jblock):
             for i in range(t * nx // slabs, (t + 1) * nx // slabs):
-                im, ip = max(i - 1, 0), min(i + 1, nx - 1)
-                wxm, wxp = (1.0 if i > 0 else 0.0), (1.0 if i < nx - 1 else 0.0)
                 for j in range(j0, min(j0 + jblock, ny)):
-                    jm, jp = max(j - 1, 0), min(j + 1, ny - 1)
-                    wym, wyp = (1.0 if j > 0 else 0.0), (1.0 if j < ny - 1 else 0.0)
-                    for m in range(nz):
-                        out[i, j, m] = (diag[i, j, m] * u[i, j, m] - wxm * tx[im, j, m] * u[im, j, m]
-                                        - wxp * tx[i, j, m] * u[ip, j, m] - wym * ty[i, jm, m] * u[i, jm, m]
-                                        - wyp * ty[i, j, m] * u[i, jp, m])
-                    for m in range(1, nz - 1):
-                        out[i, j, m] -= tz[i, j, m - 1] * u[i, j, m - 1] + tz[i, j, m] * u[i, j, m + 1]
-                    if nz > 1:
-                        out[i, j, 0] -= tz[i, j, 0] * u[i, j, 1]
-                        out[i, j, nz - 1] -= tz[i, j, nz - 2] * u[i, j, nz - 2]
+                    _apply_row(tx, ty, tz, diag, u, out, i, j, nx, ny, nz)
 
 
 def best(f, repeats: int) -> float:

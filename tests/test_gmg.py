@@ -279,6 +279,18 @@ def test_auto_keeps_gmg_on_thin_anisotropic_cells() -> None:
 
 
 # ---------------------------------------------------------------- kernels against references
+def _seven_point(tx, ty, tz, diag, u):
+    """A u from the face arrays, written out with numpy (common practice: 7-point stencil)."""
+    au = diag * u
+    au[:-1] -= tx[:-1] * u[1:]
+    au[1:] -= tx[:-1] * u[:-1]
+    au[:, :-1] -= ty[:, :-1] * u[:, 1:]
+    au[:, 1:] -= ty[:, :-1] * u[:, :-1]
+    au[:, :, :-1] -= tz[:, :, :-1] * u[:, :, 1:]
+    au[:, :, 1:] -= tz[:, :, :-1] * u[:, :, :-1]
+    return au
+
+
 def _random_level(shape, seed=5):
     """Face arrays with random positive couplings (zero on each axis's last plane and around a
     few held cells, as the face-array convention has it) and a dominant diagonal."""
@@ -498,13 +510,7 @@ def test_fused_residual_restriction_and_products(shape, step) -> None:
     rng = np.random.default_rng(9)
     u = np.where(free, rng.standard_normal(shape), 0.0)
     b = np.where(free, rng.standard_normal(shape), 0.0)
-    au = diag * u
-    au[:-1] -= tx[:-1] * u[1:]
-    au[1:] -= tx[:-1] * u[:-1]
-    au[:, :-1] -= ty[:, :-1] * u[:, 1:]
-    au[:, 1:] -= ty[:, :-1] * u[:, :-1]
-    au[:, :, :-1] -= tz[:, :, :-1] * u[:, :, 1:]
-    au[:, :, 1:] -= tz[:, :, :-1] * u[:, :, :-1]
+    au = _seven_point(tx, ty, tz, diag, u)
     r = b - au
     step = np.array(step, dtype=np.int64)
     cshape = tuple(-(-n // s) for n, s in zip(shape, step))
@@ -545,13 +551,7 @@ def test_operator_in_bands_on_large_planes(shape) -> None:
     assert rows < ny and (nx % per or ny % rows or rows == 1)  # uneven or single-row bands
     tx, ty, tz, diag, free = _random_level(shape)
     u = np.random.default_rng(4).standard_normal(shape)
-    au = diag * u
-    au[:-1] -= tx[:-1] * u[1:]
-    au[1:] -= tx[:-1] * u[:-1]
-    au[:, :-1] -= ty[:, :-1] * u[:, 1:]
-    au[:, 1:] -= ty[:, :-1] * u[:, :-1]
-    au[:, :, :-1] -= tz[:, :, :-1] * u[:, :, 1:]
-    au[:, :, 1:] -= tz[:, :, :-1] * u[:, :, :-1]
+    au = _seven_point(tx, ty, tz, diag, u)
     out = np.full(shape, np.nan)
     stencil.apply(tx, ty, tz, diag, u, out)
     assert np.abs(out - au).max() <= 1e-12 * np.abs(au).max()  # NaN (a cell missed) fails too
