@@ -249,31 +249,38 @@ def apply_implicit_diag(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, idx, val, u, o
     _add_sparse(idx, val, u, out)
 
 
+@njit(inline="always")
+def _implicit_row(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, u, out, i, j, nx, ny, nz):
+    """out[i, j, :] with the implicit diagonal: the x and y couplings in one loop, the z
+    couplings in a second, branch-free one (the row's ends outside it), then the planes."""
+    im, ip = max(i - 1, 0), min(i + 1, nx - 1)
+    wxm, wxp = (1.0 if i > 0 else 0.0), (1.0 if i < nx - 1 else 0.0)
+    jm, jp = max(j - 1, 0), min(j + 1, ny - 1)
+    wym, wyp = (1.0 if j > 0 else 0.0), (1.0 if j < ny - 1 else 0.0)
+    for m in range(nz):
+        a, b = wxm * tx[im, j, m], wxp * tx[i, j, m]
+        c, d = wym * ty[i, jm, m], wyp * ty[i, j, m]
+        out[i, j, m] = ((a + b + c + d) * u[i, j, m] - a * u[im, j, m] - b * u[ip, j, m]
+                        - c * u[i, jm, m] - d * u[i, jp, m])
+    for m in range(1, nz - 1):
+        e, f = tz[i, j, m - 1], tz[i, j, m]
+        out[i, j, m] += (e + f) * u[i, j, m] - e * u[i, j, m - 1] - f * u[i, j, m + 1]
+    if nz > 1:
+        f = tz[i, j, 0]
+        out[i, j, 0] += f * (u[i, j, 0] - u[i, j, 1])
+        e = tz[i, j, nz - 2]
+        out[i, j, nz - 1] += e * (u[i, j, nz - 1] - u[i, j, nz - 2])
+    _add_planes(ex0, ex1, ey0, ey1, ez0, ez1, u, out, i, j, nx, ny, nz)
+
+
 @njit(parallel=True)
 def apply_implicit_branch_free(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, idx, val, u, out):
     """apply_implicit_diag with the z couplings in a second, branch-free loop over the column
     (the first and last cell outside it), as in apply_branch_free."""
     nx, ny, nz = u.shape
     for i in prange(nx):
-        im, ip = max(i - 1, 0), min(i + 1, nx - 1)
-        wxm, wxp = (1.0 if i > 0 else 0.0), (1.0 if i < nx - 1 else 0.0)
         for j in range(ny):
-            jm, jp = max(j - 1, 0), min(j + 1, ny - 1)
-            wym, wyp = (1.0 if j > 0 else 0.0), (1.0 if j < ny - 1 else 0.0)
-            for m in range(nz):
-                a, b = wxm * tx[im, j, m], wxp * tx[i, j, m]
-                c, d = wym * ty[i, jm, m], wyp * ty[i, j, m]
-                out[i, j, m] = ((a + b + c + d) * u[i, j, m] - a * u[im, j, m] - b * u[ip, j, m]
-                                - c * u[i, jm, m] - d * u[i, jp, m])
-            for m in range(1, nz - 1):
-                e, f = tz[i, j, m - 1], tz[i, j, m]
-                out[i, j, m] += (e + f) * u[i, j, m] - e * u[i, j, m - 1] - f * u[i, j, m + 1]
-            if nz > 1:
-                f = tz[i, j, 0]
-                out[i, j, 0] += f * (u[i, j, 0] - u[i, j, 1])
-                e = tz[i, j, nz - 2]
-                out[i, j, nz - 1] += e * (u[i, j, nz - 1] - u[i, j, nz - 2])
-            _add_planes(ex0, ex1, ey0, ey1, ez0, ez1, u, out, i, j, nx, ny, nz)
+            _implicit_row(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, u, out, i, j, nx, ny, nz)
     _add_sparse(idx, val, u, out)
 
 
@@ -287,25 +294,8 @@ def apply_implicit_blocked(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, idx, val, u
     for t in prange(slabs):
         for j0 in range(0, ny, jblock):
             for i in range(t * nx // slabs, (t + 1) * nx // slabs):
-                im, ip = max(i - 1, 0), min(i + 1, nx - 1)
-                wxm, wxp = (1.0 if i > 0 else 0.0), (1.0 if i < nx - 1 else 0.0)
                 for j in range(j0, min(j0 + jblock, ny)):
-                    jm, jp = max(j - 1, 0), min(j + 1, ny - 1)
-                    wym, wyp = (1.0 if j > 0 else 0.0), (1.0 if j < ny - 1 else 0.0)
-                    for m in range(nz):
-                        a, b = wxm * tx[im, j, m], wxp * tx[i, j, m]
-                        c, d = wym * ty[i, jm, m], wyp * ty[i, j, m]
-                        out[i, j, m] = ((a + b + c + d) * u[i, j, m] - a * u[im, j, m] - b * u[ip, j, m]
-                                        - c * u[i, jm, m] - d * u[i, jp, m])
-                    for m in range(1, nz - 1):
-                        e, f = tz[i, j, m - 1], tz[i, j, m]
-                        out[i, j, m] += (e + f) * u[i, j, m] - e * u[i, j, m - 1] - f * u[i, j, m + 1]
-                    if nz > 1:
-                        f = tz[i, j, 0]
-                        out[i, j, 0] += f * (u[i, j, 0] - u[i, j, 1])
-                        e = tz[i, j, nz - 2]
-                        out[i, j, nz - 1] += e * (u[i, j, nz - 1] - u[i, j, nz - 2])
-                    _add_planes(ex0, ex1, ey0, ey1, ez0, ez1, u, out, i, j, nx, ny, nz)
+                    _implicit_row(tx, ty, tz, ex0, ex1, ey0, ey1, ez0, ez1, u, out, i, j, nx, ny, nz)
     _add_sparse(idx, val, u, out)
 
 
