@@ -28,7 +28,8 @@ from starlette.routing import Mount, Route
 from starlette.staticfiles import StaticFiles
 
 from ..errors import QueueError
-from ..queue.commands import duration, public, show_rows
+from ..queue.commands import duration, public
+from ..queue.views import show_rows
 from ..queue.db import STATES, Job, Queue, stamp
 from .data import Logs, NoQueue, NotFound, Reader, Results, now
 
