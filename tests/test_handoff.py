@@ -150,3 +150,21 @@ def test_a_hand_off_no_worker_takes_is_cancelled_and_left_to_the_caller(tmp_path
         (queued,) = enqueue(q, [prepare(small_job(tmp_path, "orphan"), home)], max_attempts=1)
         assert follow(Handed(q, queued, "gone"), lambda j, p: None, poll=0.02) is None
     assert job(home, queued.id).state == "cancelled"
+
+
+def test_ctrl_c_during_a_hand_off_cancels_the_queued_job(tmp_path: Path, monkeypatch, capsys) -> None:
+    """README: Ctrl-C cancels the handed-off job; run exits 130 and says no result was written.
+    (A worker that never takes the job stands in; the interrupt arrives while following.)"""
+    home = locate(tmp_path / "home")
+    Queue(home, Timing()).close()
+    monkeypatch.setattr(handoff, "idle_worker", lambda queue: "stand-in")
+
+    def interrupted(handed, on_progress, poll=handoff.POLL):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(handoff, "follow", interrupted)
+    assert main(["run", str(small_job(tmp_path, "stopped")), "--home", str(home.root)]) == 130
+    assert "cancelled" in capsys.readouterr().err
+    with Queue(home, Timing()) as q:
+        (j,) = q.jobs()
+    assert j.state == "cancelled" and not (tmp_path / "results" / "stopped.zarr").exists()
