@@ -140,3 +140,16 @@ def test_gmg_goes_lean_when_the_copy_does_not_fit(tmp_path: Path, monkeypatch) -
     assert "finest level smoothed on the float64 arrays to save memory" in result.notes
     assert result.converged
     assert np.abs(u_lean - u_copy).max() <= 1e-6 * np.abs(u_copy).max()
+
+
+def test_gmg_goes_lean_on_large_grids(monkeypatch) -> None:
+    """From memory.LEAN_FROM_CELLS up gmg smooths on the float64 arrays whatever the memory
+    (the float32 copy measured no faster there, benchmarks/RESULTS_FINEST.md), and the
+    estimate `check` shows follows; just below, with memory to spare, it keeps the copy."""
+    from sevenfold import memory
+
+    monkeypatch.setattr(memory, "available_bytes", lambda: 2**50)
+    big, below = memory.LEAN_FROM_CELLS, memory.LEAN_FROM_CELLS - 1
+    assert memory.gmg_finest(big) == "operator" and memory.gmg_finest(below) == "copy"
+    assert memory.estimate_bytes(big, big, "gmg") == memory.BASE_BYTES + memory.LEAN_GMG_BYTES_PER_CELL * big
+    assert memory.estimate_bytes(below, below, "gmg") == memory.BASE_BYTES + memory.BYTES_PER_CELL["gmg"] * below

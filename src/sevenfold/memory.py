@@ -10,34 +10,41 @@ import os
 # 50 MiB between installs (how much of the shared libraries the kernel maps in), so small
 # jobs are estimated to within that. Per cell, for the default outputs:
 #   gmg:    float64 face arrays and rhs (40), CG's x, r, p and one buffer shared by A p and
-#           the preconditioned residual (32), the float32 preconditioner's copy of the finest
-#           face arrays (16) with its line pivots and correction (8), coarse levels (~4);
-#           k, f and the held values are dropped as soon as the face arrays exist
-#           (solvers.select.FieldLease) and rebuilt after the solve. Where that does not fit,
-#           the lean variant smooths on the float64 arrays themselves (no copy: 16 less,
-#           sweeps about 1.4 times slower, they read twice the bytes per coupling)
+#           the preconditioner's float32 right-hand side and correction (32), the float32
+#           preconditioner's copy of the finest face arrays (16) with its line pivots (4),
+#           coarse levels (~4); k, f and the held values are dropped as soon as the face
+#           arrays exist (solvers.select.FieldLease) and rebuilt after the solve. From
+#           LEAN_FROM_CELLS up, or where the copy does not fit, the lean variant smooths on
+#           the float64 arrays themselves and keeps the pivots in the shared buffer (no copy,
+#           no pivots: 20 less)
 #   amg:    CSR matrix, pyamg's smoothed-aggregation hierarchy, CG vectors
 #   fft:    fields and the transformed right-hand side
 #   direct: fields and CSR, plus the LU factors, which grow like n^(4/3) on a 3D grid
 # Refitted 2026-12-02 after graded grids and the lease (fft 197/316/427, amg 343/1461 at
-# 64/128, direct 624/1469 at 32/40^3); gmg refitted after the memory work of issue 10 (lean:
-# 219, 385, 526 and 775 MiB at 64, 128, 160 and 192^3; 21.0 GiB at 640^3).
+# 64/128, direct 624/1469 at 32/40^3); gmg from whole runs at 256, 384 and 512^3 after the
+# pivots and z moved into the shared buffer (benchmarks/RESULTS_FINEST.md: copy 97.1-97.4,
+# lean 77.2-77.7 bytes per cell above the base).
 BASE_BYTES = 200 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
-LEAN_GMG_BYTES_PER_CELL = 88
+LEAN_GMG_BYTES_PER_CELL = 78
 # what the gmg solve still allocates once the face arrays exist, with the float32 copy: CG's
-# four vectors (32), the copy (16), pivots and correction (8), coarse levels (4)
-GMG_SOLVE_BYTES_PER_CELL = 60
-BYTES_PER_CELL = {"gmg": 104, "amg": 640, "fft": 63, "direct": 100}
+# four vectors (32), the copy (16), pivots (4), coarse levels (4)
+GMG_SOLVE_BYTES_PER_CELL = 56
+# From this many cells gmg smooths its finest level on the float64 arrays whatever the memory:
+# whole runs measured no faster with the copy at 384^3 and 512^3, while the copy still
+# saved 5-20 % of the solve at 128^3 and 256^3 (benchmarks/RESULTS_FINEST.md)
+LEAN_FROM_CELLS = 2**25
+BYTES_PER_CELL = {"gmg": 98, "amg": 640, "fft": 63, "direct": 100}
 LU_BYTES_PER_FILL = 520  # times unknowns^(4/3) (SuperLU with COLAMD fills faster at 40^3)
 FIELD_BYTES_PER_CELL = 8  # each derived array stored with the result
 
 
 def estimate_bytes(cells: int, unknowns: int, method: str, derived_arrays: int = 0) -> int:
     """Estimated peak resident memory of a job in bytes (``derived_arrays`` extra outputs);
-    for gmg the lean variant's when the usual one would not fit in the available memory."""
+    for gmg the lean variant's from LEAN_FROM_CELLS up or when the usual one would not fit in
+    the available memory."""
     per_cell = BYTES_PER_CELL.get(method, BYTES_PER_CELL["amg"]) + FIELD_BYTES_PER_CELL * derived_arrays
     total = BASE_BYTES + per_cell * cells
-    if method == "gmg" and total > available_bytes():
+    if method == "gmg" and (cells >= LEAN_FROM_CELLS or total > available_bytes()):
         total -= (BYTES_PER_CELL["gmg"] - LEAN_GMG_BYTES_PER_CELL) * cells
     if method == "direct":
         total += int(LU_BYTES_PER_FILL * unknowns ** (4 / 3))
@@ -46,9 +53,12 @@ def estimate_bytes(cells: int, unknowns: int, method: str, derived_arrays: int =
 
 def gmg_finest(cells: int) -> str:
     """How gmg smooths its finest level, decided once its face arrays exist: on a float32
-    copy ("copy", faster) when the rest of the solve fits in the available memory with a
-    tenth to spare, else on the float64 arrays themselves ("operator", 16 bytes per cell less)."""
-    return "copy" if 1.1 * GMG_SOLVE_BYTES_PER_CELL * cells <= available_bytes() else "operator"
+    copy ("copy", faster on smaller grids) below LEAN_FROM_CELLS when the rest of the solve
+    fits in the available memory with a tenth to spare, else on the float64 arrays themselves
+    ("operator", 20 bytes per cell less)."""
+    if cells < LEAN_FROM_CELLS and 1.1 * GMG_SOLVE_BYTES_PER_CELL * cells <= available_bytes():
+        return "copy"
+    return "operator"
 
 
 def _meminfo(key: str, pages: str) -> int:

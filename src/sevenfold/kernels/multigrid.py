@@ -12,27 +12,43 @@ import numpy as np
 from numba import njit, prange
 
 
+# Columns one line sweep solves side by side (a SIMD register of float32)
+LINE_BLOCK = 8
+
+
 @njit(cache=True, parallel=True)
 def line_factor(tz, diag, inv_w):
     """Pivots of the tridiagonal z-line systems (Thomas algorithm, common practice).
 
     Along each column the line matrix has diag on the diagonal and -tz off it; ``inv_w`` gets
-    1 / w_k with w_0 = diag_0 and w_k = diag_k - tz_{k-1}^2 / w_{k-1}. The line matrices are
-    symmetric and diagonally dominant, so no pivot vanishes.
+    1 / w_k with w_0 = diag_0 and w_k = diag_k - tz_{k-1}^2 / w_{k-1}, in diag's float type.
+    The line matrices are symmetric and diagonally dominant, so no pivot vanishes. Columns go
+    in blocks of LINE_BLOCK gathered at unit stride, as in the sweep, so that the recurrence
+    advances the whole block at once (0.55-0.7 of the time of one column at a time at 128^3
+    to 512^3, benchmarks/RESULTS_PIVOTS.md).
     """
     nx, ny, nz = diag.shape
     for i in prange(nx):
-        for j in range(ny):
-            w = diag[i, j, 0]
-            inv_w[i, j, 0] = 1.0 / w
+        w = np.empty(nz * LINE_BLOCK, dtype=diag.dtype)
+        t = np.empty(nz * LINE_BLOCK, dtype=diag.dtype)
+        for j0 in range(0, ny, LINE_BLOCK):
+            nb = min(LINE_BLOCK, ny - j0)
+            for c in range(nb):
+                for m in range(nz):
+                    w[m * LINE_BLOCK + c] = diag[i, j0 + c, m]
+                    t[m * LINE_BLOCK + c] = tz[i, j0 + c, m]
+            for c in range(nb, LINE_BLOCK):  # a short last block factors unit columns
+                for m in range(nz):
+                    w[m * LINE_BLOCK + c] = 1.0
+                    t[m * LINE_BLOCK + c] = 0.0
             for m in range(1, nz):
-                t = tz[i, j, m - 1]
-                w = diag[i, j, m] - t * t / w
-                inv_w[i, j, m] = 1.0 / w
-
-
-# Columns one line sweep solves side by side (a SIMD register of float32)
-LINE_BLOCK = 8
+                at, prev = m * LINE_BLOCK, (m - 1) * LINE_BLOCK
+                for c in range(LINE_BLOCK):
+                    tp = t[prev + c]
+                    w[at + c] = w[at + c] - tp * tp / w[prev + c]
+            for c in range(nb):
+                for m in range(nz):
+                    inv_w[i, j0 + c, m] = 1.0 / w[m * LINE_BLOCK + c]
 
 
 @njit(cache=True)
@@ -144,16 +160,6 @@ def narrow(r, b):
     right-hand side (one signature of each level kernel instead of two)."""
     for i in prange(b.shape[0]):
         b[i] = r[i]
-
-
-@njit(cache=True, parallel=True, fastmath={"reassoc", "nsz", "contract"})
-def widen_dot(e, r, z):
-    """z = e in z's (wider) float type; returns r . z (CG's r . z in the same pass)."""
-    s = 0.0
-    for i in prange(z.shape[0]):
-        z[i] = e[i]
-        s += r[i] * z[i]
-    return s
 
 
 @njit(cache=True)  # serial: it reads a subsample, and a parallel build compiles seconds longer

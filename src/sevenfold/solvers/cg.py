@@ -119,7 +119,8 @@ def pcg(
     ``A`` needs ``A @ p``; when it has ``apply_dot(p)`` -> (A p, p . A p) that is used instead,
     and a ``precondition`` with ``precondition_dot(r)`` -> (z, r . z) likewise (one pass over
     memory fewer each). Products returned by A and the preconditioner may share one buffer:
-    CG is done with A p before it preconditions.
+    CG is done with A p before it preconditions. z may be float32 (a float32 preconditioner's
+    own output): CG widens it where it reads it, which is exact.
 
     The recorded history starts with x0's relative residual; ``x0`` is not modified.
 
@@ -167,7 +168,7 @@ def pcg(
     apply_dot = getattr(A, "apply_dot", apply_dot)
     precondition_dot = getattr(precondition, "precondition_dot", precondition_dot)
     z, rz = precondition_dot(r)
-    p = z.copy()
+    p = z.astype(np.float64)
     best_before = np.inf
     restarts = 0
 
@@ -212,7 +213,7 @@ def pcg(
             residual_into(A, x, b, r)  # restart from the true residual
             history[-1] = final
             z, rz = precondition_dot(r)
-            p = z.copy()
+            p = z.astype(np.float64)
             continue
         if it > stagnation_window:
             best_before = min(best_before, history[it - stagnation_window])

@@ -27,8 +27,11 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   sparse LU of the coarsest level (at most 16^3 cells);
 * the preconditioner's levels in float32 by default, CG, the residual-defining operator and
   the true-residual check in float64; the finest level is smoothed on a float32 copy of its
-  face arrays, or, where memory is short (:func:`sevenfold.memory.gmg_finest`), on the
-  float64 arrays themselves (16 bytes per cell less, sweeps about 1.4 times slower);
+  face arrays, or, on large grids and where memory is short
+  (:func:`sevenfold.memory.gmg_finest`), on the float64 arrays themselves with the z-line
+  pivots refactored every cycle in a borrowed buffer (20 bytes per cell less; sweeps read
+  more bytes, which cost 5-20 % of the solve at 128^3-256^3 and nothing measurable from
+  384^3 up, benchmarks/RESULTS_FINEST.md); CG takes the float32 z as it is (no float64 z);
 * CG starts from zero: W(2,2) cycles reach rtol 1e-8 in fewer work units from zero than
   W(1,1) cycles after a full-multigrid start (benchmarks/RESULTS_CYCLE.md);
   :meth:`Hierarchy.full_multigrid` (coarsest first, interpolated up, one V-cycle per level)
@@ -72,10 +75,11 @@ class Hierarchy:
     operator is not touched (float32 keeps a float32 copy of it for smoothing).
     ``coarsest_cells``: the level size that is factorised (default COARSEST_CELLS).
     ``finest``: "copy" smooths the finest level on a copy of its face arrays in ``precision``;
-    "operator" smooths on the caller's float64 arrays themselves (no copy: 16 bytes per cell
-    less with float32, for slightly slower sweeps).
-    ``out``: a float64 array of the fine grid's size that :meth:`precondition` writes its
-    result to (CG lends the operator's product buffer, which is free at that point).
+    "operator" smooths on the caller's float64 arrays themselves (no copy and, with float32,
+    the pivots in ``out``: 20 bytes per cell less, for slightly slower sweeps).
+    ``out``: a float64 array of the fine grid's size whose bytes hold the finest level's
+    work arrays and :meth:`precondition`'s result (CG lends the operator's product buffer,
+    which is free while it preconditions).
     """
 
     def __init__(self, fine: Level, overcorrection: float | None = None, cycle: str = "V",
@@ -125,20 +129,33 @@ class Hierarchy:
             coarse.e, coarse.b = (np.empty(cshape, dtype=self.dtype) for _ in range(2))
             self.levels.append(coarse)
         self._out = out.reshape(fine.shape) if out is not None else np.empty(fine.shape)
-        # the finest level's right-hand side: CG's float64 residual itself when the finest
-        # level is float64, else a copy in the levels' type, so that each level kernel has
-        # one signature (a first run compiles about a third less). The copy lives in the first
-        # half of the output buffer's bytes: no memory of its own, and free until the cycle
-        # ends and z is written there. A stored fine residual only for the linear restriction
-        # (the others fuse residual and restriction).
-        top.e = np.empty(top.shape, dtype=self.dtype)
-        if top.diag.dtype != np.float64 and len(self.levels) > 1:  # (the LU takes float64)
-            top.b = self._out.reshape(-1).view(top.diag.dtype)[:top.diag.size].reshape(top.shape)
+        # The finest level's work arrays live in the output buffer's bytes where they fit
+        # (CG is done with A p when it preconditions, and takes z in the levels' type): its
+        # correction e, which is z itself, in the second half; in the first half the
+        # right-hand side in the levels' type, or, when the finest level smooths on the
+        # float64 operator and takes CG's residual as it is, the z-line pivots, refactored
+        # at the start of every cycle (pivots and correction then cost no memory of their
+        # own: 8 bytes per cell less where memory is short). A float64 hierarchy's e is the
+        # whole buffer. A stored fine residual only for the linear restriction (the others
+        # fuse residual and restriction).
+        halves = self._out.reshape(-1).view(np.float32)
+        n = top.diag.size
+        if self.dtype == np.float32:
+            top.e = halves[n:].reshape(top.shape)
+        else:
+            top.e = self._out.view(self.dtype)
+        self._refactor = False
+        if len(self.levels) > 1 and self.dtype == np.float32:  # (the LU takes float64)
+            if top.diag.dtype == np.float32:
+                top.b = halves[:n].reshape(top.shape)  # one signature per level kernel
+            elif top.lines:
+                top.inv_w = halves[:n].reshape(top.shape)
+                self._refactor = True
         if transfer == "linear":
             for lv in self.levels[:-1]:
                 lv.r = np.empty(lv.shape, dtype=self.dtype)
         for lv in self.levels[:-1]:
-            if lv.lines:
+            if lv.lines and lv.inv_w is None:
                 lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
                 multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
         # minimum degree on A^T + A with symmetric pivoting suits an SPD 7-point matrix: at
@@ -214,8 +231,8 @@ class Hierarchy:
         self._smooth(lv, b, u, 1)
 
     def precondition(self, r: np.ndarray) -> np.ndarray:
-        """One cycle from zero for A z = r (float64 in and out, whatever the levels' type).
-        The returned array is reused by the next call."""
+        """One cycle from zero for A z = r (r float64, z in the levels' float type). The
+        returned array is reused by the next call."""
         return self.precondition_dot(r)[0]
 
     __call__ = precondition
@@ -229,12 +246,17 @@ class Hierarchy:
         return top.b
 
     def precondition_dot(self, r: np.ndarray) -> tuple[np.ndarray, float]:
-        """:meth:`precondition`, and r . z from the same pass that widens z to float64."""
+        """:meth:`precondition`, and r . z (z in the levels' float type: widening it to
+        float64 is exact, so CG takes it as it is, and no float64 z is stored)."""
+        from ..kernels.vector import vector_ops
+
         top = self.levels[0]
+        if self._refactor:
+            multigrid.line_factor(top.tz, top.diag, top.inv_w)
         top.e[...] = 0.0
         self.cycle(0, self._rhs(r), top.e)
-        z = self._out.ravel()
-        return z, multigrid.widen_dot(top.e.ravel(), r, z)
+        z = top.e.reshape(-1)
+        return z, vector_ops(z.size).dot(r, z)
 
     def full_multigrid(self, b: np.ndarray, cycles: int = 1, cycle: str = "V",
                        sweeps: tuple[int, int] = (2, 1)) -> np.ndarray:
@@ -247,9 +269,8 @@ class Hierarchy:
         only through cancellation with the discretisation error); full multigrid is not a
         preconditioner, so it need not be symmetric.
 
-        Returns the finest level's u as a flat float64 array that the next call of
-        :meth:`precondition` overwrites (copy it to keep it). The finest level works in the
-        hierarchy's own arrays, so no full-grid array is allocated.
+        Returns the finest level's u as a new flat float64 array. The finest level works in
+        the hierarchy's own arrays.
         """
         top = self.levels[0]
         rhs = [self._rhs(b)]
@@ -272,8 +293,7 @@ class Hierarchy:
                 u = fine_u
         finally:
             self.gamma, self.sweeps = kept
-        self._out[...] = u
-        return self._out.ravel()
+        return u.astype(np.float64).reshape(-1)
 
 
 class FineOperator:
