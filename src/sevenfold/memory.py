@@ -30,8 +30,10 @@ LEAN_GMG_BYTES_PER_CELL = 78
 # four vectors (32), the copy (16), pivots (4), coarse levels (4)
 GMG_SOLVE_BYTES_PER_CELL = 56
 # From this many cells gmg smooths its finest level on the float64 arrays whatever the memory:
-# whole runs measured no faster with the copy at 384^3 and 512^3, while the copy still
-# saved 5-20 % of the solve at 128^3 and 256^3 (benchmarks/RESULTS_FINEST.md)
+# whole runs with and without the copy came out equal within the machine's noise from 128^3
+# to 512^3 (the lean solve is up to a quarter slower in some runs, its assembly and setup
+# 1-3 s shorter; benchmarks/RESULTS_FINEST.md), and above about 320^3 the 20 bytes per cell
+# are what decides whether a grid fits
 LEAN_FROM_CELLS = 2**25
 BYTES_PER_CELL = {"gmg": 98, "amg": 640, "fft": 63, "direct": 100}
 LU_BYTES_PER_FILL = 520  # times unknowns^(4/3) (SuperLU with COLAMD fills faster at 40^3)

@@ -29,9 +29,9 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   the true-residual check in float64; the finest level is smoothed on a float32 copy of its
   face arrays, or, on large grids and where memory is short
   (:func:`sevenfold.memory.gmg_finest`), on the float64 arrays themselves with the z-line
-  pivots refactored every cycle in a borrowed buffer (20 bytes per cell less; sweeps read
-  more bytes, which cost 5-20 % of the solve at 128^3-256^3 and nothing measurable from
-  384^3 up, benchmarks/RESULTS_FINEST.md); CG takes the float32 z as it is (no float64 z);
+  pivots refactored every cycle in a borrowed buffer (20 bytes per cell less; the sweeps
+  read more bytes, up to a quarter more solve time in some runs, whole runs equal within
+  noise, benchmarks/RESULTS_FINEST.md); CG takes the float32 z as it is (no float64 z);
 * CG starts from zero: W(2,2) cycles reach rtol 1e-8 in fewer work units from zero than
   W(1,1) cycles after a full-multigrid start (benchmarks/RESULTS_CYCLE.md);
   :meth:`Hierarchy.full_multigrid` (coarsest first, interpolated up, one V-cycle per level)
