@@ -168,3 +168,48 @@ def test_ctrl_c_during_a_hand_off_cancels_the_queued_job(tmp_path: Path, monkeyp
     with Queue(home, Timing()) as q:
         (j,) = q.jobs()
     assert j.state == "cancelled" and not (tmp_path / "results" / "stopped.zarr").exists()
+
+
+def test_a_rung_worker_looks_at_once(tmp_path: Path) -> None:
+    """The bell (sevenfold.queue.wake): a worker napping with a 30 s poll wakes within a
+    second when rung, a ring nobody listens to is reported unheard, and a second bell on the
+    same home and pid is not listening (that worker just polls)."""
+    import threading
+    import time
+
+    from sevenfold.queue.wake import Bell, ring
+    from sevenfold.queue.worker import Worker, WorkerOptions
+
+    home = make_home(tmp_path / "home")
+    worker = Worker(home, WorkerOptions(poll=30.0), say=lambda text: None)
+    try:
+        assert worker.bell.listening
+        assert not Bell(home.root, os.getpid()).listening
+        woke: list[float] = []
+        napper = threading.Thread(target=lambda: (worker.nap(), woke.append(time.monotonic())))
+        napper.start()
+        time.sleep(0.2)
+        rung = time.monotonic()
+        assert ring(home.root, os.getpid())
+        napper.join(5.0)
+        assert woke and woke[0] - rung < 1.0, woke
+        assert not ring(tmp_path / "elsewhere", os.getpid())  # no worker of that home
+        quiet = Bell(tmp_path / "other", os.getpid())
+        t0 = time.monotonic()
+        assert quiet.wait(0.1) is False and time.monotonic() - t0 >= 0.09
+        quiet.close()
+    finally:
+        worker.bell.close()
+
+
+def test_hand_off_rings_the_worker_it_chose(idle_home, monkeypatch) -> None:
+    """run queues the job, then rings the bell of the idle worker it found (its pid, its
+    home), so the job starts without waiting for the worker's next poll."""
+    home, root = idle_home
+    rung: list[tuple[Path, int]] = []
+    monkeypatch.setattr(handoff, "ring", lambda where, pid: rung.append((Path(where), pid)) or True)
+    handed = handoff.hand_off(column_job(root, "rung"), None, home.root)
+    assert handed is not None
+    (worker_pid,) = [int(w["pid"]) for w in handed.queue.workers() if w["id"] == handed.worker]
+    assert rung == [(home.root, worker_pid)]
+    assert follow(handed, lambda j, p: None).state == "done"

@@ -21,6 +21,7 @@ from ..errors import QueueError
 from .db import FINISHED, Job, Queue
 from .files import pid_alive, remove_partials
 from .home import Home, home_root
+from .wake import ring
 from .watch import Progress, read_progress
 from .worker import cores
 
@@ -95,6 +96,9 @@ def hand_off(job_file: str | Path, output: str | Path | None, home: str | Path |
         queue.close()
         return None
     job = enqueue(queue, [prepared], max_attempts=1)[0]
+    for w in queue.workers(alive_only=True):  # it looks at once instead of at its next poll
+        if w["id"] == worker:
+            ring(queue.home.root, int(w["pid"]))
     return Handed(queue, job, worker)
 
 

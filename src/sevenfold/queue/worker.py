@@ -35,6 +35,7 @@ from .db import Claim, ClaimResult, Queue
 from .files import remove_partials, write_text_atomic
 from .home import Home, Timing
 from .tomlwrite import dumps
+from .wake import Bell
 
 READY_TIMEOUT = 900.0  # s: a first compile on a loaded machine can take minutes
 MAX_FAILED_STARTS = 3  # a draining worker gives up after this many failed child starts
@@ -224,7 +225,7 @@ class Slot(threading.Thread):
                 result = w.claim(queue, self)
                 if result.claim is None:
                     self.busy = False
-                    w.stopping.wait(w.options.poll)
+                    w.nap()
                     continue
                 try:
                     self._run(queue, result.claim)
@@ -352,6 +353,7 @@ class Worker:
         self.id = f"{socket.gethostname()}:{os.getpid()}"
         self.safe_id = self.id.replace(":", "-").replace("/", "-")
         self.stopping = threading.Event()
+        self.bell = Bell(home.root, os.getpid())  # `run` rings it when it hands this worker a job
         self.lost: set[str] = set()
         self.memory_total = self.options.memory_bytes if self.options.memory_bytes else available_bytes()
         self._memory: dict[int, int] = {}
@@ -361,6 +363,14 @@ class Worker:
 
     def say(self, text: str) -> None:
         self._say(f"{time.strftime('%H:%M:%S')}  {text}")
+
+    def nap(self) -> None:
+        """Wait ``options.poll`` s before the next look at the queue, less when stopping or when
+        a process that has just queued a job for this worker rings its bell (:mod:`.wake`)."""
+        if self.bell.listening:
+            self.bell.wait(self.options.poll)
+        else:
+            self.stopping.wait(self.options.poll)
 
     # ---------------------------------------------------------------- memory admission
     def claim(self, queue: Queue, slot: Slot) -> ClaimResult:
@@ -438,5 +448,6 @@ class Worker:
                 signal.signal(sig, handler)
             queue.worker_stopped(self.id)
             queue.close()
+            self.bell.close()
         failures = [s.failure for s in self.slots if s.failure]
         return 1 if failures else 0
