@@ -289,7 +289,14 @@ def _demo(args: argparse.Namespace) -> int:
     return run_demo(Path(args.dir), out)
 
 
-def parser() -> argparse.ArgumentParser:
+# The commands parser() declares itself; the queue's (submit, list, worker, ...) come from
+# sevenfold.queue.commands, which is imported only when the command line asks for one of them
+# or for the whole list (``sevenfold --help``, a misspelt command): a `run` starts sooner.
+CORE_COMMANDS = frozenset({"check", "run", "capacitance", "converge", "report", "export", "demo"})
+
+
+def parser(queue: bool = True) -> argparse.ArgumentParser:
+    """The command-line parser; ``queue`` False leaves out the queue's subcommands."""
     p = argparse.ArgumentParser(
         prog="sevenfold",
         description="Steady -div(k grad u) = f on 3D box grids: job file in, chunked zarr out.",
@@ -347,7 +354,8 @@ def parser() -> argparse.ArgumentParser:
     d = sub.add_parser("demo", help="copy the example jobs into DIR and run them")
     d.add_argument("dir", nargs="?", default="sevenfold-demo", help="folder (default ./sevenfold-demo)")
     d.set_defaults(func=_demo)
-    __import__("sevenfold.queue.commands", fromlist=["register"]).register(sub)  # submit, list, worker, ...
+    if queue:
+        __import__("sevenfold.queue.commands", fromlist=["register"]).register(sub)  # submit, list, worker, ...
     return p
 
 
@@ -368,7 +376,8 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _dispatch(argv: list[str] | None) -> int:
-    args = parser().parse_args(argv)
+    words = sys.argv[1:] if argv is None else argv
+    args = parser(queue=not words or words[0] not in CORE_COMMANDS).parse_args(argv)
     try:
         return args.func(args)
     except JobError as exc:
