@@ -135,7 +135,7 @@ def test_gmg_goes_lean_when_the_copy_does_not_fit(tmp_path: Path, monkeypatch) -
     monkeypatch.setattr(memory, "available_bytes", lambda: short)
     assert memory.gmg_finest(cells) == "operator"
     lean = memory.estimate_bytes(cells, cells, "gmg")
-    assert usual - lean == (memory.BYTES_PER_CELL["gmg"] - memory.LEAN_GMG_BYTES_PER_CELL) * cells
+    assert usual - lean == memory.COPY_BYTES_PER_CELL * cells
     u_lean, result = solve_problem(build_problem(spec), spec.solver, "gmg")
     assert "finest level smoothed on the float64 arrays to save memory" in result.notes
     assert result.converged

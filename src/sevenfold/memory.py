@@ -12,30 +12,35 @@ import os
 #   gmg:    float64 face arrays and rhs (40), CG's x, r, p and one buffer shared by A p and
 #           the preconditioner's float32 right-hand side and correction (32), the float32
 #           preconditioner's copy of the finest face arrays (16) with its line pivots (4),
-#           coarse levels (~4); k, f and the held values are dropped as soon as the face
-#           arrays exist (solvers.select.FieldLease) and rebuilt after the solve. From
-#           LEAN_FROM_CELLS up, or where the copy does not fit, the lean variant smooths on
-#           the float64 arrays themselves and keeps the pivots in the shared buffer (no copy,
-#           no pivots: 20 less)
+#           coarse levels (~4), and the cell fields k, f and the held values (about 15 of
+#           their 28 at the peak). From LEAN_FROM_CELLS up the fields are dropped as soon as
+#           the face arrays exist (solvers.select.FieldLease) and rebuilt after the solve,
+#           and the finest level is smoothed on the float64 arrays themselves with the pivots
+#           in the shared buffer (no copy, no pivots: COPY_BYTES_PER_CELL less); below it
+#           only the copy goes, when it does not fit
 #   amg:    CSR matrix, pyamg's smoothed-aggregation hierarchy, CG vectors
 #   fft:    fields and the transformed right-hand side
 #   direct: fields and CSR, plus the LU factors, which grow like n^(4/3) on a 3D grid
 # Refitted 2026-12-02 after graded grids and the lease (fft 197/316/427, amg 343/1461 at
-# 64/128, direct 624/1469 at 32/40^3); gmg from whole runs at 256, 384 and 512^3 after the
-# pivots and z moved into the shared buffer (benchmarks/RESULTS_FINEST.md: copy 97.1-97.4,
-# lean 77.2-77.7 bytes per cell above the base).
+# 64/128, direct 624/1469 at 32/40^3); gmg after the pivots and z moved into the shared
+# buffer: 111-113 bytes per cell above the base at 128 and 160^3 with the fields kept
+# (memory_fit.py), lean with the fields lent 77.2-77.7 at 384 and 512^3
+# (benchmarks/RESULTS_FINEST.md).
 BASE_BYTES = 200 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
 LEAN_GMG_BYTES_PER_CELL = 78
+COPY_BYTES_PER_CELL = 20  # the float32 copy of the finest face arrays and its pivots
 # what the gmg solve still allocates once the face arrays exist, with the float32 copy: CG's
 # four vectors (32), the copy (16), pivots (4), coarse levels (4)
 GMG_SOLVE_BYTES_PER_CELL = 56
-# From this many cells gmg smooths its finest level on the float64 arrays whatever the memory:
-# whole runs with and without the copy came out equal within the machine's noise from 128^3
-# to 512^3 (the lean solve is up to a quarter slower in some runs, its assembly and setup
-# 1-3 s shorter; benchmarks/RESULTS_FINEST.md), and above about 320^3 the 20 bytes per cell
-# are what decides whether a grid fits
+# From this many cells sevenfold spends time to save memory: gmg smooths its finest level on
+# the float64 arrays whatever the memory, and every method lends k, f and the held values
+# while it solves (rebuilt after). Whole gmg runs with and without the copy came out equal
+# within the machine's noise from 128^3 to 512^3 (the lean solve is up to a quarter slower in
+# some runs, its assembly and setup 1-3 s shorter; benchmarks/RESULTS_FINEST.md); rebuilding
+# the fields costs about 8 % of a 128^3 job; above about 320^3 the 35 bytes per cell are what
+# decides whether a grid fits.
 LEAN_FROM_CELLS = 2**25
-BYTES_PER_CELL = {"gmg": 98, "amg": 640, "fft": 63, "direct": 100}
+BYTES_PER_CELL = {"gmg": 113, "amg": 640, "fft": 63, "direct": 100}
 LU_BYTES_PER_FILL = 520  # times unknowns^(4/3) (SuperLU with COLAMD fills faster at 40^3)
 FIELD_BYTES_PER_CELL = 8  # each derived array stored with the result
 
@@ -45,9 +50,11 @@ def estimate_bytes(cells: int, unknowns: int, method: str, derived_arrays: int =
     for gmg the lean variant's from LEAN_FROM_CELLS up or when the usual one would not fit in
     the available memory."""
     per_cell = BYTES_PER_CELL.get(method, BYTES_PER_CELL["amg"]) + FIELD_BYTES_PER_CELL * derived_arrays
+    if method == "gmg" and cells >= LEAN_FROM_CELLS:
+        per_cell += LEAN_GMG_BYTES_PER_CELL - BYTES_PER_CELL["gmg"]
     total = BASE_BYTES + per_cell * cells
-    if method == "gmg" and (cells >= LEAN_FROM_CELLS or total > available_bytes()):
-        total -= (BYTES_PER_CELL["gmg"] - LEAN_GMG_BYTES_PER_CELL) * cells
+    if method == "gmg" and cells < LEAN_FROM_CELLS and total > available_bytes():
+        total -= COPY_BYTES_PER_CELL * cells
     if method == "direct":
         total += int(LU_BYTES_PER_FILL * unknowns ** (4 / 3))
     return int(total)

@@ -21,7 +21,7 @@ from .errors import JobError, SolverError, file_in_the_way, writing
 from .grid import Grid, grid_from_spec
 from .headline import compute_headline
 from .inputs import load_array
-from .memory import available_bytes, estimate_bytes, human
+from .memory import LEAN_FROM_CELLS, available_bytes, estimate_bytes, human
 from .physics import DERIVED, PHYSICS
 from .probes import ProbeValues, sample
 from .problem import Problem, build_problem
@@ -286,10 +286,12 @@ def run_job(
 
         def solve_once(p: Problem):
             logged.method = plan.method  # each drain round starts with the planned method again
-            # k, f and the held values are dropped while each solve runs and rebuilt after it
-            # (drains change only the exchanges, which the rebuild does not touch)
-            return solve_problem(p, spec.solver, plan.method, logged,
-                                 FieldLease(p, lambda: prepare_problem(plan)[1]))
+            # on large grids k, f and the held values are dropped while each solve runs and
+            # rebuilt after it (drains change only the exchanges, which the rebuild does not
+            # touch); below LEAN_FROM_CELLS they stay (the rebuild costs more than they weigh)
+            lease = (FieldLease(p, lambda: prepare_problem(plan)[1])
+                     if plan.cells >= LEAN_FROM_CELLS else None)
+            return solve_problem(p, spec.solver, plan.method, logged, lease)
 
         problem, u, result, drain_rounds = settle_drains(problem, solve_once)
         log.end(converged=True, iterations=result.iterations,
