@@ -1,0 +1,349 @@
+"""Aggregates that follow walls: a prototype of the kept cycle whose pairs of cells are shifted
+per level and axis so that coefficient jumps fall between aggregates, not inside them.
+
+    python benchmarks/wall_bench.py [--sizes 128 256] [--cases column layered inclusions]
+
+The kept hierarchy pairs cells (0, 1), (2, 3), ... along every coarsened axis. Issue 10's
+1000:1 column has its walls where (i + 1/2) / n crosses 0.3 and 0.7: at 128^3 between cells 37
+and 38 (between two pairs), at 256^3 between 76 and 77 (inside a pair), and the 256^3 solve
+takes 9 iterations against 5 on layers (benchmarks/RESULTS_COLUMN.md, RESULTS_CYCLE_SWEEP.md).
+Here each coarsened axis may instead pair (1, 2), (3, 4), ... (cell 0 alone, and the last cell
+alone when the count is even): the offset that puts more of the level's walls (neighbouring
+diagonals differing by more than WALL times) between pairs. An offset is one per axis and
+level, so the partition stays a tensor product and every kernel keeps its structured loops; it
+can follow planar walls (the column, layers across an axis), not the edges of boxes scattered
+at random.
+
+The coarse operator is the kept scaled Galerkin product with the scale taken per face from the
+two aggregates' sizes (2 / (s1 + s2): 1/2 between pairs, as kept) and per aggregate for a cell's
+boundary excess (1 / s); transfers piecewise constant; W(2,2) z-line Gauss-Seidel in float32.
+
+Measured here against the kept hierarchy in the same process, one numba thread, CPU seconds
+(as benchmarks/cycle_bench.py). Writes benchmarks/RESULTS_WALLS.md.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime
+import os
+import shlex
+import subprocess
+import sys
+from pathlib import Path
+
+import numba
+import numpy as np
+import scipy.sparse.linalg as sla
+from numba import njit, prange
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+import cycle_bench as cb  # noqa: E402
+import run as engine  # noqa: E402
+
+from sevenfold.kernels import multigrid  # noqa: E402
+from sevenfold.kernels.stencil import _neighbours, _offdiag_row  # noqa: E402
+from sevenfold.solvers import gmg  # noqa: E402
+from sevenfold.solvers.levels import Level, coarsening_step  # noqa: E402
+
+WALL = 10.0  # neighbouring diagonals this many times apart: a wall between them
+COARSEST_ALLOWANCE = 1.2
+
+
+@njit
+def _span(I, s, o, n):
+    """Fine cells [lo, hi) of aggregate I along one axis (pairs shifted by o)."""
+    return max(I * s - o, 0), min(I * s - o + s, n)
+
+
+@njit
+def _face_scale(I, s, o, n, nc):
+    """Scale of the coupling between aggregates I and I + 1: 2 / (their sizes summed)."""
+    if s == 1:
+        return 1.0
+    a0, a1 = _span(I, s, o, n)
+    if I + 1 >= nc:
+        return 1.0 / (a1 - a0)
+    b0, b1 = _span(I + 1, s, o, n)
+    return 2.0 / ((a1 - a0) + (b1 - b0))
+
+
+@njit(parallel=True)  # (no cache: a cached kernel re-imports this module)
+def galerkin_shifted(tx, ty, tz, diag, free, step, off, txc, tyc, tzc, diagc, freec):
+    """multigrid.galerkin_scaled with aggregates shifted by ``off`` per axis."""
+    nx, ny, nz = diag.shape
+    sx, sy, sz = step[0], step[1], step[2]
+    ox, oy, oz = off[0], off[1], off[2]
+    ncx, ncy, ncz = diagc.shape
+    for I in prange(ncx):
+        d = np.zeros((ncy, ncz))
+        cxs = np.zeros((ncy, ncz))
+        cys = np.zeros((ncy, ncz))
+        czs = np.zeros((ncy, ncz))
+        nfree = np.zeros((ncy, ncz), dtype=np.int64)
+        i0, i1 = _span(I, sx, ox, nx)
+        gxm = _face_scale(I - 1, sx, ox, nx, ncx) if I > 0 else 1.0 / (i1 - i0)
+        gxp = _face_scale(I, sx, ox, nx, ncx)
+        fx = 1.0 / (i1 - i0)
+        for i in range(i0, i1):
+            for j in range(ny):
+                J = (j + oy) // sy
+                j0, j1 = _span(J, sy, oy, ny)
+                gym = _face_scale(J - 1, sy, oy, ny, ncy) if J > 0 else 1.0 / (j1 - j0)
+                gyp = _face_scale(J, sy, oy, ny, ncy)
+                fy = 1.0 / (j1 - j0)
+                for m in range(nz):
+                    if not free[i, j, m]:
+                        continue
+                    K = (m + oz) // sz
+                    k0, k1 = _span(K, sz, oz, nz)
+                    gzm = _face_scale(K - 1, sz, oz, nz, ncz) if K > 0 else 1.0 / (k1 - k0)
+                    gzp = _face_scale(K, sz, oz, nz, ncz)
+                    fz = 1.0 / (k1 - k0)
+                    nfree[J, K] += 1
+                    txm = tx[i - 1, j, m] if i > 0 else 0.0
+                    tym = ty[i, j - 1, m] if j > 0 else 0.0
+                    tzm = tz[i, j, m - 1] if m > 0 else 0.0
+                    txp = tx[i, j, m]
+                    typ = ty[i, j, m]
+                    tzp = tz[i, j, m]
+                    excess = diag[i, j, m] - (txm + txp + tym + typ + tzm + tzp)
+                    missing_x = (1 if txm == 0.0 else 0) + (1 if txp == 0.0 else 0)
+                    missing_y = (1 if tym == 0.0 else 0) + (1 if typ == 0.0 else 0)
+                    missing_z = (1 if tzm == 0.0 else 0) + (1 if tzp == 0.0 else 0)
+                    missing = missing_x + missing_y + missing_z
+                    a = d[J, K]
+                    if missing > 0:
+                        share = excess / missing
+                        a += share * (missing_x * fx + missing_y * fy + missing_z * fz)
+                    else:
+                        a += excess * (fx + fy + fz) / 3.0
+                    if i == i0:
+                        a += gxm * txm
+                    if i + 1 == i1:
+                        a += gxp * txp
+                        cxs[J, K] += txp
+                    if j == j0:
+                        a += gym * tym
+                    if j + 1 == j1:
+                        a += gyp * typ
+                        cys[J, K] += typ * gyp
+                    if m == k0:
+                        a += gzm * tzm
+                    if m + 1 == k1:
+                        a += gzp * tzp
+                        czs[J, K] += tzp * gzp
+                    d[J, K] = a
+        for J in range(ncy):
+            for K in range(ncz):
+                n = nfree[J, K]
+                freec[I, J, K] = n > 0
+                diagc[I, J, K] = d[J, K] if n > 0 else 1.0
+                txc[I, J, K] = gxp * cxs[J, K]
+                tyc[I, J, K] = cys[J, K]
+                tzc[I, J, K] = czs[J, K]
+
+
+@njit(parallel=True)  # (no cache: a cached kernel re-imports this module)
+def residual_restrict_shifted(tx, ty, tz, diag, b, u, step, off, rc):
+    """stencil.residual_restrict with aggregates shifted by ``off`` per axis."""
+    nx, ny, nz = u.shape
+    sx, sy, sz = step[0], step[1], step[2]
+    ox, oy, oz = off[0], off[1], off[2]
+    ncx, ncy, ncz = rc.shape
+    for I in prange(ncx):
+        for J in range(ncy):
+            for K in range(ncz):
+                rc[I, J, K] = 0.0
+        i0, i1 = _span(I, sx, ox, nx)
+        for i in range(i0, i1):
+            for j in range(ny):
+                J = (j + oy) // sy
+                wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
+                for m in range(nz):
+                    r = b[i, j, m] - diag[i, j, m] * u[i, j, m] + _offdiag_row(
+                        tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz)
+                    rc[I, J, (m + oz) // sz] += r
+
+
+@njit(parallel=True)  # (no cache: a cached kernel re-imports this module)
+def prolong_add_shifted(ec, free, step, off, scale, u):
+    """stencil.prolong_add with aggregates shifted by ``off`` per axis."""
+    nx, ny, nz = u.shape
+    sx, sy, sz = step[0], step[1], step[2]
+    ox, oy, oz = off[0], off[1], off[2]
+    for i in prange(nx):
+        I = (i + ox) // sx
+        for j in range(ny):
+            J = (j + oy) // sy
+            for m in range(nz):
+                if free[i, j, m]:
+                    u[i, j, m] += scale * ec[I, J, (m + oz) // sz]
+
+
+def wall_offsets(lv: Level, step: np.ndarray) -> np.ndarray:
+    """Per coarsened axis, 1 when more walls lie between cells i, i + 1 with i even than with
+    i odd (pairs (1, 2), (3, 4), ... then keep them apart), else 0."""
+    off = np.zeros(3, dtype=np.int64)
+    d = lv.diag.astype(np.float64)
+    for axis in range(3):
+        if step[axis] == 1 or lv.shape[axis] < 4:
+            continue
+        lo = np.take(d, np.arange(lv.shape[axis] - 1), axis=axis)
+        hi = np.take(d, np.arange(1, lv.shape[axis]), axis=axis)
+        wall = np.maximum(lo / hi, hi / lo) > WALL
+        per_face = wall.sum(axis=tuple(a for a in range(3) if a != axis))
+        off[axis] = 1 if per_face[0::2].sum() > per_face[1::2].sum() else 0
+    return off
+
+
+class WallHierarchy(gmg.Hierarchy):
+    """The kept hierarchy (W(2,2), z-lines, scaled aggregation, float32 levels, finest level
+    on a float32 copy) with shifted pairs (``follow=True``) or the kept ones (False: the
+    same code with every offset 0, a check of the prototype against the product)."""
+
+    def __init__(self, fine: Level, follow: bool = True, out: np.ndarray | None = None) -> None:
+        self.dtype = np.dtype(np.float32)
+        self.transfer, self.smoother, self.overcorrection = "scaled", "line", 1.0
+        self.gamma, self.sweeps = 2, (2, 2)
+        self.offsets = []
+        top = fine.astype(self.dtype)
+        top.boost = np.ones(3)
+        self.levels = [top]
+        # a shifted axis has one aggregate more (a cell alone at each end); without the
+        # allowance a 16 x 16 x 17 level would be aggregated once more than the kept 16^3,
+        # and a coarser coarsest level slows layered media (gmg.COARSEST_CELLS)
+        while int(np.prod(self.levels[-1].shape)) > COARSEST_ALLOWANCE * gmg.COARSEST_CELLS:
+            lv = self.levels[-1]
+            lv.lines = True
+            step = coarsening_step(lv, True)
+            if not (step > 1).any():
+                break
+            off = wall_offsets(lv, step) if follow else np.zeros(3, dtype=np.int64)
+            lv.step, lv.off = step, off
+            cshape = tuple(int((n + o + s - 1) // s) for n, s, o in zip(lv.shape, step, off))
+            arrays = [np.empty(cshape, dtype=self.dtype) for _ in range(4)]
+            freec = np.empty(cshape, dtype=np.bool_)
+            galerkin_shifted(lv.tx, lv.ty, lv.tz, lv.diag, lv.free, step, off, *arrays, freec)
+            coarse = Level(*arrays, freec, np.ones(3, dtype=np.int64), boost=lv.boost)
+            coarse.e, coarse.b = (np.empty(cshape, dtype=self.dtype) for _ in range(2))
+            self.levels.append(coarse)
+            self.offsets.append(tuple(int(o) for o in off))
+        self._out = out.reshape(fine.shape) if out is not None else np.empty(fine.shape)
+        halves = self._out.reshape(-1).view(np.float32)
+        n = top.diag.size
+        top.e = halves[n:].reshape(top.shape)
+        top.b = halves[:n].reshape(top.shape)
+        self._refactor = False
+        for lv in self.levels[:-1]:
+            lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
+            multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
+        self.coarsest = sla.splu(self.levels[-1].to_csr().tocsc(), permc_spec="MMD_AT_PLUS_A",
+                                 options={"SymmetricMode": True})
+
+    def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
+        lv = self.levels[level]
+        if level == len(self.levels) - 1:
+            self._coarsest_solve(b, u)
+            return
+        coarse = self.levels[level + 1]
+        self._smooth(lv, b, u, 0)
+        residual_restrict_shifted(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.step, lv.off, coarse.b)
+        coarse.e[...] = 0.0
+        for _ in range(self.gamma if level + 2 < len(self.levels) else 1):
+            self.cycle(level + 1, coarse.b, coarse.e)
+        prolong_add_shifted(coarse.e, lv.free, lv.step, lv.off, 1.0, u)
+        self._smooth(lv, b, u, 1)
+
+
+def solve(fine, b, design: str):
+    """gmg-CG with the kept Hierarchy ("kept"), the prototype unshifted ("prototype, pairs as
+    kept") or shifted ("walls")."""
+    kept = gmg.Hierarchy
+    if design != "kept":
+        gmg.Hierarchy = lambda fine, out=None, **_: WallHierarchy(fine, design == "walls", out)
+    try:
+        return gmg.solve_levels(fine, b, cb.RTOL, cb.MAX_ITERATIONS, finest="copy")
+    finally:
+        gmg.Hierarchy = kept
+
+
+DESIGNS = ("kept", "prototype, pairs as kept", "walls")
+
+
+def run_case(n: int, case: str, repeats: int) -> list[dict]:
+    fine, b = cb.problem_level(n, case)
+    rows = []
+    for design in DESIGNS:
+        seconds = np.inf
+        for _ in range(repeats):
+            unit = cb.unit_seconds(fine)
+            t = cb.CLOCK()
+            result, hierarchy = solve(fine, b, design)
+            seconds = min(seconds, cb.CLOCK() - t)
+        unit = float(np.median([unit, cb.unit_seconds(fine)]))
+        offsets = getattr(hierarchy, "offsets", None)
+        rows.append(dict(case=case, n=n, design=design, iterations=result.iterations,
+                         converged=result.converged, seconds=seconds, unit=unit,
+                         levels=" > ".join("x".join(map(str, s)) for s in hierarchy.shapes),
+                         offsets=" ".join("".join(map(str, o)) for o in offsets) if offsets else "",
+                         residual=result.history[-1] / result.history[0]))
+        print(f"{case:10s} {n:4d} {design:26s} it {result.iterations:3d} wu {seconds / unit:6.1f} "
+              f"t {seconds:6.2f} {rows[-1]['offsets']}", flush=True)
+    return rows
+
+
+def report(rows: list[dict], info: dict, command: str) -> str:
+    out = ["# Aggregates that follow walls (a prototype)", "",
+           f"Written by `{command}` on {info['date']}; every number below comes from that run. "
+           "Do not edit by hand: run the command again.", "",
+           "gmg-CG to rtol 1e-8 (true residual), one numba thread, CPU seconds of this process "
+           "(best of the repeats). *work units* = (setup + solve) / one float64 application of "
+           "the finest operator (median around the solves). *kept* = `sevenfold.solvers.gmg`'s "
+           "hierarchy; *prototype, pairs as kept* = this file's hierarchy with every offset 0 "
+           "(it must match *kept*'s iterations: the check that the prototype's kernels are the "
+           "kept ones); *walls* = pairs shifted per level and axis so that walls fall between "
+           "aggregates (*offsets*: x, y, z per level, 1 = shifted). See the docstring of "
+           "`benchmarks/wall_bench.py` for the design.", "",
+           "| case | cells | design | iterations | work units | seconds | time ratio | offsets per level | levels |",
+           "|---|---|---|---|---|---|---|---|---|"]
+    for r in rows:
+        base = next(x["seconds"] for x in rows if x["case"] == r["case"] and x["n"] == r["n"]
+                    and x["design"] == "kept")
+        out.append(f"| {r['case']} | {r['n']}^3 | {r['design']} | {r['iterations']}"
+                   f"{'' if r['converged'] else ' (not converged)'} | {r['seconds'] / r['unit']:.1f} | "
+                   f"{r['seconds']:.2f} | {r['seconds'] / base:.2f} | {r['offsets'] or '-'} | {r['levels']} |")
+    out += ["", "## Machine", "", "| | |", "|---|---|"]
+    out += [f"| {k} | {v} |" for k, v in info.items()]
+    return "\n".join(out) + "\n"
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
+    parser.add_argument("--cases", nargs="+", default=["column", "layered", "inclusions", "constant"])
+    parser.add_argument("--repeats", type=int, default=1)
+    parser.add_argument("--results", default=str(HERE / "RESULTS_WALLS.md"))
+    args = parser.parse_args(argv)
+    numba.set_num_threads(1)
+    info = engine.machine()
+    info["load average before"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
+    info["sevenfold revision"] = subprocess.run(
+        ["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, cwd=HERE).stdout.strip()
+    run_case(24, "column", 1)  # compile every kernel before timing
+    print("timed runs", flush=True)
+    rows = []
+    for n in args.sizes:
+        for case in args.cases:
+            rows += run_case(n, case, args.repeats)
+    info["load average after"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
+    info["date"] = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    command = "python benchmarks/wall_bench.py " + shlex.join(sys.argv[1:] if argv is None else argv)
+    Path(args.results).write_text(report(rows, info, command.strip()))
+    print("wrote", args.results)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
