@@ -236,6 +236,7 @@ class WallHierarchy(gmg.Hierarchy):
         top.e = halves[n:].reshape(top.shape)
         top.b = halves[:n].reshape(top.shape)
         self._refactor = False
+        self.notes = " ".join("".join(map(str, o)) for o in self.offsets)
         for lv in self.levels[:-1]:
             lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
             multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
@@ -270,77 +271,86 @@ def solve(fine, b, design: str):
 
 
 DESIGNS = ("kept", "prototype, pairs as kept", "walls")
+TITLE = "Aggregates that follow walls (a prototype)"
+INTRO = ("*kept* = `sevenfold.solvers.gmg`'s hierarchy; *prototype, pairs as kept* = this file's "
+         "hierarchy with every offset 0 (it must match *kept*'s iterations: the check that the "
+         "prototype's kernels are the kept ones); *walls* = pairs shifted per level and axis so "
+         "that walls fall between aggregates (*offsets*: x, y, z per level, 1 = shifted). See "
+         "the docstring of `benchmarks/wall_bench.py` for the design.")
 
 
-def run_case(n: int, case: str, repeats: int) -> list[dict]:
+def run_case(n: int, case: str, repeats: int, designs=DESIGNS, solver=None) -> list[dict]:
+    """Each design's gmg-CG on one problem: iterations, CPU seconds (best of ``repeats``) and
+    the unit; ``solver(fine, b, design)`` (default :func:`solve`) returns solve_levels's pair,
+    and the hierarchy's ``notes`` (if any) go to the table."""
     fine, b = cb.problem_level(n, case)
     rows = []
-    for design in DESIGNS:
+    for design in designs:
         seconds = np.inf
         for _ in range(repeats):
             unit = cb.unit_seconds(fine)
             t = cb.CLOCK()
-            result, hierarchy = solve(fine, b, design)
+            result, hierarchy = (solver or solve)(fine, b, design)
             seconds = min(seconds, cb.CLOCK() - t)
         unit = float(np.median([unit, cb.unit_seconds(fine)]))
-        offsets = getattr(hierarchy, "offsets", None)
         rows.append(dict(case=case, n=n, design=design, iterations=result.iterations,
                          converged=result.converged, seconds=seconds, unit=unit,
                          levels=" > ".join("x".join(map(str, s)) for s in hierarchy.shapes),
-                         offsets=" ".join("".join(map(str, o)) for o in offsets) if offsets else "",
-                         residual=result.history[-1] / result.history[0]))
+                         notes=getattr(hierarchy, "notes", "")))
         print(f"{case:10s} {n:4d} {design:26s} it {result.iterations:3d} wu {seconds / unit:6.1f} "
-              f"t {seconds:6.2f} {rows[-1]['offsets']}", flush=True)
+              f"t {seconds:6.2f} {rows[-1]['notes']}", flush=True)
     return rows
 
 
-def report(rows: list[dict], info: dict, command: str) -> str:
-    out = ["# Aggregates that follow walls (a prototype)", "",
+def report(rows: list[dict], info: dict, command: str, title: str = TITLE, intro: str = INTRO,
+           notes: str = "offsets per level") -> str:
+    """The results as markdown: ``intro`` says what the designs are, ``notes`` heads the
+    column of the hierarchies' notes."""
+    out = [f"# {title}", "",
            f"Written by `{command}` on {info['date']}; every number below comes from that run. "
            "Do not edit by hand: run the command again.", "",
            "gmg-CG to rtol 1e-8 (true residual), one numba thread, CPU seconds of this process "
            "(best of the repeats). *work units* = (setup + solve) / one float64 application of "
-           "the finest operator (median around the solves). *kept* = `sevenfold.solvers.gmg`'s "
-           "hierarchy; *prototype, pairs as kept* = this file's hierarchy with every offset 0 "
-           "(it must match *kept*'s iterations: the check that the prototype's kernels are the "
-           "kept ones); *walls* = pairs shifted per level and axis so that walls fall between "
-           "aggregates (*offsets*: x, y, z per level, 1 = shifted). See the docstring of "
-           "`benchmarks/wall_bench.py` for the design.", "",
-           "| case | cells | design | iterations | work units | seconds | time ratio | offsets per level | levels |",
+           "the finest operator (median around the solves); *time ratio* = seconds / *kept*'s "
+           "on the same problem. " + intro, "",
+           f"| case | cells | design | iterations | work units | seconds | time ratio | {notes} | levels |",
            "|---|---|---|---|---|---|---|---|---|"]
     for r in rows:
         base = next(x["seconds"] for x in rows if x["case"] == r["case"] and x["n"] == r["n"]
                     and x["design"] == "kept")
         out.append(f"| {r['case']} | {r['n']}^3 | {r['design']} | {r['iterations']}"
                    f"{'' if r['converged'] else ' (not converged)'} | {r['seconds'] / r['unit']:.1f} | "
-                   f"{r['seconds']:.2f} | {r['seconds'] / base:.2f} | {r['offsets'] or '-'} | {r['levels']} |")
+                   f"{r['seconds']:.2f} | {r['seconds'] / base:.2f} | {r['notes'] or '-'} | {r['levels']} |")
     out += ["", "## Machine", "", "| | |", "|---|---|"]
     out += [f"| {k} | {v} |" for k, v in info.items()]
     return "\n".join(out) + "\n"
 
 
-def main(argv=None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+def main(argv=None, script: str = "wall_bench.py", results: str = "RESULTS_WALLS.md",
+         designs=DESIGNS, solver=None, **text) -> int:
+    """Run ``designs`` on the chosen sizes and cases and write ``results`` (``text``: report's
+    title, intro and notes)."""
+    parser = argparse.ArgumentParser(description=f"benchmarks/{script}: prototype designs against the kept hierarchy")
     parser.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     parser.add_argument("--cases", nargs="+", default=["column", "layered", "inclusions", "constant"])
     parser.add_argument("--repeats", type=int, default=1)
-    parser.add_argument("--results", default=str(HERE / "RESULTS_WALLS.md"))
+    parser.add_argument("--results", default=str(HERE / results))
     args = parser.parse_args(argv)
     numba.set_num_threads(1)
     info = engine.machine()
     info["load average before"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
     info["sevenfold revision"] = subprocess.run(
         ["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, cwd=HERE).stdout.strip()
-    run_case(24, "column", 1)  # compile every kernel before timing
+    run_case(24, "column", 1, designs, solver)  # compile every kernel before timing
     print("timed runs", flush=True)
     rows = []
     for n in args.sizes:
         for case in args.cases:
-            rows += run_case(n, case, args.repeats)
+            rows += run_case(n, case, args.repeats, designs, solver)
     info["load average after"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
     info["date"] = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-    command = "python benchmarks/wall_bench.py " + shlex.join(sys.argv[1:] if argv is None else argv)
-    Path(args.results).write_text(report(rows, info, command.strip()))
+    command = f"python benchmarks/{script} " + shlex.join(sys.argv[1:] if argv is None else argv)
+    Path(args.results).write_text(report(rows, info, command.strip(), **text))
     print("wrote", args.results)
     return 0
 
