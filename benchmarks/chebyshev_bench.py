@@ -36,7 +36,7 @@ sys.path.insert(0, str(HERE))
 import cycle_bench as cb  # noqa: E402
 import wall_bench  # noqa: E402
 
-from sevenfold.kernels.multigrid import LINE_BLOCK  # noqa: E402
+from sevenfold.kernels.multigrid import LINE_BLOCK, solve_block  # noqa: E402
 from sevenfold.solvers import gmg  # noqa: E402
 
 LB = LINE_BLOCK
@@ -75,16 +75,7 @@ def chebyshev_line_step(tx, ty, tz, diag, inv_w, b, u, d, keep, gain):
                     y[m * LB + c] = 0.0
                     w[m * LB + c] = 0.0
                     t[m * LB + c] = 0.0
-            for c in range(LB):
-                y[c] = y[c] * w[c]
-            for m in range(1, nz):
-                at, prev = m * LB, (m - 1) * LB
-                for c in range(LB):
-                    y[at + c] = (y[at + c] + t[prev + c] * y[prev + c]) * w[at + c]
-            for m in range(nz - 2, -1, -1):
-                at, nxt = m * LB, (m + 1) * LB
-                for c in range(LB):
-                    y[at + c] += t[at + c] * w[at + c] * y[nxt + c]
+            solve_block(y, w, t, nz)
             for c in range(nb):
                 for m in range(nz):
                     if keep == 0.0:

@@ -51,6 +51,24 @@ def line_factor(tz, diag, inv_w):
                     inv_w[i, j0 + c, m] = 1.0 / w[m * LINE_BLOCK + c]
 
 
+@njit(cache=True, inline="always")
+def solve_block(y, w, t, nz):
+    """Solve LINE_BLOCK tridiagonal z-line systems side by side, in place: ``y`` (nz rows of
+    LINE_BLOCK, flat) holds their right-hand sides and gets the solutions; ``w`` the pivots
+    1 / w_k of :func:`line_factor` and ``t`` the couplings tz, in the same layout. The inner
+    loops run across the block's columns, so they vectorise."""
+    for c in range(LINE_BLOCK):
+        y[c] = y[c] * w[c]
+    for m in range(1, nz):
+        at, prev = m * LINE_BLOCK, (m - 1) * LINE_BLOCK
+        for c in range(LINE_BLOCK):
+            y[at + c] = (y[at + c] + t[prev + c] * y[prev + c]) * w[at + c]
+    for m in range(nz - 2, -1, -1):
+        at, nxt = m * LINE_BLOCK, (m + 1) * LINE_BLOCK
+        for c in range(LINE_BLOCK):
+            y[at + c] += t[at + c] * w[at + c] * y[nxt + c]
+
+
 @njit(cache=True)
 def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, y, w, t):
     """Exact z-line solves for the columns (i, j) of plane i with (i + j) % 2 == colour, x and
@@ -87,16 +105,7 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, y, w, t):
                 y[m * LINE_BLOCK + c] = 0.0
                 w[m * LINE_BLOCK + c] = 0.0
                 t[m * LINE_BLOCK + c] = 0.0
-        for c in range(LINE_BLOCK):
-            y[c] = y[c] * w[c]
-        for m in range(1, nz):
-            at, prev = m * LINE_BLOCK, (m - 1) * LINE_BLOCK
-            for c in range(LINE_BLOCK):
-                y[at + c] = (y[at + c] + t[prev + c] * y[prev + c]) * w[at + c]
-        for m in range(nz - 2, -1, -1):
-            at, nxt = m * LINE_BLOCK, (m + 1) * LINE_BLOCK
-            for c in range(LINE_BLOCK):
-                y[at + c] += t[at + c] * w[at + c] * y[nxt + c]
+        solve_block(y, w, t, nz)
         for c in range(nb):
             j = j0 + 2 * c
             for m in range(nz):
