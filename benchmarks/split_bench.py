@@ -1,0 +1,625 @@
+"""Colour-split storage for the z-line sweep: a prototype of the design named for issue 10's
+work-unit target.
+
+    python benchmarks/split_bench.py [--sizes 128 256] [--cases column layered inclusions constant]
+
+The kept sweep (`sevenfold.kernels.multigrid.line_gauss_seidel`) stores a level as u[i, j, k],
+z contiguous. Its columns of one colour ((i + j) % 2) are every other j, so each block of 8
+columns is gathered from 8 strided columns into a small buffer before the Thomas recurrences
+can run across the block; that gather and the scatter back are most of a sweep's time.
+
+Here every array of the level is stored split by colour and with z in the middle:
+S[c, i, k, h] holds cell (i, j, k) with c = (i + j) % 2 and j = 2 h + ((i + c) % 2). One x-row
+of one colour, S[c, i], is then one contiguous block of nz rows of ny / 2 columns, and the
+Thomas recurrence along z advances a whole row of columns at unit stride, with no gather:
+
+* the y neighbours of column (c, i, h) are the other colour's columns h - 1 + q and h + q of
+  the same row (q = (i + c) % 2), its x neighbours the other colour's column h of rows i - 1
+  and i + 1, so every neighbour read is unit stride too;
+* the forward recurrence writes into u itself (a colour's own old values are not read), the
+  backward one reads the row back while it is still in the second-level cache (a row is nz ny
+  / 2 values: 32 KiB at 128^3, 128 KiB at 256^3);
+* the same order of colours and rows as the kept sweep (the second colour trailing the first
+  by one x-row, runs of rows per thread, border rows last), and the same sums in the same
+  order, so the result is the kept sweep's bit for bit (checked on every level it times).
+
+Only the finest level is split in this prototype: CG works on split vectors, with the finest
+operator, the residual and restriction and the prolongation written for the split layout (the
+restriction writes, and the prolongation reads, the coarse array in x, z, y order, so that a
+coarse row's y run is unit stride too; that array is swapped into the kept order at coarse
+size). The coarser levels keep the kept layout and kernels. The finest arrays are split once at
+set-up (the time is reported: assembly that wrote them split would not pay it). Requires an even
+ny.
+
+Writes benchmarks/RESULTS_SPLIT.md: whole gmg-CG solves, kept against this prototype (one numba
+thread, CPU seconds, set-up and CG apart), each finest-level kernel alone on the same arrays,
+and a projection for levels built split.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import numba
+import numpy as np
+from numba import njit, prange
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+import cycle_bench as cb  # noqa: E402
+import wall_bench  # noqa: E402
+
+from sevenfold.kernels import multigrid, stencil  # noqa: E402
+from sevenfold.solvers import gmg  # noqa: E402
+from sevenfold.solvers.cg import pcg  # noqa: E402
+
+
+TILE = 16  # z planes a conversion moves per pass along a row (a tile of the transposition)
+
+
+@njit(parallel=True)  # (no cache: a cached kernel re-imports this module)
+def to_split(a, s):
+    """s[c, i, k, h] = a[i, 2 h + (i + c) % 2, k] (and a narrowing cast to s's type); in tiles
+    of TILE z planes, so that both sides of the transposition stay in the first-level cache."""
+    nx, ny, nz = a.shape
+    nyh = ny // 2
+    for i in prange(nx):
+        for c in range(2):
+            q = (i + c) & 1
+            for k0 in range(0, nz, TILE):
+                k1 = min(k0 + TILE, nz)
+                for h in range(nyh):
+                    j = 2 * h + q
+                    for k in range(k0, k1):
+                        s[c, i, k, h] = a[i, j, k]
+
+
+@njit(parallel=True)
+def from_split(s, a):
+    """The inverse of :func:`to_split`, tiled the same way."""
+    nx, ny, nz = a.shape
+    nyh = ny // 2
+    for i in prange(nx):
+        for c in range(2):
+            q = (i + c) & 1
+            for k0 in range(0, nz, TILE):
+                k1 = min(k0 + TILE, nz)
+                for h in range(nyh):
+                    j = 2 * h + q
+                    for k in range(k0, k1):
+                        a[i, j, k] = s[c, i, k, h]
+
+
+@njit
+def _solve_row(b, txm, uxm, txp, uxp, tym, typ, uy, tz, iw, u, q):
+    """Exact z-line solves of one x-row of one colour (split layout; every argument a 2-D
+    (nz, ny / 2) row): b the right-hand side, (txm, uxm) and (txp, uxp) the x-minus and x-plus
+    couplings and the other colour's u in those rows, tym and typ the y couplings (tym the
+    other colour's), uy the other colour's u in this row, tz and iw the z couplings and pivots,
+    u the row's own u (written). q = 0: the y-minus neighbour of column h is the other colour's
+    column h - 1, and h + 0 the y-plus one; q = 1: h and h + 1. The sums in the order of
+    multigrid._line_plane, the recurrences of multigrid.solve_block; each loop runs across the
+    row's columns at unit stride and touches few arrays, so that it vectorises."""
+    nz, nyh = u.shape
+    for k in range(nz):
+        for h in range(nyh):
+            u[k, h] = b[k, h] + txm[k, h] * uxm[k, h] + txp[k, h] * uxp[k, h]
+        if q == 0:  # column 0 has no y-minus neighbour (its coupling is zero)
+            for h in range(1, nyh):
+                u[k, h] = u[k, h] + tym[k, h - 1] * uy[k, h - 1]
+            for h in range(nyh):
+                u[k, h] = u[k, h] + typ[k, h] * uy[k, h]
+        else:  # the last column has no y-plus neighbour
+            for h in range(nyh):
+                u[k, h] = u[k, h] + tym[k, h] * uy[k, h]
+            for h in range(nyh - 1):
+                u[k, h] = u[k, h] + typ[k, h] * uy[k, h + 1]
+        if k == 0:
+            for h in range(nyh):
+                u[0, h] = u[0, h] * iw[0, h]
+        else:
+            for h in range(nyh):
+                u[k, h] = (u[k, h] + tz[k - 1, h] * u[k - 1, h]) * iw[k, h]
+    for k in range(nz - 2, -1, -1):
+        for h in range(nyh):
+            u[k, h] += tz[k, h] * iw[k, h] * u[k + 1, h]
+
+
+@njit
+def _row(tx, ty, tz, iw, b, u, i, c):
+    """The z-line solves of colour c in x-row i (:func:`_solve_row` on the rows involved)."""
+    nx = u.shape[1]
+    o = 1 - c
+    im = max(i - 1, 0)
+    ip = min(i + 1, nx - 1)
+    itm = i - 1 if i > 0 else nx - 1  # the zero last row stands in for a missing coupling
+    _solve_row(b[c, i], tx[o, itm], u[o, im], tx[c, i], u[o, ip], ty[o, i], ty[c, i], u[o, i],
+               tz[c, i], iw[c, i], u[c, i], (i + c) & 1)
+
+
+@njit(parallel=True)
+def sweep_split(tx, ty, tz, iw, b, u, first, chunks):
+    """One zebra z-line Gauss-Seidel sweep on split arrays, colour ``first`` then the other,
+    in one pass (the order of multigrid.line_gauss_seidel: the second colour one row behind,
+    ``chunks`` runs of rows, the runs' border rows last)."""
+    nx = u.shape[1]
+    chunks = max(1, min(chunks, nx))
+    second = 1 - first
+    for r in prange(chunks):
+        lo, hi = r * nx // chunks, (r + 1) * nx // chunks
+        for i in range(lo, hi):
+            _row(tx, ty, tz, iw, b, u, i, first)
+            if i - 1 > lo:
+                _row(tx, ty, tz, iw, b, u, i - 1, second)
+    for r in prange(chunks):
+        lo, hi = r * nx // chunks, (r + 1) * nx // chunks
+        _row(tx, ty, tz, iw, b, u, lo, second)
+        if hi - 1 > lo:
+            _row(tx, ty, tz, iw, b, u, hi - 1, second)
+
+
+@njit(parallel=True)
+def prolong_add_split(ect, free, step, scale, u):
+    """u += scale * P ec on the free cells, u split, ``free`` split as 1.0 and 0.0 in u's
+    type (a product instead of a branch, so that the loop vectorises), ect = ec in x, z, y
+    order (stencil.prolong_add's sums)."""
+    nx, nz, nyh = u.shape[1], u.shape[2], u.shape[3]
+    sx, sy, sz = step[0], step[1], step[2]
+    for i in prange(nx):
+        I = i // sx
+        for c in range(2):
+            q = (i + c) & 1
+            for k in range(nz):
+                row = ect[I, k // sz]
+                uk = u[c, i, k]
+                fk = free[c, i, k]
+                if sy == 2:
+                    for h in range(nyh):
+                        uk[h] += scale * row[h] * fk[h]
+                else:
+                    for h in range(nyh):
+                        uk[h] += scale * row[2 * h + q] * fk[h]
+
+
+@njit
+def _residual_row(b, diag, txm, uxm, txp, uxp, tym, typ, uy, tz, u, q, r):
+    """r = b - A u on the columns of one x-row and colour (split layout; the rows as in
+    :func:`_solve_row`, r another (nz, ny / 2) row; missing neighbours as in
+    :func:`_product_row`)."""
+    nz, nyh = u.shape
+    for k in range(nz):
+        km = k - 1 if k > 0 else nz - 1
+        um = u[k - 1] if k > 0 else u[k]
+        up = u[k + 1] if k < nz - 1 else u[k]
+        tm, tp, y, uk, bk = tz[km], tz[k], r[k], u[k], b[k]
+        if q == 0:
+            y[0] = (bk[0] - diag[k, 0] * uk[0] + txm[k, 0] * uxm[k, 0] + txp[k, 0] * uxp[k, 0]
+                    + typ[k, 0] * uy[k, 0] + tm[0] * um[0] + tp[0] * up[0])
+            for h in range(1, nyh):
+                y[h] = (bk[h] - diag[k, h] * uk[h] + txm[k, h] * uxm[k, h] + txp[k, h] * uxp[k, h]
+                        + tym[k, h - 1] * uy[k, h - 1] + typ[k, h] * uy[k, h]
+                        + tm[h] * um[h] + tp[h] * up[h])
+        else:
+            for h in range(nyh - 1):
+                y[h] = (bk[h] - diag[k, h] * uk[h] + txm[k, h] * uxm[k, h] + txp[k, h] * uxp[k, h]
+                        + tym[k, h] * uy[k, h] + typ[k, h] * uy[k, h + 1]
+                        + tm[h] * um[h] + tp[h] * up[h])
+            h = nyh - 1
+            y[h] = (bk[h] - diag[k, h] * uk[h] + txm[k, h] * uxm[k, h] + txp[k, h] * uxp[k, h]
+                    + tym[k, h] * uy[k, h] + tm[h] * um[h] + tp[h] * up[h])
+
+
+@njit(parallel=True)
+def residual_restrict_split(tx, ty, tz, diag, b, u, step, rct):
+    """rct = P^T (b - A u) with u, b and the face arrays split and rct in x, z, y order
+    (rct[I, K, J]: a coarse row's y run is unit stride, as the split fine rows are), the
+    piecewise-constant restriction of stencil.residual_restrict; each coarse x-row is one
+    thread's."""
+    nx, nz, nyh = u.shape[1], u.shape[2], u.shape[3]
+    sx, sy, sz = step[0], step[1], step[2]
+    ncx = rct.shape[0]
+    for I in prange(ncx):
+        rct[I] = 0.0
+        r = np.empty((nz, nyh), dtype=rct.dtype)
+        for i in range(I * sx, min(I * sx + sx, nx)):
+            im = max(i - 1, 0)
+            ip = min(i + 1, nx - 1)
+            itm = i - 1 if i > 0 else nx - 1
+            for c in range(2):
+                o = 1 - c
+                q = (i + c) & 1
+                _residual_row(b[c, i], diag[c, i], tx[o, itm], u[o, im], tx[c, i], u[o, ip],
+                              ty[o, i], ty[c, i], u[o, i], tz[c, i], u[c, i], q, r)
+                for k in range(nz):
+                    row = rct[I, k // sz]
+                    rk = r[k]
+                    if sy == 2:  # column h of either colour lies in coarse column h
+                        for h in range(nyh):
+                            row[h] += rk[h]
+                    else:
+                        for h in range(nyh):
+                            row[2 * h + q] += rk[h]
+
+
+@njit(parallel=True)
+def swap_yz(a, out):
+    """out[i, k, j] = a[i, j, k] (a coarse level's array between the kept x, y, z order and
+    the x, z, y order of the split level's transfers)."""
+    for i in prange(a.shape[0]):
+        for j in range(a.shape[1]):
+            for k in range(a.shape[2]):
+                out[i, k, j] = a[i, j, k]
+
+
+@njit
+def _product_row(diag, txm, uxm, txp, uxp, tym, typ, uy, tz, u, q, out):
+    """out = A u on the columns of one x-row and colour (split layout, the rows as in
+    :func:`_solve_row`); returns u . A u over them. One fused loop per plane: a missing z
+    neighbour is read through the last plane's coupling, which is zero by the face-array
+    convention (as a missing x neighbour is), and the edge column's missing y neighbour
+    through its own zero coupling."""
+    nz, nyh = u.shape
+    acc = 0.0
+    for k in range(nz):
+        km = k - 1 if k > 0 else nz - 1
+        um = u[k - 1] if k > 0 else u[k]
+        up = u[k + 1] if k < nz - 1 else u[k]
+        tm, tp, y, uk = tz[km], tz[k], out[k], u[k]
+        if q == 0:  # y neighbours h - 1 and h; column 0's y-minus coupling is missing
+            y[0] = (diag[k, 0] * uk[0] - txm[k, 0] * uxm[k, 0] - txp[k, 0] * uxp[k, 0]
+                    - typ[k, 0] * uy[k, 0] - tm[0] * um[0] - tp[0] * up[0])
+            for h in range(1, nyh):
+                y[h] = (diag[k, h] * uk[h] - txm[k, h] * uxm[k, h] - txp[k, h] * uxp[k, h]
+                        - tym[k, h - 1] * uy[k, h - 1] - typ[k, h] * uy[k, h]
+                        - tm[h] * um[h] - tp[h] * up[h])
+        else:  # y neighbours h and h + 1; the last column's y-plus coupling is missing
+            for h in range(nyh - 1):
+                y[h] = (diag[k, h] * uk[h] - txm[k, h] * uxm[k, h] - txp[k, h] * uxp[k, h]
+                        - tym[k, h] * uy[k, h] - typ[k, h] * uy[k, h + 1]
+                        - tm[h] * um[h] - tp[h] * up[h])
+            h = nyh - 1
+            y[h] = (diag[k, h] * uk[h] - txm[k, h] * uxm[k, h] - txp[k, h] * uxp[k, h]
+                    - tym[k, h] * uy[k, h] - tm[h] * um[h] - tp[h] * up[h])
+        for h in range(nyh):
+            acc += uk[h] * y[h]
+    return acc
+
+
+@njit(parallel=True)
+def apply_dot_split(tx, ty, tz, diag, p, out):
+    """out = A p on split arrays (the finest operator, for CG), and p . A p."""
+    nx = p.shape[1]
+    pq = 0.0
+    for i in prange(nx):
+        im = max(i - 1, 0)
+        ip = min(i + 1, nx - 1)
+        itm = i - 1 if i > 0 else nx - 1
+        acc = 0.0
+        for c in range(2):
+            o = 1 - c
+            q = (i + c) & 1
+            acc += _product_row(diag[c, i], tx[o, itm], p[o, im], tx[c, i], p[o, ip], ty[o, i],
+                                ty[c, i], p[o, i], tz[c, i], p[c, i], q, out[c, i])
+        pq += acc
+    return pq
+
+
+class SplitOperator:
+    """The finest operator on split float64 arrays, as CG's A (flat split vectors)."""
+
+    def __init__(self, fine) -> None:
+        t = cb.CLOCK()
+        self.s = {name: split(getattr(fine, name)) for name in ("tx", "ty", "tz", "diag")}
+        self.splitting = cb.CLOCK() - t
+        n = fine.diag.size
+        self.shape = (n, n)
+        self.out = np.empty_like(self.s["diag"])
+
+    def apply_dot(self, p: np.ndarray) -> tuple[np.ndarray, float]:
+        s = self.s
+        pq = apply_dot_split(s["tx"], s["ty"], s["tz"], s["diag"], p.reshape(self.out.shape),
+                             self.out)
+        return self.out.ravel(), pq
+
+    def __matmul__(self, p: np.ndarray) -> np.ndarray:
+        return self.apply_dot(p)[0]
+
+
+def split_like(a: np.ndarray, dtype=None) -> np.ndarray:
+    nx, ny, nz = a.shape
+    if ny % 2:
+        raise ValueError("the split prototype needs an even ny")
+    return np.empty((2, nx, nz, ny // 2), dtype=dtype or a.dtype)
+
+
+def split(a: np.ndarray, dtype=None) -> np.ndarray:
+    s = split_like(a, dtype)
+    to_split(a, s)
+    return s
+
+
+class SplitHierarchy(gmg.Hierarchy):
+    """The kept hierarchy whose finest level is smoothed in split storage."""
+
+    def __init__(self, fine, **options) -> None:
+        super().__init__(fine, **options)
+        top = self.levels[0]
+        t = cb.CLOCK()
+        self.s = {name: split(getattr(top, name)) for name in ("tx", "ty", "tz", "diag", "inv_w")}
+        self.s["free"] = split(top.free, self.dtype)
+        self.splitting = cb.CLOCK() - t  # set-up that a level built split would not pay
+        self.sb = split_like(top.diag, self.dtype)
+        self.su = split_like(top.diag, self.dtype)
+        nx, ny, nz = self.levels[1].shape
+        self.ct = np.empty((nx, nz, ny), dtype=self.dtype)  # a coarse array in x, z, y order
+
+    def precondition_dot(self, r: np.ndarray) -> tuple[np.ndarray, float]:
+        """One cycle from zero for A z = r, r and z split (r float64, z float32), and r . z."""
+        from sevenfold.kernels.vector import vector_ops
+
+        multigrid.narrow(r, self.sb.reshape(-1))
+        self.su[...] = 0.0
+        self.cycle(0, None, None)
+        z = self.su.reshape(-1)
+        return z, vector_ops(z.size).dot(r, z)
+
+    def _sweeps(self, first: int) -> None:
+        s = self.s
+        for _ in range(self.sweeps[first]):
+            sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], self.sb, self.su, first,
+                        numba.get_num_threads())
+
+    def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
+        if level > 0:
+            return super().cycle(level, b, u)
+        lv, coarse = self.levels[0], self.levels[1]
+        self._sweeps(0)  # (from zero: precondition_dot)
+        s = self.s
+        residual_restrict_split(s["tx"], s["ty"], s["tz"], s["diag"], self.sb, self.su, lv.step,
+                                self.ct)
+        swap_yz(self.ct, coarse.b)
+        coarse.e[...] = 0.0
+        for _ in range(self.gamma if len(self.levels) > 2 else 1):
+            super().cycle(1, coarse.b, coarse.e)
+        swap_yz(coarse.e, self.ct)
+        prolong_add_split(self.ct, self.s["free"], lv.step, self.overcorrection, self.su)
+        self._sweeps(1)
+
+
+DESIGNS = ("kept", "split finest level")
+OPTIONS = {k: v for k, v in gmg.DEFAULTS.items() if k != "start"} | {"finest": "copy"}
+
+
+def solve(fine, b, design: str) -> dict:
+    """gmg-CG from zero with the kept hierarchy or the prototype (CG on split vectors with
+    :class:`SplitOperator` and :class:`SplitHierarchy`): CPU seconds of the set-up (of which
+    ``splitting``: the prototype's splitting of the finest arrays) and of CG, the iterations,
+    and the true relative residual of x in the kept layout."""
+    t0 = cb.CLOCK()
+    if design == "kept":
+        operator = gmg.FineOperator(fine)
+        hierarchy = gmg.Hierarchy(fine, out=operator.out, **OPTIONS)
+        rhs, splitting = b.reshape(-1), 0.0
+    else:
+        operator = SplitOperator(fine)
+        hierarchy = SplitHierarchy(fine, **OPTIONS)
+        t = cb.CLOCK()
+        rhs = split(b).reshape(-1)
+        splitting = cb.CLOCK() - t + operator.splitting + hierarchy.splitting
+    t1 = cb.CLOCK()
+    result = pcg(operator, rhs, hierarchy, cb.RTOL, cb.MAX_ITERATIONS, None, 50, "gmg", 0.0)
+    t2 = cb.CLOCK()
+    x = result.x.reshape(fine.shape)
+    if design != "kept":
+        x = np.empty(fine.shape)
+        from_split(result.x.reshape(operator.out.shape), x)
+    ax = np.empty(fine.shape)
+    fine.apply(x, ax)
+    residual = float(np.linalg.norm(b - ax) / np.linalg.norm(b))
+    return dict(design=design, setup=t1 - t0, splitting=splitting, cg=t2 - t1,
+                iterations=result.iterations, converged=result.converged, residual=residual)
+
+
+def run_case(n: int, case: str, repeats: int) -> list[dict]:
+    """Both designs on one problem, alternating, best of ``repeats`` by total CPU time; the
+    work unit as a median around them."""
+    fine, b = cb.problem_level(n, case)
+    best: dict[str, dict] = {}
+    units = []
+    for _ in range(repeats):
+        for design in DESIGNS:
+            units.append(cb.unit_seconds(fine))
+            row = solve(fine, b, design)
+            if design not in best or row["setup"] + row["cg"] < best[design]["setup"] + best[design]["cg"]:
+                best[design] = row
+    unit = float(np.median(units))
+    rows = []
+    for design in DESIGNS:
+        r = best[design] | dict(case=case, n=n, unit=unit)
+        rows.append(r)
+        print(f"{case:10s} {n:4d} {design:20s} it {r['iterations']:3d} setup {r['setup'] / unit:6.1f} "
+              f"(splitting {r['splitting'] / unit:5.1f}) cg {r['cg'] / unit:6.1f} WU "
+              f"residual {r['residual']:.1e}", flush=True)
+    return rows
+
+
+def _median_seconds(fn, repeats: int) -> float:
+    times = []
+    for _ in range(repeats):
+        t = cb.CLOCK()
+        fn()
+        times.append(cb.CLOCK() - t)
+    return float(np.median(times))
+
+
+def components(n: int, case: str, repeats: int = 5) -> list[dict]:
+    """Each finest-level kernel, kept against split, on the kept hierarchy's arrays of one
+    problem (CPU seconds, median of ``repeats``, the pairs alternating), in work units; and
+    the sweeps of every coarser level, for the projection of a hierarchy split throughout."""
+    fine, b = cb.problem_level(n, case)
+    h = gmg.Hierarchy(fine, finest="copy",
+                      **{k: v for k, v in gmg.DEFAULTS.items() if k != "start"})
+    unit = cb.unit_seconds(fine)
+    rows = []
+    r = np.random.default_rng(0).standard_normal(fine.shape)
+    for level, lv in enumerate(h.levels[:-1]):
+        rhs = np.empty(lv.shape, dtype=h.dtype)
+        multigrid.narrow(r[tuple(slice(0, s) for s in lv.shape)].copy().ravel(), rhs.ravel())
+        u = np.zeros(lv.shape, dtype=h.dtype)
+        s = {name: split(getattr(lv, name)) for name in ("tx", "ty", "tz", "diag", "inv_w")}
+        sb, su = split(rhs), split(u)
+        threads = numba.get_num_threads()
+        # the check the docstring promises: one sweep from the same random u, both layouts
+        start = np.random.default_rng(level).standard_normal(lv.shape).astype(h.dtype)
+        kept_u, split_u, back = start.copy(), split(start), np.empty_like(start)
+        multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, kept_u, 0, threads)
+        sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, split_u, 0, threads)
+        from_split(split_u, back)
+        same = bool(np.array_equal(kept_u, back))
+        pairs = {"sweep": (
+            lambda: multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, u, 0, threads),
+            lambda: sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, su, 0, threads))}
+        if level == 0:
+            coarse = h.levels[1]
+            rc = np.empty(coarse.shape, dtype=h.dtype)
+            rct = np.empty((coarse.shape[0], coarse.shape[2], coarse.shape[1]), dtype=h.dtype)
+            pairs["residual and restriction"] = (
+                lambda: stencil.residual_restrict(lv.tx, lv.ty, lv.tz, lv.diag, rhs, u, lv.step, rc),
+                lambda: (residual_restrict_split(s["tx"], s["ty"], s["tz"], s["diag"], sb, su,
+                                                 lv.step, rct), swap_yz(rct, rc)))
+            free = split(lv.free, h.dtype)
+            pairs["prolongation"] = (
+                lambda: stencil.prolong_add(rc, lv.free, lv.step, 1.0, u),
+                lambda: (swap_yz(rc, rct), prolong_add_split(rct, free, lv.step, 1.0, su)))
+            p64 = r.copy()
+            out = np.empty_like(p64)
+            op = SplitOperator(fine)
+            ps = split(p64)
+            pairs["operator (float64, CG's)"] = (
+                lambda: stencil.apply_dot(fine.tx, fine.ty, fine.tz, fine.diag, p64, out),
+                lambda: op.apply_dot(ps))
+        for name, (kept, new) in pairs.items():
+            tk = _median_seconds(kept, repeats)
+            ts = _median_seconds(new, repeats)
+            rows.append(dict(case=case, n=n, level=level, shape="x".join(map(str, lv.shape)),
+                             kernel=name, kept=tk / unit, split=ts / unit,
+                             same=("yes" if same else "no") if name == "sweep" else "-"))
+            print(f"{case} {n} level {level} {name:32s} kept {tk / unit:6.3f} WU  "
+                  f"split {ts / unit:6.3f} WU", flush=True)
+    return rows
+
+
+def projection(solves: list[dict], parts: list[dict]) -> list[dict]:
+    """Work units of a hierarchy split on every level, from this run's numbers: the
+    prototype's measured work units less its splitting of the finest arrays and, per
+    iteration, each coarser level's sweeps times the saving per sweep measured on that
+    level's arrays (level l is visited 2^l times per W-cycle, four sweeps a visit)."""
+    out = []
+    for row in solves:
+        if row["design"] == "kept":
+            continue
+        level_rows = [p for p in parts if p["n"] == row["n"] and p["kernel"] == "sweep"
+                      and p["level"] > 0]
+        saving = sum(2 ** p["level"] * 4 * (p["kept"] - p["split"]) for p in level_rows)
+        kept = next(x for x in solves if x["case"] == row["case"] and x["n"] == row["n"]
+                    and x["design"] == "kept")
+        measured = (row["setup"] + row["cg"]) / row["unit"]
+        out.append(dict(case=row["case"], n=row["n"], kept=(kept["setup"] + kept["cg"]) / kept["unit"],
+                        measured=measured, finest=measured - row["splitting"] / row["unit"],
+                        projected=measured - row["splitting"] / row["unit"]
+                        - row["iterations"] * saving))
+    return out
+
+
+def report(solves: list[dict], parts: list[dict], info: dict, command: str) -> str:
+    out = ["# Colour-split storage for the z-line sweep (a prototype)", "",
+           f"Written by `{command}` on {info['date']}; every number below comes from that run. "
+           "Do not edit by hand: run the command again.", "",
+           "gmg-CG from zero to rtol 1e-8, one numba thread, CPU seconds of this process, the "
+           "two designs alternating (best of the repeats). *kept* = `sevenfold.solvers.gmg`'s "
+           "hierarchy (W(2,2) z-line Gauss-Seidel, scaled aggregation, float32 levels, finest "
+           "level smoothed on a float32 copy); *split finest level* = the same hierarchy and "
+           "cycle whose finest level is stored split by colour with z in the middle, CG's "
+           "vectors and operator included (see the docstring of `benchmarks/split_bench.py`). "
+           "Its sweeps give the kept sweeps' numbers bit for bit, so the iterations must match. "
+           "*work units* (WU) = seconds / one float64 application of the finest operator in "
+           "the kept layout (median around the solves); *splitting* = the prototype's "
+           "transposition of the finest arrays into the split layout, part of its set-up; "
+           "*residual* = the true relative residual of the returned solution, in the kept "
+           "layout.", "",
+           "| case | cells | design | iterations | set-up WU | of which splitting | CG WU | "
+           "total WU | total / kept | residual |", "|---|---|---|---|---|---|---|---|---|---|"]
+    for r in solves:
+        kept = next(x for x in solves if x["case"] == r["case"] and x["n"] == r["n"]
+                    and x["design"] == "kept")
+        total = (r["setup"] + r["cg"]) / r["unit"]
+        ktotal = (kept["setup"] + kept["cg"]) / kept["unit"]
+        out.append(f"| {r['case']} | {r['n']}^3 | {r['design']} | {r['iterations']}"
+                   f"{'' if r['converged'] else ' (not converged)'} | {r['setup'] / r['unit']:.1f} | "
+                   f"{r['splitting'] / r['unit']:.1f} | {r['cg'] / r['unit']:.1f} | {total:.1f} | "
+                   f"{total / ktotal:.2f} | {r['residual']:.1e} |")
+    out += ["", "## The kernels alone", "",
+            "The kept hierarchy's arrays of the layered problem; CPU seconds of one call "
+            "(median of 5, kept and split alternating) in work units. A sweep is both colours; "
+            "the operator is CG's (float64, with p . A p). *bit for bit*: one sweep from the same "
+            "random u gives the same numbers in both layouts.", "",
+            "| cells | level | shape | kernel | kept WU | split WU | split / kept | "
+            "bit for bit |", "|---|---|---|---|---|---|---|---|"]
+    for p in parts:
+        out.append(f"| {p['n']}^3 | {p['level']} | {p['shape']} | {p['kernel']} | "
+                   f"{p['kept']:.3f} | {p['split']:.3f} | {p['split'] / p['kept']:.2f} | "
+                   f"{p['same']} |")
+    out += ["", "## Projection: levels built split", "",
+            "*finest level built split* = the prototype's measured total less its splitting "
+            "(assembly would write the face arrays in the split order; the kept set-up's "
+            "float32 copy stays in both); *every level split* = that, less per iteration the "
+            "saving per sweep measured above on each coarser level times its sweeps per "
+            "W-cycle (level l: 2^l visits, 4 sweeps each). Estimates from this run's parts, not "
+            "runs of such hierarchies.", "",
+            "| case | cells | kept WU | split finest level WU (measured) | finest level built "
+            "split WU | every level split WU |", "|---|---|---|---|---|---|"]
+    for p in projection(solves, parts):
+        out.append(f"| {p['case']} | {p['n']}^3 | {p['kept']:.1f} | {p['measured']:.1f} | "
+                   f"{p['finest']:.1f} | {p['projected']:.1f} |")
+    out += ["", "## Machine", "", "| | |", "|---|---|"]
+    out += [f"| {k} | {v} |" for k, v in info.items()]
+    return "\n".join(out) + "\n"
+
+
+def main(argv=None) -> int:
+    import argparse
+    import datetime
+    import os
+    import shlex
+    import subprocess
+
+    parser = argparse.ArgumentParser(description="benchmarks/split_bench.py: colour-split storage")
+    parser.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
+    parser.add_argument("--cases", nargs="+", default=["column", "layered", "inclusions", "constant"])
+    parser.add_argument("--repeats", type=int, default=2)
+    parser.add_argument("--results", default=str(HERE / "RESULTS_SPLIT.md"))
+    args = parser.parse_args(argv)
+    numba.set_num_threads(1)
+    info = wall_bench.engine.machine()
+    info["load average before"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
+    info["sevenfold revision"] = subprocess.run(
+        ["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, cwd=HERE).stdout.strip()
+    run_case(24, "column", 1)  # compile every kernel before timing
+    components(24, "layered", 1)
+    print("timed runs", flush=True)
+    parts, solves = [], []
+    for n in args.sizes:
+        parts += components(n, "layered")
+        for case in args.cases:
+            solves += run_case(n, case, args.repeats)
+    info["load average after"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
+    info["date"] = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    command = "python benchmarks/split_bench.py " + shlex.join(sys.argv[1:] if argv is None else argv)
+    Path(args.results).write_text(report(solves, parts, info, command.strip()))
+    print("wrote", args.results)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
