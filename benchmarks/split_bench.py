@@ -23,17 +23,17 @@ Thomas recurrence along z advances a whole row of columns at unit stride, with n
   by one x-row, runs of rows per thread, border rows last), and the same sums in the same
   order, so the result is the kept sweep's bit for bit (checked on every level it times).
 
-Only the finest level is split in this prototype: CG works on split vectors, with the finest
-operator, the residual and restriction and the prolongation written for the split layout (the
-restriction writes, and the prolongation reads, the coarse array in x, z, y order, so that a
-coarse row's y run is unit stride too; that array is swapped into the kept order at coarse
-size). The coarser levels keep the kept layout and kernels. The finest arrays are split once at
-set-up (the time is reported: assembly that wrote them split would not pay it). Requires an even
-ny.
+Two designs: the finest level split, or every smoothed level (the coarsest level's LU stays in
+the kept layout). CG works on split vectors, with the finest operator, the residual and
+restriction and the prolongation written for the split layout (the restriction writes, and the
+prolongation reads, the coarse array in x, z, y order, so that a coarse row's y run is unit
+stride too; it is rearranged into the coarse level's layout at coarse size). The levels are
+those of the kept hierarchy, split once at set-up (the time is reported: assembly and a
+Galerkin product that wrote them split would not pay it). Requires an even ny on every split
+level.
 
-Writes benchmarks/RESULTS_SPLIT.md: whole gmg-CG solves, kept against this prototype (one numba
-thread, CPU seconds, set-up and CG apart), each finest-level kernel alone on the same arrays,
-and a projection for levels built split.
+Writes benchmarks/RESULTS_SPLIT.md: whole gmg-CG solves, kept against the two designs (one
+numba thread, CPU seconds, set-up and CG apart), and each kernel alone on the same arrays.
 """
 
 from __future__ import annotations
@@ -253,15 +253,15 @@ def swap_yz(a, out):
 
 
 @njit
-def _product_row(diag, txm, uxm, txp, uxp, tym, typ, uy, tz, u, q, out):
-    """out = A u on the columns of one x-row and colour (split layout, the rows as in
-    :func:`_solve_row`); returns u . A u over them. One fused loop per plane: a missing z
+def _product_row(diag, txm, uxm, txp, uxp, tym, typ, uy, tz, u, q, out, k0, k1):
+    """out = A u on the columns of one x-row and colour in planes [k0, k1) (split layout, the
+    rows as in :func:`_solve_row`); returns u . A u over them. One loop per plane: a missing z
     neighbour is read through the last plane's coupling, which is zero by the face-array
     convention (as a missing x neighbour is), and the edge column's missing y neighbour
     through its own zero coupling."""
     nz, nyh = u.shape
     acc = 0.0
-    for k in range(nz):
+    for k in range(k0, k1):
         km = k - 1 if k > 0 else nz - 1
         um = u[k - 1] if k > 0 else u[k]
         up = u[k + 1] if k < nz - 1 else u[k]
@@ -289,7 +289,7 @@ def _product_row(diag, txm, uxm, txp, uxp, tym, typ, uy, tz, u, q, out):
 @njit(parallel=True)
 def apply_dot_split(tx, ty, tz, diag, p, out):
     """out = A p on split arrays (the finest operator, for CG), and p . A p."""
-    nx = p.shape[1]
+    nx, nz = p.shape[1], p.shape[2]
     pq = 0.0
     for i in prange(nx):
         im = max(i - 1, 0)
@@ -300,7 +300,7 @@ def apply_dot_split(tx, ty, tz, diag, p, out):
             o = 1 - c
             q = (i + c) & 1
             acc += _product_row(diag[c, i], tx[o, itm], p[o, im], tx[c, i], p[o, ip], ty[o, i],
-                                ty[c, i], p[o, i], tz[c, i], p[c, i], q, out[c, i])
+                                ty[c, i], p[o, i], tz[c, i], p[c, i], q, out[c, i], 0, nz)
         pq += acc
     return pq
 
@@ -339,55 +339,94 @@ def split(a: np.ndarray, dtype=None) -> np.ndarray:
     return s
 
 
-class SplitHierarchy(gmg.Hierarchy):
-    """The kept hierarchy whose finest level is smoothed in split storage."""
+@njit(parallel=True)
+def xzy_to_split(a, s):
+    """s[c, i, k, h] = a[i, k, 2 h + (i + c) % 2]: a coarse array from the x, z, y order of
+    the transfers into the split layout."""
+    nx, nz, nyh = s.shape[1], s.shape[2], s.shape[3]
+    for i in prange(nx):
+        for c in range(2):
+            q = (i + c) & 1
+            for k in range(nz):
+                for h in range(nyh):
+                    s[c, i, k, h] = a[i, k, 2 * h + q]
 
-    def __init__(self, fine, **options) -> None:
+
+@njit(parallel=True)
+def split_to_xzy(s, a):
+    """The inverse of :func:`xzy_to_split`."""
+    nx, nz, nyh = s.shape[1], s.shape[2], s.shape[3]
+    for i in prange(nx):
+        for c in range(2):
+            q = (i + c) & 1
+            for k in range(nz):
+                for h in range(nyh):
+                    a[i, k, 2 * h + q] = s[c, i, k, h]
+
+
+class SplitHierarchy(gmg.Hierarchy):
+    """The kept hierarchy (the same levels, coarse operators and cycle) whose smoothed levels
+    are stored split: the finest ``split_levels`` of them (all but the coarsest by default),
+    the rest, and the coarsest level's LU, in the kept layout."""
+
+    def __init__(self, fine, split_levels: int | None = None, **options) -> None:
         super().__init__(fine, **options)
-        top = self.levels[0]
         t = cb.CLOCK()
-        self.s = {name: split(getattr(top, name)) for name in ("tx", "ty", "tz", "diag", "inv_w")}
-        self.s["free"] = split(top.free, self.dtype)
-        self.splitting = cb.CLOCK() - t  # set-up that a level built split would not pay
-        self.sb = split_like(top.diag, self.dtype)
-        self.su = split_like(top.diag, self.dtype)
-        nx, ny, nz = self.levels[1].shape
-        self.ct = np.empty((nx, nz, ny), dtype=self.dtype)  # a coarse array in x, z, y order
+        smoothed = len(self.levels) - 1
+        self.split_levels = min(smoothed, split_levels if split_levels is not None else smoothed)
+        for lv in self.levels[:self.split_levels]:
+            lv.s = {name: split(getattr(lv, name)) for name in ("tx", "ty", "tz", "diag", "inv_w")}
+            lv.s["free"] = split(lv.free, self.dtype)
+            lv.sb = split_like(lv.diag, self.dtype)
+            lv.su = split_like(lv.diag, self.dtype)
+        for lv, coarse in zip(self.levels[:self.split_levels], self.levels[1:]):
+            nx, ny, nz = coarse.shape
+            lv.ct = np.empty((nx, nz, ny), dtype=self.dtype)  # the coarse array in x, z, y order
+        self.splitting = cb.CLOCK() - t  # set-up that levels built split would not pay
 
     def precondition_dot(self, r: np.ndarray) -> tuple[np.ndarray, float]:
         """One cycle from zero for A z = r, r and z split (r float64, z float32), and r . z."""
         from sevenfold.kernels.vector import vector_ops
 
-        multigrid.narrow(r, self.sb.reshape(-1))
-        self.su[...] = 0.0
+        top = self.levels[0]
+        multigrid.narrow(r, top.sb.reshape(-1))
+        top.su[...] = 0.0
         self.cycle(0, None, None)
-        z = self.su.reshape(-1)
+        z = top.su.reshape(-1)
         return z, vector_ops(z.size).dot(r, z)
 
-    def _sweeps(self, first: int) -> None:
-        s = self.s
+    def _sweeps(self, lv, first: int) -> None:
+        s = lv.s
         for _ in range(self.sweeps[first]):
-            sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], self.sb, self.su, first,
+            sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], lv.sb, lv.su, first,
                         numba.get_num_threads())
 
     def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
-        if level > 0:
+        """The kept cycle; a split level works on its own lv.sb and lv.su (u from zero)."""
+        if level >= self.split_levels:
             return super().cycle(level, b, u)
-        lv, coarse = self.levels[0], self.levels[1]
-        self._sweeps(0)  # (from zero: precondition_dot)
-        s = self.s
-        residual_restrict_split(s["tx"], s["ty"], s["tz"], s["diag"], self.sb, self.su, lv.step,
-                                self.ct)
-        swap_yz(self.ct, coarse.b)
-        coarse.e[...] = 0.0
-        for _ in range(self.gamma if len(self.levels) > 2 else 1):
-            super().cycle(1, coarse.b, coarse.e)
-        swap_yz(coarse.e, self.ct)
-        prolong_add_split(self.ct, self.s["free"], lv.step, self.overcorrection, self.su)
-        self._sweeps(1)
+        lv, coarse = self.levels[level], self.levels[level + 1]
+        s = lv.s
+        self._sweeps(lv, 0)
+        residual_restrict_split(s["tx"], s["ty"], s["tz"], s["diag"], lv.sb, lv.su, lv.step, lv.ct)
+        visits = self.gamma if level + 2 < len(self.levels) else 1
+        if level + 1 < self.split_levels:
+            xzy_to_split(lv.ct, coarse.sb)
+            coarse.su[...] = 0.0
+            for _ in range(visits):
+                self.cycle(level + 1, None, None)
+            split_to_xzy(coarse.su, lv.ct)
+        else:
+            swap_yz(lv.ct, coarse.b)
+            coarse.e[...] = 0.0
+            for _ in range(visits):
+                super().cycle(level + 1, coarse.b, coarse.e)
+            swap_yz(coarse.e, lv.ct)
+        prolong_add_split(lv.ct, s["free"], lv.step, self.overcorrection, lv.su)
+        self._sweeps(lv, 1)
 
 
-DESIGNS = ("kept", "split finest level")
+DESIGNS = {"kept": 0, "split finest level": 1, "every level split": None}
 OPTIONS = {k: v for k, v in gmg.DEFAULTS.items() if k != "start"} | {"finest": "copy"}
 
 
@@ -397,13 +436,13 @@ def solve(fine, b, design: str) -> dict:
     ``splitting``: the prototype's splitting of the finest arrays) and of CG, the iterations,
     and the true relative residual of x in the kept layout."""
     t0 = cb.CLOCK()
-    if design == "kept":
+    if DESIGNS[design] == 0:
         operator = gmg.FineOperator(fine)
         hierarchy = gmg.Hierarchy(fine, out=operator.out, **OPTIONS)
         rhs, splitting = b.reshape(-1), 0.0
     else:
         operator = SplitOperator(fine)
-        hierarchy = SplitHierarchy(fine, **OPTIONS)
+        hierarchy = SplitHierarchy(fine, DESIGNS[design], **OPTIONS)
         t = cb.CLOCK()
         rhs = split(b).reshape(-1)
         splitting = cb.CLOCK() - t + operator.splitting + hierarchy.splitting
@@ -411,7 +450,7 @@ def solve(fine, b, design: str) -> dict:
     result = pcg(operator, rhs, hierarchy, cb.RTOL, cb.MAX_ITERATIONS, None, 50, "gmg", 0.0)
     t2 = cb.CLOCK()
     x = result.x.reshape(fine.shape)
-    if design != "kept":
+    if DESIGNS[design] != 0:
         x = np.empty(fine.shape)
         from_split(result.x.reshape(operator.out.shape), x)
     ax = np.empty(fine.shape)
@@ -510,28 +549,6 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
     return rows
 
 
-def projection(solves: list[dict], parts: list[dict]) -> list[dict]:
-    """Work units of a hierarchy split on every level, from this run's numbers: the
-    prototype's measured work units less its splitting of the finest arrays and, per
-    iteration, each coarser level's sweeps times the saving per sweep measured on that
-    level's arrays (level l is visited 2^l times per W-cycle, four sweeps a visit)."""
-    out = []
-    for row in solves:
-        if row["design"] == "kept":
-            continue
-        level_rows = [p for p in parts if p["n"] == row["n"] and p["kernel"] == "sweep"
-                      and p["level"] > 0]
-        saving = sum(2 ** p["level"] * 4 * (p["kept"] - p["split"]) for p in level_rows)
-        kept = next(x for x in solves if x["case"] == row["case"] and x["n"] == row["n"]
-                    and x["design"] == "kept")
-        measured = (row["setup"] + row["cg"]) / row["unit"]
-        out.append(dict(case=row["case"], n=row["n"], kept=(kept["setup"] + kept["cg"]) / kept["unit"],
-                        measured=measured, finest=measured - row["splitting"] / row["unit"],
-                        projected=measured - row["splitting"] / row["unit"]
-                        - row["iterations"] * saving))
-    return out
-
-
 def report(solves: list[dict], parts: list[dict], info: dict, command: str) -> str:
     out = ["# Colour-split storage for the z-line sweep (a prototype)", "",
            f"Written by `{command}` on {info['date']}; every number below comes from that run. "
@@ -541,24 +558,29 @@ def report(solves: list[dict], parts: list[dict], info: dict, command: str) -> s
            "hierarchy (W(2,2) z-line Gauss-Seidel, scaled aggregation, float32 levels, finest "
            "level smoothed on a float32 copy); *split finest level* = the same hierarchy and "
            "cycle whose finest level is stored split by colour with z in the middle, CG's "
-           "vectors and operator included (see the docstring of `benchmarks/split_bench.py`). "
-           "Its sweeps give the kept sweeps' numbers bit for bit, so the iterations must match. "
-           "*work units* (WU) = seconds / one float64 application of the finest operator in "
-           "the kept layout (median around the solves); *splitting* = the prototype's "
-           "transposition of the finest arrays into the split layout, part of its set-up; "
+           "vectors and operator included; *every level split* = every smoothed level so "
+           "stored, the coarsest level's LU in the kept layout (see the docstring of "
+           "`benchmarks/split_bench.py`). Their sweeps give the kept sweeps' numbers bit for "
+           "bit, so the iterations must match. *work units* (WU) = seconds / one float64 "
+           "application of the finest operator in the kept layout (median around the solves); "
+           "*splitting* = the prototype's transposition of the levels' arrays into the split "
+           "layout, part of its set-up, which levels built split (assembly and the Galerkin "
+           "product writing that layout) would not pay: *built split* = the total less it; "
            "*residual* = the true relative residual of the returned solution, in the kept "
            "layout.", "",
            "| case | cells | design | iterations | set-up WU | of which splitting | CG WU | "
-           "total WU | total / kept | residual |", "|---|---|---|---|---|---|---|---|---|---|"]
+           "total WU | built split WU | built split / kept | residual |",
+           "|---|---|---|---|---|---|---|---|---|---|---|"]
     for r in solves:
         kept = next(x for x in solves if x["case"] == r["case"] and x["n"] == r["n"]
                     and x["design"] == "kept")
         total = (r["setup"] + r["cg"]) / r["unit"]
+        built = total - r["splitting"] / r["unit"]
         ktotal = (kept["setup"] + kept["cg"]) / kept["unit"]
         out.append(f"| {r['case']} | {r['n']}^3 | {r['design']} | {r['iterations']}"
                    f"{'' if r['converged'] else ' (not converged)'} | {r['setup'] / r['unit']:.1f} | "
                    f"{r['splitting'] / r['unit']:.1f} | {r['cg'] / r['unit']:.1f} | {total:.1f} | "
-                   f"{total / ktotal:.2f} | {r['residual']:.1e} |")
+                   f"{built:.1f} | {built / ktotal:.2f} | {r['residual']:.1e} |")
     out += ["", "## The kernels alone", "",
             "The kept hierarchy's arrays of the layered problem; CPU seconds of one call "
             "(median of 5, kept and split alternating) in work units. A sweep is both colours; "
@@ -570,18 +592,6 @@ def report(solves: list[dict], parts: list[dict], info: dict, command: str) -> s
         out.append(f"| {p['n']}^3 | {p['level']} | {p['shape']} | {p['kernel']} | "
                    f"{p['kept']:.3f} | {p['split']:.3f} | {p['split'] / p['kept']:.2f} | "
                    f"{p['same']} |")
-    out += ["", "## Projection: levels built split", "",
-            "*finest level built split* = the prototype's measured total less its splitting "
-            "(assembly would write the face arrays in the split order; the kept set-up's "
-            "float32 copy stays in both); *every level split* = that, less per iteration the "
-            "saving per sweep measured above on each coarser level times its sweeps per "
-            "W-cycle (level l: 2^l visits, 4 sweeps each). Estimates from this run's parts, not "
-            "runs of such hierarchies.", "",
-            "| case | cells | kept WU | split finest level WU (measured) | finest level built "
-            "split WU | every level split WU |", "|---|---|---|---|---|---|"]
-    for p in projection(solves, parts):
-        out.append(f"| {p['case']} | {p['n']}^3 | {p['kept']:.1f} | {p['measured']:.1f} | "
-                   f"{p['finest']:.1f} | {p['projected']:.1f} |")
     out += ["", "## Machine", "", "| | |", "|---|---|"]
     out += [f"| {k} | {v} |" for k, v in info.items()]
     return "\n".join(out) + "\n"
