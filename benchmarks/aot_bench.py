@@ -41,7 +41,7 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 sys.path.insert(0, str(HERE))
-from start_bench import load_average, revision, timed, write_job  # noqa: E402  (also sets SEVENFOLD_HOME)
+from start_bench import import_profile, load_average, revision, timed, write_job  # noqa: E402  (also sets SEVENFOLD_HOME)
 
 KERNEL_MODULES = ("sevenfold.kernels.stencil", "sevenfold.kernels.multigrid", "sevenfold.kernels.vector")
 MODULE = "sevenfold_aot"  # the extension's name (one folder per target CPU)
@@ -137,7 +137,8 @@ def build(folder: Path, job: Path, cpus: list[str]) -> None:
         (out / "sevenfold_aot_table.py").write_text(f"MODULE = {MODULE!r}\nTABLE = {table!r}\n")
     with open(folder / "calls.pkl", "wb") as fh:
         pickle.dump(calls, fh)
-    sigs = sorted(f"{n.rsplit('.', 1)[1]}{s}" for n, k in used.items() for s in k.nopython_signatures)
+    sigs = sorted(f"{n.rsplit('.', 1)[1]}({', '.join(map(str, s.args))}) -> {s.return_type}"
+                  for n, k in used.items() for s in k.nopython_signatures)
     (folder / "signatures.txt").write_text("\n".join(sigs) + "\n")
     print("\n".join(lines))
 
@@ -174,8 +175,8 @@ def flat(values) -> list:
     return [v for x in values for v in (flat(x) if isinstance(x, tuple) else [x])]
 
 
-def same(a, b) -> str:
-    """'equal' when every array and number agrees exactly, else the largest relative difference."""
+def difference(a, b) -> float:
+    """The largest relative difference between two results (arrays and numbers, tuples opened)."""
     import numpy as np
 
     worst = 0.0
@@ -185,7 +186,16 @@ def same(a, b) -> str:
             worst = max(worst, float(np.abs(x.astype(np.float64) - y).max()) / scale)
         elif not isinstance(x, np.ndarray) and x != y:
             worst = max(worst, abs(x - y) / (abs(x) or 1.0))
-    return "equal" if worst == 0.0 else f"rel. diff {worst:.1e}"
+    return worst
+
+
+def same(a: tuple, b: tuple) -> str:
+    """How result ``b`` (return value, then the arguments after the call) compares with ``a``."""
+    arrays, value = difference(a[1:], b[1:]), difference(a[:1], b[:1])
+    if arrays == value == 0.0:
+        return "equal"
+    return ("arrays equal" if arrays == 0.0 else f"arrays rel. diff {arrays:.1e}") + (
+        f", return rel. diff {value:.1e}" if value else "")
 
 
 def values(out: str) -> dict[str, float]:
@@ -219,7 +229,7 @@ def compare(folder: Path, cpus: list[str], rounds: int) -> None:
             work = copy.deepcopy(args)
             outs[label] = (fn(*work), *work)  # return value, then every argument after the call
         numba.set_num_threads(threads)
-        checks = ",".join(f"{k}:{same(outs['jit'], v)}" for k, v in outs.items() if k != "jit")
+        checks = ";".join(f"{k}: {same(outs['jit'], v)}" for k, v in outs.items() if k != "jit")
         times: dict[str, list[float]] = {k: [] for k in outs}
         work = {k: copy.deepcopy(args) for k in outs}
         for _ in range(rounds):  # alternate the variants, so that a load change hits them alike
@@ -346,17 +356,19 @@ def main() -> None:
     kernel_out, _ = child(["--compare", str(work / "aot"), "--cpus", args.cpus, "--rounds", str(args.rounds)], env)
     rows, parts = processes(work / "aot", cpus, jobs, env, args.repeats)
     agree = results_agree(jobs, cpus)
+    profiles = {"jit": dict(import_profile(env, jobs["jit"])),
+                cpus[0]: dict(import_profile(env, jobs[cpus[0]], [str(HERE / "aot_launch.py"), str(work / "aot" / cpus[0])]))}
     load_end = load_average()
     signatures = (work / "aot" / "signatures.txt").read_text().splitlines()
-    text = report(args, cpus, rows, parts, kernel_out, agree, build_parts, build_wall, signatures,
-                  load_start, load_end)
+    text = report(args, cpus, rows, parts, kernel_out, agree, profiles, build_parts, build_wall,
+                  signatures, load_start, load_end)
     Path(args.output).write_text(text)
     print(text)
     shutil.rmtree(work, ignore_errors=True)
 
 
-def report(args, cpus, rows, parts, kernel_out, agree, build_parts, build_wall, signatures,
-           load_start, load_end) -> str:
+def report(args, cpus, rows, parts, kernel_out, agree, profiles, build_parts, build_wall,
+           signatures, load_start, load_end) -> str:
     from run import machine
 
     m = machine()
@@ -399,24 +411,36 @@ def report(args, cpus, rows, parts, kernel_out, agree, build_parts, build_wall, 
                   f"{aot_run['median'] / jit_run['median']:.2f} |"]
     lines += ["", "Same answers, whole solve (the zarr results of the last measured runs):", ""]
     lines += [f"- {line}" for line in agree]
+    (a, pa), (b, pb) = profiles.items()
+    top = sorted(set(pa) | set(pb), key=lambda k: -max(pa.get(k, 0.0), pb.get(k, 0.0)))[:10]
+    lines += ["", "Imports of the two runs (`python -X importtime`, one run each, modules imported "
+              "by the program itself, cumulative seconds; `aot_launch` and numpy, which it imports "
+              "first, stand for the jit run's numpy inside sevenfold's modules):", "",
+              f"| module | jit run (s) | AOT {b} run (s) |", "|---|---:|---:|"]
+    lines += [f"| {k} | {pa.get(k, 0.0):.3f} | {pb.get(k, 0.0):.3f} |" for k in top]
+    columns = ["jit", "jit1", "serial", *cpus]
     lines += ["", f"## Kernels ({args.rounds} alternating rounds; each timing repeats the call on "
               "the same 32^3 arrays for at least 20 ms)", "",
               "The first call each kernel got in the recorded run, replayed: `jit` as the solve "
               "runs it (numba's default threads; the serial vector builds are serial anyway), "
-              "`jit1` on one thread, and the AOT builds (serial). Results: every output array and "
-              "the return value against `jit`'s, `equal` meaning `np.array_equal` and equal "
-              "returns.", "",
-              "| kernel | results vs jit | " + " | ".join(f"{k} min (ms)" for k in ["jit", "jit1", *cpus])
-              + " | " + " | ".join(f"{c} / jit1" for c in cpus) + " |",
-              "|---|---|" + "---:|" * (2 + 2 * len(cpus))]
+              "`jit1` on one thread, `serial` the serial copy the AOT build compiles, jit-compiled "
+              "here for this CPU (so `serial / jit1` is the cost of dropping `parallel=True`, "
+              "`AOT / serial` that of compiling ahead of time), and the AOT builds. Results: every "
+              "output array and the return value against `jit`'s (`equal`: `np.array_equal` and an "
+              "equal return).", "",
+              "| kernel | results vs jit | " + " | ".join(f"{k} min (ms)" for k in columns)
+              + " | serial / jit1 | " + " | ".join(f"{c} / serial" for c in cpus) + " |",
+              "|---|---|" + "---:|" * (len(columns) + 1 + len(cpus))]
     for line in kernel_out.splitlines():
         if not line.startswith("kernel|"):
             continue
         _, name, checks, timing = line.split("|")
+        checks = checks if any(x != "equal" for x in (c.split(": ")[1] for c in checks.split(";"))) else "all equal"
         t = {k: (float(a), float(b)) for k, a, b in (x.split(":") for x in timing.split(","))}
-        lines.append(f"| {name.rsplit('.', 1)[1]} | {checks.replace(',', '; ')} | "
-                     + " | ".join(f"{t[k][0] * 1e3:.3f}" for k in ["jit", "jit1", *cpus]) + " | "
-                     + " | ".join(f"{t[c][0] / t['jit1'][0]:.2f}" for c in cpus) + " |")
+        lines.append(f"| {name.rsplit('.', 1)[1]} | {checks.replace(';', '; ')} | "
+                     + " | ".join(f"{t[k][0] * 1e3:.3f}" for k in columns) + " | "
+                     + f"{t['serial'][0] / t['jit1'][0]:.2f} | "
+                     + " | ".join(f"{t[c][0] / t['serial'][0]:.2f}" for c in cpus) + " |")
     import llvmlite.binding as ll
 
     lines += ["", "## Build (each target in a fresh process of its own, one core)", "",
