@@ -34,6 +34,7 @@ import os
 import pickle
 import shutil
 import statistics
+import subprocess
 import sys
 import tempfile
 import time
@@ -367,8 +368,8 @@ def main() -> None:
                 cpus[0]: dict(import_profile(env, jobs[cpus[0]], [str(HERE / "aot_launch.py"), str(work / "aot" / cpus[0])]))}
     load_end = load_average()
     signatures = (work / "aot" / "signatures.txt").read_text().splitlines()
-    text = report(args, cpus, rows, parts, kernel_out, agree, profiles, build_parts, build_wall,
-                  signatures, load_start, load_end)
+    text = report(work / "aot", args, cpus, rows, parts, kernel_out, agree, profiles, build_parts,
+                  build_wall, signatures, load_start, load_end)
     out = Path(args.output)
     kept = out.read_text().split(NOTES, 1)[1] if out.exists() and NOTES in out.read_text() else "\n"
     out.write_text(text + "\n" + NOTES + kept)  # the reading written below the marker stays
@@ -379,7 +380,16 @@ def main() -> None:
 NOTES = "<!-- reading: written by hand below this line; aot_bench.py keeps it when it rewrites the above -->"
 
 
-def report(args, cpus, rows, parts, kernel_out, agree, profiles, build_parts, build_wall,
+def linked(library: Path) -> list[str]:
+    """The shared libraries ``library`` needs, as ldd lists them (names only)."""
+    try:
+        out = subprocess.run(["ldd", str(library)], capture_output=True, text=True).stdout
+    except OSError:
+        return ["(ldd not available)"]
+    return [line.split()[0] for line in out.splitlines() if line.strip() and "vdso" not in line]
+
+
+def report(folder, args, cpus, rows, parts, kernel_out, agree, profiles, build_parts, build_wall,
            signatures, load_start, load_end) -> str:
     from run import machine
 
@@ -469,6 +479,10 @@ def report(args, cpus, rows, parts, kernel_out, agree, profiles, build_parts, bu
               "|---|---:|---:|---:|"]
     lines += [f"| {cpu} | {build_parts[f'record_seconds_{cpu}']:.1f} | "
               f"{build_parts[f'compile_seconds_{cpu}']:.1f} | {build_wall[cpu]:.1f} |" for cpu in cpus]
+    for cpu in cpus:
+        so = next((folder / cpu).glob(f"{MODULE}.*"))
+        lines += ["", f"`{so.name}` ({cpu}): {so.stat().st_size / 1e6:.2f} MB, linked against "
+                  + ", ".join(linked(so)) + " (ldd); it imports nothing but numpy."]
     lines += ["", f"Signatures built ({len(signatures)}):", ""]
     lines += [f"    {s}" for s in signatures]
     return "\n".join(lines) + "\n"
