@@ -151,8 +151,9 @@ def build(folder: Path, job: Path, cpus: list[str]) -> None:
     print("\n".join(lines))
 
 
-def aot_kernels(folder: Path) -> dict[str, object]:
-    """The AOT builds of ``folder`` as per-kernel dispatchers (aot_launch's), numba untouched."""
+def aot_kernels(folder: Path) -> tuple[dict[str, object], dict[str, object]]:
+    """The AOT builds of ``folder`` as per-kernel dispatchers (aot_launch's), numba untouched;
+    and each kernel's exported function itself where it has one signature (no type key)."""
     import importlib
 
     import aot_launch
@@ -163,8 +164,9 @@ def aot_kernels(folder: Path) -> dict[str, object]:
     table = importlib.import_module("sevenfold_aot_table")
     ext = importlib.import_module(MODULE)
     sys.path.remove(str(folder))
-    return {name: aot_launch.dispatcher(name, {k: getattr(ext, s) for k, s in builds.items()})
-            for name, builds in table.TABLE.items()}
+    return ({name: aot_launch.dispatcher(name, {k: getattr(ext, s) for k, s in builds.items()})
+             for name, builds in table.TABLE.items()},
+            {name: getattr(ext, *builds.values()) for name, builds in table.TABLE.items() if len(builds) == 1})
 
 
 def per_call(fn, args: tuple, budget: float = 0.02) -> float:
@@ -229,8 +231,10 @@ def compare(folder: Path, cpus: list[str], rounds: int) -> None:
     aot = {cpu: aot_kernels(folder / cpu) for cpu in cpus}
     threads = numba.get_num_threads()
     for name, args in calls.items():
-        variants = {"jit": jit[name], "jit1": jit[name], "serial": serial_copy(jit[name]),
-                    **{cpu: aot[cpu][name] for cpu in cpus}}
+        variants = {"jit": jit[name], "jit1": jit[name], "serial": serial_copy(jit[name])}
+        for cpu in cpus:
+            variants[cpu] = aot[cpu][0][name]
+            variants[f"{cpu} raw"] = aot[cpu][1][name]
         outs = {}
         for label, fn in variants.items():
             numba.set_num_threads(threads if label == "jit" else 1)
@@ -447,18 +451,20 @@ def report(folder, args, cpus, rows, parts, kernel_out, agree, profiles, build_p
               "first, stand for the jit run's numpy inside sevenfold's modules):", "",
               f"| module | jit run (s) | AOT {b} run (s) |", "|---|---:|---:|"]
     lines += [f"| {k} | {pa.get(k, 0.0):.3f} | {pb.get(k, 0.0):.3f} |" for k in top]
-    columns = ["jit", "jit1", "serial", *cpus]
+    columns = ["jit", "jit1", "serial", *(f"{c}{raw}" for c in cpus for raw in ("", " raw"))]
     lines += ["", f"## Kernels ({args.rounds} alternating rounds; each timing repeats the call on "
               "the same 32^3 arrays for at least 20 ms)", "",
               "The first call each kernel got in the recorded run, replayed: `jit` as the solve "
               "runs it (numba's default threads; the serial vector builds are serial anyway), "
               "`jit1` on one thread, `serial` the serial copy the AOT build compiles, jit-compiled "
               "here for this CPU (so `serial / jit1` is the cost of dropping `parallel=True`, "
-              "`AOT / serial` that of compiling ahead of time), and the AOT builds. Results: every "
+              "`AOT raw / serial` that of compiling ahead of time), and the AOT builds: through "
+              "aot_launch.py's dispatcher (a type key per call, as a run uses them) and `raw`, the "
+              "exported function called directly. Results: every "
               "output array and the return value against `jit`'s (`equal`: `np.array_equal` and an "
               "equal return).", "",
               "| kernel | results vs jit | " + " | ".join(f"{k} min (ms)" for k in columns)
-              + " | serial / jit1 | " + " | ".join(f"{c} / serial" for c in cpus) + " |",
+              + " | serial / jit1 | " + " | ".join(f"{c} raw / serial" for c in cpus) + " |",
               "|---|---|" + "---:|" * (len(columns) + 1 + len(cpus))]
     for line in kernel_out.splitlines():
         if not line.startswith("kernel|"):
@@ -469,7 +475,7 @@ def report(folder, args, cpus, rows, parts, kernel_out, agree, profiles, build_p
         lines.append(f"| {name.rsplit('.', 1)[1]} | {checks.replace(';', '; ')} | "
                      + " | ".join(f"{t[k][0] * 1e3:.3f}" for k in columns) + " | "
                      + f"{t['serial'][0] / t['jit1'][0]:.2f} | "
-                     + " | ".join(f"{t[c][0] / t['serial'][0]:.2f}" for c in cpus) + " |")
+                     + " | ".join(f"{t[c + ' raw'][0] / t['serial'][0]:.2f}" for c in cpus) + " |")
     import llvmlite.binding as ll
 
     lines += ["", "## Build (each target in a fresh process of its own, one core)", "",
