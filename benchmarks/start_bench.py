@@ -121,9 +121,11 @@ def extract(ref: str, into: Path) -> Path:
     return into / "src"
 
 
-def import_profile(env: dict[str, str], job: Path) -> list[tuple[str, float]]:
-    """Top-level modules a warm run imports, by cumulative import seconds (-X importtime)."""
-    proc = subprocess.run([sys.executable, "-X", "importtime", "-m", "sevenfold.cli", "run", "-q", str(job)],
+def import_profile(env: dict[str, str], job: Path, command: list[str] | None = None) -> list[tuple[str, float]]:
+    """Top-level modules a warm run imports, by cumulative import seconds (-X importtime);
+    ``command`` (the program and its arguments before ``run -q JOB``) replaces ``-m sevenfold.cli``."""
+    command = command or ["-m", "sevenfold.cli"]
+    proc = subprocess.run([sys.executable, "-X", "importtime", *command, "run", "-q", str(job)],
                           capture_output=True, text=True, env=env)
     rows = []
     for line in proc.stderr.splitlines():
