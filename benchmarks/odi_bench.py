@@ -6,12 +6,14 @@ Issue 10's 1000:1 column takes 7 CG iterations at 128^3 and 9 at 256^3 with the 
 (W(2,2) z-line Gauss-Seidel over piecewise-constant pairs, scaled Galerkin 7-point coarse
 operators), against 5 on layered media. Piecewise-constant aggregation ignores the operator
 when it interpolates; the designs here interpolate through the operator and take the coarse
-operators as Galerkin products P^T A P (27-point stencils on a structured grid):
+operators as Galerkin products P^T A P (wider stencils: 27-point for vertex-type coarsening;
+33-point here for cell pairs, see below):
 
 * *kept*: `sevenfold.solvers.gmg` as `solve_levels` runs it (finest level on a float32 copy).
 * *pyamg RS*: classical algebraic multigrid, Ruge and Stüben 1987 (pyamg's
   `ruge_stuben_solver` defaults: classical strength theta 0.25, RS splitting, classical
-  interpolation), V(1,1) symmetric Gauss-Seidel.
+  interpolation), V(1,1) symmetric Gauss-Seidel (one forward and one backward sweep each
+  side); also as a W-cycle, for a cycle as strong as the kept W.
 * *pyamg SA*: smoothed aggregation, Vaněk, Mandel and Brezina 1996 (pyamg's
   `smoothed_aggregation_solver` defaults: symmetric strength, standard aggregation, tentative
   prolongator smoothed once by Jacobi with omega 4/3 over the estimated spectral radius of
@@ -20,9 +22,14 @@ operators as Galerkin products P^T A P (27-point stencils on a structured grid):
   gmg.COARSEST_CELLS cells, sparse LU there) with the prolongator smoothed once by damped
   Jacobi, P = (I - omega D^-1 A) P0, omega = 2/3 (= 4 / (3 rho) with Gershgorin's bound rho <= 2
   for D^-1 A of a diagonally dominant M-matrix; the smoothing rule as in smoothed aggregation,
-  from memory), A_c = P^T A P in scipy CSR; z-line Gauss-Seidel on every level, lines in four
-  colours by (i mod 2, j mod 2) so that no two lines of one colour couple through a 27-point
-  stencil, colours 0-3 before and 3-0 after the coarse correction (a symmetric cycle);
+  from memory), A_c = P^T A P in scipy CSR. A smoothed pair's prolongator reaches one cell
+  past its pair along each axis (4 cells wide), so A_c couples aggregates up to two apart
+  along an axis: 27 + 6 = 33 points, the distance-two couplings along z inside each z-line
+  (pentadiagonal lines), and each further level widens again (139 points on average on the
+  second coarse level). z-line Gauss-Seidel on every level, lines coloured by (i, j) modulo
+  the stencil's reach + 1 (nine colours on the first coarse level) so that no two lines of one
+  colour couple, colours in order before and in reverse after the coarse correction (a
+  symmetric cycle);
 * *pairs P0, scipy (check)*: the same scipy machinery with the kept transfer and coarse
   operator (P0, A_c = P0^T A P0 / 2: the kept per-axis scaling when every axis is paired),
   W(2,2): it should need about the kept iterations (the check that the scipy cycle is a fair
@@ -60,6 +67,7 @@ from typing import Callable  # noqa: E402
 import numba  # noqa: E402
 import numpy as np  # noqa: E402
 import pyamg  # noqa: E402
+import scipy.linalg as sl  # noqa: E402
 import scipy.sparse as sp  # noqa: E402
 import scipy.sparse.linalg as sla  # noqa: E402
 
@@ -88,24 +96,40 @@ def pairs(shape: tuple[int, int, int]) -> tuple[sp.csr_matrix, tuple[int, int, i
 
 
 class LineSmoother:
-    """z-line Gauss-Seidel on a CSR matrix of a structured grid (z fastest): lines in four
-    colours (i mod 2, j mod 2); each colour's lines are solved together (their block is
-    tridiagonal, factorised once)."""
+    """z-line Gauss-Seidel on a CSR matrix of a structured grid (z fastest): lines in
+    (rx + 1) (ry + 1) colours (i mod rx + 1, j mod ry + 1; rx, ry the stencil's reach along x
+    and y, read from the matrix), so that no two lines of one colour couple; each colour's
+    lines are solved together, their block banded (the bandwidth read from it: the stencil's
+    reach along z), Cholesky-factorised once."""
 
     def __init__(self, A: sp.csr_matrix, shape: tuple[int, int, int]) -> None:
-        i, j = np.meshgrid(np.arange(shape[0]) % 2, np.arange(shape[1]) % 2, indexing="ij")
-        colour = np.repeat((2 * i + j).ravel(), shape[2])
+        rows_of = np.repeat(np.arange(A.shape[0]), np.diff(A.indptr))
+        (ri, rj, _), (ci, cj, _) = (np.unravel_index(v, shape) for v in (rows_of, A.indices))
+        mx, my = int(np.abs(ri - ci).max()) + 1, int(np.abs(rj - cj).max()) + 1
+        i, j = np.meshgrid(np.arange(shape[0]) % mx, np.arange(shape[1]) % my, indexing="ij")
+        colour = np.repeat((my * i + j).ravel(), shape[2])
         self.parts = []
-        for c in range(4):
+        for c in range(mx * my):
             idx = np.flatnonzero(colour == c)
+            if idx.size == 0:
+                continue
             rows = A[idx]
-            lu = sla.splu(rows[:, idx].tocsc(), permc_spec="NATURAL")
-            self.parts.append((idx, rows, lu))
+            block = rows[:, idx].tocoo()
+            lines = idx // shape[2]
+            if (lines[block.row] != lines[block.col]).any():
+                raise ValueError("lines of one colour are coupled: more colours needed")
+            width = int(np.abs(block.row - block.col).max())
+            bands = np.zeros((width + 1, idx.size))
+            block = block.tocsr()
+            for d in range(width + 1):
+                bands[d, : idx.size - d] = block.diagonal(-d)
+            self.parts.append((idx, rows, sl.cholesky_banded(bands, lower=True)))
+        self.colours = len(self.parts)
 
     def sweep(self, b: np.ndarray, x: np.ndarray, order: range) -> None:
         for c in order:
-            idx, rows, lu = self.parts[c]
-            x[idx] += lu.solve(b[idx] - rows @ x)
+            idx, rows, factor = self.parts[c]
+            x[idx] += sl.cho_solve_banded((factor, True), b[idx] - rows @ x)
 
     def nbytes(self) -> int:
         return sum(csr_bytes(rows) + idx.nbytes for idx, rows, _ in self.parts)
@@ -146,7 +170,7 @@ class PairsHierarchy:
             return
         smoother = self.smoothers[level]
         for _ in range(SWEEPS):
-            smoother.sweep(b, x, range(4))
+            smoother.sweep(b, x, range(smoother.colours))
         P = self.P[level]
         rc = P.T @ (b - self.A[level] @ x)
         ec = np.zeros(rc.size)
@@ -154,7 +178,7 @@ class PairsHierarchy:
             self.cycle(level + 1, rc, ec)
         x += P @ ec
         for _ in range(SWEEPS):
-            smoother.sweep(b, x, range(3, -1, -1))
+            smoother.sweep(b, x, range(smoother.colours - 1, -1, -1))
 
     def __call__(self, r: np.ndarray) -> np.ndarray:
         x = np.zeros(r.size)
@@ -197,7 +221,7 @@ def setup_design(design: str, fine, A: sp.csr_matrix) -> tuple[Callable, dict]:
     if design.startswith("pyamg"):
         ml = (pyamg.ruge_stuben_solver(A) if "RS" in design
               else pyamg.smoothed_aggregation_solver(A))
-        M = ml.aspreconditioner(cycle="V")
+        M = ml.aspreconditioner(cycle="W" if "W(" in design else "V")
         mats = [lv.A for lv in ml.levels]
         extra = [getattr(lv, k) for lv in ml.levels[:-1] for k in ("P", "R") if hasattr(lv, k)]
         return M.matvec, dict(nnz=[m.nnz for m in mats], cells=[m.shape[0] for m in mats],
@@ -214,6 +238,7 @@ def setup_design(design: str, fine, A: sp.csr_matrix) -> tuple[Callable, dict]:
 DESIGNS: dict[str, tuple[bool, str] | None] = {
     "kept": None,
     "pyamg RS, V(1,1) sym. GS": None,
+    "pyamg RS, W(1,1) sym. GS": None,
     "pyamg SA, V(1,1) sym. GS": None,
     "pairs P0, scipy W(2,2) (check)": (False, "W"),
     "pairs SA, V(2,2) z-line": (True, "V"),
