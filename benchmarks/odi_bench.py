@@ -221,11 +221,12 @@ def setup_design(design: str, fine, A: sp.csr_matrix) -> tuple[Callable, dict]:
     if design.startswith("pyamg"):
         ml = (pyamg.ruge_stuben_solver(A) if "RS" in design
               else pyamg.smoothed_aggregation_solver(A))
-        M = ml.aspreconditioner(cycle="W" if "W(" in design else "V")
+        gamma = 2 if "W(" in design else 1
+        M = ml.aspreconditioner(cycle="W" if gamma == 2 else "V")
         mats = [lv.A for lv in ml.levels]
         extra = [getattr(lv, k) for lv in ml.levels[:-1] for k in ("P", "R") if hasattr(lv, k)]
         return M.matvec, dict(nnz=[m.nnz for m in mats], cells=[m.shape[0] for m in mats],
-                              visits=[1] * len(mats),
+                              visits=visits(len(mats), gamma),  # as pyamg's cycle
                               nbytes=sum(csr_bytes(m) for m in mats[1:] + extra),
                               levels=" > ".join(str(m.shape[0]) for m in mats))
     smoothed, cycle = DESIGNS[design]
