@@ -30,6 +30,12 @@ operators as Galerkin products P^T A P (wider stencils: 27-point for vertex-type
   the stencil's reach + 1 (nine colours on the first coarse level) so that no two lines of one
   colour couple, colours in order before and in reverse after the coarse correction (a
   symmetric cycle);
+* *even cells, collapsed P* (ours): vertex-type coarsening of the cell grid (the coarse cells
+  are the fine cells with even i, j, k, every axis halved, down to at most
+  gmg.COARSEST_CELLS cells), operator-dependent interpolation by collapsed stencils as in
+  Dendy's black-box multigrid (1982; from memory, see :func:`collapsed_interpolation`),
+  A_c = P^T A P: 27-point on every coarse level. Same scipy z-line smoother (four colours,
+  tridiagonal lines) and cycles as the pairs designs.
 * *pairs P0, scipy (check)*: the same scipy machinery with the kept transfer and coarse
   operator (P0, A_c = P0^T A P0 / 2: the kept per-axis scaling when every axis is paired),
   W(2,2): it should need about the kept iterations (the check that the scipy cycle is a fair
@@ -141,21 +147,56 @@ def csr_bytes(A: sp.spmatrix) -> int:
     return A.data.nbytes + A.indices.nbytes + A.indptr.nbytes
 
 
-class PairsHierarchy:
-    """Pairs in every axis down to gmg.COARSEST_CELLS cells; ``smoothed``: P = (I - omega
-    D^-1 A) P0 and A_c = P^T A P, else P0 and A_c = P0^T A P0 / 2 (the kept scaled operator)."""
+def collapsed_interpolation(A: sp.csr_matrix, shape: tuple[int, int, int]
+                            ) -> tuple[sp.csr_matrix, tuple[int, int, int]]:
+    """Operator-dependent interpolation onto the cells with even (i, j, k), in the manner of
+    Dendy's black-box multigrid (1982; from memory, not its exact formulas): a cell with
+    odd indices along the axes S is interpolated from its neighbours along S only, with the
+    stencil collapsed onto S (each coupling moved to the neighbour its offset projects to on S;
+    offsets with no part along S join the centre, boundary excess included), in the order of
+    |S| = 1, 2, 3, each from the rows already built. A coarse cell's interpolation then spans
+    its 3 x 3 x 3 fine neighbourhood, so P^T A P of a 7- or 27-point A is 27-point."""
+    cshape = tuple((n + 1) // 2 for n in shape)
+    rows = np.repeat(np.arange(A.shape[0]), np.diff(A.indptr))
+    r = np.array(np.unravel_index(rows, shape))
+    c = np.array(np.unravel_index(A.indices, shape))
+    odd = r % 2
+    target = np.ravel_multi_index(r + (c - r) * odd, shape)
+    level = odd.sum(axis=0)  # each row's count of odd indices (repeated per entry)
+    centre = np.bincount(rows, weights=np.where(target == rows, A.data, 0.0), minlength=A.shape[0])
+    n = A.shape[0]
+    cells = np.array(np.unravel_index(np.arange(n), shape))
+    coarse = (cells % 2 == 0).all(axis=0)
+    cidx = np.ravel_multi_index(cells[:, coarse] // 2, cshape)
+    P = sp.csr_matrix((np.ones(cidx.size), (np.flatnonzero(coarse), cidx)), shape=(n, cidx.size))
+    for k in (1, 2, 3):
+        keep = (level == k) & (target != rows)
+        W = sp.csr_matrix((-A.data[keep] / centre[rows[keep]], (rows[keep], target[keep])),
+                          shape=(n, n))
+        P = (P + W @ P).tocsr()
+    return P, cshape
 
-    def __init__(self, A: sp.csr_matrix, shape: tuple[int, int, int], smoothed: bool,
+
+class PairsHierarchy:
+    """Levels halved in every axis down to gmg.COARSEST_CELLS cells. ``smoothed``: True,
+    pairs with P = (I - omega D^-1 A) P0 and A_c = P^T A P; False, P0 and A_c = P0^T A P0 / 2
+    (the kept scaled operator); "collapsed", :func:`collapsed_interpolation` and P^T A P."""
+
+    def __init__(self, A: sp.csr_matrix, shape: tuple[int, int, int], smoothed: bool | str,
                  cycle: str) -> None:
         self.gamma = 2 if cycle == "W" else 1
         self.A, self.P, self.smoothers, self.shapes = [A], [], [], [shape]
         while int(np.prod(shape)) > gmg.COARSEST_CELLS:
             A = self.A[-1]
-            P0, shape = pairs(shape)
-            if smoothed:
+            if smoothed == "collapsed":
+                P, shape = collapsed_interpolation(A, shape)
+                Ac = (P.T @ (A @ P)).tocsr()
+            elif smoothed:
+                P0, shape = pairs(shape)
                 P = (P0 - OMEGA * sp.diags(1.0 / A.diagonal()) @ (A @ P0)).tocsr()
                 Ac = (P.T @ (A @ P)).tocsr()
             else:
+                P0, shape = pairs(shape)
                 P, Ac = P0, (0.5 * (P0.T @ A @ P0)).tocsr()
             Ac = (0.5 * (Ac + Ac.T)).tocsr()  # symmetric to rounding
             Ac.eliminate_zeros()
@@ -237,7 +278,7 @@ def setup_design(design: str, fine, A: sp.csr_matrix) -> tuple[Callable, dict]:
                    levels=" > ".join("x".join(map(str, s)) for s in h.shapes))
 
 
-DESIGNS: dict[str, tuple[bool, str] | None] = {
+DESIGNS: dict[str, tuple[bool | str, str] | None] = {
     "kept": None,
     "pyamg RS, V(1,1) sym. GS": None,
     "pyamg RS, W(1,1) sym. GS": None,
@@ -245,6 +286,8 @@ DESIGNS: dict[str, tuple[bool, str] | None] = {
     "pairs P0, scipy W(2,2) (check)": (False, "W"),
     "pairs SA, V(2,2) z-line": (True, "V"),
     "pairs SA, W(2,2) z-line": (True, "W"),
+    "even cells, collapsed P, V(2,2) z-line": ("collapsed", "V"),
+    "even cells, collapsed P, W(2,2) z-line": ("collapsed", "W"),
 }
 
 
