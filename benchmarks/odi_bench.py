@@ -26,20 +26,22 @@ operators as Galerkin products P^T A P (wider stencils: 27-point for vertex-type
   past its pair along each axis (4 cells wide), so A_c couples aggregates up to two apart
   along an axis: 27 + 6 = 33 points, the distance-two couplings along z inside each z-line
   (pentadiagonal lines), and each further level widens again (139 points on average on the
-  second coarse level). z-line Gauss-Seidel on every level, lines coloured by (i, j) modulo
-  the stencil's reach + 1 (nine colours on the first coarse level) so that no two lines of one
-  colour couple, colours in order before and in reverse after the coarse correction (a
-  symmetric cycle);
+  second coarse level at 64^3, in a trial run). z-line Gauss-Seidel on every level: zebra
+  (two colours, as the kept sweep) on the 7-point finest level, elsewhere lines coloured by
+  (i, j) modulo the stencil's reach + 1 (nine colours on the first coarse level) so that no
+  two lines of one colour couple, colours in order before and in reverse after the coarse correction (a
+  symmetric cycle).
 * *even cells, collapsed P* (ours): vertex-type coarsening of the cell grid (the coarse cells
   are the fine cells with even i, j, k, every axis halved, down to at most
   gmg.COARSEST_CELLS cells), operator-dependent interpolation by collapsed stencils as in
   Dendy's black-box multigrid (1982; from memory, see :func:`collapsed_interpolation`),
-  A_c = P^T A P: 27-point on every coarse level. Same scipy z-line smoother (four colours,
-  tridiagonal lines) and cycles as the pairs designs.
+  A_c = P^T A P: 27-point on every coarse level. Same scipy z-line smoother (zebra on the
+  7-point finest level, four colours on the 27-point levels, tridiagonal lines) and cycles as
+  the pairs designs.
 * *pairs P0, scipy (check)*: the same scipy machinery with the kept transfer and coarse
   operator (P0, A_c = P0^T A P0 / 2: the kept per-axis scaling when every axis is paired),
   W(2,2): it should need about the kept iterations (the check that the scipy cycle is a fair
-  stand-in for ours; four colours and float64 instead of two colours and float32).
+  stand-in for ours; float64 instead of float32, and the coarse levels' lines in four colours).
 
 Every design preconditions the same CG (`sevenfold.solvers.cg.pcg` on the kept float64
 operator `gmg.FineOperator`) on the same matrix and right-hand side, to rtol 1e-8 of the true
@@ -103,9 +105,11 @@ def pairs(shape: tuple[int, int, int]) -> tuple[sp.csr_matrix, tuple[int, int, i
 
 
 class LineSmoother:
-    """z-line Gauss-Seidel on a CSR matrix of a structured grid (z fastest): lines in
-    (rx + 1) (ry + 1) colours (i mod rx + 1, j mod ry + 1; rx, ry the stencil's reach along x
-    and y, read from the matrix), so that no two lines of one colour couple; each colour's
+    """z-line Gauss-Seidel on a CSR matrix of a structured grid (z fastest): lines in two
+    colours (i + j even or odd, as the kept sweep) where the stencil has no diagonal xy
+    couplings (7-point), else in (rx + 1) (ry + 1) colours (i mod rx + 1, j mod ry + 1; rx, ry
+    the stencil's reach along x and y, read from the matrix), so that no two lines of one
+    colour couple; each colour's
     lines are solved together, their block banded (the bandwidth read from it: the stencil's
     reach along z), Cholesky-factorised once."""
 
@@ -113,10 +117,14 @@ class LineSmoother:
         rows_of = np.repeat(np.arange(A.shape[0]), np.diff(A.indptr))
         (ri, rj, _), (ci, cj, _) = (np.unravel_index(v, shape) for v in (rows_of, A.indices))
         mx, my = int(np.abs(ri - ci).max()) + 1, int(np.abs(rj - cj).max()) + 1
-        i, j = np.meshgrid(np.arange(shape[0]) % mx, np.arange(shape[1]) % my, indexing="ij")
-        colour = np.repeat((my * i + j).ravel(), shape[2])
+        i, j = np.meshgrid(np.arange(shape[0]), np.arange(shape[1]), indexing="ij")
+        if mx == my == 2 and not ((ri != ci) & (rj != cj)).any():  # no diagonal xy couplings
+            colour, colours = (i + j) % 2, 2  # zebra, as the kept sweep
+        else:
+            colour, colours = my * (i % mx) + j % my, mx * my
+        colour = np.repeat(colour.ravel(), shape[2])
         self.parts = []
-        for c in range(mx * my):
+        for c in range(colours):
             idx = np.flatnonzero(colour == c)
             if idx.size == 0:
                 continue
