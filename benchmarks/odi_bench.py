@@ -41,7 +41,7 @@ operators as Galerkin products P^T A P (wider stencils: 27-point for vertex-type
 * *pairs P0, scipy (check)*: the same scipy machinery with the kept transfer and coarse
   operator (P0, A_c = P0^T A P0 / 2: the kept per-axis scaling when every axis is paired),
   W(2,2): it should need about the kept iterations (the check that the scipy cycle is a fair
-  stand-in for ours; float64 instead of float32, and the coarse levels' lines in four colours).
+  stand-in for ours: the same zebra sweeps, in float64 instead of float32).
 
 Every design preconditions the same CG (`sevenfold.solvers.cg.pcg` on the kept float64
 operator `gmg.FineOperator`) on the same matrix and right-hand side, to rtol 1e-8 of the true
