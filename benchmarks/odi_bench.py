@@ -65,10 +65,7 @@ for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")
 
 import argparse  # noqa: E402
-import datetime  # noqa: E402
 import json  # noqa: E402
-import shlex  # noqa: E402
-import subprocess  # noqa: E402
 import sys  # noqa: E402
 from pathlib import Path  # noqa: E402
 from typing import Callable  # noqa: E402
@@ -83,7 +80,7 @@ import scipy.sparse.linalg as sla  # noqa: E402
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import cycle_bench as cb  # noqa: E402
-import run as engine  # noqa: E402
+import wall_bench  # noqa: E402
 
 from sevenfold.errors import SolverError  # noqa: E402
 from sevenfold.solvers import gmg  # noqa: E402
@@ -437,10 +434,7 @@ def main(argv=None) -> int:
     parser.add_argument("--results", default=str(HERE / "RESULTS_ODI.md"))
     args = parser.parse_args(argv)
     numba.set_num_threads(1)
-    info = engine.machine()
-    info["load average before"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
-    info["sevenfold revision"] = subprocess.run(
-        ["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, cwd=HERE).stdout.strip()
+    info = wall_bench.run_info()
     info["pyamg"] = pyamg.__version__
     run_case(24, "column", args.designs, None)  # compile every kernel before timing
     run_case(48, "column", ["kept"], None)  # (and the kept kernels' multi-level variants)
@@ -456,10 +450,8 @@ def main(argv=None) -> int:
     for pair in args.reference:
         case, n = pair.split(":")
         rows += run_case(int(n), case, args.designs, None)
-    info["load average after"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
-    info["date"] = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-    command = "python benchmarks/odi_bench.py " + shlex.join(sys.argv[1:] if argv is None else argv)
-    Path(args.results).write_text(report(rows, info, command.strip()))
+    command = wall_bench.finish_info(info, "odi_bench.py", argv)
+    Path(args.results).write_text(report(rows, info, command))
     Path(args.results).with_suffix(".json").write_text(json.dumps(dict(rows=rows, info=info, command=command)))
     print("wrote", args.results)
     return 0

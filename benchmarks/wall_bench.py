@@ -326,6 +326,22 @@ def report(rows: list[dict], info: dict, command: str, title: str = TITLE, intro
     return "\n".join(out) + "\n"
 
 
+def run_info() -> dict:
+    """The machine, the revision and the load at the start of a prototype benchmark's run."""
+    info = engine.machine()
+    info["load average before"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
+    info["sevenfold revision"] = subprocess.run(
+        ["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, cwd=HERE).stdout.strip()
+    return info
+
+
+def finish_info(info: dict, script: str, argv) -> str:
+    """Add the load at the end and the date to ``info``; returns the command that ran."""
+    info["load average after"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
+    info["date"] = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    return (f"python benchmarks/{script} " + shlex.join(sys.argv[1:] if argv is None else argv)).strip()
+
+
 def main(argv=None, script: str = "wall_bench.py", results: str = "RESULTS_WALLS.md",
          designs=DESIGNS, solver=None, **text) -> int:
     """Run ``designs`` on the chosen sizes and cases and write ``results`` (``text``: report's
@@ -337,20 +353,15 @@ def main(argv=None, script: str = "wall_bench.py", results: str = "RESULTS_WALLS
     parser.add_argument("--results", default=str(HERE / results))
     args = parser.parse_args(argv)
     numba.set_num_threads(1)
-    info = engine.machine()
-    info["load average before"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
-    info["sevenfold revision"] = subprocess.run(
-        ["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, cwd=HERE).stdout.strip()
+    info = run_info()
     run_case(24, "column", 1, designs, solver)  # compile every kernel before timing
     print("timed runs", flush=True)
     rows = []
     for n in args.sizes:
         for case in args.cases:
             rows += run_case(n, case, args.repeats, designs, solver)
-    info["load average after"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
-    info["date"] = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-    command = f"python benchmarks/{script} " + shlex.join(sys.argv[1:] if argv is None else argv)
-    Path(args.results).write_text(report(rows, info, command.strip(), **text))
+    command = finish_info(info, script, argv)
+    Path(args.results).write_text(report(rows, info, command, **text))
     print("wrote", args.results)
     return 0
 
