@@ -23,8 +23,9 @@ Thomas recurrence along z advances a whole row of columns at unit stride, with n
   by one x-row, runs of rows per thread, border rows last), and the same sums in the same
   order, so the result is the kept sweep's bit for bit (checked on every level it times).
 
-Two designs: the finest level split, or every smoothed level (the coarsest level's LU stays in
-the kept layout). CG works on split vectors, with the finest operator, the residual and
+Designs: the finest level split, or every smoothed level (the coarsest level's LU stays in
+the kept layout); and, since a split sweep costs half a kept one, three sweeps before and after
+each coarse correction instead of two, kept and split. CG works on split vectors, with the finest operator, the residual and
 restriction and the prolongation written for the split layout (the restriction writes, and the
 prolongation reads, the coarse array in x, z, y order, so that a coarse row's y run is unit
 stride too; it is rearranged into the coarse level's layout at coarse size). The levels are
@@ -427,8 +428,11 @@ class SplitHierarchy(gmg.Hierarchy):
         self._sweeps(lv, 1)
 
 
-DESIGNS = {"kept": 0, "split finest level": 1, "every level split": None}
-OPTIONS = {k: v for k, v in gmg.DEFAULTS.items() if k != "start"} | {"finest": "copy"}
+# design: (levels stored split, 0 = the kept hierarchy; None = every smoothed level), sweeps
+# before and after each coarse correction
+DESIGNS = {"kept": (0, 2), "split finest level": (1, 2), "every level split": (None, 2),
+           "kept, W(3,3)": (0, 3), "every level split, W(3,3)": (None, 3)}
+OPTIONS = {k: v for k, v in gmg.DEFAULTS.items() if k not in ("start", "smoothing")} | {"finest": "copy"}
 
 
 def solve(fine, b, design: str) -> dict:
@@ -436,14 +440,15 @@ def solve(fine, b, design: str) -> dict:
     :class:`SplitOperator` and :class:`SplitHierarchy`): CPU seconds of the set-up (of which
     ``splitting``: the prototype's splitting of the finest arrays) and of CG, the iterations,
     and the true relative residual of x in the kept layout."""
+    levels, sweeps = DESIGNS[design]
     t0 = cb.CLOCK()
-    if DESIGNS[design] == 0:
+    if levels == 0:
         operator = gmg.FineOperator(fine)
-        hierarchy = gmg.Hierarchy(fine, out=operator.out, **OPTIONS)
+        hierarchy = gmg.Hierarchy(fine, out=operator.out, smoothing=sweeps, **OPTIONS)
         rhs, splitting = b.reshape(-1), 0.0
     else:
         operator = SplitOperator(fine)
-        hierarchy = SplitHierarchy(fine, DESIGNS[design], **OPTIONS)
+        hierarchy = SplitHierarchy(fine, levels, smoothing=sweeps, **OPTIONS)
         t = cb.CLOCK()
         rhs = split(b).reshape(-1)
         splitting = cb.CLOCK() - t + operator.splitting + hierarchy.splitting
@@ -451,7 +456,7 @@ def solve(fine, b, design: str) -> dict:
     result = pcg(operator, rhs, hierarchy, cb.RTOL, cb.MAX_ITERATIONS, None, 50, "gmg", 0.0)
     t2 = cb.CLOCK()
     x = result.x.reshape(fine.shape)
-    if DESIGNS[design] != 0:
+    if levels != 0:
         x = np.empty(fine.shape)
         from_split(result.x.reshape(operator.out.shape), x)
     ax = np.empty(fine.shape)
@@ -462,7 +467,7 @@ def solve(fine, b, design: str) -> dict:
 
 
 def run_case(n: int, case: str, repeats: int) -> list[dict]:
-    """Both designs on one problem, alternating, best of ``repeats`` by total CPU time; the
+    """The designs on one problem, alternating, best of ``repeats`` by total CPU time; the
     work unit as a median around them."""
     fine, b = cb.problem_level(n, case)
     best: dict[str, dict] = {}
@@ -498,8 +503,7 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
     problem (CPU seconds, median of ``repeats``, the pairs alternating), in work units; and
     the sweeps of every coarser level, for the projection of a hierarchy split throughout."""
     fine, b = cb.problem_level(n, case)
-    h = gmg.Hierarchy(fine, finest="copy",
-                      **{k: v for k, v in gmg.DEFAULTS.items() if k != "start"})
+    h = gmg.Hierarchy(fine, smoothing=2, **OPTIONS)
     unit = cb.unit_seconds(fine)
     rows = []
     r = np.random.default_rng(0).standard_normal(fine.shape)
@@ -555,14 +559,15 @@ def report(solves: list[dict], parts: list[dict], info: dict, command: str) -> s
            f"Written by `{command}` on {info['date']}; every number below comes from that run. "
            "Do not edit by hand: run the command again.", "",
            "gmg-CG from zero to rtol 1e-8, one numba thread, CPU seconds of this process, the "
-           "two designs alternating (best of the repeats). *kept* = `sevenfold.solvers.gmg`'s "
+           "designs alternating (best of the repeats). *kept* = `sevenfold.solvers.gmg`'s "
            "hierarchy (W(2,2) z-line Gauss-Seidel, scaled aggregation, float32 levels, finest "
            "level smoothed on a float32 copy); *split finest level* = the same hierarchy and "
            "cycle whose finest level is stored split by colour with z in the middle, CG's "
            "vectors and operator included; *every level split* = every smoothed level so "
            "stored, the coarsest level's LU in the kept layout (see the docstring of "
            "`benchmarks/split_bench.py`). Their sweeps give the kept sweeps' numbers bit for "
-           "bit, so the iterations must match. *work units* (WU) = seconds / one float64 "
+           "bit, so the iterations must match *kept*'s. *W(3,3)*: the same with three sweeps "
+           "before and after each coarse correction instead of two. *work units* (WU) = seconds / one float64 "
            "application of the finest operator in the kept layout (median around the solves); "
            "*splitting* = the prototype's transposition of the levels' arrays into the split "
            "layout, part of its set-up, which levels built split (assembly and the Galerkin "
