@@ -254,7 +254,7 @@ def swap_yz(a, out):
                 out[i, k, j] = a[i, j, k]
 
 
-@njit
+@njit(fastmath={"reassoc", "nsz", "contract"})  # as stencil.apply_dot: the sum vectorises
 def _product_row(diag, txm, uxm, txp, uxp, tym, typ, uy, tz, u, q, out, k0, k1):
     """out = A u on the columns of one x-row and colour in planes [k0, k1) (split layout, the
     rows as in :func:`_solve_row`); returns u . A u over them. One loop per plane: a missing z
@@ -288,7 +288,7 @@ def _product_row(diag, txm, uxm, txp, uxp, tym, typ, uy, tz, u, q, out, k0, k1):
     return acc
 
 
-@njit(parallel=True)
+@njit(parallel=True, fastmath={"reassoc", "nsz", "contract"})
 def apply_dot_split(tx, ty, tz, diag, p, out):
     """out = A p on split arrays (the finest operator, for CG), and p . A p."""
     nx, nz = p.shape[1], p.shape[2]
