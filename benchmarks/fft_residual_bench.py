@@ -177,8 +177,7 @@ def report(rows: list[dict], start: dict, info: dict, command: str) -> str:
             "(fresh processes, best of the repeats; loading the one cached kernel comes on top):", "",
             "| command | wall s |", "|---|---|"]
     out += [f"| `{k}` | {v:.3f} |" for k, v in start.items()]
-    out += ["", "## Machine", "", "| | |", "|---|---|"]
-    out += [f"| {k} | {v} |" for k, v in info.items()]
+    out += [""] + wall_bench.machine_table(info)
     return "\n".join(out) + "\n"
 
 

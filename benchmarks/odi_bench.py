@@ -419,8 +419,7 @@ def report(rows: list[dict], info: dict, command: str) -> str:
     sizes = sorted({r["n"] for r in rows if r["case"] == "column"})
     if sizes:
         out += projection(rows, sizes[-1])
-    out += ["## Machine", "", "| | |", "|---|---|"]
-    out += [f"| {k} | {v} |" for k, v in info.items()]
+    out += wall_bench.machine_table(info)
     return "\n".join(out) + "\n"
 
 

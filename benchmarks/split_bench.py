@@ -598,8 +598,7 @@ def report(solves: list[dict], parts: list[dict], info: dict, command: str) -> s
         out.append(f"| {p['n']}^3 | {p['level']} | {p['shape']} | {p['kernel']} | "
                    f"{p['kept']:.3f} | {p['split']:.3f} | {p['split'] / p['kept']:.2f} | "
                    f"{p['same']} |")
-    out += ["", "## Machine", "", "| | |", "|---|---|"]
-    out += [f"| {k} | {v} |" for k, v in info.items()]
+    out += [""] + wall_bench.machine_table(info)
     return "\n".join(out) + "\n"
 
 

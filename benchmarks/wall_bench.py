@@ -321,8 +321,7 @@ def report(rows: list[dict], info: dict, command: str, title: str = TITLE, intro
         out.append(f"| {r['case']} | {r['n']}^3 | {r['design']} | {r['iterations']}"
                    f"{'' if r['converged'] else ' (not converged)'} | {r['seconds'] / r['unit']:.1f} | "
                    f"{r['seconds']:.2f} | {r['seconds'] / base:.2f} | {r['notes'] or '-'} | {r['levels']} |")
-    out += ["", "## Machine", "", "| | |", "|---|---|"]
-    out += [f"| {k} | {v} |" for k, v in info.items()]
+    out += [""] + machine_table(info)
     return "\n".join(out) + "\n"
 
 
@@ -333,6 +332,11 @@ def run_info() -> dict:
     info["sevenfold revision"] = subprocess.run(
         ["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True, cwd=HERE).stdout.strip()
     return info
+
+
+def machine_table(info: dict) -> list[str]:
+    """The report's closing section: ``info`` as a two-column markdown table."""
+    return ["## Machine", "", "| | |", "|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
 
 
 def finish_info(info: dict, script: str, argv) -> str:
