@@ -118,13 +118,18 @@ def test_fft_matches_direct(kinds, cells, spacing) -> None:
     assert result.final_relative_residual < 1e-12
 
 
+# three couplings, two equal (y and z share one scaling), all equal (one scaling, cubic cells)
+SPACINGS = [[0.1, 0.23, 0.05], [0.1, 0.25, 0.25], [0.25, 0.25, 0.25]]  # binary: sizes exact
+
+
+@pytest.mark.parametrize("spacing", SPACINGS, ids=lambda s: "-".join(map(str, s)))
 @pytest.mark.parametrize("slab", [7, 30, 1 << 16])  # one plane per slab, several, all at once
 @pytest.mark.parametrize("kinds", COMBOS, ids=lambda k: "".join(c[0].upper() for c in k))
-def test_residual_without_matrix_matches_independent_operator(kinds, slab, monkeypatch) -> None:
+def test_residual_without_matrix_matches_independent_operator(kinds, slab, spacing, monkeypatch) -> None:
     """For any u (not a solution), the matrix-free ||b - A u|| equals the one from the
     operator written cell by cell in conftest.reference_system (independent of sevenfold)."""
     monkeypatch.setattr(fft_module, "SLAB_CELLS", slab)
-    cells, spacing = [5, 4, 6], [0.1, 0.23, 0.05]
+    cells = [5, 4, 6]
     table = table_for(kinds, cells, spacing)
     problem = build_problem(make_spec(**table))
     A, b, _, _ = reference_system(table)

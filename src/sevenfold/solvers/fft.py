@@ -43,7 +43,8 @@ from ..problem import Problem
 from .cg import Monitor, QuietMonitor, SolveResult
 
 AXES = "xyz"
-SLAB_CELLS = 1 << 16  # cells per slab of the residual evaluation (512 KiB: stays in cache)
+SLAB_CELLS = 1 << 17  # cells per slab of the residual evaluation (1 MiB per buffer: stays in L3;
+# smaller slabs pay more per-call overhead than they save, see benchmarks/RESULTS_FFT_RESIDUAL.md)
 
 
 def fft_eligibility(problem: Problem) -> str | None:
@@ -156,19 +157,25 @@ def _in_threads(work: Callable[[int, int], float], n: int, workers: int) -> floa
 
 
 def _divide_by_eigenvalues(w_hat: np.ndarray, lx: np.ndarray, ly: np.ndarray, lz: np.ndarray,
-                           workers: int = 1) -> None:
-    """w_hat[i, j, l] /= lx[i] + ly[j] + lz[l], plane by plane (the planes stay in cache)."""
+                           workers: int = 1) -> float:
+    """w_hat[i, j, l] /= lx[i] + ly[j] + lz[l], plane by plane (the planes stay in cache).
+
+    Returns the sum of squares of w_hat before the division, read from the same planes: the
+    transforms are orthonormal, so it is ||b||^2 (Parseval) without a pass of its own.
+    """
     lyz = ly[:, None] + lz[None, :]
 
     def planes(start: int, stop: int) -> float:
         plane = np.empty_like(lyz)
+        total = 0.0
         with np.errstate(divide="ignore", invalid="ignore"):  # 0/0: the pure-Neumann constant mode
             for i in range(start, stop):
+                total += _sum_of_squares(w_hat[i])
                 np.add(lyz, lx[i], out=plane)
                 np.divide(w_hat[i], plane, out=w_hat[i])
-        return 0.0
+        return total
 
-    _in_threads(planes, w_hat.shape[0], workers)
+    return _in_threads(planes, w_hat.shape[0], workers)
 
 
 def _padded(shape: tuple[int, int, int]) -> np.ndarray:
@@ -194,7 +201,9 @@ def residual_norm(problem: Problem, padded_u: np.ndarray, workers: int = 1) -> f
     f_P + sum_N T (u_N - u_P) + sum_faces [(G value + q)/h - G/h u_P]. Every cell is first
     given six neighbours (flat shifts of the C-ordered buffer; the ones across a face are
     wrong), then each face plane is corrected: the wrong neighbour's term removed and the
-    face's own terms added. Slabs of x planes are shared out among ``workers`` threads.
+    face's own terms added. Axes of equal T share one scaling (T (sum of their neighbours)),
+    and the first group carries the diagonal, so a cube of cubic cells costs nine array
+    passes per slab, not eleven. Slabs of x planes are shared out among ``workers`` threads.
     """
     grid = problem.grid
     nx, ny, nz = grid.cells
@@ -202,7 +211,10 @@ def residual_norm(problem: Problem, padded_u: np.ndarray, workers: int = 1) -> f
     k = float(problem.coefficient[0].flat[0])
     spacing = uniform_spacing(grid)
     coupling = tuple(k / h**2 for h in spacing)
-    cx, cy, cz = coupling
+    diagonal = 2.0 * sum(coupling)
+    groups: dict[float, list[str]] = {}  # T -> the axes that have it
+    for name, t in zip(AXES, coupling):
+        groups.setdefault(t, []).append(name)
     flat = padded_u.reshape(-1)
     f = problem.source
     # per unit volume: a boundary face's terms over the cell's width normal to it
@@ -227,12 +239,20 @@ def residual_norm(problem: Problem, padded_u: np.ndarray, workers: int = 1) -> f
             near = {"x": (padded_u[i0:i1], padded_u[i0 + 2: i1 + 2]), "y": (shifted(-nz), shifted(nz)),
                     "z": (shifted(-1), shifted(1))}
             r, t = buf[:m], tmp[:m]
-            np.multiply(c, -2.0 * (cx + cy + cz), out=r)
-            r += f[i0:i1]
-            for axis, name in enumerate(AXES):
-                np.add(near[name][0], near[name][1], out=t)
-                t *= coupling[axis]
-                r += t
+            for g, (scale, names) in enumerate(groups.items()):
+                acc = r if g == 0 else t
+                np.add(*near[names[0]], out=acc)
+                for name in names[1:]:
+                    acc += near[name][0]
+                    acc += near[name][1]
+                if g == 0:  # r = T (neighbours - (diagonal / T) u_P) + f
+                    np.multiply(c, diagonal / scale, out=t)
+                    r -= t
+                    r *= scale
+                    r += f[i0:i1]
+                else:
+                    t *= scale
+                    r += t
             for name in problem.faces:
                 axis, side = FACE_AXIS[name]
                 if axis == 0:
@@ -284,14 +304,13 @@ def solve_fft(
         index = [slice(None)] * 3
         index[axis] = 0 if side == 0 else grid.cells[axis] - 1
         w[tuple(index)] += t.rhs(1.0 / spacing[axis])
-    b_norm = math.sqrt(_sum_of_squares(w))
     lx, ly, lz = (k * eigenvalues(n, h, kind) for n, h, kind in zip(grid.cells, spacing, kinds))
     setup = time.perf_counter() - t0
-    first = 1.0 if b_norm > 0 else 0.0
-    monitor.iteration(0, first, setup)
 
     w_hat = _transform(w, kinds, workers, inverse=False)
-    _divide_by_eigenvalues(w_hat, lx, ly, lz, workers)
+    b_norm = math.sqrt(_divide_by_eigenvalues(w_hat, lx, ly, lz, workers))
+    first = 1.0 if b_norm > 0 else 0.0
+    monitor.iteration(0, first, setup)
     if problem.gauge_mean_zero:
         w_hat[0, 0, 0] = 0.0  # the constant mode (zero eigenvalue): mean(u) = 0
     u = _transform(w_hat, kinds, workers, inverse=True)
