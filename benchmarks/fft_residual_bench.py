@@ -1,7 +1,7 @@
 """The fft path's true-residual check in one compiled pass: a prototype for the speed suite's
 "fft path within 1.5x of a bare transform pair" row.
 
-    python benchmarks/fft_residual_bench.py [--sizes 128 256] [--repeats 5]
+    python benchmarks/fft_residual_bench.py [--sizes 128 256] [--repeats 5] [--against REVISION]
 
 `sevenfold.solvers.fft.residual_norm` evaluates ||b - A u|| with numpy in slabs of x planes
 that stay in cache (six shifted neighbours, then each face plane corrected): about ten passes
@@ -16,7 +16,9 @@ faces with varying values, or six Neumann faces with a balanced source), the num
 and the fused one on the same random u (their norms must agree to 1e-12 relative), the path's ratio
 to the bare pair as it is and with the fused check in place of the numpy one; and, in fresh
 processes, `import numba` against `import numpy, scipy` (the start-up the fused check would
-add, before loading its one cached kernel). Writes benchmarks/RESULTS_FFT_RESIDUAL.md.
+add, before loading its one cached kernel). With ``--against``, the path as it is against the
+path at an earlier git revision, alternating (for a change to the numpy check); and the numpy
+check alone at several slab sizes. Writes benchmarks/RESULTS_FFT_RESIDUAL.md.
 """
 
 from __future__ import annotations
@@ -39,6 +41,7 @@ import fft_bench  # noqa: E402
 import wall_bench  # noqa: E402
 
 from sevenfold.problem import build_problem  # noqa: E402
+from sevenfold.solvers.fft import SLAB_CELLS as SLAB_NOW  # noqa: E402
 from sevenfold.solvers.fft import default_workers, residual_norm, solve_fft, uniform_spacing  # noqa: E402
 from sevenfold.spec import parse_job  # noqa: E402
 
@@ -146,6 +149,68 @@ def bench(n: int, kind: str, repeats: int, workers: int) -> dict:
     return row
 
 
+def fft_at(revision: str):
+    """``sevenfold.solvers.fft`` as it was at git ``revision``, loaded beside the current one
+    (its relative imports resolve in the installed package)."""
+    import importlib.util
+    import types
+
+    source = subprocess.run(["git", "show", f"{revision}:src/sevenfold/solvers/fft.py"], cwd=HERE,
+                            check=True, capture_output=True, text=True).stdout
+    name = f"sevenfold.solvers._fft_{revision}"
+    module = types.ModuleType(name)
+    module.__package__ = "sevenfold.solvers"
+    module.__spec__ = importlib.util.spec_from_loader(name, loader=None)
+    sys.modules[name] = module
+    exec(compile(source, f"{revision}:fft.py", "exec"), module.__dict__)
+    return module
+
+
+def against(n: int, kind: str, repeats: int, workers: int, revision: str) -> dict:
+    """The path now against the path at ``revision`` (alternating, best of), each over the same
+    bare pair; the same u from both."""
+    old = fft_at(revision)
+    problem = build_problem(parse_job(fft_bench.job_table(n, kind), "fft_residual_bench"))
+    forward, inverse = ((scipy.fft.dstn, scipy.fft.idstn) if kind == "dirichlet"
+                        else (scipy.fft.dctn, scipy.fft.idctn))
+    x = np.random.default_rng(n).standard_normal((n, n, n))
+    u_now, _ = solve_fft(problem, workers=workers)
+    u_then, _ = old.solve_fft(problem, workers=workers)
+    same = bool(np.array_equal(u_now, u_then))
+    pair, now, then = [], [], []
+    for _ in range(repeats):
+        pair.append(best(lambda: inverse(forward(x, type=2, norm="ortho", workers=workers), type=2,
+                                         norm="ortho", workers=workers, overwrite_x=True), 1))
+        then.append(best(lambda: old.solve_fft(problem, workers=workers), 1))
+        now.append(best(lambda: solve_fft(problem, workers=workers), 1))
+    row = dict(n=n, kind=kind, pair=min(pair), now=min(now), then=min(then), same=same)
+    print(f"{n} {kind}: pair {row['pair']:.4f}, at {revision} {row['then']:.4f} "
+          f"({row['then'] / row['pair']:.3f}x), now {row['now']:.4f} ({row['now'] / row['pair']:.3f}x), "
+          f"same u {same}", flush=True)
+    return row
+
+
+def slab_sweep(n: int, repeats: int, workers: int, slabs=(1 << 15, 1 << 16, 1 << 17, 1 << 18, 1 << 19)) -> dict:
+    """`residual_norm` alone (Dirichlet job, random u) at several slab sizes, alternating, best of."""
+    from sevenfold.solvers import fft as fft_module
+
+    problem = build_problem(parse_job(fft_bench.job_table(n, "dirichlet"), "fft_residual_bench"))
+    padded = np.zeros((n + 2, n, n))
+    padded[1:-1] = np.random.default_rng(n + 1).standard_normal((n, n, n))
+    kept = fft_module.SLAB_CELLS
+    times: dict[int, list[float]] = {s: [] for s in slabs}
+    try:
+        for _ in range(repeats):
+            for slab in slabs:
+                fft_module.SLAB_CELLS = slab
+                times[slab].append(best(lambda: residual_norm(problem, padded, workers), 1))
+    finally:
+        fft_module.SLAB_CELLS = kept
+    out = {slab: min(t) for slab, t in times.items()}
+    print(f"{n} slabs: " + ", ".join(f"{s} {t * 1e3:.2f} ms" for s, t in out.items()), flush=True)
+    return out
+
+
 def start_cost(repeats: int) -> dict:
     """Fresh processes: `import numpy, scipy` and `import numpy, scipy, numba` (best of)."""
     out = {}
@@ -155,7 +220,8 @@ def start_cost(repeats: int) -> dict:
     return out
 
 
-def report(rows: list[dict], start: dict, info: dict, command: str) -> str:
+def report(rows: list[dict], start: dict, info: dict, command: str, compared: list[dict],
+           revision: str | None, slabs: dict[int, dict]) -> str:
     out = ["# The fft path's residual check in one compiled pass (a prototype)", "",
            f"Written by `{command}` on {info['date']}; every number below comes from that run. "
            "Do not edit by hand: run the command again.", "",
@@ -177,6 +243,26 @@ def report(rows: list[dict], start: dict, info: dict, command: str) -> str:
             "(fresh processes, best of the repeats; loading the one cached kernel comes on top):", "",
             "| command | wall s |", "|---|---|"]
     out += [f"| `{k}` | {v:.3f} |" for k, v in start.items()]
+    if compared:
+        out += ["", f"## The path now against revision {revision}", "",
+                "`solve_fft` as it is and as it was at that revision (loaded from git beside it), "
+                "alternating, best of the repeats, each over the bare pair timed in the same "
+                "rounds; *same u*: the two solutions equal bit for bit.", "",
+                f"| cells | faces | pair s | at {revision} s | / pair | now s | / pair | now / then | same u |",
+                "|---|---|---|---|---|---|---|---|---|"]
+        out += [f"| {r['n']}^3 | {r['kind']} | {r['pair']:.4f} | {r['then']:.4f} | {r['then'] / r['pair']:.2f} | "
+                f"{r['now']:.4f} | {r['now'] / r['pair']:.2f} | {r['now'] / r['then']:.2f} | {r['same']} |"
+                for r in compared]
+    if slabs:
+        sizes = sorted({s for row in slabs.values() for s in row})
+        out += ["", "## Slab size of the numpy check", "",
+                "`residual_norm` alone on a random u (Dirichlet job), milliseconds, best of the "
+                "repeats, the sizes alternating; the slab is the number of cells each numpy pass "
+                f"covers at a time (now {SLAB_NOW}).", "",
+                "| cells | " + " | ".join(f"{s:,}" for s in sizes) + " |",
+                "|---|" + "---|" * len(sizes)]
+        out += [f"| {n}^3 | " + " | ".join(f"{row[s] * 1e3:.2f}" for s in sizes) + " |"
+                for n, row in slabs.items()]
     out += [""] + wall_bench.machine_table(info)
     return "\n".join(out) + "\n"
 
@@ -186,14 +272,19 @@ def main(argv=None) -> int:
     parser.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     parser.add_argument("--repeats", type=int, default=5)
     parser.add_argument("--results", default=str(HERE / "RESULTS_FFT_RESIDUAL.md"))
+    parser.add_argument("--against", metavar="REVISION",
+                        help="also time the path as it was at this git revision")
     args = parser.parse_args(argv)
     info = wall_bench.run_info()
     workers = default_workers()
     bench(16, "dirichlet", 1, workers)  # compile the kernel before timing
     rows = [bench(n, kind, args.repeats, workers) for n in args.sizes for kind in ("dirichlet", "neumann")]
     start = start_cost(args.repeats)
+    compared = [against(n, kind, args.repeats, workers, args.against) for n in args.sizes
+                for kind in ("dirichlet", "neumann")] if args.against else []
+    slabs = {n: slab_sweep(n, args.repeats, workers) for n in args.sizes}
     command = wall_bench.finish_info(info, "fft_residual_bench.py", argv)
-    Path(args.results).write_text(report(rows, start, info, command))
+    Path(args.results).write_text(report(rows, start, info, command, compared, args.against, slabs))
     print("wrote", args.results)
     return 0
 

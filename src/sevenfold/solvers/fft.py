@@ -43,8 +43,9 @@ from ..problem import Problem
 from .cg import Monitor, QuietMonitor, SolveResult
 
 AXES = "xyz"
-SLAB_CELLS = 1 << 17  # cells per slab of the residual evaluation (1 MiB per buffer: stays in L3;
-# smaller slabs pay more per-call overhead than they save, see benchmarks/RESULTS_FFT_RESIDUAL.md)
+# cells per slab of the residual evaluation (1 MiB per buffer, in the shared cache); smaller
+# slabs pay more in per-call overhead than they save (benchmarks/RESULTS_FFT_RESIDUAL.md)
+SLAB_CELLS = 1 << 17
 
 
 def fft_eligibility(problem: Problem) -> str | None:
