@@ -43,9 +43,9 @@ from ..problem import Problem
 from .cg import Monitor, QuietMonitor, SolveResult
 
 AXES = "xyz"
-# cells per slab of the residual evaluation (1 MiB per buffer, in the shared cache); smaller
+# cells per slab of the residual evaluation (2 MiB per buffer, in the shared cache); smaller
 # slabs pay more in per-call overhead than they save (benchmarks/RESULTS_FFT_RESIDUAL.md)
-SLAB_CELLS = 1 << 17
+SLAB_CELLS = 1 << 18
 
 
 def fft_eligibility(problem: Problem) -> str | None:
