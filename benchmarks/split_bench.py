@@ -25,8 +25,9 @@ Thomas recurrence along z advances a whole row of columns at unit stride, with n
 
 Designs: the finest level split, or every smoothed level (the coarsest level's LU stays in
 the kept layout); the finest level split with CG left in the kept layout (r and z transposed
-each iteration, ``--designs 'split finest level, CG kept'``); and, since a split sweep costs half a kept one, three sweeps before and after
-each coarse correction instead of two, kept and split. CG works on split vectors, with the finest operator, the residual and
+each iteration, ``--designs 'split finest level, CG kept'``); and, since a split sweep costs
+half a kept one, three sweeps before and after each coarse correction instead of two, kept and
+split. Otherwise CG works on split vectors, with the finest operator, the residual and
 restriction and the prolongation written for the split layout (the restriction writes, and the
 prolongation reads, the coarse array in x, z, y order, so that a coarse row's y run is unit
 stride too; it is rearranged into the coarse level's layout at coarse size). The levels are

@@ -118,6 +118,21 @@ def test_fft_matches_direct(kinds, cells, spacing) -> None:
     assert result.final_relative_residual < 1e-12
 
 
+@pytest.mark.parametrize("kinds", COMBOS, ids=lambda k: "".join(c[0].upper() for c in k))
+def test_norm_of_b_from_the_divided_planes(kinds) -> None:
+    """solve_fft takes ||b||^2 from the transformed planes as it divides them: the orthonormal
+    DST-II / DCT-II keep the sum of squares (Parseval; scipy.fft's norm="ortho"), so it must
+    equal the sum over b itself, and the division must be the one scipy's own inverse undoes."""
+    kinds_named = tuple("dirichlet" if k == D else "neumann" for k in kinds)
+    b = np.random.default_rng(3).standard_normal((6, 5, 7))
+    lx, ly, lz = (np.linspace(1.0, 2.0, n) for n in b.shape)
+    w_hat = fft_module._transform(b.copy(), kinds_named, 1, inverse=False)
+    expected = w_hat / (lx[:, None, None] + ly[None, :, None] + lz[None, None, :])
+    total = fft_module._divide_by_eigenvalues(w_hat, lx, ly, lz, workers=2)
+    assert total == pytest.approx(float(np.sum(b * b)), rel=1e-12)
+    assert np.allclose(w_hat, expected, rtol=1e-14, atol=0.0)
+
+
 # three couplings, two equal (y and z share one scaling), all equal (one scaling, cubic cells)
 SPACINGS = [[0.1, 0.23, 0.05], [0.1, 0.25, 0.25], [0.25, 0.25, 0.25]]  # binary: sizes exact
 
