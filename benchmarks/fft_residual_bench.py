@@ -149,27 +149,10 @@ def bench(n: int, kind: str, repeats: int, workers: int) -> dict:
     return row
 
 
-def fft_at(revision: str):
-    """``sevenfold.solvers.fft`` as it was at git ``revision``, loaded beside the current one
-    (its relative imports resolve in the installed package)."""
-    import importlib.util
-    import types
-
-    source = subprocess.run(["git", "show", f"{revision}:src/sevenfold/solvers/fft.py"], cwd=HERE,
-                            check=True, capture_output=True, text=True).stdout
-    name = f"sevenfold.solvers._fft_{revision}"
-    module = types.ModuleType(name)
-    module.__package__ = "sevenfold.solvers"
-    module.__spec__ = importlib.util.spec_from_loader(name, loader=None)
-    sys.modules[name] = module
-    exec(compile(source, f"{revision}:fft.py", "exec"), module.__dict__)
-    return module
-
-
 def against(n: int, kind: str, repeats: int, workers: int, revision: str) -> dict:
     """The path now against the path at ``revision`` (alternating, best of), each over the same
     bare pair; the same u from both."""
-    old = fft_at(revision)
+    old = wall_bench.module_at(revision, "sevenfold.solvers.fft")
     problem = build_problem(parse_job(fft_bench.job_table(n, kind), "fft_residual_bench"))
     forward, inverse = ((scipy.fft.dstn, scipy.fft.idstn) if kind == "dirichlet"
                         else (scipy.fft.dctn, scipy.fft.idctn))

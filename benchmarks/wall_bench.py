@@ -334,6 +334,26 @@ def run_info() -> dict:
     return info
 
 
+def module_at(revision: str, name: str):
+    """Module ``name`` of sevenfold (e.g. "sevenfold.store") as it was at git ``revision``,
+    loaded beside the current one for an A/B in one process; its relative imports resolve in
+    the installed package."""
+    import importlib.util
+    import types
+
+    path = "src/" + name.replace(".", "/") + ".py"
+    source = subprocess.run(["git", "show", f"{revision}:{path}"], cwd=HERE, check=True,
+                            capture_output=True, text=True).stdout
+    package, _, leaf = name.rpartition(".")
+    qualified = f"{package}._{leaf}_at_{revision}"
+    module = types.ModuleType(qualified)
+    module.__package__ = package
+    module.__spec__ = importlib.util.spec_from_loader(qualified, loader=None)
+    sys.modules[qualified] = module
+    exec(compile(source, f"{revision}:{path}", "exec"), module.__dict__)
+    return module
+
+
 def machine_table(info: dict) -> list[str]:
     """The report's closing section: ``info`` as a two-column markdown table."""
     return ["## Machine", "", "| | |", "|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]

@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import asyncio
 import json
 import re
+import time
 from pathlib import Path
 
 import numpy as np
@@ -92,18 +94,22 @@ def test_interrupted_write_leaves_no_result(tmp_path: Path, monkeypatch) -> None
     first = run_job(job)
     before = zarr.open_group(str(first.output), mode="r")["temperature"][:]
     calls = {"n": 0}
-    original = zarr.Array.__setitem__
+    original = zarr.storage.LocalStore.set
 
-    def failing_setitem(self, key, value):
-        calls["n"] += 1
-        if calls["n"] == 3:
-            raise OSError(28, "No space left on device")
-        return original(self, key, value)
+    async def failing_set(self, key, value, *args, **kwargs):  # the disk fills at the third chunk
+        if "/c/" in key:
+            calls["n"] += 1
+            if calls["n"] == 3:
+                raise OSError(28, "No space left on device")
+            await asyncio.sleep(0.05)  # the other chunks' writes end after the failure is raised
+        return await original(self, key, value, *args, **kwargs)
 
-    monkeypatch.setattr(zarr.Array, "__setitem__", failing_setitem)
+    monkeypatch.setattr(zarr.storage.LocalStore, "set", failing_set)
     with pytest.raises(OutputError, match=f"cannot write the result {re.escape(str(first.output))}: No space left"):
         run_job(job)  # a bad output is a bad input: one line naming the path and the reason
     monkeypatch.undo()
+    assert calls["n"] >= 3  # the failure came while chunks were being written
+    time.sleep(0.5)  # long after the other chunks' delayed writes: none may have come back
     # the earlier finished result is untouched, and nothing else is left beside it
     assert is_complete(first.output)
     np.testing.assert_array_equal(zarr.open_group(str(first.output), mode="r")["temperature"][:], before)

@@ -81,14 +81,13 @@ def _write_result(final: Path, variables: dict[str, Variable], attrs: dict[str, 
     tmp = partial_path(final)
     try:
         group = zarr.open_group(store=str(tmp), mode="w", zarr_format=3)
-        for name, var in variables.items():
+        for name, var in variables.items():  # each array made and filled in one call
             c = _chunks(var.data.shape, chunks if var.data.ndim == 3 else (2**20,))
-            arr = group.create_array(
-                name, shape=var.data.shape, chunks=c, dtype=var.data.dtype,
-                dimension_names=list(var.dims), attributes=var.attrs, compressors=_compressors(),
-            )
-            arr[...] = var.data
-        group.attrs.update({**attrs, "sevenfold_version": __version__})
+            group.create_array(name, data=var.data, chunks=c, dimension_names=list(var.dims),
+                               attributes=var.attrs, compressors=_compressors())
+        # the group's metadata written once (attrs.update would rewrite it once per key), then
+        # the completion mark last
+        group.update_attributes({**attrs, "sevenfold_version": __version__})
         group.attrs["complete"] = True
         with warnings.catch_warnings():
             # zarr notes that consolidated metadata is an extension to the v3 format;
@@ -97,9 +96,29 @@ def _write_result(final: Path, variables: dict[str, Variable], attrs: dict[str, 
             zarr.consolidate_metadata(str(tmp))
         _replace(tmp, final)
     except BaseException:
+        _settle_zarr()
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return final
+
+
+def _settle_zarr(timeout: float = 60.0) -> None:
+    """Wait for the writes zarr still has in flight. When one chunk's write fails (a full
+    disk), zarr raises at once and its other chunk writes go on in its own thread; removed
+    before they end, the temporary folder would come back with their files in it."""
+    import asyncio
+
+    from zarr.core.sync import sync
+
+    async def rest() -> None:
+        others = [t for t in asyncio.all_tasks() if t is not asyncio.current_task()]
+        if others:
+            await asyncio.wait(others, timeout=timeout)
+
+    try:
+        sync(rest())
+    except Exception:  # pragma: no cover - a broken event loop: remove what is there
+        pass
 
 
 def _replace(tmp: Path, final: Path) -> None:
