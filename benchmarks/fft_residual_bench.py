@@ -27,7 +27,6 @@ import argparse
 import math
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import numba
@@ -39,6 +38,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import fft_bench  # noqa: E402
 import wall_bench  # noqa: E402
+from timing import best  # noqa: E402
 
 from sevenfold.problem import build_problem  # noqa: E402
 from sevenfold.solvers.fft import SLAB_CELLS as SLAB_NOW  # noqa: E402
@@ -106,15 +106,6 @@ def face_terms(problem) -> tuple[float, float, float, np.ndarray, np.ndarray]:
         db[f, :d.shape[0], :d.shape[1]] = d
     cx, cy, cz = (k / h**2 for h in spacing)
     return cx, cy, cz, rb, db
-
-
-def best(fn, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        t = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t)
-    return min(times)
 
 
 def bench(n: int, kind: str, repeats: int, workers: int) -> dict:

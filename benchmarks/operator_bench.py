@@ -41,13 +41,14 @@ from __future__ import annotations
 
 import argparse
 import sys
-import time
 from pathlib import Path
 
 import numpy as np
 from numba import get_num_threads, njit, prange
 
 HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+import timing  # noqa: E402
 sys.path.insert(0, str(HERE))
 import run as engine  # noqa: E402
 from sevenfold.kernels.stencil import _apply_row  # noqa: E402  (the production operator's row)
@@ -313,13 +314,9 @@ def apply_branch_free_blocked(tx, ty, tz, diag, u, out, jblock):
 
 
 def best(f, repeats: int) -> float:
+    """The fastest of ``repeats`` calls after one untimed call (compile, first touch)."""
     f()
-    times = []
-    for _ in range(repeats):
-        t = time.perf_counter()
-        f()
-        times.append(time.perf_counter() - t)
-    return min(times)
+    return timing.best(f, repeats)
 
 
 def test_data(n: int, interior: int, rng):

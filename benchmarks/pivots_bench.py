@@ -20,7 +20,7 @@ from __future__ import annotations
 import argparse
 import platform
 import subprocess
-import time
+import sys
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -31,6 +31,8 @@ from numba import njit, prange
 from sevenfold.kernels import multigrid
 
 HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+from timing import best  # noqa: E402
 LB = multigrid.LINE_BLOCK
 
 
@@ -126,15 +128,6 @@ def level(n: int, dtype):
     diag[:, 1:] += ty[:, :-1]
     diag[:, :, 1:] += tz[:, :, :-1]
     return tx, ty, tz, diag, rng.standard_normal((n, n, n)).astype(dtype)
-
-
-def best(call, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        call()
-        times.append(time.perf_counter() - t0)
-    return min(times)
 
 
 def measure(n: int, dtype, repeats: int, threads: int) -> tuple:

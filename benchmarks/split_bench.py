@@ -51,6 +51,7 @@ from numba import njit, prange
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import cycle_bench as cb  # noqa: E402
+import timing  # noqa: E402
 import wall_bench  # noqa: E402
 
 from sevenfold.kernels import multigrid, stencil  # noqa: E402
@@ -519,15 +520,6 @@ def run_case(n: int, case: str, repeats: int, designs=tuple(DESIGNS)) -> list[di
     return rows
 
 
-def _median_seconds(fn, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        t = cb.CLOCK()
-        fn()
-        times.append(cb.CLOCK() - t)
-    return float(np.median(times))
-
-
 def components(n: int, case: str, repeats: int = 5) -> list[dict]:
     """Each finest-level kernel, kept against split, on the kept hierarchy's arrays of one
     problem (CPU seconds, median of ``repeats``, the pairs alternating), in work units; and
@@ -574,8 +566,8 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
                 lambda: stencil.apply_dot(fine.tx, fine.ty, fine.tz, fine.diag, p64, out),
                 lambda: op.apply_dot(ps))
         for name, (kept, new) in pairs.items():
-            tk = _median_seconds(kept, repeats)
-            ts = _median_seconds(new, repeats)
+            tk = timing.median(kept, repeats, cb.CLOCK)
+            ts = timing.median(new, repeats, cb.CLOCK)
             rows.append(dict(case=case, n=n, level=level, shape="x".join(map(str, lv.shape)),
                              kernel=name, kept=tk / unit, split=ts / unit,
                              same=("yes" if same else "no") if name == "sweep" else "-"))
