@@ -15,7 +15,8 @@ sides, from ``baseline.pattern_boxes``) and size, one at a time, never two child
 * in this process too, at the sizes compared with the baseline: the job solved by gmg (forced
   on constant k, where auto takes fft) after one untimed solve, so that its kernels are loaded
   and the allocator is warm: *warm work units*, the issue's cost measure, without the child's
-  start-up (loading the compiled kernels costs it about 70 ms, 25 units at 128^3);
+  start-up (loading the compiled kernels cost it about 70 ms, 25 units at 128^3, in a one-off
+  trace);
 * agreement of the two solutions (max |u_s - u_b| / max |u_b|).
 
 Then ``--big`` (default 512; several sizes allowed, e.g. 512 640) layered for sevenfold alone, and the fft path against a bare
