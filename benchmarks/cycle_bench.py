@@ -82,6 +82,13 @@ VARIANTS = {
         "W", "line", "scaled", "float32", "zero", smoothing=2, finest_sweeps=1),
     "W(2,2) z-line scaled f32, float64 finest right-hand side": _v(
         "W", "line", "scaled", "float32", "zero", smoothing=2, wide_rhs=True),
+    "W(2,2) z-line scaled f32, 2048-cell coarsest": _v(
+        "W", "line", "scaled", "float32", "zero", smoothing=2, coarsest_cells=2048),
+    "W(2,2) z-line scaled f32, 8^3 coarsest": _v(
+        "W", "line", "scaled", "float32", "zero", smoothing=2, coarsest_cells=512),
+    "W(1,1) z-line scaled f32, two-grid": _v("W", "line", "scaled", "float32", two_grid=True),
+    "W(2,2) z-line scaled f32, two-grid": _v(
+        "W", "line", "scaled", "float32", "zero", smoothing=2, two_grid=True),
     KEPT: _v("W", "line", "scaled", "float32", "zero", smoothing=2),
 }
 BIG_VARIANTS = ("W(1,1) z-line scaled f32 + FMG", KEPT)
@@ -202,6 +209,8 @@ def run_case(n: int, case: str, names, repeats: int = 1) -> list[dict]:
         try:
             seconds = np.inf
             options = dict(VARIANTS[name])
+            if options.pop("two_grid", False):  # the first coarse level solved exactly (LU)
+                options["coarsest_cells"] = fine.diag.size // 8 + 1
             with patched(options.pop("two_pass", False), options.pop("finest_sweeps", None),
                          options.pop("wide_rhs", False)):
                 for _ in range(repeats):  # the best of several: other processes only add time
