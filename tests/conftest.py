@@ -251,17 +251,23 @@ def own_queue_home(tmp_path_factory) -> None:
 
 @pytest.fixture(scope="session")
 def warm_cache(tmp_path_factory) -> Path:
-    """A numba cache with the kernels compiled: a draining worker on an empty queue makes it.
+    """A numba cache with the kernels compiled: two draining workers on an empty queue, started
+    at once from an empty cache (a fresh install), make it. From then on it is this session's
+    ``NUMBA_CACHE_DIR``, so every process the tests start (workers of other homes, `sevenfold
+    run`) finds the kernels compiled, as they would after an install's first start.
 
     Shared by the queue and web tests that start workers (the first to ask pays the compile).
     """
     from queue_support import WorkerProcess, make_home
 
+    cache = tmp_path_factory.mktemp("numba-cache")
+    os.environ["NUMBA_CACHE_DIR"] = str(cache)
     home = make_home(tmp_path_factory.mktemp("warm") / "home")
     workers = [WorkerProcess(home, "--drain") for _ in range(2)]  # two first starts at once
     for w in workers:
         assert w.wait() == 0, w.output()
-    assert any(home.numba_cache.rglob("*.nbi")), "the warm-up left no compiled kernels"
+    assert any(cache.rglob("*.nbi")), "the warm-up left no compiled kernels"
+    assert not (home.root / "numba-cache").exists(), "a home keeps no cache of its own"
     # a first start in a new home says it compiles, before its slot is ready; the other
     # worker waits for the compile (a lock) and finds the kernels compiled
     texts = [w.output() for w in workers]
@@ -270,4 +276,4 @@ def warm_cache(tmp_path_factory) -> Path:
         if "compiling" in text:
             assert text.index("compiling the numerical kernels") < text.index("ready")
         assert "ready" in text, text
-    return home.numba_cache
+    return cache

@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import json
 import os
-import shutil
 import signal
 import subprocess
 import sys
@@ -107,11 +106,12 @@ def endless_job(folder: Path, name: str) -> Path:
 
 
 def make_home(root: Path, warm_cache: Path | None = None) -> Home:
-    """A fresh queue home; with ``warm_cache``, its compiled kernels are copied in."""
-    home = locate(root)
+    """A fresh queue home. ``warm_cache`` (the fixture's compiled kernels) is where its workers
+    will find them: the session's ``NUMBA_CACHE_DIR``, not a copy (workers share the install's
+    cache)."""
     if warm_cache is not None:
-        shutil.copytree(warm_cache, home.numba_cache)
-    return home
+        assert os.environ.get("NUMBA_CACHE_DIR") == str(warm_cache)
+    return locate(root)
 
 
 def env(**timing: float) -> dict[str, str]:

@@ -1,8 +1,9 @@
 """The queue end to end: worker processes, kills, cancels, retries, many clients at once.
 
-Workers and clients run as separate processes, the way users run them. Most tests start
-from a numba cache compiled once per session; the three-worker test starts from an empty
-one, so its workers compile concurrently into the same cache.
+Workers and clients run as separate processes, the way users run them. The tests share the
+numba cache the warm_cache fixture compiles once per session (two workers started at once
+from an empty cache); workers of every home and `sevenfold run` use it, as they share an
+install's cache.
 """
 
 from __future__ import annotations
@@ -111,7 +112,7 @@ def test_a_worker_stopped_by_sigterm_puts_its_running_job_back(tmp_path: Path, w
     wait_for(lambda: iterations_logged(s["output"]) >= 3, "the solve to be iterating")
     w.proc.send_signal(signal.SIGTERM)
     assert w.wait() == 0, w.output()
-    assert "compiling" not in w.output()  # the kernels came with the home's cache
+    assert "compiling" not in w.output()  # a new home: the kernels are in the install's cache
     j = job(home, s["id"])
     assert j.state == "queued" and j.attempts == 1 and j.worker is None
     with Queue(home) as q:
@@ -132,6 +133,20 @@ def worker_home(tmp_path_factory, warm_cache: Path):
     yield home, root, w
     w.stop()
     assert integrity(home) == "ok"
+
+
+def test_after_a_workers_first_start_a_run_in_its_own_process_compiles_nothing(
+        tmp_path: Path, warm_cache: Path) -> None:
+    """One compile per install: the kernels a worker compiled at its first start (the fixture's)
+    serve `sevenfold run` in a process of its own, with no compile notice, on a grid with
+    multigrid levels and on one without."""
+    for n in (48, 12):
+        path = small_job(tmp_path, f"own{n}", n=n, method="gmg")
+        proc = cli(make_home(tmp_path / f"home{n}", warm_cache), "run", "--here", "--no-progress",
+                   str(path))
+        assert proc.returncode == 0, proc.stderr
+        assert "compiling" not in proc.stdout + proc.stderr, proc.stdout + proc.stderr
+        assert "converged: gmg" in proc.stdout
 
 
 def test_watch_follows_a_running_job_until_it_ends(worker_home) -> None:

@@ -46,8 +46,6 @@ def fresh_queue_home(path: Path):
         if not (path / DEMO_MARK).exists():
             raise SevenfoldError(f"{str(path)!r} exists and is not a demo queue; choose another folder")
         for entry in path.iterdir():
-            if entry.name == "numba-cache":
-                continue  # compiled kernels stay valid: keep them
             shutil.rmtree(entry) if entry.is_dir() else entry.unlink()
     path.mkdir(parents=True, exist_ok=True)
     (path / DEMO_MARK).touch()

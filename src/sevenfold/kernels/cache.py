@@ -2,8 +2,9 @@
 run can say, before it starts, that it compiles them once and roughly how long that takes.
 
 numba compiles each kernel on its first call and keeps the machine code on disk (every kernel
-has ``cache=True``): in ``kernels/__pycache__`` when the package folder is writable, else
-under ``NUMBA_CACHE_DIR`` (the queue sets it per home) or the user's cache folder. After a
+has ``cache=True``): under ``NUMBA_CACHE_DIR`` when it is set, else in
+``kernels/__pycache__`` when the package folder is writable, else in the user's cache folder.
+Queue workers use the same cache as `sevenfold run`, so an install compiles once. After a
 method's first solve, :func:`mark_warm` writes an empty marker file into that same folder. Its
 name carries a key made of numba's and Python's versions and the size and modification time
 of every kernel module, which is what numba itself checks before reusing code: a new install,

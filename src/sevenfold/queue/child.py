@@ -1,14 +1,13 @@
 """The process that runs jobs for one worker slot: ``python -m sevenfold.queue.child``.
 
-It warms the compiled kernels once (under a file lock on the shared numba cache, so only
-one process compiles them first), says ``{"ready": pid}``, then reads one JSON request per
+It warms the compiled kernels once (under a file lock in numba's cache, which every worker
+and every `sevenfold run` of this install share, so only one process compiles them first), says ``{"ready": pid}``, then reads one JSON request per
 line on stdin and answers one JSON line per request on the stdout it was started with;
 whatever the libraries print goes to stderr (the slot's log). It dies with its worker
 (PR_SET_PDEATHSIG on Linux, and a parent check every iteration elsewhere). SIGUSR1 asks the
 running solve to stop at its next iteration.
 
-The worker sets ``NUMBA_NUM_THREADS`` and ``NUMBA_CACHE_DIR`` in its environment before
-numba is imported; nothing numerical is imported at module level here.
+The worker sets ``NUMBA_NUM_THREADS`` in its environment before numba is imported; nothing numerical is imported at module level here.
 """
 
 from __future__ import annotations
@@ -116,29 +115,33 @@ def die_with_parent(parent: int) -> None:
         os._exit(0)
 
 
-def warm_up(home: Home, say: Any = None) -> float:
+def warm_up(say: Any = None) -> float:
     """Compile or load the kernels once, serialised across processes; returns seconds.
 
-    When a method's kernels are not compiled yet (a new home, a new install), ``say`` gets
+    When a method's kernels are not compiled yet (a new install, a new numba), ``say`` gets
     the notice of what is compiled and about how long it takes, before it starts; the
-    process holding the lock says it, those waiting for the lock then find them compiled.
+    process holding the lock says it, those waiting for the lock (other slots, other
+    homes' workers) then find them compiled. The cache is numba's own choice (beside the
+    package when its folder is writable, else the user's cache folder, or
+    ``NUMBA_CACHE_DIR``), the one `sevenfold run` uses: compiled once per install.
     """
     import fcntl
 
-    from ..kernels.cache import is_cold, notice
+    from ..kernels.cache import cache_dir, is_cold, notice
     from ..runner import run_job
     from ..spec import parse_job
 
     t0 = time.perf_counter()
-    home.numba_cache.mkdir(parents=True, exist_ok=True)
-    with open(home.numba_cache / ".lock", "a+") as lock:
+    folder = cache_dir()
+    folder.mkdir(parents=True, exist_ok=True)
+    with open(folder / "sevenfold-warm-up.lock", "a+") as lock:
         fcntl.flock(lock, fcntl.LOCK_EX)
         try:
             needs = _needs(warm_tables())
             cold = [m for m, signatures in needs.items() if is_cold(m, signatures)]
             if cold and say is not None:
                 say(notice(cold))
-            with tempfile.TemporaryDirectory(prefix="warm-", dir=home.numba_cache) as tmp:
+            with tempfile.TemporaryDirectory(prefix="sevenfold-warm-") as tmp:
                 for table in warm_tables():
                     try:
                         spec = parse_job(table, "warm-up")
@@ -237,9 +240,8 @@ def main(argv: list[str] | None = None) -> int:
     signal.signal(signal.SIGUSR1, state.interrupt)
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the worker decides what Ctrl-C means
     home = Home(Path(args.home))
-    os.environ.setdefault("NUMBA_CACHE_DIR", str(home.numba_cache))
     try:
-        seconds = warm_up(home, lambda text: _send(channel, {"compiling": text}))
+        seconds = warm_up(lambda text: _send(channel, {"compiling": text}))
     except Exception as exc:
         traceback.print_exc(file=sys.stderr)
         _send(channel, {"fatal": f"warm-up failed: {type(exc).__name__}: {exc}"})

@@ -6,7 +6,6 @@ The home is ``--home DIR``, else ``$SEVENFOLD_HOME``, else the user data directo
     queue.db            the SQLite database (WAL mode), the only source of truth
     inputs/<sha256>/    content-addressed copies of the files job files name
     jobs/<id>/job.toml  the snapshot a job runs from; jobs/<id>/cancel is the cancel flag
-    numba-cache/        compiled kernels shared by every worker (NUMBA_CACHE_DIR)
     logs/               one log per worker slot (what the child processes print)
 """
 
@@ -34,10 +33,6 @@ class Home:
     @property
     def inputs(self) -> Path:
         return self.root / "inputs"
-
-    @property
-    def numba_cache(self) -> Path:
-        return self.root / "numba-cache"
 
     @property
     def logs(self) -> Path:

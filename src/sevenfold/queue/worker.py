@@ -88,7 +88,6 @@ class Child:
         env = dict(os.environ)
         env.update({
             "NUMBA_NUM_THREADS": str(threads),
-            "NUMBA_CACHE_DIR": str(home.numba_cache),
             # One BLAS thread: the sparse solvers gain nothing from threaded BLAS and lose much
             # to oversubscription on a busy machine (AMG setup at 24^3: 0.1 s, 0.5-4 s with 2).
             "OMP_NUM_THREADS": "1",
