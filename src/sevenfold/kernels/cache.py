@@ -28,8 +28,9 @@ from pathlib import Path
 COMPILE_SECONDS = {"gmg": 20, "amg": 19, "direct": 13, "fft": 1}
 # A queue worker's first start compiles every method at once: the kernels the methods share
 # (operator, vector updates, assembly) once, not once per method as the sum above counts
-# them. Measured from a new queue home (its slot's "kernels warm in" line): 30.1 s at load
-# 0.3 (2026-12-02 19:05), 38.4 s at load 1.5 (the same day, `sevenfold demo`).
+# them. Measured from an empty cache (its slot's "kernels warm in" line): 30.1 s at load 0.3
+# (2026-12-02 19:05), 38.4 s at load 1.5 (the same day, `sevenfold demo`); 25.6-29.7 s at load
+# 0.3-0.8 (2026-12-03, `sevenfold demo` after a fresh install).
 ALL_METHODS_SECONDS = 35
 
 
