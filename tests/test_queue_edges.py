@@ -399,3 +399,31 @@ def test_table_puts_swept_values_against_result_numbers(tmp_path: Path, home: Ho
     shutil.rmtree(out2)
     code, out, _ = run(home, "table", "b1", "--csv", capsys=capsys)
     assert code == 0 and list(csv.DictReader(io.StringIO(out)))[1]["temperature.max"] == ""
+
+
+def test_the_warm_up_lock_is_taken_in_the_cache_and_skipped_where_there_is_none(
+        tmp_path: Path, monkeypatch, capsys) -> None:
+    """The worker's warm-up serialises its compile with a lock file in numba's cache folder
+    (shared by every home and by `sevenfold run`); where that folder cannot be had, the
+    warm-up goes on without the lock rather than stop the worker."""
+    import fcntl
+
+    from sevenfold.kernels import cache
+    from sevenfold.queue import child
+
+    monkeypatch.setattr(cache, "cache_dir", lambda: tmp_path / "numba")
+    with child._warm_up_lock():
+        lock = tmp_path / "numba" / "sevenfold-warm-up.lock"
+        assert lock.exists()
+        with open(lock) as other, pytest.raises(BlockingIOError):  # held: another process waits
+            fcntl.flock(other, fcntl.LOCK_EX | fcntl.LOCK_NB)
+
+    def no_cache():
+        raise RuntimeError("cannot cache function: no locator available")
+
+    monkeypatch.setattr(cache, "cache_dir", no_cache)
+    ran = []
+    with child._warm_up_lock():
+        ran.append(True)
+    assert ran == [True]
+    assert "warm-up without a lock: cannot cache function" in capsys.readouterr().err

@@ -13,6 +13,7 @@ The worker sets ``NUMBA_NUM_THREADS`` in its environment before numba is importe
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import os
 import signal
@@ -21,7 +22,7 @@ import tempfile
 import time
 import traceback
 from pathlib import Path
-from typing import Any, TextIO
+from typing import Any, Iterator, TextIO
 
 from ..errors import Cancelled, JobError, OutputError, SevenfoldError, SolverError, writing
 from .files import append_run
@@ -115,6 +116,31 @@ def die_with_parent(parent: int) -> None:
         os._exit(0)
 
 
+@contextlib.contextmanager
+def _warm_up_lock() -> Iterator[None]:
+    """An exclusive lock in numba's cache folder for the warm-up; none (compile unserialised)
+    when that folder cannot be found or written: numba then compiles without caching, and
+    the worker must still start."""
+    import fcntl
+
+    from ..kernels.cache import cache_dir
+
+    try:
+        folder = cache_dir()
+        folder.mkdir(parents=True, exist_ok=True)
+        lock = open(folder / "sevenfold-warm-up.lock", "a+")
+    except Exception as exc:  # no cache locator, a read-only folder
+        print(f"warm-up without a lock: {exc}", file=sys.stderr)
+        yield
+        return
+    with lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        try:
+            yield
+        finally:
+            fcntl.flock(lock, fcntl.LOCK_UN)
+
+
 def warm_up(say: Any = None) -> float:
     """Compile or load the kernels once, serialised across processes; returns seconds.
 
@@ -125,31 +151,23 @@ def warm_up(say: Any = None) -> float:
     package when its folder is writable, else the user's cache folder, or
     ``NUMBA_CACHE_DIR``), the one `sevenfold run` uses: compiled once per install.
     """
-    import fcntl
-
-    from ..kernels.cache import cache_dir, is_cold, notice
+    from ..kernels.cache import is_cold, notice
     from ..runner import run_job
     from ..spec import parse_job
 
     t0 = time.perf_counter()
-    folder = cache_dir()
-    folder.mkdir(parents=True, exist_ok=True)
-    with open(folder / "sevenfold-warm-up.lock", "a+") as lock:
-        fcntl.flock(lock, fcntl.LOCK_EX)
-        try:
-            needs = _needs(warm_tables())
-            cold = [m for m, signatures in needs.items() if is_cold(m, signatures)]
-            if cold and say is not None:
-                say(notice(cold))
-            with tempfile.TemporaryDirectory(prefix="sevenfold-warm-") as tmp:
-                for table in warm_tables():
-                    try:
-                        spec = parse_job(table, "warm-up")
-                        run_job(Path(tmp) / "warm.toml", Path(tmp) / f"{spec.name}.zarr", spec=spec)
-                    except SevenfoldError as exc:  # a method that cannot take this job compiles later
-                        print(f"warm-up {table['name']}: {exc}", file=sys.stderr)
-        finally:
-            fcntl.flock(lock, fcntl.LOCK_UN)
+    with _warm_up_lock():
+        needs = _needs(warm_tables())
+        cold = [m for m, signatures in needs.items() if is_cold(m, signatures)]
+        if cold and say is not None:
+            say(notice(cold))
+        with tempfile.TemporaryDirectory(prefix="sevenfold-warm-") as tmp:
+            for table in warm_tables():
+                try:
+                    spec = parse_job(table, "warm-up")
+                    run_job(Path(tmp) / "warm.toml", Path(tmp) / f"{spec.name}.zarr", spec=spec)
+                except SevenfoldError as exc:  # a method that cannot take this job compiles later
+                    print(f"warm-up {table['name']}: {exc}", file=sys.stderr)
     return time.perf_counter() - t0
 
 
