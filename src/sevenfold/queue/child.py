@@ -1,13 +1,15 @@
 """The process that runs jobs for one worker slot: ``python -m sevenfold.queue.child``.
 
 It warms the compiled kernels once (under a file lock in numba's cache, which every worker
-and every `sevenfold run` of this install share, so only one process compiles them first), says ``{"ready": pid}``, then reads one JSON request per
-line on stdin and answers one JSON line per request on the stdout it was started with;
+and every `sevenfold run` of this install share, so only one process compiles them first),
+says ``{"ready": pid}``, then reads one JSON request per line on stdin and answers one JSON
+line per request on the stdout it was started with;
 whatever the libraries print goes to stderr (the slot's log). It dies with its worker
 (PR_SET_PDEATHSIG on Linux, and a parent check every iteration elsewhere). SIGUSR1 asks the
 running solve to stop at its next iteration.
 
-The worker sets ``NUMBA_NUM_THREADS`` in its environment before numba is imported; nothing numerical is imported at module level here.
+The worker sets ``NUMBA_NUM_THREADS`` in its environment before numba is imported; nothing
+numerical is imported at module level here.
 """
 
 from __future__ import annotations
