@@ -217,6 +217,26 @@ def test_selection_matches_the_full_mask() -> None:
         assert sel.volume == pytest.approx(grid.volume(full), rel=1e-12)
 
 
+
+def test_a_box_takes_the_cells_whose_centre_it_holds_boundary_included() -> None:
+    """The block of index slices equals the centre test cell by cell (shapes.py's rule),
+    on a graded grid, with faces exactly on centres, outside the grid, and between two."""
+    from sevenfold.shapes import mask
+
+    grid = Grid((np.cumsum(np.r_[0, np.linspace(0.05, 0.15, 10)]), np.linspace(0, 1, 8), np.linspace(-1, 1, 13)))
+    x, y, z = grid.mesh()
+    cx, cy = grid.centres(0), grid.centres(1)
+    for box in (Box(min=(cx[2], cy[1], -0.5), max=(cx[6], cy[4], 0.3)),  # faces on centres
+                Box(min=(-5.0, -1.0, -9.0), max=(5.0, 2.0, 9.0)),  # the whole grid and more
+                Box(min=(cx[3] + 1e-9, 0.2, 0.0), max=(cx[4] - 1e-9, 0.9, 1.0)),  # between two centres
+                Box(min=(0.1, 0.2, -0.5), max=(0.45, 0.9, 0.3))):
+        expected = ((box.min[0] <= x) & (x <= box.max[0]) & (box.min[1] <= y) & (y <= box.max[1])
+                    & (box.min[2] <= z) & (z <= box.max[2]))
+        got = mask(box, grid)
+        assert got.shape == grid.shape and got.dtype == bool
+        assert np.array_equal(got, np.broadcast_to(expected, grid.shape))
+
+
 # ---------------------------------------------------------------- geometry warnings
 LAYER = """
 name = "layer"

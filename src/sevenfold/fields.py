@@ -10,8 +10,8 @@ import numpy as np
 from .errors import JobError
 from .expressions import evaluate
 from .grid import Grid
-from .shapes import mask
-from .spec import MaterialSpec, SourceSpec, components
+from .shapes import box_slices, mask
+from .spec import Box, MaterialSpec, SourceSpec, components
 
 
 def _values(value: float | str, grid: Grid, where: np.ndarray | None = None) -> np.ndarray | float:
@@ -28,6 +28,12 @@ def _check_finite(a: np.ndarray, where: str, positive: bool) -> None:
         raise JobError("contains NaN or infinite values", where)
     if positive and not np.all(a > 0):
         raise JobError(f"must be positive everywhere, minimum is {float(a.min())!r}", where)
+
+
+def _cells(region, m: np.ndarray, v, grid: Grid):
+    """Where to put the region's value ``v``: a box's block of slices when ``v`` is one number
+    (assigned at memory speed; a mask is scanned whole, 60 times for 60 boxes), else the mask."""
+    return box_slices(region.shape, grid) if isinstance(region.shape, Box) and not isinstance(v, np.ndarray) else m
 
 
 def region_masks(regions, grid: Grid, where: str) -> list[np.ndarray]:
@@ -57,7 +63,7 @@ def _component(spec: MaterialSpec, grid: Grid, a: int, masks: list[np.ndarray], 
         v = _values(components(region.value)[a], grid, m)
         if isinstance(v, np.ndarray):
             _check_finite(v, f"material.region.{i}.value", positive=True)
-        k[m] = v
+        k[_cells(region, m, v, grid)] = v
     if scale != 1.0:
         k *= scale
     return k
@@ -93,5 +99,5 @@ def source(spec: SourceSpec, grid: Grid, base: np.ndarray | None = None) -> np.n
             v = _values(region.value, grid, m)
             if isinstance(v, np.ndarray):
                 _check_finite(v, f"source.region.{i}.value", positive=False)
-            f[m] = v
+            f[_cells(region, m, v, grid)] = v
     return f

@@ -10,10 +10,11 @@ from .spec import Box, Cylinder, Sphere
 
 def mask(shape: Box | Sphere | Cylinder, grid: Grid) -> np.ndarray:
     """Boolean array of ``grid.shape``: True where the cell centre lies in ``shape``."""
+    if isinstance(shape, Box):  # centres rise along each axis: the box's cells are one block
+        m = np.zeros(grid.shape, dtype=bool)
+        m[box_slices(shape, grid)] = True
+        return m
     x, y, z = grid.mesh()
-    if isinstance(shape, Box):
-        inside = [(lo <= c) & (c <= hi) for c, lo, hi in zip((x, y, z), shape.min, shape.max)]
-        return np.broadcast_to(inside[0] & inside[1] & inside[2], grid.shape).copy()
     if isinstance(shape, Sphere):
         cx, cy, cz = shape.center
         return np.broadcast_to(
@@ -26,3 +27,12 @@ def mask(shape: Box | Sphere | Cylinder, grid: Grid) -> np.ndarray:
         along = np.abs(coords[axis] - shape.center[axis]) <= shape.length / 2
         return np.broadcast_to((r2 <= shape.radius**2) & along, grid.shape).copy()
     raise TypeError(f"not a shape: {shape!r}")
+
+
+def box_slices(box: Box, grid: Grid) -> tuple[slice, slice, slice]:
+    """The block of cells whose centres lie in ``box`` (boundary included), as index slices."""
+    out = []
+    for a, (lo, hi) in enumerate(zip(box.min, box.max)):
+        c = grid.centres(a)
+        out.append(slice(int(np.searchsorted(c, lo, side="left")), int(np.searchsorted(c, hi, side="right"))))
+    return tuple(out)  # type: ignore[return-value]
