@@ -234,3 +234,29 @@ def test_a_workers_first_start_announces_the_shared_kernels_once() -> None:
     assert f"about {cache.ALL_METHODS_SECONDS} s" in cache.notice(every)
     assert cache.ALL_METHODS_SECONDS < sum(cache.COMPILE_SECONDS.values())
     assert f"about {cache.COMPILE_SECONDS['amg']} s" in cache.notice(("amg",))
+
+
+def test_a_workers_first_start_after_a_gmg_run_announces_what_is_left(tmp_path: Path,
+                                                                       monkeypatch) -> None:
+    """After a first `sevenfold run` (gmg at 128^3) the cache holds the kernels every method
+    shares: a worker's first start then compiles the other methods' own kernels and the
+    serial vector updates of its 12^3 warm-up job, about 5 s measured (AFTER_GMG_SECONDS),
+    not the 35 s of an empty cache; with nothing of gmg's cached the measured whole stays."""
+    from sevenfold.kernels import cache, warmup
+    from sevenfold.queue.child import _needs, warm_tables
+    from sevenfold.runner import kernel_signatures
+
+    monkeypatch.setattr(cache, "cache_dir", lambda: tmp_path)
+    needs = _needs(warm_tables())
+    assert cache.warm_up_seconds(needs) is None  # an empty cache: notice() takes the whole
+    assert f"about {cache.ALL_METHODS_SECONDS} s" in cache.notice(tuple(needs), cache.warm_up_seconds(needs))
+    cache.mark_warm("gmg", kernel_signatures("gmg", (128, 128, 128)))
+    left = cache.missing("gmg", needs["gmg"])
+    assert left == {"vectors_serial[float64]"}
+    seconds = cache.warm_up_seconds(needs)
+    assert seconds == pytest.approx(warmup.estimate(left) + max(cache.AFTER_GMG_SECONDS.values()))
+    assert 3 < seconds < cache.ALL_METHODS_SECONDS / 4
+    assert f"about {round(seconds)} s" in cache.notice(tuple(needs), seconds)
+    for m in ("amg", "direct", "fft"):
+        cache.mark_warm(m, needs.get(m, frozenset()))
+    assert cache.warm_up_seconds(needs) == pytest.approx(warmup.estimate(left))  # gmg's tiny signature only

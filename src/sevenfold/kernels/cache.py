@@ -32,6 +32,12 @@ COMPILE_SECONDS = {"gmg": 20, "amg": 19, "direct": 13, "fft": 1}
 # (2026-12-02 19:05), 38.4 s at load 1.5 (the same day, `sevenfold demo`); 25.6-29.7 s at load
 # 0.3-0.8 (2026-12-03, `sevenfold demo` after a fresh install).
 ALL_METHODS_SECONDS = 35
+# What the other methods still compile once gmg's kernels are cached (the face arrays, the
+# operator and CG's vector updates they share), as after a first `sevenfold run`: measured
+# 2026-12-03 from a cache holding a 128^3 gmg run's kernels, load 0.6: amg 4.1 s, direct 3.8 s
+# alone; a worker's whole warm-up then took 5.5 s (4.4 s more than with everything cached),
+# amg and direct sharing the CSR assembly, so together they count once; fft nothing to speak of.
+AFTER_GMG_SECONDS = {"amg": 4, "direct": 4, "fft": 0}
 
 
 def _kernel_files() -> list[Path]:
@@ -131,3 +137,19 @@ def cold_notice(method: str, needs: frozenset[str] = frozenset()) -> str | None:
     from .warmup import estimate
 
     return notice([method], estimate(lacking))
+
+
+def warm_up_seconds(needs: dict[str, frozenset[str]]) -> float | None:
+    """The estimate for compiling every method at once (a worker's warm-up) with the
+    signatures ``needs`` per method, given what the cache holds; None to let :func:`notice`
+    use the methods' measured wholes (nothing of gmg's cached)."""
+    try:
+        if not marker("gmg").exists():
+            return None
+        from .warmup import estimate
+
+        others = [AFTER_GMG_SECONDS.get(m, COMPILE_SECONDS.get(m, 0))
+                  for m in needs if m != "gmg" and is_cold(m, needs[m])]
+        return estimate(missing("gmg", needs.get("gmg", frozenset()))) + max(others, default=0)
+    except Exception:  # an unreadable cache: the methods' wholes
+        return None

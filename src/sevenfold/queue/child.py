@@ -153,7 +153,7 @@ def warm_up(say: Any = None) -> float:
     package when its folder is writable, else the user's cache folder, or
     ``NUMBA_CACHE_DIR``), the one `sevenfold run` uses: compiled once per install.
     """
-    from ..kernels.cache import is_cold, notice
+    from ..kernels.cache import is_cold, notice, warm_up_seconds
     from ..runner import run_job
     from ..spec import parse_job
 
@@ -162,7 +162,7 @@ def warm_up(say: Any = None) -> float:
         needs = _needs(warm_tables())
         cold = [m for m, signatures in needs.items() if is_cold(m, signatures)]
         if cold and say is not None:
-            say(notice(cold))
+            say(notice(cold, warm_up_seconds(needs)))
         with tempfile.TemporaryDirectory(prefix="sevenfold-warm-") as tmp:
             for table in warm_tables():
                 try:
