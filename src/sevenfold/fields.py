@@ -30,7 +30,7 @@ def _check_finite(a: np.ndarray, where: str, positive: bool) -> None:
         raise JobError(f"must be positive everywhere, minimum is {float(a.min())!r}", where)
 
 
-def _cells(region, m: np.ndarray, v, grid: Grid):
+def _cells(region, m: np.ndarray, v: np.ndarray | float, grid: Grid) -> np.ndarray | tuple[slice, ...]:
     """Where to put the region's value ``v``: a box's block of slices when ``v`` is one number
     (assigned at memory speed; a mask is scanned whole, 60 times for 60 boxes), else the mask."""
     return box_slices(region.shape, grid) if isinstance(region.shape, Box) and not isinstance(v, np.ndarray) else m
