@@ -15,6 +15,7 @@ matrix (``kernels.assembly``), the balance and the derived fluxes all start from
 
 from __future__ import annotations
 
+import numpy as np
 from numba import njit, prange
 
 # The operator walks slabs of x planes in bands of y rows when a plane is large: the three
@@ -171,18 +172,19 @@ def _bands(nx, ny, nz):
 
 @njit(cache=True, inline="always")
 def _apply_row(tx, ty, tz, diag, u, out, i, j, nx, ny, nz):
-    """out[i, j, :] = (A u)[i, j, :]; the z couplings in a second pass over the row, so that
-    neither loop has a branch (the row's two ends are peeled off)."""
+    """out[:] = (A u)[i, j, :] (``out`` one row of nz); the z couplings in a second pass over
+    the row, so that neither loop has a branch (the row's two ends are peeled off) and both
+    vectorise."""
     wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
     for m in range(nz):
-        out[i, j, m] = (diag[i, j, m] * u[i, j, m] - wxm * tx[im, j, m] * u[im, j, m]
-                        - wxp * tx[i, j, m] * u[ip, j, m] - wym * ty[i, jm, m] * u[i, jm, m]
-                        - wyp * ty[i, j, m] * u[i, jp, m])
+        out[m] = (diag[i, j, m] * u[i, j, m] - wxm * tx[im, j, m] * u[im, j, m]
+                  - wxp * tx[i, j, m] * u[ip, j, m] - wym * ty[i, jm, m] * u[i, jm, m]
+                  - wyp * ty[i, j, m] * u[i, jp, m])
     for m in range(1, nz - 1):
-        out[i, j, m] -= tz[i, j, m - 1] * u[i, j, m - 1] + tz[i, j, m] * u[i, j, m + 1]
+        out[m] -= tz[i, j, m - 1] * u[i, j, m - 1] + tz[i, j, m] * u[i, j, m + 1]
     if nz > 1:
-        out[i, j, 0] -= tz[i, j, 0] * u[i, j, 1]
-        out[i, j, nz - 1] -= tz[i, j, nz - 2] * u[i, j, nz - 2]
+        out[0] -= tz[i, j, 0] * u[i, j, 1]
+        out[nz - 1] -= tz[i, j, nz - 2] * u[i, j, nz - 2]
 
 
 @njit(cache=True, parallel=True)
@@ -195,7 +197,7 @@ def apply(tx, ty, tz, diag, u, out):
         for j0 in range(0, ny, rows):
             for i in range(t * per, min(t * per + per, nx)):
                 for j in range(j0, min(j0 + rows, ny)):
-                    _apply_row(tx, ty, tz, diag, u, out, i, j, nx, ny, nz)
+                    _apply_row(tx, ty, tz, diag, u, out[i, j], i, j, nx, ny, nz)
 
 
 @njit(cache=True, parallel=True)
@@ -223,7 +225,7 @@ def apply_dot(tx, ty, tz, diag, u, out):
         for j0 in range(0, ny, rows):
             for i in range(t * per, min(t * per + per, nx)):
                 for j in range(j0, min(j0 + rows, ny)):
-                    _apply_row(tx, ty, tz, diag, u, out, i, j, nx, ny, nz)
+                    _apply_row(tx, ty, tz, diag, u, out[i, j], i, j, nx, ny, nz)
                     for m in range(nz):
                         s += out[i, j, m] * u[i, j, m]
     return s
@@ -233,27 +235,36 @@ def apply_dot(tx, ty, tz, diag, u, out):
 def residual_restrict(tx, ty, tz, diag, b, u, step, rc):
     """rc = P^T (b - A u) for piecewise-constant P over aggregates of ``step`` cells per axis,
     without storing the fine residual (each coarse x-plane is one thread's). As in
-    :func:`restrict`, held cells add nothing because their residual is zero."""
+    :func:`restrict`, held cells add nothing because their residual is zero.
+
+    Each fine row's A u goes to a row buffer first (:func:`_apply_row`, branch-free), then
+    its residuals are summed into the coarse row: both loops vectorise, where a residual added
+    to its aggregate cell by cell did not (0.21-0.41 of that form's time at 128^3 and 256^3,
+    benchmarks/RESULTS_RESTRICT.md).
+    """
     nx, ny, nz = u.shape
     sx, sy, sz = step[0], step[1], step[2]
     ncx, ncy, ncz = rc.shape
     for I in prange(ncx):
+        row = np.empty(nz, dtype=u.dtype)
         for J in range(ncy):
             for K in range(ncz):
                 rc[I, J, K] = 0.0
         for i in range(I * sx, min(I * sx + sx, nx)):
             for j in range(ny):
                 J = j // sy
-                wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
-                for m in range(nz):
-                    r = b[i, j, m] - diag[i, j, m] * u[i, j, m] + _offdiag_row(
-                        tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz)
-                    if sz == 2:
-                        rc[I, J, m >> 1] += r
-                    elif sz == 1:
-                        rc[I, J, m] += r
-                    else:
-                        rc[I, J, m // sz] += r
+                _apply_row(tx, ty, tz, diag, u, row, i, j, nx, ny, nz)
+                if sz == 2:
+                    for K in range(nz // 2):
+                        rc[I, J, K] += (b[i, j, 2 * K] - row[2 * K]) + (b[i, j, 2 * K + 1] - row[2 * K + 1])
+                    if nz % 2:
+                        rc[I, J, ncz - 1] += b[i, j, nz - 1] - row[nz - 1]
+                elif sz == 1:
+                    for m in range(nz):
+                        rc[I, J, m] += b[i, j, m] - row[m]
+                else:
+                    for m in range(nz):
+                        rc[I, J, m // sz] += b[i, j, m] - row[m]
 
 
 @njit(cache=True, parallel=True)
