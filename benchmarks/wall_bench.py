@@ -334,16 +334,18 @@ def run_info() -> dict:
     return info
 
 
-def module_at(revision: str, name: str):
+def module_at(revision: str, name: str, edit=None):
     """Module ``name`` of sevenfold (e.g. "sevenfold.store") as it was at git ``revision``,
     loaded beside the current one for an A/B in one process; its relative imports resolve in
-    the installed package."""
+    the installed package. ``edit`` (source -> source), when given, changes the text first."""
     import importlib.util
     import types
 
     path = "src/" + name.replace(".", "/") + ".py"
     source = subprocess.run(["git", "show", f"{revision}:{path}"], cwd=HERE, check=True,
                             capture_output=True, text=True).stdout
+    if edit is not None:
+        source = edit(source)
     package, _, leaf = name.rpartition(".")
     qualified = f"{package}._{leaf}_at_{revision}"
     module = types.ModuleType(qualified)

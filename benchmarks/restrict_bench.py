@@ -1,0 +1,145 @@
+"""The fused residual and restriction, as it is against an earlier revision's, alone and in
+whole gmg solves.
+
+    python benchmarks/restrict_bench.py --against REVISION [--sizes 128 256]
+        [--patterns layered inclusions constant] [--rounds 3]
+
+`stencil.residual_restrict` computes rc = P^T (b - A u) on each level of every cycle. Until
+this change it added each cell's residual to its aggregate as it went, so the loop over z
+carried a dependence through rc and had branches for the row's ends: it did not vectorise,
+and at 256^3 it cost more than one float64 operator application on float32 arrays. Now each
+row's A u goes to a row buffer (the operator's own branch-free row) and the residuals are then
+summed pairwise into the coarse row.
+
+For each speed-suite job (``speed.job_text``), in one process, the two forms alternating
+(``--rounds`` times each, best of):
+
+* the kernel alone on the finest level of the solver's hierarchy (float32, random b and u),
+  wall seconds of one call over one float64 operator application (``speed.kernel_times``,
+  best of many): work units; and the largest difference of the coarse residuals, relative to
+  their largest value (the two forms sum in a different order);
+* the warm gmg set-up + solve (``speed.warm_gmg``: one untimed solve, then the best of two),
+  with gmg's kernels module as it is and as it was at ``REVISION`` (loaded beside it with
+  ``wall_bench.module_at``, compiled without numba's cache); the iterations must match.
+
+Writes benchmarks/RESULTS_RESTRICT.md.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+import run as engine  # noqa: E402
+import speed  # noqa: E402
+import timing  # noqa: E402
+import wall_bench  # noqa: E402
+
+
+def stencil_at(revision: str):
+    """``sevenfold.kernels.stencil`` as it was at ``revision``, its kernels uncached (numba
+    caches only functions that live in a file)."""
+    return wall_bench.module_at(revision, "sevenfold.kernels.stencil",
+                                edit=lambda source: source.replace("cache=True", "cache=False"))
+
+
+def kernel_pair(job: Path, old, rounds: int) -> dict[str, float]:
+    """One call of each form on the finest level's float32 arrays, in work units."""
+    from sevenfold.kernels import stencil
+    from sevenfold.problem import build_problem
+    from sevenfold.solvers.gmg import DEFAULTS, Hierarchy, fine_level
+    from sevenfold.spec import load_job
+
+    fine, _ = fine_level(build_problem(load_job(job)))
+    options = {k: v for k, v in DEFAULTS.items() if k != "start"}
+    hierarchy = Hierarchy(fine, **options)
+    top, coarse = hierarchy.levels[0], hierarchy.levels[1]
+    rng = np.random.default_rng(0)
+    b = rng.standard_normal(top.shape).astype(hierarchy.dtype)
+    u = rng.standard_normal(top.shape).astype(hierarchy.dtype)
+    now, then = np.empty(coarse.shape, hierarchy.dtype), np.empty(coarse.shape, hierarchy.dtype)
+
+    def run_now():
+        stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, now)
+
+    def run_then():
+        old.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, then)
+
+    run_now(), run_then()
+    difference = float(np.abs(now - then).max() / np.abs(then).max())
+    times: dict[str, list[float]] = {"now": [], "then": []}
+    for _ in range(rounds):
+        times["then"].append(timing.best(run_then, 9, time.perf_counter))
+        times["now"].append(timing.best(run_now, 9, time.perf_counter))
+    apply, _, _, _ = speed.kernel_times(job, 20)
+    return {"then": min(times["then"]) / apply, "now": min(times["now"]) / apply,
+            "apply": apply, "difference": difference}
+
+
+def solve_pair(job: Path, old, rounds: int) -> dict[str, float]:
+    """Warm gmg set-up + solve with gmg's stencil module now and at the revision."""
+    from sevenfold.solvers import gmg
+
+    kept = gmg.stencil
+    runs: dict[str, list[dict[str, float]]] = {"now": [], "then": []}
+    try:
+        for _ in range(rounds):
+            for name, module in (("then", old), ("now", kept)):
+                gmg.stencil = module
+                runs[name].append(speed.warm_gmg(job))
+    finally:
+        gmg.stencil = kept
+    out = {}
+    for name, rs in runs.items():
+        best = min(rs, key=lambda r: r["setup"] + r["solve"])
+        out[name] = best["setup"] + best["solve"]
+        out[f"iterations {name}"] = best["iterations"]
+    return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--against", required=True, metavar="REVISION")
+    p.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
+    p.add_argument("--patterns", nargs="+", default=["layered", "inclusions", "constant"],
+                   choices=speed.PATTERNS)
+    p.add_argument("--rounds", type=int, default=3)
+    p.add_argument("--results", type=Path, default=HERE / "RESULTS_RESTRICT.md")
+    args = p.parse_args(argv)
+    lines, info = engine.report_head("restrict_bench.py", argv,
+                                     "The fused residual and restriction, vectorised")
+    old = stencil_at(args.against)
+    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+              f"*then* = revision {args.against}, *now* = the working tree; *WU* = seconds over one "
+              "two-thread float64 operator application of the job's grid (*apply*); *solve* = warm "
+              "gmg set-up + solve, wall seconds, two threads.", "",
+              "| job | cells | apply ms | kernel WU then | kernel WU now | now / then | difference | "
+              "iterations then / now | solve s then | solve s now | now / then | solve WU then | "
+              "solve WU now |", "|" + "---|" * 13]
+    with tempfile.TemporaryDirectory(prefix="sevenfold-restrict-") as tmp:
+        for n in args.sizes:
+            for pattern in args.patterns:
+                job = Path(tmp) / f"speed-{pattern}-{n}.toml"
+                job.write_text(speed.job_text(n, pattern, f"speed-{pattern}-{n}.zarr"))
+                k = kernel_pair(job, old, args.rounds)
+                s = solve_pair(job, old, args.rounds)
+                lines.append(
+                    f"| {pattern} | {n}^3 | {k['apply'] * 1e3:.2f} | {k['then']:.2f} | {k['now']:.2f} | "
+                    f"{k['now'] / k['then']:.2f} | {k['difference']:.1e} | "
+                    f"{int(s['iterations then'])} / {int(s['iterations now'])} | {s['then']:.3f} | "
+                    f"{s['now']:.3f} | {s['now'] / s['then']:.2f} | {s['then'] / k['apply']:.1f} | "
+                    f"{s['now'] / k['apply']:.1f} |")
+                print(lines[-1], flush=True)
+    engine.write_report(args.results, lines, info)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
