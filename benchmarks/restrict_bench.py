@@ -2,7 +2,7 @@
 whole gmg solves.
 
     python benchmarks/restrict_bench.py --against REVISION [--sizes 128 256]
-        [--patterns layered inclusions constant] [--rounds 3]
+        [--cases layered inclusions constant column "graded job"] [--rounds 3]
 
 `stencil.residual_restrict` computes rc = P^T (b - A u) on each level of every cycle. Until
 this change it added each cell's residual to its aggregate as it went, so the loop over z
@@ -11,14 +11,17 @@ and at 256^3 it cost more than one float64 operator application on float32 array
 row's A u goes to a row buffer (the operator's own branch-free row) and the residuals are then
 summed pairwise into the coarse row.
 
-For each speed-suite job (``speed.job_text``), in one process, the two forms alternating
-(``--rounds`` times each, best of):
+For each job, in one process, the two forms alternating (``--rounds`` times each, best of).
+The jobs (``cycle_bench.problem_level``'s): the speed suite's three patterns, issue 10's
+1000:1 column, and the graded-grid issue's anisotropic job (z widths graded over three
+decades, conductivity 100:100:1).
 
 * the kernel alone on the finest level of the solver's hierarchy (float32, random b and u),
-  wall seconds of one call over one float64 operator application (``speed.kernel_times``,
-  best of many): work units; and the largest difference of the coarse residuals, relative to
-  their largest value (the two forms sum in a different order);
-* the warm gmg set-up + solve (``speed.warm_gmg``: one untimed solve, then the best of two),
+  wall seconds of one call over one float64 operator application (best of many): work units;
+  and the largest difference of the coarse residuals, relative to their largest value (the
+  two forms sum in a different order);
+* the warm gmg set-up + solve (one untimed solve, then the best of two, as
+  ``speed.warm_gmg``),
   with gmg's kernels module as it is and as it was at ``REVISION`` (loaded beside it with
   ``wall_bench.module_at``, compiled without numba's cache); the iterations must match.
 
@@ -28,8 +31,8 @@ Writes benchmarks/RESULTS_RESTRICT.md.
 from __future__ import annotations
 
 import argparse
+import gc
 import sys
-import tempfile
 import time
 from pathlib import Path
 
@@ -37,10 +40,12 @@ import numpy as np
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
+import cycle_bench as cb  # noqa: E402
 import run as engine  # noqa: E402
-import speed  # noqa: E402
 import timing  # noqa: E402
 import wall_bench  # noqa: E402
+
+CASES = ("layered", "inclusions", "constant", "column", "graded job")
 
 
 def stencil_at(revision: str):
@@ -50,14 +55,30 @@ def stencil_at(revision: str):
                                 edit=lambda source: source.replace("cache=True", "cache=False"))
 
 
-def kernel_pair(job: Path, old, rounds: int) -> dict[str, float]:
+def problem(n: int, case: str):
+    from sevenfold.problem import build_problem
+    from sevenfold.spec import parse_job
+
+    table = {"column": cb.column_table, "graded job": cb.graded_job_table}.get(case)
+    return build_problem(parse_job(table(n) if table else cb.spec_table(n, case), "restrict_bench"))
+
+
+def apply_seconds(fine) -> float:
+    """Best wall seconds of one float64 operator application on the finest level."""
+    from sevenfold.kernels import stencil
+
+    u = np.random.default_rng(1).standard_normal(fine.shape)
+    out = np.empty_like(u)
+    return timing.best(lambda: stencil.apply(fine.tx, fine.ty, fine.tz, fine.diag, u, out),
+                       max(20, min(200, int(5e7 // u.size))))
+
+
+def kernel_pair(job, old, rounds: int) -> dict[str, float]:
     """One call of each form on the finest level's float32 arrays, in work units."""
     from sevenfold.kernels import stencil
-    from sevenfold.problem import build_problem
     from sevenfold.solvers.gmg import DEFAULTS, Hierarchy, fine_level
-    from sevenfold.spec import load_job
 
-    fine, _ = fine_level(build_problem(load_job(job)))
+    fine, _ = fine_level(job)
     options = {k: v for k, v in DEFAULTS.items() if k != "start"}
     hierarchy = Hierarchy(fine, **options)
     top, coarse = hierarchy.levels[0], hierarchy.levels[1]
@@ -78,12 +99,29 @@ def kernel_pair(job: Path, old, rounds: int) -> dict[str, float]:
     for _ in range(rounds):
         times["then"].append(timing.best(run_then, 9, time.perf_counter))
         times["now"].append(timing.best(run_now, 9, time.perf_counter))
-    apply, _, _, _ = speed.kernel_times(job, 20)
+    apply = apply_seconds(fine)
     return {"then": min(times["then"]) / apply, "now": min(times["now"]) / apply,
             "apply": apply, "difference": difference}
 
 
-def solve_pair(job: Path, old, rounds: int) -> dict[str, float]:
+def warm_gmg(job, timed: int = 2) -> dict[str, float]:
+    """gmg on ``job`` in this process: one untimed solve, then the best of ``timed`` by set-up +
+    solve wall seconds (``speed.warm_gmg`` on a built problem)."""
+    from sevenfold.solvers import solve_problem
+    from sevenfold.spec import SolverSpec
+
+    best: dict[str, float] = {}
+    for i in range(timed + 1):
+        _, result = solve_problem(job, SolverSpec(method="gmg", rtol=1e-8), "gmg")
+        row = {"seconds": result.setup_seconds + result.solve_seconds, "iterations": result.iterations}
+        if i and (not best or row["seconds"] < best["seconds"]):
+            best = row
+        del result
+        gc.collect()
+    return best
+
+
+def solve_pair(job, old, rounds: int) -> dict[str, float]:
     """Warm gmg set-up + solve with gmg's stencil module now and at the revision."""
     from sevenfold.solvers import gmg
 
@@ -93,13 +131,13 @@ def solve_pair(job: Path, old, rounds: int) -> dict[str, float]:
         for _ in range(rounds):
             for name, module in (("then", old), ("now", kept)):
                 gmg.stencil = module
-                runs[name].append(speed.warm_gmg(job))
+                runs[name].append(warm_gmg(job))
     finally:
         gmg.stencil = kept
     out = {}
     for name, rs in runs.items():
-        best = min(rs, key=lambda r: r["setup"] + r["solve"])
-        out[name] = best["setup"] + best["solve"]
+        best = min(rs, key=lambda r: r["seconds"])
+        out[name] = best["seconds"]
         out[f"iterations {name}"] = best["iterations"]
     return out
 
@@ -108,8 +146,7 @@ def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--against", required=True, metavar="REVISION")
     p.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
-    p.add_argument("--patterns", nargs="+", default=["layered", "inclusions", "constant"],
-                   choices=speed.PATTERNS)
+    p.add_argument("--cases", nargs="+", default=list(CASES), choices=CASES)
     p.add_argument("--rounds", type=int, default=3)
     p.add_argument("--results", type=Path, default=HERE / "RESULTS_RESTRICT.md")
     args = p.parse_args(argv)
@@ -123,20 +160,19 @@ def main(argv: list[str] | None = None) -> int:
               "| job | cells | apply ms | kernel WU then | kernel WU now | now / then | difference | "
               "iterations then / now | solve s then | solve s now | now / then | solve WU then | "
               "solve WU now |", "|" + "---|" * 13]
-    with tempfile.TemporaryDirectory(prefix="sevenfold-restrict-") as tmp:
-        for n in args.sizes:
-            for pattern in args.patterns:
-                job = Path(tmp) / f"speed-{pattern}-{n}.toml"
-                job.write_text(speed.job_text(n, pattern, f"speed-{pattern}-{n}.zarr"))
-                k = kernel_pair(job, old, args.rounds)
-                s = solve_pair(job, old, args.rounds)
-                lines.append(
-                    f"| {pattern} | {n}^3 | {k['apply'] * 1e3:.2f} | {k['then']:.2f} | {k['now']:.2f} | "
-                    f"{k['now'] / k['then']:.2f} | {k['difference']:.1e} | "
-                    f"{int(s['iterations then'])} / {int(s['iterations now'])} | {s['then']:.3f} | "
-                    f"{s['now']:.3f} | {s['now'] / s['then']:.2f} | {s['then'] / k['apply']:.1f} | "
-                    f"{s['now'] / k['apply']:.1f} |")
-                print(lines[-1], flush=True)
+    for n in args.sizes:
+        for case in args.cases:
+            job = problem(n, case)
+            k = kernel_pair(job, old, args.rounds)
+            s = solve_pair(job, old, args.rounds)
+            del job
+            lines.append(
+                f"| {case} | {n}^3 | {k['apply'] * 1e3:.2f} | {k['then']:.2f} | {k['now']:.2f} | "
+                f"{k['now'] / k['then']:.2f} | {k['difference']:.1e} | "
+                f"{int(s['iterations then'])} / {int(s['iterations now'])} | {s['then']:.3f} | "
+                f"{s['now']:.3f} | {s['now'] / s['then']:.2f} | {s['then'] / k['apply']:.1f} | "
+                f"{s['now'] / k['apply']:.1f} |")
+            print(lines[-1], flush=True)
     engine.write_report(args.results, lines, info)
     return 0
 

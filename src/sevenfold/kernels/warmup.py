@@ -31,10 +31,12 @@ import numpy as np
 # items, 2026-12-02 16:50, load about 1.5; the first, transmissibility, includes numba's own
 # start; benchmarks/RESULTS_START.md): for balancing the two halves and for the notice's
 # estimate (scaled to the measured wall time, kernels/cache.py). The vectors items include
-# the r . z product, measured then as a kernel of its own (0.6).
+# the r . z product, measured then as a kernel of its own (0.6). residual_restrict is scaled by
+# its vectorised form's compile against the one measured then: 2.5-2.6 s against 1.6-1.8 s,
+# one signature in a fresh process each (2026-12-03, Intel host).
 COST = {
     "transmissibility": 2.6, "fine_stencil": 7.4, "axis_weakness": 2.3, "galerkin_scaled": 7.4,
-    "line_factor": 1.9, "line_gauss_seidel": 8.9, "residual_restrict": 4.3, "prolong_add": 2.1,
+    "line_factor": 1.9, "line_gauss_seidel": 8.9, "residual_restrict": 6.3, "prolong_add": 2.1,
     "apply_dot": 3.1, "narrow": 0.6, "vectors_threaded": 2.2, "vectors_serial": 1.1,
 }
 # What starting the child costs before it compiles (the interpreter, numba, the kernel modules)
