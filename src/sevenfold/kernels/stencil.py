@@ -239,8 +239,8 @@ def residual_restrict(tx, ty, tz, diag, b, u, step, rc):
 
     Each fine row's A u goes to a row buffer first (:func:`_apply_row`, branch-free), then
     its residuals are summed into the coarse row: both loops vectorise, where a residual added
-    to its aggregate cell by cell did not (0.21-0.41 of that form's time at 128^3 and 256^3,
-    benchmarks/RESULTS_RESTRICT.md).
+    to its aggregate cell by cell did not (0.22-0.25 and 0.39-0.42 of that form's time at 128^3
+    and 256^3, benchmarks/RESULTS_RESTRICT.md).
     """
     nx, ny, nz = u.shape
     sx, sy, sz = step[0], step[1], step[2]
