@@ -500,8 +500,8 @@ def test_one_pass_line_sweep_equals_two_colour_passes(shape, chunks) -> None:
 @pytest.mark.parametrize("shape, step", [((8, 6, 10), (2, 2, 2)), ((7, 5, 9), (2, 1, 2)),
                                          ((6, 9, 5), (1, 2, 1)), ((5, 4, 7), (2, 2, 1))])
 def test_fused_residual_restriction_and_products(shape, step) -> None:
-    """residual_restrict = P^T (b - A u) with P piecewise constant (numpy's own sums over the
-    aggregates, odd last aggregates included), restrict = P^T r, prolong_add = u + s P e on free
+    """residual = b - A u, residual_restrict = P^T (b - A u) with P piecewise constant (numpy's
+    own sums over the aggregates, odd last aggregates included), restrict = P^T r, prolong_add = u + s P e on free
     cells, apply_dot = (A u, u . A u), CG's r . z and p = z + beta p with a float32 z; A from the face arrays
     written out independently with numpy (common practice: 7-point stencil)."""
     from sevenfold.kernels import stencil, vector
@@ -517,6 +517,9 @@ def test_fused_residual_restriction_and_products(shape, step) -> None:
     agg = np.ix_(*(np.arange(n) // s for n, s in zip(shape, step)))
     expected = np.zeros(cshape)
     np.add.at(expected, tuple(np.broadcast_arrays(*agg)), r)
+    fine_r = np.empty(shape)
+    stencil.residual(tx, ty, tz, diag, b, u, fine_r)
+    assert np.abs(fine_r - r).max() <= 1e-12 * np.abs(r).max()
     rc = np.empty(cshape)
     stencil.residual_restrict(tx, ty, tz, diag, b, u, step, rc)
     assert np.abs(rc - expected).max() <= 1e-12 * np.abs(expected).max()

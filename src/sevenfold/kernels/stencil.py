@@ -202,14 +202,13 @@ def apply(tx, ty, tz, diag, u, out):
 
 @njit(cache=True, parallel=True)
 def residual(tx, ty, tz, diag, b, u, r):
-    """r = b - A u."""
+    """r = b - A u (each row's A u written by :func:`_apply_row`, then taken from b)."""
     nx, ny, nz = u.shape
     for i in prange(nx):
         for j in range(ny):
-            wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
+            _apply_row(tx, ty, tz, diag, u, r[i, j], i, j, nx, ny, nz)
             for m in range(nz):
-                r[i, j, m] = b[i, j, m] - diag[i, j, m] * u[i, j, m] + _offdiag_row(
-                    tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz)
+                r[i, j, m] = b[i, j, m] - r[i, j, m]
 
 
 @njit(cache=True, parallel=True, fastmath={"reassoc", "nsz", "contract"})
