@@ -177,9 +177,10 @@ def patched(two_pass: bool = False, finest_sweeps: int | None = None, wide_rhs: 
 
     one_pass, smooth, rhs = multigrid.line_gauss_seidel, Hierarchy._smooth, Hierarchy._rhs
 
-    def sweep(tx, ty, tz, inv_w, b, u, first, chunks):
-        for colour in (first, 1 - first):
-            multigrid.line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour)
+    def sweep(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
+        for _ in range(sweeps):
+            for colour in (first, 1 - first):
+                multigrid.line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour)
 
     def fewer_on_finest(self, lv, b, u, first):
         kept = self.sweeps

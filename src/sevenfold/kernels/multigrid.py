@@ -126,20 +126,34 @@ def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
 
 
 @njit(cache=True, parallel=True)
-def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, chunks):
-    """One zebra z-line Gauss-Seidel sweep, colour ``first`` then the other, in one pass over
-    memory: the same result, bit for bit, as :func:`line_gauss_seidel_colour` for ``first``
-    and then for ``1 - first``, for about half the memory traffic.
+def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
+    """``sweeps`` zebra z-line Gauss-Seidel sweeps, each colour ``first`` then the other, in
+    one pass over memory: the same result, bit for bit, as :func:`line_gauss_seidel_colour`
+    for ``first`` and then for ``1 - first``, ``sweeps`` times, for a fraction of the memory
+    traffic.
 
-    The second colour trails the first by one x-plane (a wavefront): once plane i's first
-    colour is done, plane i - 1's second colour has all its neighbours' new values, and plane
-    i + 1's first colour still sees the old ones it needs. The x-planes are split into
-    ``chunks`` runs, one per thread; the second colour of each run's first and last plane
-    borders another run, so it waits until every run's first colour is done.
+    The 2 ``sweeps`` colour passes are stages of a wavefront, each trailing the one before by
+    one x-plane: at step i stage s solves plane i - s. Once stage s - 1 has solved planes
+    i - s - 1 to i - s + 1, every neighbour plane i - s reads holds stage s - 1's values (its
+    own colour's old values are not read), and no later step reads the values it overwrites.
+    The x-planes are split into ``chunks`` runs, one per thread. Within a run stage s solves
+    the planes at least s away from the run's ends; the 2 s planes around each border between
+    runs (and at the grid's ends) follow once every run is done, stage by stage, one border per
+    thread. Two sweeps in one pass took 0.86-0.87 of the time of two one-sweep passes at
+    256^3 (benchmarks/RESULTS_SWEEPS.md).
     """
     nx, nz = u.shape[0], u.shape[2]
-    chunks = max(1, min(chunks, nx))
-    second = 1 - first
+    stages = 2 * sweeps
+    # a run spans at least 2 (stages - 1) planes, so that its two borders' planes stay apart
+    chunks = min(chunks, nx // (2 * (stages - 1)))
+    if chunks < 1:  # too few planes for a wavefront: the colour passes in order, one thread
+        y = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
+        w = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
+        t = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
+        for s in range(stages):
+            for plane in range(nx):
+                _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, y, w, t)
+        return
     # the plane solve is a called function, not inlined: four inlined copies compiled in 18.6 s,
     # the call in 7 s, for sweeps within measurement noise of each other
     for k in prange(chunks):
@@ -147,20 +161,19 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, chunks):
         w = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
         t = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
         lo, hi = k * nx // chunks, (k + 1) * nx // chunks
-        for i in range(lo, hi):
-            for s in range(2):  # plane i's first colour, then plane i - 1's second
-                plane, colour = (i, first) if s == 0 else (i - 1, second)
-                if s == 0 or plane > lo:
-                    _line_plane(tx, ty, tz, inv_w, b, u, plane, colour, y, w, t)
-    for k in prange(chunks):
+        for i in range(lo, hi + stages - 1):
+            for s in range(stages):
+                plane = i - s
+                if lo + s <= plane <= hi - 1 - s:
+                    _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, y, w, t)
+    for k in prange(chunks + 1):  # the border at plane k nx / chunks (0 and nx: the ends)
         y = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
         w = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
         t = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
-        lo, hi = k * nx // chunks, (k + 1) * nx // chunks
-        for s in range(2):  # the second colour of the run's first and last planes
-            plane = lo if s == 0 else hi - 1
-            if s == 0 or plane > lo:
-                _line_plane(tx, ty, tz, inv_w, b, u, plane, second, y, w, t)
+        p = k * nx // chunks
+        for s in range(1, stages):
+            for plane in range(max(p - s, 0), min(p + s, nx)):
+                _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, y, w, t)
 
 
 @njit(cache=True, parallel=True)

@@ -18,11 +18,11 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   fine residual is never stored), linear interpolation between cell centres for full
   multigrid;
 * z-line Gauss-Seidel smoothing (tridiagonal solves along z, columns in two colours, blocks of
-  columns solved side by side so the recurrences vectorise, the second colour trailing the
-  first by one x-plane so a sweep is one pass over memory), two sweeps red then black before
-  and black then red after the coarse correction, so the cycle is a symmetric positive
-  definite preconditioner and CG stays valid; lines make strong z couplings (thin cells, a
-  graded z axis) harmless;
+  columns solved side by side so the recurrences vectorise, each colour pass trailing the one
+  before by one x-plane so both sweeps on a side are one pass over memory), two sweeps red
+  then black before and black then red after the coarse correction, so the cycle is a
+  symmetric positive definite preconditioner and CG stays valid; lines make strong z
+  couplings (thin cells, a graded z axis) harmless;
 * a W-cycle (the V-cycle of aggregation multigrid loses accuracy with every level), a
   sparse LU of the coarsest level (at most 16^3 cells);
 * the preconditioner's levels in float32 by default, CG, the residual-defining operator and
@@ -179,13 +179,13 @@ class Hierarchy:
     def _smooth(self, lv: Level, b: np.ndarray, u: np.ndarray, first: int) -> None:
         """The sweeps before (``first`` = 0: red then black) or after (1: black then red) the
         coarse correction."""
+        if lv.lines:
+            multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, first,
+                                        self.sweeps[first], numba.get_num_threads())
+            return
         for _ in range(self.sweeps[first]):
-            if lv.lines:
-                multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, first,
-                                            numba.get_num_threads())
-            else:
-                for colour in (first, 1 - first):
-                    stencil.gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.diag, b, u, colour)
+            for colour in (first, 1 - first):
+                stencil.gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.diag, b, u, colour)
 
     def _restrict(self, lv: Level, r: np.ndarray, rc: np.ndarray) -> None:
         if self.transfer == "linear":
