@@ -1,0 +1,172 @@
+"""Both z-line sweeps of a smoothing step in one pass over memory, against an earlier
+revision's one sweep per pass, alone and in whole gmg solves.
+
+    python benchmarks/sweeps_bench.py --against REVISION [--sizes 128 256]
+        [--cases layered inclusions constant column "graded job"] [--rounds 3]
+
+gmg smooths each level with two zebra z-line Gauss-Seidel sweeps before the coarse correction
+and two after. Until this change each sweep was one pass over the level's arrays (its second
+colour trailing the first by one x-plane), so a smoothing step read the coefficients, pivots,
+right-hand side and solution twice. Now `multigrid.line_gauss_seidel` takes the number of
+sweeps and runs all four colour passes as one wavefront, each trailing the one before by a
+plane: the same column solves in an order that gives the same numbers bit for bit.
+
+For each job, in one process, the two forms alternating (``--rounds`` times each, best of).
+The jobs are `cycle_bench.problem_level`'s, as in restrict_bench.py.
+
+* the kernel alone on the two finest levels of the solver's hierarchy (float32, random b and
+  u): two calls of the revision's one-sweep kernel against one call of the two-sweep kernel,
+  wall seconds over one float64 operator application of the job's grid (best of many): work
+  units; and whether the results are equal bit for bit;
+* the warm gmg set-up + solve (one untimed solve, then the best of two, as
+  ``speed.warm_gmg``), with gmg's multigrid kernels and smoothing loop as they are and as
+  they were at ``REVISION`` (loaded beside them with ``wall_bench.module_at``, compiled
+  without numba's cache); the iterations and the final residual must match.
+
+Writes benchmarks/RESULTS_SWEEPS.md.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+import restrict_bench as rb  # noqa: E402
+import run as engine  # noqa: E402
+import timing  # noqa: E402
+import wall_bench  # noqa: E402
+
+
+def multigrid_at(revision: str):
+    """``sevenfold.kernels.multigrid`` as it was at ``revision``, its kernels uncached."""
+    return wall_bench.module_at(revision, "sevenfold.kernels.multigrid",
+                                edit=lambda source: source.replace("cache=True", "cache=False"))
+
+
+def one_sweep_per_pass(old):
+    """gmg's smoothing as it was: ``old``'s one-sweep kernel called once per sweep."""
+    import numba
+
+    from sevenfold.kernels import stencil
+
+    def smooth(self, lv, b, u, first):
+        for _ in range(self.sweeps[first]):
+            if lv.lines:
+                old.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, first,
+                                      numba.get_num_threads())
+            else:
+                for colour in (first, 1 - first):
+                    stencil.gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.diag, b, u, colour)
+    return smooth
+
+
+def kernel_pair(job, old, rounds: int) -> list[dict]:
+    """Two sweeps on each of the two finest levels, both forms, in work units of the job."""
+    import numba
+
+    from sevenfold.kernels import multigrid
+    from sevenfold.solvers.gmg import DEFAULTS, Hierarchy, fine_level
+
+    fine, _ = fine_level(job)
+    hierarchy = Hierarchy(fine, **{k: v for k, v in DEFAULTS.items() if k != "start"})
+    apply = rb.apply_seconds(fine)
+    threads = numba.get_num_threads()
+    rows = []
+    for lv in hierarchy.levels[:2]:
+        if not lv.lines:
+            continue
+        rng = np.random.default_rng(0)
+        b = rng.standard_normal(lv.shape).astype(lv.diag.dtype)
+        start = rng.standard_normal(lv.shape).astype(lv.diag.dtype)
+        now, then = start.copy(), start.copy()
+
+        def run_now(u=now):
+            multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, 2, threads)
+
+        def run_then(u=then):
+            for _ in range(2):
+                old.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, threads)
+
+        run_now(), run_then()
+        equal = bool(np.array_equal(now, then))
+        times: dict[str, list[float]] = {"now": [], "then": []}
+        for _ in range(rounds):
+            times["then"].append(timing.best(run_then, 9, time.perf_counter))
+            times["now"].append(timing.best(run_now, 9, time.perf_counter))
+        rows.append({"shape": lv.shape, "then": min(times["then"]) / apply,
+                     "now": min(times["now"]) / apply, "apply": apply, "equal": equal})
+    return rows
+
+
+def solve_pair(job, old, rounds: int) -> dict[str, float]:
+    """Warm gmg set-up + solve with the smoothing as it is and as it was at the revision."""
+    from sevenfold.solvers import gmg
+
+    kept_module, kept_smooth = gmg.multigrid, gmg.Hierarchy._smooth
+    forms = (("then", old, one_sweep_per_pass(old)), ("now", kept_module, kept_smooth))
+    runs: dict[str, list[dict[str, float]]] = {"now": [], "then": []}
+    try:
+        for _ in range(rounds):
+            for name, module, smooth in forms:
+                gmg.multigrid, gmg.Hierarchy._smooth = module, smooth
+                runs[name].append(rb.warm_gmg(job))
+    finally:
+        gmg.multigrid, gmg.Hierarchy._smooth = kept_module, kept_smooth
+    out = {}
+    for name, rs in runs.items():
+        best = min(rs, key=lambda r: r["seconds"])
+        out[name] = best["seconds"]
+        out[f"iterations {name}"] = best["iterations"]
+        out[f"residual {name}"] = best["residual"]
+    return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--against", required=True, metavar="REVISION")
+    p.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
+    p.add_argument("--cases", nargs="+", default=list(rb.CASES), choices=rb.CASES)
+    p.add_argument("--rounds", type=int, default=3)
+    p.add_argument("--results", type=Path, default=HERE / "RESULTS_SWEEPS.md")
+    args = p.parse_args(argv)
+    lines, info = engine.report_head("sweeps_bench.py", argv,
+                                     "Two z-line sweeps in one pass over memory")
+    old = multigrid_at(args.against)
+    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+              f"*then* = revision {args.against}, *now* = the working tree; *WU* = seconds over one "
+              "two-thread float64 operator application of the job's grid (*apply*); *two sweeps* = "
+              "one smoothing step on that level; *solve* = warm gmg set-up + solve, wall seconds, "
+              "two threads; *same* = the same iterations and final relative residual.", "",
+              "| job | cells | apply ms | level | two sweeps WU then | now | now / then | equal | "
+              "solve s then | solve s now | now / then | same | solve WU then | solve WU now |",
+              "|" + "---|" * 14]
+    for n in args.sizes:
+        for case in args.cases:
+            job = rb.problem(n, case)
+            kernels = kernel_pair(job, old, args.rounds)
+            s = solve_pair(job, old, args.rounds)
+            del job
+            same = (s["iterations then"] == s["iterations now"]
+                    and s["residual then"] == s["residual now"])
+            apply = kernels[0]["apply"]
+            for i, k in enumerate(kernels):
+                solve = (f"{s['then']:.3f} | {s['now']:.3f} | {s['now'] / s['then']:.2f} | "
+                         f"{'yes' if same else 'NO'} ({int(s['iterations now'])}) | "
+                         f"{s['then'] / apply:.1f} | {s['now'] / apply:.1f}") if i == 0 else " | | | | |"
+                lines.append(
+                    f"| {case} | {n}^3 | {apply * 1e3:.2f} | {'x'.join(map(str, k['shape']))} | "
+                    f"{k['then']:.2f} | {k['now']:.2f} | {k['now'] / k['then']:.2f} | "
+                    f"{'yes' if k['equal'] else 'NO'} | {solve} |")
+                print(lines[-1], flush=True)
+    engine.write_report(args.results, lines, info)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
