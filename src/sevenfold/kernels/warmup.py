@@ -33,7 +33,9 @@ import numpy as np
 # estimate (scaled to the measured wall time, kernels/cache.py). The vectors items include
 # the r . z product, measured then as a kernel of its own (0.6). residual_restrict is scaled by
 # its vectorised form's compile against the one measured then: 2.5-2.6 s against 1.6-1.8 s,
-# one signature in a fresh process each (2026-12-03, Intel host).
+# one signature in a fresh process each (2026-12-03, Intel host); line_gauss_seidel's form with
+# a number of sweeps compiled in 4.2-4.3 s against the one-sweep form's 4.0-4.2 s the same way,
+# within the estimate's precision, so its cost stands.
 COST = {
     "transmissibility": 2.6, "fine_stencil": 7.4, "axis_weakness": 2.3, "galerkin_scaled": 7.4,
     "line_factor": 1.9, "line_gauss_seidel": 8.9, "residual_restrict": 6.3, "prolong_add": 2.1,
