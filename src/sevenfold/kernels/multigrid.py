@@ -133,14 +133,14 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
     traffic.
 
     The 2 ``sweeps`` colour passes are stages of a wavefront, each trailing the one before by
-    one x-plane: at step i stage s solves plane i - s. Once stage s - 1 has solved planes
-    i - s - 1 to i - s + 1, every neighbour plane i - s reads holds stage s - 1's values (its
-    own colour's old values are not read), and no later step reads the values it overwrites.
-    The x-planes are split into ``chunks`` runs, one per thread. Within a run stage s solves
-    the planes at least s away from the run's ends; the 2 s planes around each border between
-    runs (and at the grid's ends) follow once every run is done, stage by stage, one border per
-    thread. Two sweeps in one pass took 0.86-0.87 of the time of two one-sweep passes at
-    256^3 (benchmarks/RESULTS_SWEEPS.md).
+    one x-plane: at step i stage s solves plane i - s. Its columns read only columns of the
+    other colour, in planes i - s - 1 to i - s + 1, which stage s - 1 (one plane ahead) has
+    solved by then; a column's own old value is not read, and no later stage reads what stage
+    s overwrites. The x-planes are split into ``chunks`` runs, one per thread. Within a run
+    stage s solves the planes at least s away from the run's ends; the 2 s planes around each
+    border between runs (and at the grid's ends) follow once every run is done, stage by
+    stage, one border per thread. Two sweeps in one pass took 0.84-0.85 of the time of two
+    one-sweep passes on 256^3 finest levels, 0.91-0.95 on 128^3 (benchmarks/RESULTS_SWEEPS.md).
     """
     nx, nz = u.shape[0], u.shape[2]
     stages = 2 * sweeps
