@@ -122,24 +122,26 @@ def warm_gmg(job, timed: int = 2) -> dict[str, float]:
     return best
 
 
-def solve_pair(job, old, rounds: int) -> dict[str, float]:
-    """Warm gmg set-up + solve with gmg's stencil module now and at the revision."""
-    from sevenfold.solvers import gmg
-
-    kept = gmg.stencil
+def solve_pair(job, then: dict, rounds: int) -> dict[str, float]:
+    """Warm gmg set-up + solve as the code is (*now*) and with ``then``'s attributes set
+    ({(object, name): value}: the revision's pieces), alternating, best of ``rounds`` each."""
+    kept = {key: getattr(*key) for key in then}
     runs: dict[str, list[dict[str, float]]] = {"now": [], "then": []}
     try:
         for _ in range(rounds):
-            for name, module in (("then", old), ("now", kept)):
-                gmg.stencil = module
+            for name, values in (("then", then), ("now", kept)):
+                for (owner, attribute), value in values.items():
+                    setattr(owner, attribute, value)
                 runs[name].append(warm_gmg(job))
     finally:
-        gmg.stencil = kept
+        for (owner, attribute), value in kept.items():
+            setattr(owner, attribute, value)
     out = {}
     for name, rs in runs.items():
         best = min(rs, key=lambda r: r["seconds"])
         out[name] = best["seconds"]
         out[f"iterations {name}"] = best["iterations"]
+        out[f"residual {name}"] = best["residual"]
     return out
 
 
@@ -153,6 +155,8 @@ def main(argv: list[str] | None = None) -> int:
     args = p.parse_args(argv)
     lines, info = engine.report_head("restrict_bench.py", argv,
                                      "The fused residual and restriction, vectorised")
+    from sevenfold.solvers import gmg
+
     old = stencil_at(args.against)
     lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
               f"*then* = revision {args.against}, *now* = the working tree; *WU* = seconds over one "
@@ -165,7 +169,7 @@ def main(argv: list[str] | None = None) -> int:
         for case in args.cases:
             job = problem(n, case)
             k = kernel_pair(job, old, args.rounds)
-            s = solve_pair(job, old, args.rounds)
+            s = solve_pair(job, {(gmg, "stencil"): old}, args.rounds)
             del job
             lines.append(
                 f"| {case} | {n}^3 | {k['apply'] * 1e3:.2f} | {k['then']:.2f} | {k['now']:.2f} | "

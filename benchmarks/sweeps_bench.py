@@ -104,29 +104,6 @@ def kernel_pair(job, old, rounds: int) -> list[dict]:
     return rows
 
 
-def solve_pair(job, old, rounds: int) -> dict[str, float]:
-    """Warm gmg set-up + solve with the smoothing as it is and as it was at the revision."""
-    from sevenfold.solvers import gmg
-
-    kept_module, kept_smooth = gmg.multigrid, gmg.Hierarchy._smooth
-    forms = (("then", old, one_sweep_per_pass(old)), ("now", kept_module, kept_smooth))
-    runs: dict[str, list[dict[str, float]]] = {"now": [], "then": []}
-    try:
-        for _ in range(rounds):
-            for name, module, smooth in forms:
-                gmg.multigrid, gmg.Hierarchy._smooth = module, smooth
-                runs[name].append(rb.warm_gmg(job))
-    finally:
-        gmg.multigrid, gmg.Hierarchy._smooth = kept_module, kept_smooth
-    out = {}
-    for name, rs in runs.items():
-        best = min(rs, key=lambda r: r["seconds"])
-        out[name] = best["seconds"]
-        out[f"iterations {name}"] = best["iterations"]
-        out[f"residual {name}"] = best["residual"]
-    return out
-
-
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--against", required=True, metavar="REVISION")
@@ -137,7 +114,10 @@ def main(argv: list[str] | None = None) -> int:
     args = p.parse_args(argv)
     lines, info = engine.report_head("sweeps_bench.py", argv,
                                      "Two z-line sweeps in one pass over memory")
+    from sevenfold.solvers import gmg
+
     old = multigrid_at(args.against)
+    then = {(gmg, "multigrid"): old, (gmg.Hierarchy, "_smooth"): one_sweep_per_pass(old)}
     lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
               f"*then* = revision {args.against}, *now* = the working tree; *WU* = seconds over one "
               "two-thread float64 operator application of the job's grid (*apply*); *two sweeps* = "
@@ -150,7 +130,7 @@ def main(argv: list[str] | None = None) -> int:
         for case in args.cases:
             job = rb.problem(n, case)
             kernels = kernel_pair(job, old, args.rounds)
-            s = solve_pair(job, old, args.rounds)
+            s = rb.solve_pair(job, then, args.rounds)
             del job
             same = (s["iterations then"] == s["iterations now"]
                     and s["residual then"] == s["residual now"])
