@@ -42,6 +42,7 @@ numba thread, CPU seconds, set-up and CG apart), and each kernel alone on the sa
 from __future__ import annotations
 
 import sys
+import time
 from pathlib import Path
 
 import numba
@@ -576,11 +577,19 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
     return rows
 
 
+def _clock_words(short: bool = False) -> str:
+    """How the run was timed: one thread in CPU seconds, or ``--threads`` in wall seconds."""
+    threads = numba.get_num_threads()
+    if threads == 1:
+        return "CPU seconds" if short else "one numba thread, CPU seconds of this process"
+    return "wall seconds" if short else f"{threads} numba threads, wall seconds"
+
+
 def report(solves: list[dict], parts: list[dict], info: dict, command: str) -> str:
     out = ["# Colour-split storage for the z-line sweep (a prototype)", "",
            f"Written by `{command}` on {info['date']}; every number below comes from that run. "
            "Do not edit by hand: run the command again.", "",
-           "gmg-CG from zero to rtol 1e-8, one numba thread, CPU seconds of this process, the "
+           f"gmg-CG from zero to rtol 1e-8, {_clock_words()}, the "
            "designs alternating (best of the repeats). *kept* = `sevenfold.solvers.gmg`'s "
            "hierarchy (W(2,2) z-line Gauss-Seidel, scaled aggregation, float32 levels, finest "
            "level smoothed on a float32 copy); *split finest level* = the same hierarchy and "
@@ -613,7 +622,7 @@ def report(solves: list[dict], parts: list[dict], info: dict, command: str) -> s
                    f"{r['splitting'] / r['unit']:.1f} | {r['cg'] / r['unit']:.1f} | {total:.1f} | "
                    f"{built:.1f} | {built / ktotal:.2f} | {r['residual']:.1e} |")
     out += ["", "## The kernels alone", "",
-            "The kept hierarchy's arrays of the layered problem; CPU seconds of one call "
+            f"The kept hierarchy's arrays of the layered problem; {_clock_words(short=True)} of one call "
             "(median of 5, kept and split alternating) in work units. A sweep is both colours; "
             "the operator is CG's (float64, with p . A p). *bit for bit*: one sweep from the same "
             "random u gives the same numbers in both layouts.", "",
@@ -637,8 +646,13 @@ def main(argv=None) -> int:
     parser.add_argument("--designs", nargs="+", default=list(DESIGNS), choices=list(DESIGNS),
                         help="the designs to time (kept is always among them)")
     parser.add_argument("--results", default=str(HERE / "RESULTS_SPLIT.md"))
+    parser.add_argument("--threads", type=int, default=1,
+                        help="numba threads; above 1 every time is wall seconds (CPU time would "
+                             "add the threads up)")
     args = parser.parse_args(argv)
-    numba.set_num_threads(1)
+    numba.set_num_threads(args.threads)
+    if args.threads > 1:
+        cb.CLOCK = time.perf_counter
     info = wall_bench.run_info()
     run_case(24, "column", 1)  # compile every kernel before timing
     components(24, "layered", 1)
