@@ -275,3 +275,30 @@ def test_run_solves_without_assembling_and_matches_direct(tmp_path: Path, monkey
         assert result.solve.final_relative_residual < 1e-12
     with pytest.raises(AssertionError, match="assembled"):  # the other methods still assemble
         run_job(write_job(tmp_path, "direct", "direct"))
+
+
+def test_coefficient_range_is_read_once_and_matches_numpy(monkeypatch) -> None:
+    """Problem.coefficient_range: numpy's own min and max over every direction (an anisotropic
+    material with a region, and an isotropic one), computed once per problem however often
+    fft_eligibility and the cautions ask (common practice)."""
+    from sevenfold import fields
+
+    table = make_table(grid={"cells": [6, 5, 4], "size": [1.0, 1.0, 1.0]},
+                       material={"value": [2.0, 3.0, 0.5],
+                                 "region": [{"box": {"min": [0, 0, 0], "max": [0.5, 0.5, 0.5]},
+                                             "value": [7.0, 0.25, 1.0]}]},
+                       boundary=boundary_for((D, D, D)))
+    problem = build_problem(make_spec(**table))
+    k = problem.coefficient
+    assert problem.coefficient_range == (min(float(a.min()) for a in k),
+                                         max(float(a.max()) for a in k)) == (0.25, 7.0)
+    calls = []
+    real = fields.value_range
+    monkeypatch.setattr(fields, "value_range", lambda arrays: calls.append(1) or real(arrays))
+    fresh = build_problem(make_spec(**table))
+    assert fresh.coefficient_range == fresh.coefficient_range == (0.25, 7.0)
+    assert "directional" in fft_eligibility(fresh)
+    iso = build_problem(make_spec(**table_for((D, D, D), [4, 3, 5], [0.1, 0.1, 0.1])))
+    assert fft_eligibility(iso) is None and fft_eligibility(iso) is None
+    assert iso.coefficient_range == (float(iso.coefficient[0].min()), float(iso.coefficient[0].max()))
+    assert calls == [1, 1]

@@ -50,12 +50,12 @@ def plausibility_warnings(spec: JobSpec, problem: Problem) -> list[str]:
     """Values that look like a unit slip (see the module docstring)."""
     out = []
     if spec.physics == "electrostatics":
-        low = min(float(k.min()) for k in problem.coefficient) / EPSILON_0
+        low = problem.coefficient_range[0] / EPSILON_0
         if low < 1.0 - 1e-9:
             out.append(f"material: relative permittivity {low:.4g} is below 1 (vacuum); material values are "
                        "relative permittivities, not F/m")
     elif spec.physics == "groundwater":
-        high = max(float(k.max()) for k in problem.coefficient)
+        high = problem.coefficient_range[1]
         if high > MAX_HYDRAULIC_CONDUCTIVITY:
             out.append(f"material: hydraulic conductivity {high:.4g} m/s is above {MAX_HYDRAULIC_CONDUCTIVITY:g} "
                        "m/s (coarse gravel is about 1e-2 m/s); values are m/s: for m/day set "

@@ -5,6 +5,8 @@ No I/O here: a field given by ``file`` arrives as an already-loaded array.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from .errors import JobError
@@ -84,6 +86,21 @@ def coefficient(spec: MaterialSpec, grid: Grid, scale: float = 1.0,
 
 def is_isotropic(k: Coefficient) -> bool:
     return k[0] is k[1] and k[1] is k[2]
+
+
+# cells per slab of value_range: the slab's second read (max after min) comes from the cache
+RANGE_SLAB = 1 << 18
+
+
+def value_range(k: Coefficient) -> tuple[float, float]:
+    """(min, max) over every cell of every distinct array of ``k``, slab by slab."""
+    lo, hi = math.inf, -math.inf
+    for a in {id(a): a for a in k}.values():
+        flat = a.reshape(-1)
+        for i in range(0, flat.size, RANGE_SLAB):
+            part = flat[i:i + RANGE_SLAB]
+            lo, hi = min(lo, float(part.min())), max(hi, float(part.max()))
+    return lo, hi
 
 
 def source(spec: SourceSpec, grid: Grid, base: np.ndarray | None = None) -> np.ndarray:

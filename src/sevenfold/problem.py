@@ -10,6 +10,7 @@ and the solution is reported in the gauge where its volume-weighted mean is 0.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -58,6 +59,12 @@ class Problem:
     @property
     def isotropic(self) -> bool:
         return fields.is_isotropic(self.coefficient)
+
+    @cached_property
+    def coefficient_range(self) -> tuple[float, float]:
+        """(min, max) of the coefficient over every cell and direction, read once: the method
+        choice, the fft solve and the plausibility cautions all ask for it."""
+        return fields.value_range(self.coefficient)
 
 
 def neumann_inflow(faces: dict[str, FaceTerms], grid: Grid, absolute: bool = False) -> float:

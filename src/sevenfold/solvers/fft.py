@@ -61,7 +61,7 @@ def fft_eligibility(problem: Problem) -> str | None:
         return f"graded axis {', '.join(graded)} (cell widths vary; the transforms need equal widths)"
     if not problem.isotropic:
         return "a directional coefficient [kx, ky, kz] (the transforms need one k for every direction)"
-    k_min, k_max = _range(problem.coefficient[0])
+    k_min, k_max = problem.coefficient_range
     if k_min != k_max:
         return f"k varies (min {k_min:.6g}, max {k_max:.6g})"
     if not problem.gauge_mean_zero and problem.held.any():
@@ -83,16 +83,6 @@ def fft_eligibility(problem: Problem) -> str | None:
         if low != high:
             return f"axis {name} mixes {low} and {high} faces ({name}_min {low}, {name}_max {high})"
     return None
-
-
-def _range(a: np.ndarray) -> tuple[float, float]:
-    """(min, max) of ``a``, slab by slab: each slab's second read comes from the cache."""
-    flat = a.reshape(-1)
-    lo, hi = math.inf, -math.inf
-    for i in range(0, flat.size, SLAB_CELLS):
-        part = flat[i:i + SLAB_CELLS]
-        lo, hi = min(lo, float(part.min())), max(hi, float(part.max()))
-    return lo, hi
 
 
 def uniform_spacing(grid) -> tuple[float, float, float]:
