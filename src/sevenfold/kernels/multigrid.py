@@ -69,6 +69,14 @@ def solve_block(y, w, t, nz):
             y[at + c] += t[at + c] * w[at + c] * y[nxt + c]
 
 
+@njit(cache=True, inline="always")
+def _line_buffers(u):
+    """A thread's three block buffers for :func:`_line_plane` (nz rows of LINE_BLOCK)."""
+    nz = u.shape[2]
+    return (np.empty(nz * LINE_BLOCK, dtype=u.dtype), np.empty(nz * LINE_BLOCK, dtype=u.dtype),
+            np.empty(nz * LINE_BLOCK, dtype=u.dtype))
+
+
 @njit(cache=True)
 def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, y, w, t):
     """Exact z-line solves for the columns (i, j) of plane i with (i + j) % 2 == colour, x and
@@ -117,11 +125,9 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, y, w, t):
 def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
     """One colour of zebra z-line Gauss-Seidel: exact solves along every z column (i, j) with
     (i + j) % 2 == colour (:func:`_line_plane`); the columns of one colour are independent."""
-    nx, nz = u.shape[0], u.shape[2]
+    nx = u.shape[0]
     for i in prange(nx):
-        y = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
-        w = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
-        t = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
+        y, w, t = _line_buffers(u)
         _line_plane(tx, ty, tz, inv_w, b, u, i, colour, y, w, t)
 
 
@@ -142,14 +148,12 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
     stage, one border per thread. Two sweeps in one pass took 0.84-0.85 of the time of two
     one-sweep passes on 256^3 finest levels, 0.91-0.95 on 128^3 (benchmarks/RESULTS_SWEEPS.md).
     """
-    nx, nz = u.shape[0], u.shape[2]
+    nx = u.shape[0]
     stages = 2 * sweeps
     # a run spans at least 2 (stages - 1) planes, so that its two borders' planes stay apart
     chunks = min(chunks, nx // (2 * (stages - 1)))
     if chunks < 1:  # too few planes for a wavefront: the colour passes in order, one thread
-        y = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
-        w = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
-        t = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
+        y, w, t = _line_buffers(u)
         for s in range(stages):
             for plane in range(nx):
                 _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, y, w, t)
@@ -157,9 +161,7 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
     # the plane solve is a called function, not inlined: four inlined copies compiled in 18.6 s,
     # the call in 7 s, for sweeps within measurement noise of each other
     for k in prange(chunks):
-        y = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
-        w = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
-        t = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
+        y, w, t = _line_buffers(u)
         lo, hi = k * nx // chunks, (k + 1) * nx // chunks
         for i in range(lo, hi + stages - 1):
             for s in range(stages):
@@ -167,9 +169,7 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
                 if lo + s <= plane <= hi - 1 - s:
                     _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, y, w, t)
     for k in prange(chunks + 1):  # the border at plane k nx / chunks (0 and nx: the ends)
-        y = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
-        w = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
-        t = np.empty(nz * LINE_BLOCK, dtype=u.dtype)
+        y, w, t = _line_buffers(u)
         p = k * nx // chunks
         for s in range(1, stages):
             for plane in range(max(p - s, 0), min(p + s, nx)):
