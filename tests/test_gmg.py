@@ -546,6 +546,26 @@ def test_fused_residual_restriction_and_products(shape, step) -> None:
         expected = z + 0.3 * p
         ops.update_direction(p, z32, 0.3)
         assert np.array_equal(p, expected)
+        # ||b - A u||^2 from b and A u without storing the difference (CG's true residual)
+        rr = ops.distance_squared(b.ravel(), au.ravel())
+        assert abs(rr - float(r.ravel() @ r.ravel())) <= 1e-12 * float(r.ravel() @ r.ravel())
+
+
+def test_a_float32_copy_of_a_level_is_numpys_rounding() -> None:
+    """Level.astype(float32) narrows large levels on every thread: the same numbers as numpy's
+    astype (round to nearest), bit for bit, on a level above and one below PARALLEL_FROM."""
+    from sevenfold.kernels.vector import PARALLEL_FROM
+    from sevenfold.solvers.levels import Level
+
+    for shape in ((50, 48, 47), (9, 8, 7)):
+        tx, ty, tz, diag, free = _random_level(shape)
+        level = Level(tx, ty, tz, diag * np.pi, free, np.ones(3, dtype=np.int64))
+        copy = level.astype(np.float32)
+        assert (level.diag.size >= PARALLEL_FROM) == (shape[0] == 50)
+        for a, c in zip((tx, ty, tz, diag * np.pi), (copy.tx, copy.ty, copy.tz, copy.diag)):
+            assert c.dtype == np.float32 and c.shape == a.shape
+            assert np.array_equal(c, a.astype(np.float32))
+        assert copy.free is free
 
 
 @pytest.mark.parametrize("shape", [(3, 410, 400), (17, 370, 360), (9, 2, 70000)])

@@ -47,6 +47,16 @@ def dot(a, b):
     return s
 
 
+@njit(cache=True, parallel=True, fastmath=REDUCE)
+def distance_squared(a, b):
+    """||a - b||^2 without storing a - b (the true residual's norm from b and A x)."""
+    s = 0.0
+    for i in prange(a.shape[0]):
+        d = a[i] - b[i]
+        s += d * d
+    return s
+
+
 @njit(cache=True, fastmath=REDUCE)
 def update_solution_and_residual_serial(x, r, p, q, alpha):
     s = 0.0
@@ -72,14 +82,25 @@ def dot_serial(a, b):
     return s
 
 
+@njit(cache=True, fastmath=REDUCE)
+def distance_squared_serial(a, b):
+    s = 0.0
+    for i in range(a.shape[0]):
+        d = a[i] - b[i]
+        s += d * d
+    return s
+
+
 class VectorOps(NamedTuple):
     update_solution_and_residual: object
     update_direction: object
     dot: object
+    distance_squared: object
 
 
-THREADED = VectorOps(update_solution_and_residual, update_direction, dot)
-SERIAL = VectorOps(update_solution_and_residual_serial, update_direction_serial, dot_serial)
+THREADED = VectorOps(update_solution_and_residual, update_direction, dot, distance_squared)
+SERIAL = VectorOps(update_solution_and_residual_serial, update_direction_serial, dot_serial,
+                   distance_squared_serial)
 
 
 def vector_ops(n: int) -> VectorOps:

@@ -159,6 +159,7 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         _build(ops.update_solution_and_residual, *(np.ones(8) for _ in range(4)), 0.5)
         _build(ops.update_direction, np.ones(8), np.ones(8, dtype=f32), 0.5)
         _build(ops.dot, np.ones(8), np.ones(8, dtype=f32))
+        _build(ops.distance_squared, np.ones(8), np.ones(8))  # the true residual's norm
 
     add(name, "float64", vectors)
     return items, {k: frozenset(v) for k, v in tags.items()}
