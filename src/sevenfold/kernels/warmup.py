@@ -35,11 +35,13 @@ import numpy as np
 # its vectorised form's compile against the one measured then: 2.5-2.6 s against 1.6-1.8 s,
 # one signature in a fresh process each (2026-12-03, Intel host); line_gauss_seidel's form with
 # a number of sweeps compiled in 4.2-4.3 s against the one-sweep form's 4.0-4.2 s the same way,
-# within the estimate's precision, so its cost stands.
+# within the estimate's precision, so its cost stands. The vectors items include the true
+# residual's norm (distance_squared), added since: 0.29-0.36 s threaded, 0.07 s serial (one
+# signature in a fresh process after the other vector kernels, 2026-12-03).
 COST = {
     "transmissibility": 2.6, "fine_stencil": 7.4, "axis_weakness": 2.3, "galerkin_scaled": 7.4,
     "line_factor": 1.9, "line_gauss_seidel": 8.9, "residual_restrict": 6.3, "prolong_add": 2.1,
-    "apply_dot": 3.1, "narrow": 0.6, "vectors_threaded": 2.2, "vectors_serial": 1.1,
+    "apply_dot": 3.1, "narrow": 0.6, "vectors_threaded": 2.5, "vectors_serial": 1.2,
 }
 # What starting the child costs before it compiles (the interpreter, numba, the kernel modules)
 CHILD_START = 1.5
