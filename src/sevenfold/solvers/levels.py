@@ -46,8 +46,8 @@ class Level:
 
     def astype(self, dtype) -> "Level":
         """A copy of the operator in another float type (free and step shared); float64 to
-        float32 on every thread from PARALLEL_FROM cells (numpy's conversion runs on one:
-        2.0-2.5x the time at 256^3)."""
+        float32 on every thread from PARALLEL_FROM cells (numpy's conversion runs on one: about
+        twice the time at 256^3, benchmarks/RESULTS_SETUP.md)."""
         def convert(a: np.ndarray) -> np.ndarray:
             if (a.dtype != np.float64 or np.dtype(dtype) != np.float32 or a.size < PARALLEL_FROM
                     or not a.flags.c_contiguous):
