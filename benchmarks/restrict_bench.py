@@ -145,14 +145,20 @@ def solve_pair(job, then: dict, rounds: int) -> dict[str, float]:
     return out
 
 
-def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+def ab_arguments(doc: str, results: str, argv: list[str] | None) -> argparse.Namespace:
+    """The options every A/B script of one change against ``--against REVISION`` takes
+    (restrict_bench, sweeps_bench, setup_bench); ``results`` is its default file name."""
+    p = argparse.ArgumentParser(description=doc.splitlines()[0])
     p.add_argument("--against", required=True, metavar="REVISION")
     p.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     p.add_argument("--cases", nargs="+", default=list(CASES), choices=CASES)
     p.add_argument("--rounds", type=int, default=3)
-    p.add_argument("--results", type=Path, default=HERE / "RESULTS_RESTRICT.md")
-    args = p.parse_args(argv)
+    p.add_argument("--results", type=Path, default=HERE / results)
+    return p.parse_args(argv)
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = ab_arguments(__doc__, "RESULTS_RESTRICT.md", argv)
     lines, info = engine.report_head("restrict_bench.py", argv,
                                      "The fused residual and restriction, vectorised")
     from sevenfold.solvers import gmg

@@ -29,7 +29,6 @@ Writes benchmarks/RESULTS_SETUP.md.
 
 from __future__ import annotations
 
-import argparse
 import sys
 import time
 from pathlib import Path
@@ -85,13 +84,7 @@ def parts(job, old_cg, rounds: int) -> dict[str, float]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    p.add_argument("--against", required=True, metavar="REVISION")
-    p.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
-    p.add_argument("--cases", nargs="+", default=list(rb.CASES), choices=rb.CASES)
-    p.add_argument("--rounds", type=int, default=3)
-    p.add_argument("--results", type=Path, default=HERE / "RESULTS_SETUP.md")
-    args = p.parse_args(argv)
+    args = rb.ab_arguments(__doc__, "RESULTS_SETUP.md", argv)
     lines, info = engine.report_head("setup_bench.py", argv,
                                      "The float32 copy and the true-residual check on both threads")
     from sevenfold.solvers import gmg

@@ -28,7 +28,6 @@ Writes benchmarks/RESULTS_SWEEPS.md.
 
 from __future__ import annotations
 
-import argparse
 import sys
 import time
 from pathlib import Path
@@ -67,7 +66,8 @@ def one_sweep_per_pass(old):
 
 
 def kernel_pair(job, old, rounds: int) -> list[dict]:
-    """Two sweeps on each of the two finest levels, both forms, in work units of the job."""
+    """Two sweeps on each of the two finest smoothed levels (the coarsest is factored, not
+    smoothed), both forms, in work units of the job."""
     import numba
 
     from sevenfold.kernels import multigrid
@@ -78,7 +78,7 @@ def kernel_pair(job, old, rounds: int) -> list[dict]:
     apply = rb.apply_seconds(fine)
     threads = numba.get_num_threads()
     rows = []
-    for lv in hierarchy.levels[:2]:
+    for lv in hierarchy.levels[:-1][:2]:
         if not lv.lines:
             continue
         rng = np.random.default_rng(0)
@@ -105,13 +105,7 @@ def kernel_pair(job, old, rounds: int) -> list[dict]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    p.add_argument("--against", required=True, metavar="REVISION")
-    p.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
-    p.add_argument("--cases", nargs="+", default=list(rb.CASES), choices=rb.CASES)
-    p.add_argument("--rounds", type=int, default=3)
-    p.add_argument("--results", type=Path, default=HERE / "RESULTS_SWEEPS.md")
-    args = p.parse_args(argv)
+    args = rb.ab_arguments(__doc__, "RESULTS_SWEEPS.md", argv)
     lines, info = engine.report_head("sweeps_bench.py", argv,
                                      "Two z-line sweeps in one pass over memory")
     from sevenfold.solvers import gmg
