@@ -36,12 +36,30 @@ sys.path.insert(0, str(HERE))
 import cycle_bench as cb  # noqa: E402
 import wall_bench  # noqa: E402
 
-from sevenfold.kernels.multigrid import LINE_BLOCK, solve_block  # noqa: E402
+from sevenfold.kernels.multigrid import LINE_BLOCK  # noqa: E402
 from sevenfold.solvers import gmg  # noqa: E402
 
 LB = LINE_BLOCK
 ALPHA = 4.0
 HIGHEST = 2.0  # bound on the eigenvalues of M^-1 A
+
+
+@njit(inline="always")
+def solve_block(y, w, t, nz):
+    """Solve LB tridiagonal z-line systems side by side, in place: ``y`` (nz rows of LB, flat)
+    holds their right-hand sides and gets the solutions; ``w`` the pivots 1 / w_k of
+    multigrid.line_factor and ``t`` the couplings tz, in the same layout (the sweep's block
+    solve until multigrid._line_plane wrote its recurrences out as chains)."""
+    for c in range(LB):
+        y[c] = y[c] * w[c]
+    for m in range(1, nz):
+        at, prev = m * LB, (m - 1) * LB
+        for c in range(LB):
+            y[at + c] = (y[at + c] + t[prev + c] * y[prev + c]) * w[at + c]
+    for m in range(nz - 2, -1, -1):
+        at, nxt = m * LB, (m + 1) * LB
+        for c in range(LB):
+            y[at + c] += t[at + c] * w[at + c] * y[nxt + c]
 
 
 @njit(parallel=True)  # (no cache: a cached kernel re-imports this module)

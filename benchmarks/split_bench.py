@@ -105,7 +105,7 @@ def _solve_row(b, txm, uxm, txp, uxp, tym, typ, uy, tz, iw, u, q):
     other colour's), uy the other colour's u in this row, tz and iw the z couplings and pivots,
     u the row's own u (written). q = 0: the y-minus neighbour of column h is the other colour's
     column h - 1, and h + 0 the y-plus one; q = 1: h and h + 1. The sums in the order of
-    multigrid._line_plane, the recurrences of multigrid.solve_block; each loop runs across the
+    multigrid._line_plane, the recurrences of its _forward and _backward; each loop runs across the
     row's columns at unit stride and touches few arrays, so that it vectorises."""
     nz, nyh = u.shape
     for k in range(nz):

@@ -65,6 +65,16 @@ def one_sweep_per_pass(old):
     return smooth
 
 
+def two_sweeps(old, lv, b, u, threads: int) -> None:
+    """One smoothing step (two sweeps) on ``lv`` with ``old``'s kernel: one call where it takes
+    the number of sweeps, else one call per sweep."""
+    if old.line_gauss_seidel.py_func.__code__.co_argcount == 9:
+        old.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, 2, threads)
+    else:
+        for _ in range(2):
+            old.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, threads)
+
+
 def kernel_pair(job, old, rounds: int) -> list[dict]:
     """Two sweeps on each of the two finest smoothed levels (the coarsest is factored, not
     smoothed), both forms, in work units of the job."""
@@ -90,8 +100,7 @@ def kernel_pair(job, old, rounds: int) -> list[dict]:
             multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, 2, threads)
 
         def run_then(u=then):
-            for _ in range(2):
-                old.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, threads)
+            two_sweeps(old, lv, b, u, threads)
 
         run_now(), run_then()
         equal = bool(np.array_equal(now, then))
@@ -105,14 +114,21 @@ def kernel_pair(job, old, rounds: int) -> list[dict]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    args = rb.ab_arguments(__doc__, "RESULTS_SWEEPS.md", argv)
-    lines, info = engine.report_head("sweeps_bench.py", argv,
-                                     "Two z-line sweeps in one pass over memory")
     from sevenfold.solvers import gmg
 
+    args = rb.ab_arguments(__doc__, "RESULTS_SWEEPS.md", argv)
     old = multigrid_at(args.against)
     then = {(gmg, "multigrid"): old, (gmg.Hierarchy, "_smooth"): one_sweep_per_pass(old)}
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+    return report(args, argv, "sweeps_bench.py", "Two z-line sweeps in one pass over memory",
+                  __doc__, old, then)
+
+
+def report(args, argv: list[str] | None, script: str, title: str, doc: str, old, then: dict) -> int:
+    """Run the kernel and solve pairs for every size and case of ``args`` and write the
+    report: ``old`` the revision's multigrid module, ``then`` the attributes its solves set
+    (restrict_bench.solve_pair)."""
+    lines, info = engine.report_head(script, argv, title)
+    lines += [doc.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
               f"*then* = revision {args.against}, *now* = the working tree; *WU* = seconds over one "
               "two-thread float64 operator application of the job's grid (*apply*); *two sweeps* = "
               "one smoothing step on that level; *solve* = warm gmg set-up + solve, wall seconds, "

@@ -309,13 +309,14 @@ def _random_level(shape, seed=5):
     return tx, ty, tz, diag, free
 
 
-@pytest.mark.parametrize("shape", [(5, 7, 9), (4, 19, 6), (3, 1, 5), (6, 35, 4)])
+@pytest.mark.parametrize("shape", [(5, 7, 9), (4, 19, 6), (3, 1, 5), (6, 35, 4), (3, 34, 1), (2, 33, 2)])
 @pytest.mark.parametrize("dtype", [np.float64, np.float32])
 def test_line_sweep_solves_each_column_exactly(shape, dtype) -> None:
     """One colour of the blocked z-line Gauss-Seidel against scipy's banded solver column by
     column (Thomas algorithm, common practice): every column of the colour satisfies its
     tridiagonal system with the x and y neighbours' current values, every other column is
-    untouched. Shapes with ny not a multiple of the block (short last blocks) and ny = 1."""
+    untouched. Shapes with full blocks of eight columns, short last blocks, ny = 1, nz = 1
+    and nz = 2."""
     from scipy.linalg import solve_banded
 
     from sevenfold.kernels import multigrid
