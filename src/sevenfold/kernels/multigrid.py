@@ -87,8 +87,8 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, r):
     pipeline. Indices are unsigned, so no negative-index wraparound is compiled in. Against
     the block gathered into a column-interleaved buffer and advanced with loops across it
     (numba does not enable the SLP vectoriser, so those ran as scalar code anyway, with
-    wraparound arithmetic on every access) this took 0.75-0.80 of the time, the same numbers
-    bit for bit (benchmarks/RESULTS_LINE_CHAINS.md). A short last block runs its columns one
+    wraparound arithmetic on every access) a smoothing step took 0.63-0.76 of the time and a
+    warm gmg solve 0.81-0.90, the same numbers bit for bit (benchmarks/RESULTS_LINE_CHAINS.md). A short last block runs its columns one
     at a time.
     A missing x or y neighbour is read through the last plane's coupling, which is zero by the
     face-array convention, so no weights are needed.
