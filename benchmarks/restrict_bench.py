@@ -147,7 +147,8 @@ def solve_pair(job, then: dict, rounds: int) -> dict[str, float]:
 
 def ab_arguments(doc: str, results: str, argv: list[str] | None) -> argparse.Namespace:
     """The options every A/B script of one change against ``--against REVISION`` takes
-    (restrict_bench, sweeps_bench, setup_bench); ``results`` is its default file name."""
+    (restrict_bench, sweeps_bench, setup_bench, chains_bench); ``results`` is its default
+    file name."""
     p = argparse.ArgumentParser(description=doc.splitlines()[0])
     p.add_argument("--against", required=True, metavar="REVISION")
     p.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
