@@ -109,15 +109,20 @@ def _slabs(n: int, per_slab: int):
 
 
 def interior_hold_inflow(problem: Problem, u: np.ndarray, holds: int) -> np.ndarray:
-    """Flux into each hold from cells not in that hold, over interior faces (amount per time)."""
+    """Flux into each hold from cells not in that hold, over interior faces (amount per time).
+
+    Conductances are computed only for the x slabs where some face joins cells of two
+    different holds (or a hold and a free cell): with no hold, nothing is read.
+    """
+    out = np.zeros(holds + 1)  # slot ``holds`` collects index -1 (free), then is dropped
+    if holds == 0:
+        return out[:0]
     grid = problem.grid
     index = _hold_index(problem)
-    out = np.zeros(holds + 1)  # slot ``holds`` collects index -1 (free), then is dropped
     nx = grid.cells[0]
     for i0, i1 in _slabs(nx, grid.cells[1] * grid.cells[2]):
-        t = conductances(problem, i0, i1)
+        crossings = []  # (axis, P, N, T, cross): cells P in the slab, their + neighbour N
         for axis in range(3):
-            # cells P in the slab and their + neighbour N along ``axis``
             P = [np.s_[i0:i1], slice(None), slice(None)]
             N = list(P)
             T = [slice(None)] * 3
@@ -131,12 +136,15 @@ def interior_hold_inflow(problem: Problem, u: np.ndarray, holds: int) -> np.ndar
                     continue
                 P[axis], N[axis], T[axis] = np.s_[:-1], np.s_[1:], np.s_[:-1]
             P, N = tuple(P), tuple(N)
-            hp, hn = index[P], index[N]
-            cross = hp != hn
-            if not cross.any():
-                continue
-            flow = t[axis][tuple(T)][cross] * (u[P][cross] - u[N][cross])  # P -> N
-            hp, hn = hp[cross], hn[cross]
+            cross = index[P] != index[N]
+            if cross.any():
+                crossings.append((axis, P, N, tuple(T), cross))
+        if not crossings:
+            continue
+        t = conductances(problem, i0, i1)
+        for axis, P, N, T, cross in crossings:
+            flow = t[axis][T][cross] * (u[P][cross] - u[N][cross])  # P -> N
+            hp, hn = index[P][cross], index[N][cross]
             out += np.bincount(np.where(hn >= 0, hn, holds), weights=flow, minlength=holds + 1)
             out -= np.bincount(np.where(hp >= 0, hp, holds), weights=flow, minlength=holds + 1)
     return out[:holds]
