@@ -19,13 +19,16 @@ import os
 #           in the shared buffer (no copy, no pivots: COPY_BYTES_PER_CELL less); below it
 #           only the copy goes, when it does not fit
 #   amg:    CSR matrix, pyamg's smoothed-aggregation hierarchy, CG vectors
-#   fft:    fields and the transformed right-hand side
+#   fft:    fields, the transformed right-hand side and the solution (a job with holds,
+#           whose balance reads conductances slab by slab, cannot take fft)
 #   direct: fields and CSR, plus the LU factors, which grow like n^(4/3) on a 3D grid
 # Refitted 2026-12-02 after graded grids and the lease (fft 197/316/427, amg 343/1461 at
 # 64/128, direct 624/1469 at 32/40^3); gmg after the pivots and z moved into the shared
 # buffer: 111-113 bytes per cell above the base at 128 and 160^3 with the fields kept
 # (memory_fit.py), lean with the fields lent 77.2-77.7 at 384 and 512^3
-# (benchmarks/RESULTS_FINEST.md).
+# (benchmarks/RESULTS_FINEST.md). fft refitted 2026-12-03 once the balance stopped reading
+# conductances for jobs without holds: 211/295/386 MiB at 128/160/192^3, 28 bytes per cell
+# over the base (estimates +21 %, +5 %, +1 %).
 BASE_BYTES = 200 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
 LEAN_GMG_BYTES_PER_CELL = 78
 COPY_BYTES_PER_CELL = 20  # the float32 copy of the finest face arrays and its pivots
@@ -40,7 +43,7 @@ GMG_SOLVE_BYTES_PER_CELL = 56
 # the fields costs about 8 % of a 128^3 job; above about 320^3 the 35 bytes per cell are what
 # decides whether a grid fits.
 LEAN_FROM_CELLS = 2**25
-BYTES_PER_CELL = {"gmg": 113, "amg": 640, "fft": 63, "direct": 100}
+BYTES_PER_CELL = {"gmg": 113, "amg": 640, "fft": 28, "direct": 100}
 LU_BYTES_PER_FILL = 520  # times unknowns^(4/3) (SuperLU with COLAMD fills faster at 40^3)
 FIELD_BYTES_PER_CELL = 8  # each derived array stored with the result
 
