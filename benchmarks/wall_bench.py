@@ -34,7 +34,6 @@ from pathlib import Path
 
 import numba
 import numpy as np
-import scipy.sparse.linalg as sla
 from numba import njit, prange
 
 HERE = Path(__file__).resolve().parent
@@ -45,6 +44,7 @@ import run as engine  # noqa: E402
 from sevenfold.kernels import multigrid  # noqa: E402
 from sevenfold.kernels.stencil import _neighbours, _offdiag_row  # noqa: E402
 from sevenfold.solvers import gmg  # noqa: E402
+from sevenfold.solvers.coarsest import CoarsestSolver  # noqa: E402
 from sevenfold.solvers.levels import Level, coarsening_step  # noqa: E402
 
 WALL = 10.0  # neighbouring diagonals this many times apart: a wall between them
@@ -240,13 +240,12 @@ class WallHierarchy(gmg.Hierarchy):
         for lv in self.levels[:-1]:
             lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
             multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
-        self.coarsest = sla.splu(self.levels[-1].to_csr().tocsc(), permc_spec="MMD_AT_PLUS_A",
-                                 options={"SymmetricMode": True})
+        self.coarsest = CoarsestSolver(self.levels[-1])
 
     def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
         lv = self.levels[level]
         if level == len(self.levels) - 1:
-            self._coarsest_solve(b, u)
+            self.coarsest.solve(b, u)
             return
         coarse = self.levels[level + 1]
         self._smooth(lv, b, u, 0)

@@ -24,7 +24,7 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   symmetric positive definite preconditioner and CG stays valid; lines make strong z
   couplings (thin cells, a graded z axis) harmless;
 * a W-cycle (the V-cycle of aggregation multigrid loses accuracy with every level), a
-  sparse LU of the coarsest level (at most 16^3 cells);
+  banded Cholesky factor of the coarsest level (at most 16^3 cells; :mod:`.coarsest`);
 * the preconditioner's levels in float32 by default, CG, the residual-defining operator and
   the true-residual check in float64; the finest level is smoothed on a float32 copy of its
   face arrays, or, on large grids and where memory is short
@@ -48,13 +48,13 @@ import time
 
 import numba
 import numpy as np
-import scipy.sparse.linalg as sla
 
 from ..kernels import multigrid, stencil
 from .cg import Monitor, SolveResult, pcg
+from .coarsest import CoarsestSolver
 from .levels import Level, coarsening_step, strong_z
 
-# The coarsest level is factorised (sparse LU); 16^3 keeps the aggregation levels where
+# The coarsest level is factorised (coarsest.py); 16^3 keeps the aggregation levels where
 # thin 1000:1 layers are still resolved (coarser aggregates of layered media slowed the cycle
 # from 8 to 20 iterations at 128^3; benchmarks/RESULTS_CYCLE.md)
 COARSEST_CELLS = 4096
@@ -158,11 +158,7 @@ class Hierarchy:
             if lv.lines and lv.inv_w is None:
                 lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
                 multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
-        # minimum degree on A^T + A with symmetric pivoting suits an SPD 7-point matrix: at
-        # 16^3 it halved the factor's fill, factor time (110 to 53 ms) and solve time (2.8 to
-        # 1.3 ms) against the default column ordering
-        self.coarsest = sla.splu(self.levels[-1].to_csr().tocsc(), permc_spec="MMD_AT_PLUS_A",
-                                 options={"SymmetricMode": True})
+        self.coarsest = CoarsestSolver(self.levels[-1])
 
     def smoothing_note(self) -> str:
         lines = [lv.lines for lv in self.levels[:-1]]
@@ -199,9 +195,6 @@ class Hierarchy:
         else:
             stencil.prolong_add(ec, lv.free, lv.step, scale, u)
 
-    def _coarsest_solve(self, b: np.ndarray, u: np.ndarray) -> None:
-        u[...] = self.coarsest.solve(b.ravel().astype(np.float64)).reshape(u.shape)
-
     def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
         """Improve u for A_level u = b in place (u may start at zero)."""
         lv = self.levels[level]
@@ -214,7 +207,7 @@ class Hierarchy:
                 numba.set_num_threads(threads)
             return
         if level == len(self.levels) - 1:
-            self._coarsest_solve(b, u)
+            self.coarsest.solve(b, u)
             return
         coarse = self.levels[level + 1]
         self._smooth(lv, b, u, 0)
@@ -279,7 +272,7 @@ class Hierarchy:
             self._restrict(lv, rhs[-1], rc)
             rhs.append(rc)
         u = np.empty(self.levels[-1].shape, dtype=self.dtype)
-        self._coarsest_solve(rhs[-1], u)
+        self.coarsest.solve(rhs[-1], u)
         kept = self.gamma, self.sweeps
         self.gamma, self.sweeps = (2 if cycle == "W" else 1), tuple(sweeps)
         try:

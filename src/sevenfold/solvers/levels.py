@@ -5,12 +5,15 @@ level's operator which axes to coarsen and whether z-lines are needed (see
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import scipy.sparse as sp
 
 from ..kernels import multigrid, stencil
 from ..kernels.vector import PARALLEL_FROM
+
+if TYPE_CHECKING:
+    import scipy.sparse as sp
 
 # An axis is weak in a cell when its coupling times WEAK_RATIO is below the strongest other
 # axis's (2.25 = 1.5^2: cells 1.5 times longer along it); an axis that is weak in more than
@@ -59,8 +62,24 @@ class Level:
         return Level(*(convert(a) for a in (self.tx, self.ty, self.tz, self.diag)),
                      self.free, self.step.copy(), self.spacing)
 
-    def to_csr(self) -> sp.csr_matrix:
+    def to_band(self) -> tuple[np.ndarray, tuple[int, int, int]]:
+        """The level's matrix in LAPACK's lower band storage (float64), cells numbered in C
+        order of the grid transposed to ``order`` (axes longest first, so the bandwidth is the
+        product of the two shorter sides): ``band[d, j]`` is entry (j + d, j)."""
+        order = tuple(int(a) for a in np.argsort(self.shape, kind="stable")[::-1])
+        sides = tuple(self.shape[a] for a in order)
+        stride = {order[0]: sides[1] * sides[2], order[1]: sides[2], order[2]: 1}
+        band = np.zeros((sides[1] * sides[2] + 1, self.diag.size))
+        band[0] = self.diag.transpose(order).ravel()
+        for axis, t in enumerate((self.tx, self.ty, self.tz)):
+            if self.shape[axis] > 1:  # (t is 0 on each axis's last plane: no wrap-around)
+                band[stride[axis]] -= t.transpose(order).ravel()
+        return band, order  # type: ignore[return-value]
+
+    def to_csr(self) -> "sp.csr_matrix":
         """The level's matrix (only for the small coarsest level)."""
+        import scipy.sparse as sp
+
         shape = self.shape
         n = int(np.prod(shape))
         idx = np.arange(n).reshape(shape)

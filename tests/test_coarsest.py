@@ -1,0 +1,85 @@
+"""The coarsest level's direct solve (solvers/coarsest.py) against scipy's sparse solver on
+the level's own matrix (Level.to_csr)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.sparse.linalg as sla
+
+import sevenfold.solvers.coarsest as coarsest
+from sevenfold.solvers.coarsest import CoarsestSolver
+from sevenfold.solvers.levels import Level
+
+
+def random_level(shape: tuple[int, int, int], seed: int = 0, margin: float = 1e-2) -> Level:
+    """A 7-point level with random positive couplings (0 on each axis's last plane) and a
+    diagonal of the row's couplings plus ``margin`` (SPD for a positive margin)."""
+    rng = np.random.default_rng(seed)
+    t = [rng.uniform(0.1, 10.0, shape) for _ in range(3)]
+    diag = np.full(shape, margin)
+    for axis in range(3):
+        last = [slice(None)] * 3
+        last[axis] = -1
+        t[axis][tuple(last)] = 0.0
+        diag += t[axis] + np.roll(t[axis], 1, axis=axis)  # to the + and from the - neighbour
+    return Level(*t, diag, np.ones(shape, dtype=bool), np.ones(3, dtype=np.int64))
+
+
+def scipy_solution(level: Level, b: np.ndarray) -> np.ndarray:
+    return sla.spsolve(level.to_csr().tocsc(), b.ravel()).reshape(level.shape)
+
+
+@pytest.mark.parametrize("shape", [(16, 16, 16), (8, 8, 32), (5, 7, 3), (12, 1, 7), (1, 30, 2),
+                                   (1, 1, 9), (1, 1, 1)])
+def test_band_storage_is_the_levels_matrix(shape) -> None:
+    """Every entry of the band, put back in place, is the CSR matrix's (and nothing else is)."""
+    level = random_level(shape)
+    band, order = level.to_band()
+    dense = level.to_csr().toarray()
+    # the band numbers cells in C order of the transposed grid: renumber the CSR matrix so
+    n = level.diag.size
+    perm = np.arange(n).reshape(shape).transpose(order).ravel()
+    expected = dense[np.ix_(perm, perm)]
+    rebuilt = np.zeros((n, n))
+    for d in range(band.shape[0]):
+        j = np.arange(n - d)
+        rebuilt[j + d, j] = band[d, : n - d]
+        rebuilt[j, j + d] = band[d, : n - d]
+    assert np.array_equal(rebuilt, expected)
+    assert band.shape[0] - 1 == sorted(shape)[0] * sorted(shape)[1]  # the two shorter sides
+
+
+@pytest.mark.parametrize("shape", [(16, 16, 16), (8, 8, 32), (12, 1, 7), (1, 1, 1)])
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_banded_cholesky_solves_the_level_like_scipy(shape, dtype) -> None:
+    level = random_level(shape, seed=1)
+    solver = CoarsestSolver(level)
+    assert solver.kind == "band"
+    b = np.random.default_rng(2).standard_normal(shape).astype(dtype)
+    u = np.empty(shape, dtype=dtype)
+    solver.solve(b, u)
+    reference = scipy_solution(level, b.astype(np.float64))
+    # float64: the factor's rounding (cond of these levels is below 1e4); float32: the output's
+    tol = 1e-11 if dtype == np.float64 else 1e-6
+    assert np.abs(u - reference).max() <= tol * np.abs(reference).max()
+
+
+def test_a_wide_band_or_an_indefinite_matrix_takes_the_sparse_lu(monkeypatch) -> None:
+    """Both fallbacks give scipy's solution too."""
+    level = random_level((6, 5, 4), seed=3)
+    monkeypatch.setattr(coarsest, "BAND_ENTRIES", 10)  # far below (20 + 1) x 120
+    wide = CoarsestSolver(level)
+    monkeypatch.undo()
+    b = np.random.default_rng(4).standard_normal(level.shape)
+    u = np.empty(level.shape)
+    wide.solve(b, u)
+    assert wide.kind == "lu"
+    assert np.abs(u - scipy_solution(level, b)).max() <= 1e-11 * np.abs(u).max()
+
+    indefinite = random_level((6, 5, 4), seed=3, margin=-5.0)  # a negative eigenvalue or more
+    assert np.linalg.eigvalsh(indefinite.to_csr().toarray()).min() < 0
+    solver = CoarsestSolver(indefinite)
+    assert solver.kind == "lu"
+    solver.solve(b, u)
+    assert np.abs(u - scipy_solution(indefinite, b)).max() <= 1e-9 * np.abs(u).max()
