@@ -261,3 +261,35 @@ def test_a_workers_first_start_after_a_gmg_run_announces_what_is_left(tmp_path: 
     for m in ("amg", "direct", "fft"):
         cache.mark_warm(m, needs.get(m, frozenset()))
     assert cache.warm_up_seconds(needs) == pytest.approx(warmup.estimate(left))  # gmg's tiny signature only
+
+
+BLAS_PROBE = """
+import ctypes, json
+import sevenfold.cli  # what the `sevenfold` command imports first
+import numpy, scipy.linalg  # both wheels carry an OpenBLAS
+threads = {}
+for path in sorted({line.split()[-1] for line in open("/proc/self/maps") if "openblas" in line.lower()}):
+    lib = ctypes.CDLL(path)
+    for name in ("scipy_openblas_get_num_threads64_", "scipy_openblas_get_num_threads",
+                 "openblas_get_num_threads64_", "openblas_get_num_threads"):
+        if hasattr(lib, name):
+            threads[path] = getattr(lib, name)()
+print(json.dumps(threads))
+"""
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc/self/maps")
+@pytest.mark.parametrize("given", [None, "2"])
+def test_the_command_runs_blas_on_one_thread_unless_told(given) -> None:
+    """Numba's threads own the cores; OpenBLAS's idle threads spinning beside them slowed gmg
+    solves (benchmarks/RESULTS_BLAS_THREADS.md). A thread count the user set is kept."""
+    environ = {k: v for k, v in os.environ.items() if k not in ("OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+                                                                   "OMP_NUM_THREADS")}
+    if given is not None:
+        environ["OPENBLAS_NUM_THREADS"] = given
+    proc = subprocess.run([sys.executable, "-c", BLAS_PROBE], capture_output=True, text=True,
+                          timeout=300, env=environ)
+    assert proc.returncode == 0, proc.stderr
+    threads = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert threads, "no OpenBLAS library found to ask"
+    assert set(threads.values()) == {1 if given is None else int(given)}

@@ -1,3 +1,23 @@
 """sevenfold: steady -div(k grad u) = f on 3D box grids, from job file to chunked zarr."""
 
 __version__ = "0.1.0"
+
+# The environment variables that set the BLAS libraries' thread counts (OpenBLAS, which numpy's
+# and scipy's wheels carry, and MKL).
+BLAS_THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+def one_blas_thread() -> None:
+    """Ask the BLAS libraries for one thread each, unless the environment already says.
+
+    Takes effect for a library loaded after the call (numpy's OpenBLAS loads with numpy), so
+    the command line calls it before its first import of numpy; a worker's slot processes get
+    the same through their environment. Our kernels run on numba's threads, one per core; a
+    BLAS call (a norm, a sparse LU's dense blocks, the coarsest level's factor) wakes BLAS's
+    own threads, which then spin beside them: a warm 128^3 gmg solve took 1.15-1.2 times as
+    long (benchmarks/RESULTS_BLAS_THREADS.md).
+    """
+    import os
+
+    for name in BLAS_THREAD_VARIABLES:
+        os.environ.setdefault(name, "1")

@@ -11,13 +11,17 @@ import os
 import sys
 from pathlib import Path
 
-from rich.markup import escape
-from rich.table import Table
+from . import one_blas_thread
 
-from . import __version__
-from .console import (ProgressMonitor, err, out, print_run_end, quiet_result,
+one_blas_thread()  # before anything imports numpy
+
+from rich.markup import escape  # noqa: E402
+from rich.table import Table  # noqa: E402
+
+from . import __version__  # noqa: E402
+from .console import (ProgressMonitor, err, out, print_run_end, quiet_result,  # noqa: E402
                       run_progress, warn)
-from .errors import Cancelled, JobError, SevenfoldError, SolverError
+from .errors import Cancelled, JobError, SevenfoldError, SolverError  # noqa: E402
 
 EXIT_OK, EXIT_SOLVER, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
 
