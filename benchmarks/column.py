@@ -114,7 +114,7 @@ class Size:
 
 def run_baseline(folder: Path, n: int, out: Path) -> Run:
     r = engine.run_process([sys.executable, str(HERE / "baseline.py"), "--cells", str(n), "--pattern", PATTERN,
-                            "--out", str(out)], folder)
+                            "--out", str(out)], folder, engine.GIVEN_ENVIRONMENT)
     try:
         info = json.loads(r.stdout.strip().splitlines()[-1])
     except (IndexError, ValueError):

@@ -46,7 +46,8 @@ def main(argv: list[str] | None = None) -> int:
             job.write_text(speed.job_text(n, pattern, str(folder / f"{pattern}-{n}.zarr")))
             resident = column.run_resident(folder, job)
             r = engine.run_process([sys.executable, str(HERE / "baseline.py"), "--cells", str(n), "--pattern",
-                                    pattern, "--out", str(folder / "b.npy")], folder)
+                                    pattern, "--out", str(folder / "b.npy")], folder,
+                                   engine.GIVEN_ENVIRONMENT)
             timed.append(r)
             b = json.loads(r.stdout.strip().splitlines()[-1])
             own = b["assembly"] + b["setup"] + b["solve"]

@@ -36,7 +36,15 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
+# This process times warm gmg solves itself: it runs BLAS on one thread, as the `sevenfold`
+# command does (before numpy loads); the baseline's children get the environment as it was
+# given (GIVEN_ENVIRONMENT), with their libraries' own defaults.
+GIVEN_ENVIRONMENT = dict(os.environ)
+from sevenfold import one_blas_thread  # noqa: E402
+
+one_blas_thread()
+
+import numpy as np  # noqa: E402
 
 # Timed `sevenfold run` processes solve in their own process: an empty default queue home of
 # their own, so that `run` hands nothing to a worker the user may have running.
@@ -296,8 +304,9 @@ class ProcessRun:
 TIME = Path("/usr/bin/time")
 
 
-def run_process(cmd: list[str], cwd: Path) -> ProcessRun:
-    """Run ``cmd`` to completion: wall time, CPU time and the child's own peak RSS.
+def run_process(cmd: list[str], cwd: Path, env: dict[str, str] | None = None) -> ProcessRun:
+    """Run ``cmd`` to completion (in ``env``, default this process's environment): wall time,
+    CPU time and the child's own peak RSS.
 
     The peak RSS comes from /usr/bin/time: Linux's per-child ru_maxrss (os.wait4,
     RUSAGE_CHILDREN) starts from the forking parent's peak, which is this large process.
@@ -307,7 +316,7 @@ def run_process(cmd: list[str], cwd: Path) -> ProcessRun:
     with open(out_path, "wb") as out, open(err_path, "wb") as err:
         busy0 = busy_cpu_seconds()
         t0 = time.perf_counter()
-        proc = subprocess.Popen(wrapped, cwd=cwd, stdout=out, stderr=err)
+        proc = subprocess.Popen(wrapped, cwd=cwd, stdout=out, stderr=err, env=env)
         _, status, usage = os.wait4(proc.pid, 0)
         wall = time.perf_counter() - t0
         busy1 = busy_cpu_seconds()
@@ -368,7 +377,7 @@ def run_size(folder: Path, n: int, runs: int) -> SizeResult:
         for side in order:
             if side == "baseline":
                 r = run_process([sys.executable, str(HERE / "baseline.py"), "--cells", str(n),
-                                 "--out", str(npy_path)], folder)
+                                 "--out", str(npy_path)], folder, GIVEN_ENVIRONMENT)
                 res.baseline.append(r)
                 if r.wall < best_b:
                     best_b = r.wall
@@ -616,7 +625,7 @@ def main(argv: list[str] | None = None) -> int:
         warm = write_job(folder, 16)
         run_process(sevenfold_command() + ["run", "--no-progress", str(warm)], folder)
         run_process([sys.executable, str(HERE / "baseline.py"), "--cells", "16",
-                     "--out", str(folder / "warm.npy")], folder)
+                     "--out", str(folder / "warm.npy")], folder, GIVEN_ENVIRONMENT)
 
         print(f"assembly at {asm_n}^3, {repeats} interleaved rounds ...", flush=True)
         asm = time_assembly(write_job(folder, asm_n), asm_n, repeats)

@@ -203,7 +203,7 @@ def run_case(folder: Path, pattern: str, n: int, with_baseline: bool, repeats: i
     if with_baseline:
         case.baseline = engine.run_process(
             [sys.executable, str(HERE / "baseline.py"), "--cells", str(n), "--pattern", pattern,
-             "--out", str(npy_path)], folder)
+             "--out", str(npy_path)], folder, engine.GIVEN_ENVIRONMENT)
         case.base = json.loads(case.baseline.stdout.strip().splitlines()[-1])
     command = [sys.executable, "-c", LEAN] if lean else engine.sevenfold_command()
     case.sevenfold = engine.run_process(command + ["run", "--no-progress", str(job)], folder)
@@ -278,7 +278,9 @@ def report(command: str, info: dict[str, str], cases: list[Case], fft_rows: list
       "layers across x, edges off the dyadic planes, shifted by 0.043 between y < 0.5 and y > 0.5); "
       f"**inclusions** ({baseline.INCLUSIONS} random boxes, seed {baseline.INCLUSION_SEED}). Baseline: "
       "`benchmarks/baseline.py` (COO assembly, pyamg smoothed aggregation, scipy CG). sevenfold: "
-      "`sevenfold run` with `method = \"auto\"` (the method it used is in the tables).\n")
+      "`sevenfold run` with `method = \"auto\"` (the method it used is in the tables), which runs BLAS on "
+      "one thread (`sevenfold.one_blas_thread`; this process's warm solves too); the baseline runs in "
+      "the environment the benchmark was given, with its libraries' defaults.\n")
     w("Columns: *whole* = wall time of the whole process (interpreter start to exit) and *peak RSS* of that "
       "child, both from /usr/bin/time; *own* = sevenfold's job time from its summary line (job file read "
       "to result written), the baseline's assembly + setup + solve; *work units* = (setup + solve) / one "
