@@ -19,7 +19,7 @@ For each job, alternating ``--rounds`` times, best of:
 * *warm solves*: a child process that builds the job and runs gmg's set-up + solve in its own
   process (one untimed solve, then the best of three, ``restrict_bench.warm_gmg``), with each
   setting; work units = those seconds over one two-thread float64 operator application timed
-  in the same child.
+  in the same child (which imports numpy before sevenfold, so "one" is set for it).
 
 Writes benchmarks/RESULTS_BLAS_THREADS.md.
 """
@@ -53,12 +53,15 @@ print(json.dumps({**row, "apply": apply}))
 SETTINGS = ("one", "cores")
 
 
-def environment(setting: str) -> dict[str, str]:
+def environment(setting: str, command: bool) -> dict[str, str]:
+    """The child's environment: for the command (``command``) "one" leaves the variables
+    unset (the command sets them); a warm-solve child imports numpy before sevenfold, so it is
+    given them."""
     env = {k: v for k, v in engine.GIVEN_ENVIRONMENT.items()
            if k not in ("OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")}
-    if setting == "cores":
-        cores = str(len(os.sched_getaffinity(0)))
-        env.update(OPENBLAS_NUM_THREADS=cores, MKL_NUM_THREADS=cores)
+    threads = str(len(os.sched_getaffinity(0))) if setting == "cores" else None if command else "1"
+    if threads is not None:
+        env.update(OPENBLAS_NUM_THREADS=threads, MKL_NUM_THREADS=threads)
     env["SEVENFOLD_HOME"] = os.environ["SEVENFOLD_HOME"]  # (run.py's: no worker to hand to)
     return env
 
@@ -66,7 +69,7 @@ def environment(setting: str) -> dict[str, str]:
 def whole(job: Path, setting: str) -> tuple[float, float]:
     t = time.perf_counter()
     out = subprocess.run(engine.sevenfold_command() + ["run", "--here", "--no-progress", str(job)],
-                         cwd=job.parent, env=environment(setting), capture_output=True, text=True)
+                         cwd=job.parent, env=environment(setting, True), capture_output=True, text=True)
     wall = time.perf_counter() - t
     if out.returncode != 0:
         raise RuntimeError(f"{job} failed:\n{out.stderr}")
@@ -75,7 +78,7 @@ def whole(job: Path, setting: str) -> tuple[float, float]:
 
 def warm(pattern: str, n: int, setting: str) -> dict[str, float]:
     out = subprocess.run([sys.executable, "-c", CHILD, str(n), pattern, str(HERE)],
-                         env=environment(setting), capture_output=True, text=True)
+                         env=environment(setting, False), capture_output=True, text=True)
     if out.returncode != 0:
         raise RuntimeError(f"the warm solve of {pattern} {n}^3 failed:\n{out.stderr}")
     return json.loads(out.stdout.strip().splitlines()[-1])
