@@ -76,7 +76,8 @@ def balance_table(balance: dict, title: str = "balance") -> Table:
 
     table = Table(title=title, box=None, title_justify="left")
     table.add_column("term")
-    table.add_column(balance.get("units", ""), justify="right")
+    units = balance.get("units", "")
+    table.add_column("" if units == "1" else units, justify="right")  # (dimensionless: no header)
     for label, value in balance_rows(balance):
         table.add_row(escape(label), f"{value:.6g}")
     table.add_row("relative imbalance", f"{balance['relative_imbalance']:.2e}")

@@ -244,16 +244,17 @@ def _num(v: float | None, digits: int = 6) -> str:
 
 def headline_rows(h: dict[str, Any]) -> list[tuple[str, str]]:
     """(label, text) rows of a stored headline, for printed and HTML tables."""
-    u, units = h["solution"], h["units"]
-    rows = [(f"{u} max", f"{_num(h['max']['value'])} {units} at {_xyz(h['max']['at'])}"),
-            (f"{u} min", f"{_num(h['min']['value'])} {units} at {_xyz(h['min']['at'])}")]
+    u = h["solution"]
+    units = "" if h["units"] in ("", "1") else f" {h['units']}"  # (no "1" after a pure number)
+    rows = [(f"{u} max", f"{_num(h['max']['value'])}{units} at {_xyz(h['max']['at'])}"),
+            (f"{u} min", f"{_num(h['min']['value'])}{units} at {_xyz(h['min']['at'])}")]
     for r in h.get("regions", []):
         off = ""
         if geometry_changed(r["volume"], r["shape_volume"]):
             off = " [differs by more than 10%]"
         rows.append((r["label"], f"{r['cells']} cells, {r['volume']:.4g} m^3 selected (shape "
                                  f"{r['shape_volume']:.4g} m^3){off}; {u} mean {_num(r['mean'])}, "
-                                 f"max {_num(r['max'])} {units}"))
+                                 f"max {_num(r['max'])}{units}"))
     for t in h.get("thermal_resistances", []):
         r = t["resistance"]
         text = (f"{_num(r, 4)} K/W" if r is not None else "- (no heat leaves there)")
