@@ -25,6 +25,9 @@ bands, so ``BAND_ENTRIES = 0`` gives the LU exactly as the product ran it before
    in a temporary worktree, its own kernel cache) alternating ``--rounds`` times, best of.
    This part carries everything between ``REVISION`` and the working tree.
 
+This process and its children run BLAS on one thread, as the `sevenfold` command does
+(``run.py`` sets it on import; benchmarks/RESULTS_BLAS_THREADS.md).
+
 Writes benchmarks/RESULTS_COARSEST_BAND.md.
 """
 
@@ -36,13 +39,14 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
+import run as engine  # noqa: E402  (first: BLAS on one thread, as the command runs it)
+
+import numpy as np  # noqa: E402
+
 import cycle_bench as cb  # noqa: E402
 import restrict_bench as rb  # noqa: E402
-import run as engine  # noqa: E402
 import timing  # noqa: E402
 
 RESIDENT = """

@@ -14,8 +14,8 @@ def one_blas_thread() -> None:
     the command line calls it before its first import of numpy; a worker's slot processes get
     the same through their environment. Our kernels run on numba's threads, one per core; a
     BLAS call (a norm, a sparse LU's dense blocks, the coarsest level's factor) wakes BLAS's
-    own threads, which then spin beside them: a warm 128^3 gmg solve took 1.15-1.2 times as
-    long (benchmarks/RESULTS_BLAS_THREADS.md).
+    own threads, which then spin beside them: warm gmg solves took 1.1-1.3 times as long at
+    32^3 to 128^3 and 1.02-1.03 times at 256^3 (benchmarks/RESULTS_BLAS_THREADS.md).
     """
     import os
 

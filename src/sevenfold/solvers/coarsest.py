@@ -5,8 +5,10 @@ coupling is a positive conductance and every level has a held cell, a fixed face
 that anchors it. It is factored as a banded Cholesky factor (LAPACK's pbtrf and pbtrs
 through scipy.linalg), its cells numbered with the longest axis outermost so that the
 bandwidth is the product of the two shorter sides (256 at 16^3). Against scipy's sparse LU
-(SuperLU, minimum degree on A^T + A) the factor takes about half the time and each solve about
-the same (benchmarks/RESULTS_COARSEST_BAND.md), and a run imports no scipy.sparse.
+(SuperLU, minimum degree on A^T + A) the factor takes a third to half the time and each solve
+1.2-1.3 times as long at 16^3 (the band holds more entries than the LU's fill; 8 x 8 x 32
+solves faster), a few percent of a 128^3 solve either way (benchmarks/RESULTS_COARSEST_BAND.md);
+and a gmg run imports no scipy.sparse.
 
 Where the band would be wide (a coarsest level asked larger than the default) or the
 factorisation finds the matrix not positive definite (rounding in a float32 hierarchy could
