@@ -1,14 +1,15 @@
 """The coarsest multigrid level's direct solve.
 
 The level's matrix (at most 16^3 cells by default) is symmetric positive definite: every
-coupling is a positive conductance and every level has a held cell, a fixed face or a pin
-that anchors it. It is factored as a banded Cholesky factor (LAPACK's pbtrf and pbtrs
+coupling is a positive conductance and every level has a held cell, a fixed or convective
+face or a pin that anchors it. It is factored as a banded Cholesky factor (LAPACK's pbtrf and pbtrs
 through scipy.linalg), its cells numbered with the longest axis outermost so that the
 bandwidth is the product of the two shorter sides (256 at 16^3). Against scipy's sparse LU
-(SuperLU, minimum degree on A^T + A) the factor takes a third to half the time and each solve
-1.2-1.3 times as long at 16^3 (the band holds more entries than the LU's fill; 8 x 8 x 32
-solves faster), a few percent of a 128^3 solve either way (benchmarks/RESULTS_COARSEST_BAND.md);
-and a gmg run imports no scipy.sparse.
+(SuperLU, minimum degree on A^T + A) the factor takes a third of the time (10-11 against 30
+ms at 16^3) and each solve about 1.3 times as long (the band holds 1.05 million entries, the
+LU 0.61 million; 8 x 8 x 32 solves faster); warm 128^3 gmg solves took 0.89-0.98 times as
+long, 256^3 ones 0.95-1.01 (benchmarks/RESULTS_COARSEST_BAND.md). A gmg run imports no
+scipy.sparse.
 
 Where the band would be wide (a coarsest level asked larger than the default) or the
 factorisation finds the matrix not positive definite (rounding in a float32 hierarchy could
@@ -35,10 +36,12 @@ class CoarsestSolver:
         self.shape = level.shape
         self.kind = "lu"
         self._lu = None
+        self._factor = None
         band, self._order = level.to_band() if _band_entries(level.shape) <= BAND_ENTRIES else (None, None)
         if band is not None:
-            from scipy.linalg import LinAlgError, cholesky_banded
+            from scipy.linalg import LinAlgError, cho_solve_banded, cholesky_banded
 
+            self._solve_banded = cho_solve_banded
             try:
                 self._factor = cholesky_banded(band, lower=True, overwrite_ab=True,
                                                check_finite=False)
@@ -59,11 +62,9 @@ class CoarsestSolver:
         if self.kind == "lu":
             u[...] = self._lu.solve(b.ravel().astype(np.float64)).reshape(self.shape)
             return
-        from scipy.linalg import cho_solve_banded
-
         order = self._order
-        x = cho_solve_banded((self._factor, True), b.transpose(order).astype(np.float64).ravel(),
-                             check_finite=False)
+        x = self._solve_banded((self._factor, True), b.transpose(order).astype(np.float64).ravel(),
+                               check_finite=False)
         u.transpose(order)[...] = x.reshape(tuple(self.shape[a] for a in order))
 
 
