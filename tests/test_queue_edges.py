@@ -427,3 +427,22 @@ def test_the_warm_up_lock_is_taken_in_the_cache_and_skipped_where_there_is_none(
         ran.append(True)
     assert ran == [True]
     assert "warm-up without a lock: cannot cache function" in capsys.readouterr().err
+
+
+def test_a_slots_process_runs_numba_and_numexpr_on_its_share_and_blas_on_one() -> None:
+    """The environment a slot's child starts with (queue.worker.slot_environment), asked of a
+    fresh interpreter: numexpr followed OMP_NUM_THREADS = 1 before it was given its own."""
+    import json
+    import subprocess
+    import sys
+
+    from sevenfold.queue.worker import slot_environment
+
+    probe = ("import json, numba, numexpr; print(json.dumps([numba.config.NUMBA_NUM_THREADS, "
+             "numexpr.get_num_threads()]))")
+    proc = subprocess.run([sys.executable, "-c", probe], env=slot_environment(2),
+                          capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    assert json.loads(proc.stdout.strip().splitlines()[-1]) == [2, 2]
+    env = slot_environment(1)
+    assert env["OPENBLAS_NUM_THREADS"] == env["MKL_NUM_THREADS"] == "1"

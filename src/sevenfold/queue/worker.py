@@ -81,20 +81,29 @@ def describe_exit(code: int | None) -> str:
     return f"exited with status {code}"
 
 
+def slot_environment(threads: int) -> dict[str, str]:
+    """The environment of a slot's child process: this one's, with its share of the cores."""
+    env = dict(os.environ)
+    env.update({
+        "NUMBA_NUM_THREADS": str(threads),
+        # numexpr (the job's expressions) on the same share: it would otherwise follow
+        # OMP_NUM_THREADS below and evaluate a 256^3 source on one thread
+        "NUMEXPR_NUM_THREADS": str(threads),
+        # One BLAS thread: the sparse solvers gain nothing from threaded BLAS and lose much
+        # to oversubscription on a busy machine (AMG setup at 24^3: 0.1 s, 0.5-4 s with 2).
+        "OMP_NUM_THREADS": "1",
+        "OPENBLAS_NUM_THREADS": "1",
+        "MKL_NUM_THREADS": "1",
+        "PYTHONUNBUFFERED": "1",
+    })
+    return env
+
+
 class Child:
     """One child process and the line channel to it."""
 
     def __init__(self, home: Home, threads: int, log: Path) -> None:
-        env = dict(os.environ)
-        env.update({
-            "NUMBA_NUM_THREADS": str(threads),
-            # One BLAS thread: the sparse solvers gain nothing from threaded BLAS and lose much
-            # to oversubscription on a busy machine (AMG setup at 24^3: 0.1 s, 0.5-4 s with 2).
-            "OMP_NUM_THREADS": "1",
-            "OPENBLAS_NUM_THREADS": "1",
-            "MKL_NUM_THREADS": "1",
-            "PYTHONUNBUFFERED": "1",
-        })
+        env = slot_environment(threads)
         log.parent.mkdir(parents=True, exist_ok=True)
         self._log = open(log, "ab")
         self.proc = subprocess.Popen(
