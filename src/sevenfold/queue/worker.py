@@ -29,6 +29,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
 
+from .. import BLAS_THREAD_VARIABLES
 from ..errors import QueueError
 from ..memory import available_bytes, human
 from .db import Claim, ClaimResult, Queue
@@ -92,8 +93,7 @@ def slot_environment(threads: int) -> dict[str, str]:
         # One BLAS thread: the sparse solvers gain nothing from threaded BLAS and lose much
         # to oversubscription on a busy machine (AMG setup at 24^3: 0.1 s, 0.5-4 s with 2).
         "OMP_NUM_THREADS": "1",
-        "OPENBLAS_NUM_THREADS": "1",
-        "MKL_NUM_THREADS": "1",
+        **{name: "1" for name in BLAS_THREAD_VARIABLES},
         "PYTHONUNBUFFERED": "1",
     })
     return env
