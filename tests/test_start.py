@@ -33,7 +33,8 @@ path = "{name}.zarr"
 """
 
 HEAVY = ("numba", "pyamg", "matplotlib", "zarr", "scipy.sparse", "scipy.fft", "numexpr",
-         "sevenfold.kernels.stencil", "sevenfold.kernels.assembly", "sevenfold.kernels.vector")
+         "sevenfold.kernels.stencil", "sevenfold.kernels.assembly", "sevenfold.kernels.vector",
+         "sevenfold.queue.db", "sevenfold.queue.handoff")
 
 PROBE = """
 import json, sys
@@ -74,11 +75,13 @@ def test_an_expression_job_loads_numexpr_and_still_no_numba(tmp_path: Path) -> N
 
 
 def test_a_gmg_run_loads_neither_pyamg_nor_matplotlib_nor_scipy_sparse(tmp_path: Path) -> None:
-    info, _ = command("run", "--quiet", str(job(tmp_path, "gmg", k='"1 + x"')))
+    info, _ = command("run", "--quiet", "--home", str(tmp_path / "no-queue"),
+                      str(job(tmp_path, "gmg", k='"1 + x"')))
     assert info["code"] == 0
     loaded = set(info["loaded"])
     assert not loaded & {"pyamg", "matplotlib", "scipy.fft", "scipy.sparse",
-                         "sevenfold.kernels.assembly"}  # (the coarsest level is banded)
+                         "sevenfold.kernels.assembly",  # (the coarsest level is banded)
+                         "sevenfold.queue.db", "sevenfold.queue.handoff"}  # (no queue home)
     assert {"numba", "zarr", "sevenfold.kernels.stencil"} <= loaded  # it does need these
 
 

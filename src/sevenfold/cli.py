@@ -94,6 +94,10 @@ def _run(args: argparse.Namespace) -> int:
 def _run_on_worker(args: argparse.Namespace) -> int | None:
     """``run`` by an idle queue worker on this machine (:mod:`sevenfold.queue.handoff`), shown
     as a run in this process would be; None when there is no such worker."""
+    from .queue.home import has_queue
+
+    if not has_queue(args.home):  # no queue, no worker: the queue's modules stay unloaded
+        return None
     from .queue.handoff import follow, hand_off
     from .runner import probes_csv_path
     from .store import read_attrs

@@ -20,7 +20,7 @@ from typing import Callable
 from ..errors import QueueError
 from .db import FINISHED, Job, Queue
 from .files import pid_alive, remove_partials
-from .home import Home, home_root
+from .home import Home, has_queue, home_root
 from .wake import ring
 from .watch import Progress, read_progress
 from .worker import cores
@@ -70,11 +70,10 @@ def idle_worker(queue: Queue) -> str | None:
 def open_queue(home: str | Path | None = None) -> Queue | None:
     """The queue in ``home`` (else ``$SEVENFOLD_HOME``, else the user data folder) when one
     exists there; None (and nothing made) when there is none or it cannot be opened."""
-    root = home_root(home)
-    if not (root / "queue.db").is_file():
+    if not has_queue(home):
         return None
     try:
-        return Queue(Home(root))
+        return Queue(Home(home_root(home)))
     except QueueError:
         return None
 

@@ -64,6 +64,11 @@ def home_root(home: str | Path | None = None) -> Path:
     return root.resolve()
 
 
+def has_queue(home: str | Path | None = None) -> bool:
+    """Whether the queue home (:func:`home_root`) holds a queue; nothing is created."""
+    return (home_root(home) / "queue.db").is_file()
+
+
 def locate(home: str | Path | None = None, create: bool = True) -> Home:
     """The queue home: ``home``, else ``$SEVENFOLD_HOME``, else the user data directory.
 
@@ -72,7 +77,7 @@ def locate(home: str | Path | None = None, create: bool = True) -> Home:
     and nothing is created.
     """
     root = home_root(home)
-    if not create and not (root / "queue.db").is_file():
+    if not create and not has_queue(root):
         raise QueueError(f"there is no queue in {str(root)!r}; `sevenfold submit` starts one there, "
                          f"or point --home (or ${HOME_ENV}) at the queue you mean")
     try:
