@@ -4,7 +4,7 @@ Between cell centres the value is trilinear in the eight surrounding centres. In
 cell between the outermost centres and a box face, the outermost interval's linear formula
 is extended (linear extrapolation, not clamping), so a field linear in x, y, z is reproduced
 exactly everywhere in the box. Along an axis with a single cell the field is taken as
-constant. Points outside the box are refused when the job is read (spec.py). Held cells
+constant. Points outside the box are refused when the job is read (sevenfold.spec). Held cells
 take part with their held values. Nothing here does I/O.
 """
 

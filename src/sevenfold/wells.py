@@ -93,7 +93,7 @@ def place_wells(wells: tuple[WellSpec, ...], grid: Grid,
     for n, w in enumerate(wells):
         where = f"well.{n}"
         for key, c, e in (("x", w.x, ex), ("y", w.y, ey)):
-            slack = 1e-9 * (e[-1] - e[0])  # as spec.py: rounding of a coordinate given on a face
+            slack = 1e-9 * (e[-1] - e[0])  # as sevenfold.spec: rounding of a coordinate given on a face
             if not e[0] - slack <= c <= e[-1] + slack:
                 raise JobError(f"{w.name!r} at {key} = {c:g} m lies outside the box [{e[0]:g}, {e[-1]:g}]",
                                f"{where}.{key}")
