@@ -44,7 +44,8 @@ PAGE_TARGET = 1.0  # s: a page with 1,000 jobs loads in under a second
 
 def fill(home, n: int) -> dict[str, int]:
     """``n`` jobs in a mix of states, entered as submit and the workers would enter them."""
-    from sevenfold.queue.db import NewJob, Queue
+    from sevenfold.queue.db import Queue
+    from sevenfold.queue.records import NewJob
     from sevenfold.residual_log import ResidualLog, log_path
 
     root = home.root.parent

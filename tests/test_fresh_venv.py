@@ -84,7 +84,8 @@ def test_fresh_install_unwritable_output_is_one_line(venv: Path, tmp_path: Path)
 
 
 def test_fresh_install_list_json_into_a_closed_pipe_ends_quietly(venv: Path, tmp_path: Path) -> None:
-    from sevenfold.queue.db import NewJob, Queue
+    from sevenfold.queue.db import Queue
+    from sevenfold.queue.records import NewJob
     from sevenfold.queue.home import locate
 
     home = locate(tmp_path / "home")

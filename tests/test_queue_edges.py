@@ -20,7 +20,8 @@ import zarr
 from sevenfold.cli import main
 from sevenfold.queue import child, files
 from sevenfold.queue.commands import PUBLIC_FIELDS, public
-from sevenfold.queue.db import NewJob, Queue
+from sevenfold.queue.db import Queue
+from sevenfold.queue.records import NewJob
 from sevenfold.queue.files import read_runs, write_text_atomic
 from sevenfold.queue.home import Home, locate
 from sevenfold.queue.tomlwrite import dumps

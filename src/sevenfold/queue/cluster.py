@@ -37,7 +37,8 @@ from typing import Any, Callable
 
 from ..errors import QueueError
 from ..memory import human
-from .db import Claim, Queue
+from .db import Queue
+from .records import Claim
 from .files import read_runs, remove_partials
 from .home import Home, Timing
 

@@ -18,7 +18,8 @@ from typing import Any
 from rich.markup import escape
 
 from ..errors import QueueError
-from .db import FINISHED, STATES, Job, Queue, stamp
+from .db import Queue
+from .records import FINISHED, STATES, Job, stamp
 from .home import Home, locate
 
 STATE_STYLE = {"queued": "cyan", "running": "yellow", "done": "green", "failed": "red", "cancelled": "magenta"}

@@ -18,7 +18,8 @@ from pathlib import Path
 from typing import Callable
 
 from ..errors import QueueError
-from .db import FINISHED, Job, Queue
+from .db import Queue
+from .records import FINISHED, Job
 from .files import pid_alive, remove_partials
 from .home import Home, has_queue, home_root
 from .wake import ring

@@ -22,7 +22,8 @@ from pathlib import Path
 from typing import Any, Sequence
 
 from ..errors import JobError
-from .db import DEFAULT_MAX_ATTEMPTS, Job, NewBatch, NewJob, Queue
+from .db import DEFAULT_MAX_ATTEMPTS, Queue
+from .records import Job, NewBatch, NewJob
 from .files import snapshot_input
 from .home import Home
 from .sweep import Variant, expand

@@ -17,7 +17,7 @@ from rich.table import Table
 
 from ..errors import QueueError
 from .commands import PUBLIC_FIELDS, STATE_STYLE, clean_stale, consoles, duration, public, queue_of, ran_seconds
-from .db import STATES, Job, stamp
+from .records import STATES, Job, stamp
 
 
 # ---------------------------------------------------------------- list

@@ -32,7 +32,8 @@ from typing import Any, Callable
 from .. import BLAS_THREAD_VARIABLES
 from ..errors import QueueError
 from ..memory import available_bytes, human
-from .db import Claim, ClaimResult, Queue
+from .db import Queue
+from .records import Claim, ClaimResult
 from .files import remove_partials, write_text_atomic
 from .home import Home, Timing
 from .tomlwrite import dumps

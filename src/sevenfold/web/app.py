@@ -30,7 +30,8 @@ from starlette.staticfiles import StaticFiles
 from ..errors import QueueError
 from ..queue.commands import duration, public
 from ..queue.views import show_rows
-from ..queue.db import STATES, Job, Queue, stamp
+from ..queue.db import Queue
+from ..queue.records import STATES, Job, stamp
 from .data import Logs, NoQueue, NotFound, Reader, Results, now
 
 TOKEN_HEADER = "X-Sevenfold-Token"

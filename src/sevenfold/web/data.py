@@ -18,8 +18,9 @@ from collections import OrderedDict, deque
 from pathlib import Path
 from typing import Any
 
-from ..queue.db import Job, Queue
+from ..queue.db import Queue
 from ..queue.home import Home, Timing
+from ..queue.records import Job
 from ..queue.watch import RATE_WINDOW, Progress, describe, rate, remaining, seconds_per_iteration
 from ..residual_log import log_path
 
