@@ -8,7 +8,7 @@ import pytest
 import scipy.sparse.linalg as sla
 from conftest import make_spec, solve_spec
 from gmg_cases import graded_level
-from sevenfold.operator import assemble
+from sevenfold.operator import assemble, scatter
 from sevenfold.problem import build_problem
 from sevenfold.solvers.gmg import DEFAULTS, FineOperator, Hierarchy, fine_level, solve_gmg, solve_levels
 
@@ -641,3 +641,41 @@ def test_finest_level_passes_per_iteration(monkeypatch, finest) -> None:
     assert counts["line_factor"] == (1 if finest == "copy" else applications), counts
     # A p per iteration and the final true residual b - A x (a zero start needs no product)
     assert counts["apply_dot"] == result.iterations + 1, (counts, result.iterations)
+
+
+def faulted_layers(n: int, k_weak: float):
+    """Three weak layers across x (k_weak against 1), their edges off the coarse cells and
+    shifted by 0.043 between y < 0.5 and y > 0.5: every path from x_min to x_max crosses them."""
+    regions = []
+    for lo, hi in ((0.11, 0.17), (0.37, 0.41), (0.63, 0.70)):
+        for y0, y1, shift in ((0.0, 0.5, 0.0), (0.5, 1.0, 0.043)):
+            regions.append({"box": {"min": [lo + shift, y0, 0.0], "max": [hi + shift, y1, 1.0]},
+                            "value": k_weak})
+    return build_problem(make_spec(
+        grid={"cells": [n, n, n], "size": [1.0, 1.0, 1.0]},
+        material={"value": 1.0, "region": regions}, source={"value": 0.0},
+        boundary={"x_min": {"type": "dirichlet", "value": 1.0}, "x_max": {"type": "dirichlet", "value": 0.0}},
+    ))
+
+
+def test_high_contrast_runs_the_levels_in_float64() -> None:
+    """Above FLOAT32_CONTRAST the preconditioner's levels are float64, and the cycle keeps its
+    iterations; float32 levels round each diagonal to about 6e-8 of itself, which swamps the
+    1e-8 couplings through the layers (measured at 32^3: 16 iterations in float32 against 5;
+    at 64^3 float32 stagnated at 1.7e-2). The answer agrees with scipy's direct solve."""
+    problem = faulted_layers(32, 1e-8)
+    u, result = solve_gmg(problem, 1e-8, 100)
+    assert "float64 preconditioner (coefficient contrast 1.0e+08" in result.notes
+    assert result.iterations <= 6, result.iterations
+    forced = solve_gmg(problem, 1e-8, 100, precision="float32")[1]
+    assert forced.iterations >= 2 * result.iterations, forced.iterations  # what the switch avoids
+    system = assemble(problem)
+    direct = scatter(system, problem, sla.spsolve(system.matrix.tocsc(), system.rhs))
+    assert np.abs(u - direct).max() <= 1e-6 * np.abs(direct).max()
+
+
+def test_moderate_contrast_keeps_float32_levels() -> None:
+    """1000:1 (the speed suite's contrast) keeps the float32 levels: half the preconditioner's
+    bytes, the same iterations (RESULTS_PRECISION.md)."""
+    result = solve_gmg(faulted_layers(32, 1e-3), 1e-8, 100)[1]
+    assert "float32 preconditioner" in result.notes and "float64" not in result.notes

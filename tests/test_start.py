@@ -297,3 +297,54 @@ def test_the_command_runs_blas_on_one_thread_unless_told(given) -> None:
     threads = json.loads(proc.stdout.strip().splitlines()[-1])
     assert threads, "no OpenBLAS library found to ask"
     assert set(threads.values()) == {1 if given is None else int(given)}
+
+
+PLAN_PROBE = """
+import json, sys
+from pathlib import Path
+from sevenfold.kernels import assembly, multigrid, stencil, vector, warmup
+from sevenfold.runner import gmg_precision, plan_job, prepare_problem, run_job
+job, out = Path(sys.argv[1]), Path(sys.argv[2])
+plan, problem = prepare_problem(plan_job(job, out))
+precision = gmg_precision(problem)
+warmup.warm_up("gmg", problem.grid.cells, child=False, precision=precision)
+def counts():
+    return {f"{m.__name__}.{n}": len(getattr(m, n).signatures)
+            for m in (assembly, multigrid, stencil, vector) for n in dir(m)
+            if hasattr(getattr(m, n), "signatures")}
+before = counts()
+run_job(job, out)
+after = counts()
+print(json.dumps({"precision": precision,
+                  "added": sorted(k for k in after if after[k] != before[k])}))
+"""
+
+
+@pytest.mark.parametrize("k_weak, precision", [(1e-3, "float32"), (1e-8, "float64")])
+def test_the_warm_up_plan_holds_every_signature_the_run_compiles(tmp_path: Path, k_weak: float,
+                                                                 precision: str) -> None:
+    """A gmg run whose kernels the warm-up compiled (kernels/warmup.py, the plan for the
+    grid and for the levels' float type the coefficient's contrast picks) compiles nothing
+    more, so its first-run notice covers the whole compile. With the float32 plan given to a
+    1e8:1 job the run added eight kernels' signatures."""
+    path = tmp_path / "layer.toml"
+    path.write_text(f"""name = "layer"
+[grid]
+cells = [48, 48, 48]
+size = [1.0, 1.0, 1.0]
+[material]
+value = 1.0
+[[material.region]]
+box = {{ min = [0.37, 0.0, 0.0], max = [0.41, 1.0, 1.0] }}
+value = {k_weak!r}
+[boundary]
+x_min = {{ type = "dirichlet", value = 1.0 }}
+x_max = {{ type = "dirichlet", value = 0.0 }}
+[solver]
+method = "gmg"
+""")
+    proc = subprocess.run([sys.executable, "-c", PLAN_PROBE, str(path), str(tmp_path / "out.zarr")],
+                          capture_output=True, text=True, timeout=600)
+    assert proc.returncode == 0, proc.stderr
+    info = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert info == {"precision": precision, "added": []}

@@ -169,14 +169,23 @@ def prepare_problem(plan: Plan) -> tuple[Plan, Problem]:
     return replace(plan, method=method, memory_bytes=memory), problem
 
 
-def kernel_signatures(method: str, cells: tuple[int, int, int]) -> frozenset[str]:
+def kernel_signatures(method: str, cells: tuple[int, int, int],
+                      precision: str = "float32") -> frozenset[str]:
     """The compiled kernel signatures a run of ``method`` on ``cells`` needs, where they depend
-    on the grid (gmg: its levels, the finest level's precision, serial or threaded vectors)."""
+    on the grid (gmg: its levels, the finest level's precision, serial or threaded vectors)
+    and, for gmg, on the levels' float type ``precision`` (:func:`gmg_precision`)."""
     if method != "gmg":
         return frozenset()
     from .kernels.warmup import signatures
 
-    return signatures(cells)
+    return signatures(cells, precision)
+
+
+def gmg_precision(problem: Problem) -> str:
+    """The float type of gmg's levels for this problem (its coefficient's contrast)."""
+    from .solvers.gmg import preconditioner_precision
+
+    return preconditioner_precision(*problem.coefficient_range)
 
 
 def derived_arrays(spec: JobSpec) -> int:
@@ -268,14 +277,16 @@ def run_job(
         plan.output.parent.mkdir(parents=True, exist_ok=True)
     from .kernels.cache import cold_notice, mark_warm, missing
 
-    needs = kernel_signatures(plan.method, problem.grid.cells)
+    precision = gmg_precision(problem) if plan.method == "gmg" else "float32"
+    needs = kernel_signatures(plan.method, problem.grid.cells, precision)
     compiling = cold_notice(plan.method, needs)  # said before the kernels compile, on a first run
     if compiling and hasattr(monitor, "note"):
         monitor.note(compiling)
     if compiling:  # compiled on both cores before the solve (kernels/warmup.py)
         from .kernels.warmup import warm_up
 
-        warm_up(plan.method, problem.grid.cells, compiled=needs - missing(plan.method, needs))
+        warm_up(plan.method, problem.grid.cells, compiled=needs - missing(plan.method, needs),
+                precision=precision)
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
     stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written

@@ -55,21 +55,23 @@ class GmgPlan:
 
     levels: tuple[int, ...]  # cells of each smoothed level, finest first (the coarsest is LU)
     cells: int  # the finest grid's cells
-    finest: str  # "copy" (float32 copy of the finest level) or "operator" (float64 arrays)
+    finest: str  # "copy" (a copy of the finest level in the levels' type) or "operator" (float64 arrays)
+    precision: str = "float32"  # the levels' float type (gmg.preconditioner_precision)
 
     def encode(self) -> str:
-        return ",".join(map(str, (self.cells, self.finest, *self.levels)))
+        return ",".join(map(str, (self.cells, self.finest, self.precision, *self.levels)))
 
     @classmethod
     def decode(cls, text: str) -> GmgPlan:
-        cells, finest, *levels = text.split(",")
-        return cls(tuple(int(n) for n in levels), int(cells), finest)
+        cells, finest, precision, *levels = text.split(",")
+        return cls(tuple(int(n) for n in levels), int(cells), finest, precision)
 
 
-def gmg_plan(cells: tuple[int, int, int]) -> GmgPlan:
-    """The plan of a gmg run on ``cells``, as the solver will decide it. Level sizes assume
-    every axis is coarsened (the usual case); where the operator keeps an axis fine the real
-    run may compile a signature or build of the coarse levels itself."""
+def gmg_plan(cells: tuple[int, int, int], precision: str = "float32") -> GmgPlan:
+    """The plan of a gmg run on ``cells`` with levels in ``precision``, as the solver will
+    decide it. Level sizes assume every axis is coarsened (the usual case); where the operator
+    keeps an axis fine the real run may compile a signature or build of the coarse levels
+    itself."""
     from ..memory import gmg_finest
     from ..solvers.gmg import COARSEST_CELLS
 
@@ -78,7 +80,7 @@ def gmg_plan(cells: tuple[int, int, int]) -> GmgPlan:
         levels.append(int(np.prod(shape)))
         shape = tuple((c + 1) // 2 for c in shape)
     n = int(np.prod(cells))
-    return GmgPlan(tuple(levels), n, gmg_finest(n))
+    return GmgPlan(tuple(levels), n, gmg_finest(n), precision)
 
 
 def _arrays(dtype, shape=(4, 4, 4), count=1):
@@ -108,8 +110,15 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
     each item's tags (``item[tag]`` names one compiled signature in the cache's markers)."""
     from . import multigrid, stencil, vector
 
-    f64, f32 = np.float64, np.float32
+    f64 = np.float64
+    f32 = np.dtype(plan.precision).type  # the levels' type: float32 unless the contrast is high
     top = f32 if plan.finest == "copy" else f64  # the finest level's smoothing arrays
+    high = f32 == f64  # float64 levels: tags of their own (a float32 hierarchy's finest level
+    # on the float64 operator is tagged "float64" and compiles other argument types)
+
+    def tagged(t) -> str:
+        return "float64 levels" if high else np.dtype(t).name
+
     free = np.ones((4, 4, 4), dtype=np.bool_)
     freec = np.ones((2, 2, 2), dtype=np.bool_)
     widths = [np.ones(4) for _ in range(3)]
@@ -132,10 +141,10 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         stencil.fine_stencil, *_arrays(f64, count=3), ~free, _arrays(f64), _arrays(f64), *widths,
         faces, faces, *_arrays(f64, count=2)))
     for i in range(len(plan.levels)):
-        # every level's arrays and right-hand side are float32 (the finest smooths a float32
-        # copy of CG's residual), except a finest level smoothed on the float64 operator
+        # every level's arrays and right-hand side are in the levels' type (the finest smooths
+        # a copy of CG's residual), except a finest level smoothed on the float64 operator
         level = top if i == 0 else f32
-        tag = np.dtype(level).name
+        tag = tagged(level)
         add("axis_weakness", tag, lambda t=level: _build(
             multigrid.axis_weakness, *_arrays(t, count=3), free, np.ones(3), 2.25, 1, True))
         add("galerkin_scaled", tag, lambda t=level: _build(
@@ -149,27 +158,28 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         add("residual_restrict", tag, lambda t=level: _build(
             stencil.residual_restrict, *_arrays(t, count=4), _arrays(t), _arrays(f32),
             _steps(), _arrays(f32, small)))
-        add("prolong_add", "float32", lambda: _build(
+        add("prolong_add", tagged(f32), lambda: _build(
             stencil.prolong_add, _arrays(f32, small), free, _steps(), 1.0, _arrays(f32)))
-    if plan.levels and top == f32:
+    if plan.levels and top != f64:
         add("narrow", "float32", lambda: _build(multigrid.narrow, np.ones(8), np.ones(8, dtype=f32)))
     add("apply_dot", "float64", lambda: _build(stencil.apply_dot, *_arrays(f64, count=6)))
     ops, name = ((vector.THREADED, "vectors_threaded") if plan.cells >= vector.PARALLEL_FROM
                  else (vector.SERIAL, "vectors_serial"))
 
-    def vectors():  # CG's updates; z, the preconditioner's output, is float32
+    def vectors():  # CG's updates; z, the preconditioner's output, is in the levels' type
         _build(ops.update_solution_and_residual, *(np.ones(8) for _ in range(4)), 0.5)
         _build(ops.update_direction, np.ones(8), np.ones(8, dtype=f32), 0.5)
         _build(ops.dot, np.ones(8), np.ones(8, dtype=f32))
         _build(ops.distance_squared, np.ones(8), np.ones(8))  # the true residual's norm
 
-    add(name, "float64", vectors)
+    add(name, tagged(f64), vectors)  # (tagged by CG's float64 vectors)
     return items, {k: frozenset(v) for k, v in tags.items()}
 
 
-def signatures(cells: tuple[int, int, int]) -> frozenset[str]:
-    """Every compiled signature a gmg run on ``cells`` needs, as ``item[tag]`` names."""
-    return frozenset(f"{name}[{tag}]" for name, tags in _items(gmg_plan(cells))[1].items()
+def signatures(cells: tuple[int, int, int], precision: str = "float32") -> frozenset[str]:
+    """Every compiled signature a gmg run on ``cells`` with levels in ``precision`` needs, as
+    ``item[tag]`` names."""
+    return frozenset(f"{name}[{tag}]" for name, tags in _items(gmg_plan(cells, precision))[1].items()
                      for tag in tags)
 
 
@@ -235,15 +245,16 @@ def _spawn(names: list[str], plan: GmgPlan) -> subprocess.Popen | None:
 
 
 def warm_up(method: str, cells: tuple[int, int, int], child: bool = True,
-            compiled: frozenset[str] = frozenset()) -> list[str]:
-    """Compile ``method``'s kernels for a run on ``cells`` over two processes (only gmg has a
-    plan; other methods compile as they run), leaving out the items whose signatures are all
-    in ``compiled`` (``item[tag]`` names, :func:`signatures`). With ``child`` False everything
-    is compiled in this process. Returns the items this process compiled; never raises."""
+            compiled: frozenset[str] = frozenset(), precision: str = "float32") -> list[str]:
+    """Compile ``method``'s kernels for a run on ``cells`` (gmg: levels in ``precision``)
+    over two processes (only gmg has a plan; other methods compile as they run), leaving out
+    the items whose signatures are all in ``compiled`` (``item[tag]`` names,
+    :func:`signatures`). With ``child`` False everything is compiled in this process. Returns
+    the items this process compiled; never raises."""
     try:
         if method != "gmg":
             return []
-        plan = gmg_plan(cells)
+        plan = gmg_plan(cells, precision)
         items, signatures = _items(plan)
         names = [n for n in items if any(f"{n}[{t}]" not in compiled for t in signatures[n])]
         mine, theirs = split(names, signatures) if child else (names, [])

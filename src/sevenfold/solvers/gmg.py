@@ -58,6 +58,14 @@ from .levels import Level, coarsening_step, strong_z
 # thin 1000:1 layers are still resolved (coarser aggregates of layered media slowed the cycle
 # from 8 to 20 iterations at 128^3; benchmarks/RESULTS_CYCLE.md)
 COARSEST_CELLS = 4096
+# Coefficient contrast (largest k over smallest, any direction) above which the
+# preconditioner's levels run in float64. A float32 level rounds each diagonal to about 6e-8 of
+# itself; where the strong material borders the weak one that error rivals the couplings
+# through the weak material, which carry the slowest errors, and the cycle stops reducing them.
+# Layers across the flow (benchmarks/RESULTS_PRECISION.md): 1e5:1 and below take the same
+# iterations in float32 as in float64; 1e6:1 at 128^3 took 29 against 5, and 1e8:1 at 64^3
+# stagnated at 1.7e-2 against 5. The switch sits a decade below the last contrast measured safe.
+FLOAT32_CONTRAST = 1e4
 # Levels smaller than this run their kernels on one thread: there the cost of waking and
 # joining threads exceeds the work, and it grows sharply when another process holds a core.
 SERIAL_BELOW = 32_768
@@ -359,12 +367,22 @@ def solve_levels(fine: Level, b: np.ndarray, rtol: float, max_iterations: int,
     return result, hierarchy
 
 
+def preconditioner_precision(k_min: float, k_max: float) -> str:
+    """The levels' float type for a coefficient ranging over [k_min, k_max] (FLOAT32_CONTRAST)."""
+    return "float32" if k_max <= FLOAT32_CONTRAST * k_min else "float64"
+
+
 def solve_gmg(problem, rtol: float, max_iterations: int, monitor: Monitor | None = None,
               stagnation_window: int = 50, **options) -> tuple[np.ndarray, SolveResult]:
     """CG preconditioned by the multigrid cycle; returns u on the full grid (0 on held cells)
-    and the solve's record (face arrays built in ``assembly_seconds``, levels in ``setup``)."""
+    and the solve's record (face arrays built in ``assembly_seconds``, levels in ``setup``).
+    The levels run in float32 unless the coefficient's contrast asks for float64
+    (:func:`preconditioner_precision`) or ``precision`` is given."""
     from ..memory import gmg_finest
 
+    k_min, k_max = problem.coefficient_range
+    chosen = "precision" not in options
+    options.setdefault("precision", preconditioner_precision(k_min, k_max))
     t0 = time.perf_counter()
     fine, b = fine_level(problem)
     if hasattr(monitor, "operator_built"):  # the problem's cell fields may go now
@@ -374,4 +392,8 @@ def solve_gmg(problem, rtol: float, max_iterations: int, monitor: Monitor | None
     result, hierarchy = solve_levels(fine, b, rtol, max_iterations, monitor, stagnation_window,
                                      **options)
     result.assembly_seconds = t1 - t0
+    if chosen and options["precision"] == "float64":
+        contrast = k_max / k_min if k_min > 0 else float("inf")
+        result.notes += (f", float64 preconditioner (coefficient contrast {contrast:.1e} > "
+                         f"{FLOAT32_CONTRAST:.0e}: float32 levels would lose the weak material)")
     return result.x.reshape(fine.shape), result
