@@ -84,7 +84,7 @@ def main(argv: list[str] | None = None) -> int:
                             best[precision] = row
                         gc.collect()
                 f32, f64 = best["float32"], best["float64"]
-                picks = preconditioner_precision(1.0 / contrast, 1.0)
+                picks = preconditioner_precision(contrast)
                 lines.append(f"| {n}^3 | {contrast:.0e} | {picks} | {f32['iterations']} | {f32['residual']} | "
                              f"{f32['seconds']:.3f} | {f64['iterations']} | {f64['residual']} | "
                              f"{f64['seconds']:.3f} | {f64['seconds'] / f32['seconds']:.2f} |")

@@ -183,9 +183,9 @@ def kernel_signatures(method: str, cells: tuple[int, int, int],
 
 def gmg_precision(problem: Problem) -> str:
     """The float type of gmg's levels for this problem (its coefficient's contrast)."""
-    from .solvers.gmg import preconditioner_precision
+    from .solvers.gmg import coefficient_contrast, preconditioner_precision
 
-    return preconditioner_precision(*problem.coefficient_range)
+    return preconditioner_precision(coefficient_contrast(problem))
 
 
 def derived_arrays(spec: JobSpec) -> int:
