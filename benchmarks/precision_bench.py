@@ -10,7 +10,7 @@ and contrast, gmg-CG to rtol 1e-8 from zero with the levels in float32 and in fl
 one untimed solve, then the two alternating, best of ``--rounds`` by set-up + solve wall
 seconds; iterations and the true relative residual, or where the solve stopped short (at most
 100 iterations; stagnation over 50). ``preconditioner_precision`` gives the type the product
-picks for that contrast (``gmg.FLOAT32_CONTRAST``).
+picks for that contrast (``solvers.precision.FLOAT32_CONTRAST``).
 
 This process runs BLAS on one thread, as the `sevenfold` command does (``run.py``).
 Writes benchmarks/RESULTS_PRECISION.md.
@@ -31,7 +31,8 @@ import run as engine  # noqa: E402  (first: BLAS on one thread, as the command r
 import speed  # noqa: E402
 from sevenfold.errors import SolverError  # noqa: E402
 from sevenfold.problem import build_problem  # noqa: E402
-from sevenfold.solvers.gmg import FLOAT32_CONTRAST, preconditioner_precision, solve_gmg  # noqa: E402
+from sevenfold.solvers.gmg import solve_gmg  # noqa: E402
+from sevenfold.solvers.precision import FLOAT32_CONTRAST, preconditioner_precision  # noqa: E402
 from sevenfold.spec import load_job  # noqa: E402
 
 MAX_ITERATIONS = 100
@@ -67,7 +68,7 @@ def main(argv: list[str] | None = None) -> int:
                                      "The preconditioner's float type against coefficient contrast")
     lines += [__doc__.split("\n\n")[2].replace("\n", " "), "",
               f"The product picks float32 up to a contrast of {FLOAT32_CONTRAST:.0e} "
-              "(`gmg.FLOAT32_CONTRAST`), float64 above.", "",
+              "(`solvers.precision.FLOAT32_CONTRAST`), float64 above.", "",
               "| cells | contrast | product picks | float32 iterations | float32 residual | float32 s | "
               "float64 iterations | float64 residual | float64 s | float64 / float32 time |",
               "|---|---|---|---|---|---|---|---|---|---|"]

@@ -32,6 +32,12 @@ import os
 BASE_BYTES = 200 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
 LEAN_GMG_BYTES_PER_CELL = 78
 COPY_BYTES_PER_CELL = 20  # the float32 copy of the finest face arrays and its pivots
+# gmg's levels in float64 (a high-contrast coefficient, solvers/precision.FLOAT32_CONTRAST): no
+# float32 copy of the finest level, but its line pivots in float64 (8; the shared buffer holds
+# the float64 correction) and coarse levels of twice the bytes (4 more): measured 109 bytes per
+# cell above the base at 256^3 with the fields kept (float32: 117) and 88.9 lean at 336^3
+# (float32: 77.0), 1e8:1 layers against 1e3:1 (2026-12-04, one-offs)
+FLOAT64_LEVELS_BYTES_PER_CELL = 12
 # what the gmg solve still allocates once the face arrays exist, with the float32 copy: CG's
 # four vectors (32), the copy (16), pivots (4), coarse levels (4)
 GMG_SOLVE_BYTES_PER_CELL = 56
@@ -48,15 +54,20 @@ LU_BYTES_PER_FILL = 520  # times unknowns^(4/3) (SuperLU with COLAMD fills faste
 FIELD_BYTES_PER_CELL = 8  # each derived array stored with the result
 
 
-def estimate_bytes(cells: int, unknowns: int, method: str, derived_arrays: int = 0) -> int:
+def estimate_bytes(cells: int, unknowns: int, method: str, derived_arrays: int = 0,
+                   float64_levels: bool = False) -> int:
     """Estimated peak resident memory of a job in bytes (``derived_arrays`` extra outputs);
     for gmg the lean variant's from LEAN_FROM_CELLS up or when the usual one would not fit in
-    the available memory."""
+    the available memory, and with ``float64_levels`` a preconditioner in float64."""
     per_cell = BYTES_PER_CELL.get(method, BYTES_PER_CELL["amg"]) + FIELD_BYTES_PER_CELL * derived_arrays
     if method == "gmg" and cells >= LEAN_FROM_CELLS:
         per_cell += LEAN_GMG_BYTES_PER_CELL - BYTES_PER_CELL["gmg"]
+    elif method == "gmg" and float64_levels:  # no float32 copy to drop
+        per_cell -= COPY_BYTES_PER_CELL
+    if method == "gmg" and float64_levels:
+        per_cell += FLOAT64_LEVELS_BYTES_PER_CELL
     total = BASE_BYTES + per_cell * cells
-    if method == "gmg" and cells < LEAN_FROM_CELLS and total > available_bytes():
+    if method == "gmg" and not float64_levels and cells < LEAN_FROM_CELLS and total > available_bytes():
         total -= COPY_BYTES_PER_CELL * cells
     if method == "direct":
         total += int(LU_BYTES_PER_FILL * unknowns ** (4 / 3))

@@ -165,8 +165,11 @@ def prepare_problem(plan: Plan) -> tuple[Plan, Problem]:
         method = method_for(plan.spec.solver, problem)
     except JobError as exc:
         raise exc.located(str(plan.job_file)) if not exc.source else exc
-    memory = estimate_bytes(plan.cells, problem.unknowns, method, derived_arrays(plan.spec))
-    return replace(plan, method=method, memory_bytes=memory), problem
+    float64_levels = method == "gmg" and gmg_precision(problem) == "float64"
+    memory = estimate_bytes(plan.cells, problem.unknowns, method, derived_arrays(plan.spec), float64_levels)
+    settled = replace(plan, method=method, memory_bytes=memory)
+    refuse_if_too_large(settled)  # (float64 levels weigh more than the plan assumed)
+    return settled, problem
 
 
 def kernel_signatures(method: str, cells: tuple[int, int, int],
@@ -183,7 +186,7 @@ def kernel_signatures(method: str, cells: tuple[int, int, int],
 
 def gmg_precision(problem: Problem) -> str:
     """The float type of gmg's levels for this problem (its coefficient's contrast)."""
-    from .solvers.gmg import coefficient_contrast, preconditioner_precision
+    from .solvers.precision import coefficient_contrast, preconditioner_precision
 
     return preconditioner_precision(coefficient_contrast(problem))
 

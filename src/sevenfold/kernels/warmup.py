@@ -56,7 +56,7 @@ class GmgPlan:
     levels: tuple[int, ...]  # cells of each smoothed level, finest first (the coarsest is LU)
     cells: int  # the finest grid's cells
     finest: str  # "copy" (a copy of the finest level in the levels' type) or "operator" (float64 arrays)
-    precision: str = "float32"  # the levels' float type (gmg.preconditioner_precision)
+    precision: str = "float32"  # the levels' float type (solvers.precision)
 
     def encode(self) -> str:
         return ",".join(map(str, (self.cells, self.finest, self.precision, *self.levels)))
