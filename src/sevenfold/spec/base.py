@@ -130,7 +130,13 @@ class _Shaped(_Frozen):
 
 
 # Names of probes and wells: they become file names and column headers
-PLAIN_NAME = re.compile(r"^[A-Za-z0-9_-]+$")
+_PLAIN_NAME = re.compile(r"^[A-Za-z0-9_-]+$")
+
+
+def _plain_name(v: str) -> str:
+    if not _PLAIN_NAME.match(v):
+        raise ValueError("name may use only letters, digits, '_' and '-'")
+    return v
 
 
 def _positive(v: Any, what: str) -> float:

@@ -6,7 +6,7 @@ from typing import TYPE_CHECKING, Annotated, Any, Literal, Union
 
 from pydantic import Field, field_validator, model_validator
 
-from .base import FACES, PLAIN_NAME, Box, Scalar, _Frozen, _number, _positive, _scalar, _Shaped
+from .base import FACES, Box, Scalar, _Frozen, _number, _plain_name, _positive, _scalar, _Shaped
 
 if TYPE_CHECKING:
     from .job import JobSpec
@@ -102,12 +102,7 @@ class WellSpec(_Frozen):
     _n = field_validator("x", "y", "top", "bottom", "radius", "rate", "head", mode="before")(
         lambda cls, v: _number(v))
 
-    @field_validator("name")
-    @classmethod
-    def _name(cls, v: str) -> str:
-        if not PLAIN_NAME.match(v):
-            raise ValueError("name may use only letters, digits, '_' and '-'")
-        return v
+    _nm = field_validator("name")(lambda cls, v: _plain_name(v))
 
     @field_validator("radius")
     @classmethod

@@ -10,7 +10,7 @@ from pydantic import PrivateAttr, ValidationError, field_validator, model_valida
 
 from ..errors import JobError
 from ..physics import DERIVED
-from .base import PLAIN_NAME, Vector3, _Frozen, _reason, _unique_names, _vector, _where
+from .base import Vector3, _Frozen, _plain_name, _reason, _unique_names, _vector, _where
 from .conditions import (BoundarySpec, ContactSpec, ExchangeSpec, HoldSpec, PatchSpec, WellSpec,
                          check_wells_and_electrodes)
 from .fields import MaterialSpec, SourceSpec
@@ -97,12 +97,7 @@ class ProbeSpec(_Frozen):
 
     _v = field_validator("point", mode="before")(lambda cls, v: _vector(v))
 
-    @field_validator("name")
-    @classmethod
-    def _name(cls, v: str) -> str:
-        if not PLAIN_NAME.match(v):
-            raise ValueError("name may use only letters, digits, '_' and '-'")
-        return v
+    _nm = field_validator("name")(lambda cls, v: _plain_name(v))
 
     @model_validator(mode="after")
     def _one_kind(self) -> "ProbeSpec":
