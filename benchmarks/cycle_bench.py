@@ -141,7 +141,22 @@ def column_table(n: int) -> dict:
             "solver": {"method": "gmg"}}
 
 
+def contact_table(n: int) -> dict:
+    """k = 1 with a contact resistance of 15.6 on the plane x = 23/64 (a cell edge for n a
+    multiple of 64; inside a pair of cells at the first coarsening where its cells split
+    along x, for n = 64 between cells 22 and 23), 1000 times a cell's own resistance at 64^3;
+    u = 1 at x_min, 0 at x_max."""
+    return {"name": f"contact-{n}", "grid": {"cells": [n, n, n], "size": [1.0, 1.0, 1.0]},
+            "material": {"value": 1.0}, "source": {"value": 0.0},
+            "contact": [{"axis": "x", "at": 23 / 64, "resistance": 15.6}],
+            "boundary": {"x_min": {"type": "dirichlet", "value": 1.0},
+                         "x_max": {"type": "dirichlet", "value": 0.0}},
+            "solver": {"method": "gmg"}}
+
+
 def problem_level(n: int, case: str):
+    if case == "contact":
+        return fine_level(build_problem(parse_job(contact_table(n), "bench")))
     if case == "column":
         return fine_level(build_problem(parse_job(column_table(n), "bench")))
     if case == "graded":

@@ -2,6 +2,7 @@
 per level and axis so that coefficient jumps fall between aggregates, not inside them.
 
     python benchmarks/wall_bench.py [--sizes 128 256] [--cases column layered inclusions]
+        [--designs kept walls ...] [--results FILE]
 
 The kept hierarchy pairs cells (0, 1), (2, 3), ... along every coarsened axis. Issue 10's
 1000:1 column has its walls where (i + 1/2) / n crosses 0.3 and 0.7: at 128^3 between cells 37
@@ -198,12 +199,34 @@ def wall_offsets(lv: Level, step: np.ndarray) -> np.ndarray:
     return off
 
 
+def weak_face_offsets(lv: Level, step: np.ndarray) -> np.ndarray:
+    """:func:`wall_offsets`, and on each coarsened axis where some face couples its cells more
+    than WALL times more weakly than a neighbouring face along the axis (a contact
+    resistance, which leaves the two cells' diagonals nearly equal), the offset that puts more
+    of those faces between pairs."""
+    off = wall_offsets(lv, step)
+    for axis, t in enumerate((lv.tx, lv.ty, lv.tz)):
+        n = lv.shape[axis]
+        if step[axis] == 1 or n < 4:
+            continue
+        t = t.astype(np.float64)
+        face = np.take(t, np.arange(1, n - 2), axis=axis)
+        around = np.maximum(np.take(t, np.arange(0, n - 3), axis=axis), np.take(t, np.arange(2, n - 1), axis=axis))
+        weak = (face * WALL < around).sum(axis=tuple(a for a in range(3) if a != axis))
+        at = np.arange(1, n - 2)  # the face between cells i and i + 1
+        even, odd = weak[at % 2 == 0].sum(), weak[at % 2 == 1].sum()
+        if even + odd:
+            off[axis] = 1 if even > odd else 0
+    return off
+
+
 class WallHierarchy(gmg.Hierarchy):
     """The kept hierarchy (W(2,2), z-lines, scaled aggregation, float32 levels, finest level
     on a float32 copy) with shifted pairs (``follow=True``) or the kept ones (False: the
     same code with every offset 0, a check of the prototype against the product)."""
 
-    def __init__(self, fine: Level, follow: bool = True, out: np.ndarray | None = None) -> None:
+    def __init__(self, fine: Level, follow: bool = True, out: np.ndarray | None = None,
+                 offsets=wall_offsets) -> None:
         self.dtype = np.dtype(np.float32)
         self.transfer, self.smoother, self.overcorrection = "scaled", "line", 1.0
         self.gamma, self.sweeps = 2, (2, 2)
@@ -220,7 +243,7 @@ class WallHierarchy(gmg.Hierarchy):
             step = coarsening_step(lv, True)
             if not (step > 1).any():
                 break
-            off = wall_offsets(lv, step) if follow else np.zeros(3, dtype=np.int64)
+            off = offsets(lv, step) if follow else np.zeros(3, dtype=np.int64)
             lv.step, lv.off = step, off
             cshape = tuple(int((n + o + s - 1) // s) for n, s, o in zip(lv.shape, step, off))
             arrays = [np.empty(cshape, dtype=self.dtype) for _ in range(4)]
@@ -259,22 +282,26 @@ class WallHierarchy(gmg.Hierarchy):
 
 def solve(fine, b, design: str):
     """gmg-CG with the kept Hierarchy ("kept"), the prototype unshifted ("prototype, pairs as
-    kept") or shifted ("walls")."""
+    kept") or shifted ("walls"; "walls and weak faces" with :func:`weak_face_offsets`)."""
     kept = gmg.Hierarchy
     if design != "kept":
-        gmg.Hierarchy = lambda fine, out=None, **_: WallHierarchy(fine, design == "walls", out)
+        follow = design != "prototype, pairs as kept"
+        offsets = weak_face_offsets if design == "walls and weak faces" else wall_offsets
+        gmg.Hierarchy = lambda fine, out=None, **_: WallHierarchy(fine, follow, out, offsets)
     try:
         return gmg.solve_levels(fine, b, cb.RTOL, cb.MAX_ITERATIONS, finest="copy")
     finally:
         gmg.Hierarchy = kept
 
 
-DESIGNS = ("kept", "prototype, pairs as kept", "walls")
+DESIGNS = ("kept", "prototype, pairs as kept", "walls", "walls and weak faces")
 TITLE = "Aggregates that follow walls (a prototype)"
 INTRO = ("*kept* = `sevenfold.solvers.gmg`'s hierarchy; *prototype, pairs as kept* = this file's "
          "hierarchy with every offset 0 (it must match *kept*'s iterations: the check that the "
          "prototype's kernels are the kept ones); *walls* = pairs shifted per level and axis so "
-         "that walls fall between aggregates (*offsets*: x, y, z per level, 1 = shifted). See "
+         "that walls fall between aggregates (*offsets*: x, y, z per level, 1 = shifted); *walls "
+         "and weak faces* = the same, also counting faces WALL times weaker than a neighbouring "
+         "face along their axis (a contact resistance, `weak_face_offsets`). See "
          "the docstring of `benchmarks/wall_bench.py` for the design.")
 
 
@@ -375,16 +402,17 @@ def main(argv=None, script: str = "wall_bench.py", results: str = "RESULTS_WALLS
     parser.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     parser.add_argument("--cases", nargs="+", default=["column", "layered", "inclusions", "constant"])
     parser.add_argument("--repeats", type=int, default=1)
+    parser.add_argument("--designs", nargs="+", default=list(designs), choices=list(designs))
     parser.add_argument("--results", default=str(HERE / results))
     args = parser.parse_args(argv)
     numba.set_num_threads(1)
     info = run_info()
-    run_case(24, "column", 1, designs, solver)  # compile every kernel before timing
+    run_case(24, "column", 1, args.designs, solver)  # compile every kernel before timing
     print("timed runs", flush=True)
     rows = []
     for n in args.sizes:
         for case in args.cases:
-            rows += run_case(n, case, args.repeats, designs, solver)
+            rows += run_case(n, case, args.repeats, args.designs, solver)
     command = finish_info(info, script, argv)
     Path(args.results).write_text(report(rows, info, command, **text))
     print("wrote", args.results)
