@@ -19,6 +19,28 @@ def test_check_shows_the_plan(tmp_path: Path, capsys) -> None:
     assert "12 x 10 x 8 = 960" in text and "memory" in text and "valid" in text
 
 
+def test_check_says_when_gmg_runs_its_levels_in_float64(tmp_path: Path, capsys) -> None:
+    """A 1e8:1 layer: `check` names the float64 preconditioner and the contrast that asks for
+    it (solvers/precision.py); 1000:1 says nothing of it."""
+    for k, said in ((1e-8, True), (1e-3, False)):
+        job = tmp_path / f"layer{k:g}.toml"
+        job.write_text(f"""name = "layer"
+[grid]
+cells = [16, 16, 16]
+size = [1.0, 1.0, 1.0]
+[material]
+value = 1.0
+[[material.region]]
+box = {{ min = [0.4, 0.0, 0.0], max = [0.6, 1.0, 1.0] }}
+value = {k!r}
+[solver]
+method = "gmg"
+""")
+        assert main(["check", str(job)]) == 0
+        text = " ".join(capsys.readouterr().out.split())
+        assert ("float64 preconditioner (coefficient contrast 1.0e+08" in text) is said, text
+
+
 def test_run_exit_codes(tmp_path: Path, capsys) -> None:
     job = write_job(tmp_path, method="amg")
     assert main(["run", "--no-progress", str(job), "--output", str(tmp_path / "out.zarr")]) == 0

@@ -30,6 +30,7 @@ def _check(args: argparse.Namespace) -> int:
     from .memory import human
     from .conditions import placed_rows
     from .runner import plan_job, prepare_problem
+    from .solvers.precision import coefficient_contrast, precision_note
     from .units import unit_notes
 
     plan = plan_job(args.job)
@@ -38,6 +39,10 @@ def _check(args: argparse.Namespace) -> int:
     table = Table(show_header=False, box=None)
     grid = problem.grid
     nx, ny, nz = grid.cells
+
+    method = plan.method + (" (chosen by auto)" if spec.solver.method == "auto" else "")
+    if plan.method == "gmg" and (note := precision_note(coefficient_contrast(problem))):
+        method += f"; {note}"
 
     def widths(a: int) -> str:
         lo, hi = grid.min_width()[a], grid.max_width()[a]
@@ -51,7 +56,7 @@ def _check(args: argparse.Namespace) -> int:
         ("coefficient", "directional (kx, ky, kz)" if not problem.isotropic else "one value for every direction"),
         *placed_rows(problem),
         ("unknowns", f"{problem.unknowns:,}" + (" (pure Neumann: one cell pinned, mean(u) = 0)" if problem.gauge_mean_zero else "")),
-        ("method", f"{plan.method}" + (" (chosen by auto)" if spec.solver.method == "auto" else "")),
+        ("method", method),
         ("memory", f"about {human(plan.memory_bytes)} of {human(plan.available_bytes)} available"),
         ("output", str(plan.output)),
         *(("units", note) for note in unit_notes(spec)),

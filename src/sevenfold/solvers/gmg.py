@@ -53,7 +53,7 @@ from ..kernels import multigrid, stencil
 from .cg import Monitor, SolveResult, pcg
 from .coarsest import CoarsestSolver
 from .levels import Level, coarsening_step, strong_z
-from .precision import FLOAT32_CONTRAST, coefficient_contrast, preconditioner_precision
+from .precision import coefficient_contrast, precision_note, preconditioner_precision
 
 # The coarsest level is factorised (coarsest.py); 16^3 keeps the aggregation levels where
 # thin 1000:1 layers are still resolved (coarser aggregates of layered media slowed the cycle
@@ -380,7 +380,6 @@ def solve_gmg(problem, rtol: float, max_iterations: int, monitor: Monitor | None
     result, hierarchy = solve_levels(fine, b, rtol, max_iterations, monitor, stagnation_window,
                                      **options)
     result.assembly_seconds = t1 - t0
-    if chosen and options["precision"] == "float64":
-        result.notes += (f", float64 preconditioner (coefficient contrast {contrast:.1e} > "
-                         f"{FLOAT32_CONTRAST:.0e}: float32 levels would lose the weak material)")
+    if chosen and precision_note(contrast):
+        result.notes += ", " + precision_note(contrast)
     return result.x.reshape(fine.shape), result

@@ -25,3 +25,11 @@ def coefficient_contrast(problem) -> float:
 def preconditioner_precision(contrast: float) -> str:
     """The levels' float type for a problem of this :func:`coefficient_contrast`."""
     return "float32" if contrast <= FLOAT32_CONTRAST else "float64"
+
+
+def precision_note(contrast: float) -> str:
+    """What the solve's notes and `sevenfold check` say of levels in float64 ("" for float32)."""
+    if preconditioner_precision(contrast) == "float32":
+        return ""
+    return (f"float64 preconditioner (coefficient contrast {contrast:.1e} > {FLOAT32_CONTRAST:.0e}: "
+            "float32 levels would lose the weak material)")
