@@ -61,6 +61,27 @@ def make_table(**overrides: Any) -> dict[str, Any]:
     return table
 
 
+def write_layer_job(path: Path, k_weak: float, n: int, x: tuple[float, float] = (0.37, 0.41)) -> Path:
+    """A gmg job on n^3 cells of k = 1 with one layer of ``k_weak`` across x (``x`` its
+    bounds), u = 1 at x_min and 0 at x_max: the contrast that picks gmg's float type."""
+    path.write_text(f"""name = "layer"
+[grid]
+cells = [{n}, {n}, {n}]
+size = [1.0, 1.0, 1.0]
+[material]
+value = 1.0
+[[material.region]]
+box = {{ min = [{x[0]}, 0.0, 0.0], max = [{x[1]}, 1.0, 1.0] }}
+value = {k_weak!r}
+[boundary]
+x_min = {{ type = "dirichlet", value = 1.0 }}
+x_max = {{ type = "dirichlet", value = 0.0 }}
+[solver]
+method = "gmg"
+""")
+    return path
+
+
 def make_spec(**overrides: Any):
     """A validated JobSpec from ``BASE_TABLE`` with top-level keys replaced."""
     return parse_job(make_table(**overrides), "test")

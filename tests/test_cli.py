@@ -10,6 +10,7 @@ from sevenfold.cli import main
 from sevenfold.demo import DEMO_MARK, examples_dir
 from sevenfold.spec import load_job
 
+from conftest import write_layer_job
 from test_store import write_job
 
 
@@ -23,19 +24,7 @@ def test_check_says_when_gmg_runs_its_levels_in_float64(tmp_path: Path, capsys) 
     """A 1e8:1 layer: `check` names the float64 preconditioner and the contrast that asks for
     it (solvers/precision.py); 1000:1 says nothing of it."""
     for k, said in ((1e-8, True), (1e-3, False)):
-        job = tmp_path / f"layer{k:g}.toml"
-        job.write_text(f"""name = "layer"
-[grid]
-cells = [16, 16, 16]
-size = [1.0, 1.0, 1.0]
-[material]
-value = 1.0
-[[material.region]]
-box = {{ min = [0.4, 0.0, 0.0], max = [0.6, 1.0, 1.0] }}
-value = {k!r}
-[solver]
-method = "gmg"
-""")
+        job = write_layer_job(tmp_path / f"layer{k:g}.toml", k, 16, x=(0.4, 0.6))
         assert main(["check", str(job)]) == 0
         text = " ".join(capsys.readouterr().out.split())
         assert ("float64 preconditioner (coefficient contrast 1.0e+08" in text) is said, text

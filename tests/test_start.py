@@ -11,6 +11,7 @@ import sys
 from pathlib import Path
 
 import pytest
+from conftest import write_layer_job
 
 
 JOB = """
@@ -327,22 +328,7 @@ def test_the_warm_up_plan_holds_every_signature_the_run_compiles(tmp_path: Path,
     grid and for the levels' float type the coefficient's contrast picks) compiles nothing
     more, so its first-run notice covers the whole compile. With the float32 plan given to a
     1e8:1 job the run added eight kernels' signatures."""
-    path = tmp_path / "layer.toml"
-    path.write_text(f"""name = "layer"
-[grid]
-cells = [48, 48, 48]
-size = [1.0, 1.0, 1.0]
-[material]
-value = 1.0
-[[material.region]]
-box = {{ min = [0.37, 0.0, 0.0], max = [0.41, 1.0, 1.0] }}
-value = {k_weak!r}
-[boundary]
-x_min = {{ type = "dirichlet", value = 1.0 }}
-x_max = {{ type = "dirichlet", value = 0.0 }}
-[solver]
-method = "gmg"
-""")
+    path = write_layer_job(tmp_path / "layer.toml", k_weak, 48)
     proc = subprocess.run([sys.executable, "-c", PLAN_PROBE, str(path), str(tmp_path / "out.zarr")],
                           capture_output=True, text=True, timeout=600)
     assert proc.returncode == 0, proc.stderr

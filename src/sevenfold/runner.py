@@ -45,6 +45,7 @@ class Plan:
     method: str
     memory_bytes: int
     available_bytes: int
+    gmg_levels: str = "float32"  # gmg's preconditioner float type, settled on the built problem
 
     @property
     def fits(self) -> bool:
@@ -165,9 +166,10 @@ def prepare_problem(plan: Plan) -> tuple[Plan, Problem]:
         method = method_for(plan.spec.solver, problem)
     except JobError as exc:
         raise exc.located(str(plan.job_file)) if not exc.source else exc
-    float64_levels = method == "gmg" and gmg_precision(problem) == "float64"
-    memory = estimate_bytes(plan.cells, problem.unknowns, method, derived_arrays(plan.spec), float64_levels)
-    settled = replace(plan, method=method, memory_bytes=memory)
+    levels = gmg_precision(problem) if method == "gmg" else "float32"
+    memory = estimate_bytes(plan.cells, problem.unknowns, method, derived_arrays(plan.spec),
+                            levels == "float64")
+    settled = replace(plan, method=method, memory_bytes=memory, gmg_levels=levels)
     refuse_if_too_large(settled)  # (float64 levels weigh more than the plan assumed)
     return settled, problem
 
@@ -280,8 +282,7 @@ def run_job(
         plan.output.parent.mkdir(parents=True, exist_ok=True)
     from .kernels.cache import cold_notice, mark_warm, missing
 
-    precision = gmg_precision(problem) if plan.method == "gmg" else "float32"
-    needs = kernel_signatures(plan.method, problem.grid.cells, precision)
+    needs = kernel_signatures(plan.method, problem.grid.cells, plan.gmg_levels)
     compiling = cold_notice(plan.method, needs)  # said before the kernels compile, on a first run
     if compiling and hasattr(monitor, "note"):
         monitor.note(compiling)
@@ -289,7 +290,7 @@ def run_job(
         from .kernels.warmup import warm_up
 
         warm_up(plan.method, problem.grid.cells, compiled=needs - missing(plan.method, needs),
-                precision=precision)
+                precision=plan.gmg_levels)
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
     stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written
