@@ -88,7 +88,7 @@ def kernel_pair(job, old, rounds: int) -> dict[str, float]:
     now, then = np.empty(coarse.shape, hierarchy.dtype), np.empty(coarse.shape, hierarchy.dtype)
 
     def run_now():
-        stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, now)
+        stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, top.off, now)
 
     def run_then():
         old.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, then)
@@ -145,14 +145,15 @@ def solve_pair(job, then: dict, rounds: int) -> dict[str, float]:
     return out
 
 
-def ab_arguments(doc: str, results: str, argv: list[str] | None) -> argparse.Namespace:
+def ab_arguments(doc: str, results: str, argv: list[str] | None,
+                 cases: tuple[str, ...] = CASES) -> argparse.Namespace:
     """The options every A/B script of one change against ``--against REVISION`` takes
     (restrict_bench, sweeps_bench, setup_bench, chains_bench); ``results`` is its default
     file name."""
     p = argparse.ArgumentParser(description=doc.splitlines()[0])
     p.add_argument("--against", required=True, metavar="REVISION")
     p.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
-    p.add_argument("--cases", nargs="+", default=list(CASES), choices=CASES)
+    p.add_argument("--cases", nargs="+", default=list(cases), choices=cases)
     p.add_argument("--rounds", type=int, default=3)
     p.add_argument("--results", type=Path, default=HERE / results)
     return p.parse_args(argv)

@@ -552,12 +552,13 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
             rc = np.empty(coarse.shape, dtype=h.dtype)
             rct = np.empty((coarse.shape[0], coarse.shape[2], coarse.shape[1]), dtype=h.dtype)
             pairs["residual and restriction"] = (
-                lambda: stencil.residual_restrict(lv.tx, lv.ty, lv.tz, lv.diag, rhs, u, lv.step, rc),
+                lambda: stencil.residual_restrict(lv.tx, lv.ty, lv.tz, lv.diag, rhs, u, lv.step,
+                                                  lv.off, rc),
                 lambda: (residual_restrict_split(s["tx"], s["ty"], s["tz"], s["diag"], sb, su,
                                                  lv.step, rct), swap_yz(rct, rc)))
             free = split(lv.free, h.dtype)
             pairs["prolongation"] = (
-                lambda: stencil.prolong_add(rc, lv.free, lv.step, 1.0, u),
+                lambda: stencil.prolong_add(rc, lv.free, lv.step, lv.off, 1.0, u),
                 lambda: (swap_yz(rc, rct), prolong_add_split(rct, free, lv.step, 1.0, su)))
             p64 = r.copy()
             out = np.empty_like(p64)

@@ -11,6 +11,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
+from .stencil import span
+
 
 # Columns a line sweep (and line_factor) takes as one block; _line_plane writes out its eight
 # recurrences
@@ -289,17 +291,41 @@ def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
     return total
 
 
+@njit(cache=True)
+def _axis_scales(n, s, o, nc):
+    """Per aggregate along one axis (``s`` cells shifted by ``o``, ``nc`` of them): 1 / its
+    size, and the scale of its coupling to the next aggregate, 2 / (the two sizes summed):
+    the fine cells' centre distance over the aggregates' (1/2 between pairs)."""
+    inv = np.empty(nc)
+    face = np.empty(nc)
+    for I in range(nc):
+        lo, hi = span(I, s, o, n)
+        inv[I] = 1.0 / (hi - lo)
+    for I in range(nc):
+        if I + 1 < nc:
+            lo, hi = span(I, s, o, n)
+            lo2, hi2 = span(I + 1, s, o, n)
+            face[I] = 2.0 / ((hi - lo) + (hi2 - lo2))
+        else:
+            face[I] = inv[I]  # (no coupling leaves the last aggregate)
+    return inv, face
+
+
 @njit(cache=True, parallel=True)
-def galerkin_scaled(tx, ty, tz, diag, free, step, txc, tyc, tzc, diagc, freec):
-    """Coarse face arrays from aggregates of ``step`` cells per axis, scaled per axis by 1/step.
+def galerkin_scaled(tx, ty, tz, diag, free, step, off, txc, tyc, tzc, diagc, freec):
+    """Coarse face arrays from aggregates of ``step`` cells per axis shifted by ``off``
+    (:func:`sevenfold.kernels.stencil.span`), scaled per axis to a rediscretisation.
 
     The piecewise-constant Galerkin product P^T A P sums the fine couplings crossing between
     two aggregates (so coefficient jumps reach the coarse levels as fluxes, not averages); it
-    is ``step`` times too strong along each coarsened axis compared with the same operator
-    rediscretised on the coarse cells. Dividing each axis's part by its step gives a coarse
-    operator consistent with linear interpolation (P_lin^T A P_lin on smooth errors) and with
-    full multigrid. A cell's diagonal excess (boundary faces, couplings to held cells) is
-    split equally over its faces that store no coupling, and scaled with their axis.
+    is about ``step`` times too strong along each coarsened axis compared with the same
+    operator rediscretised on the coarse cells. Scaling each coupling by the fine over the
+    coarse centre distance (:func:`_axis_scales`: 1/2 between pairs, 2/3 between a pair and a
+    single cell at an axis's end) gives a coarse operator consistent with linear interpolation
+    (P_lin^T A P_lin on smooth errors) and with full multigrid. A cell's diagonal excess
+    (boundary faces, couplings to held cells) is split equally over its faces that store no
+    coupling, each share scaled by 1 / the aggregate's size along the face's axis (the
+    half-cell distance to a boundary face grows with it).
 
     Each thread builds one coarse x-plane, reading its fine rows along z at unit stride (an
     aggregate's cells are visited in the same order as aggregate by aggregate, so the sums are
@@ -307,27 +333,34 @@ def galerkin_scaled(tx, ty, tz, diag, free, step, txc, tyc, tzc, diagc, freec):
     """
     nx, ny, nz = diag.shape
     sx, sy, sz = step[0], step[1], step[2]
-    fx, fy, fz = 1.0 / sx, 1.0 / sy, 1.0 / sz
+    ox, oy, oz = off[0], off[1], off[2]
     ncx, ncy, ncz = diagc.shape
+    inv_x, face_x = _axis_scales(nx, sx, ox, ncx)
+    inv_y, face_y = _axis_scales(ny, sy, oy, ncy)
+    inv_z, face_z = _axis_scales(nz, sz, oz, ncz)
     for I in prange(ncx):
         d = np.zeros((ncy, ncz))
         cxs = np.zeros((ncy, ncz))
         cys = np.zeros((ncy, ncz))
         czs = np.zeros((ncy, ncz))
         nfree = np.zeros((ncy, ncz), dtype=np.int64)
-        i0 = I * sx
-        i1 = min(i0 + sx, nx)
+        i0, i1 = span(I, sx, ox, nx)
+        fx = inv_x[I]
+        gxm = face_x[I - 1] if I > 0 else fx  # (no coupling enters the first aggregate)
+        gxp = face_x[I]
         for i in range(i0, i1):
             for j in range(ny):
-                J = j // sy
-                j0 = J * sy
-                j1 = min(j0 + sy, ny)
+                J = (j + oy) // sy
+                j0, j1 = span(J, sy, oy, ny)
+                fy = inv_y[J]
+                gym = face_y[J - 1] if J > 0 else fy
+                gyp = face_y[J]
                 for m in range(nz):
                     if not free[i, j, m]:
                         continue
-                    K = m // sz
-                    k0 = K * sz
-                    k1 = min(k0 + sz, nz)
+                    K = (m + oz) // sz
+                    k0, k1 = span(K, sz, oz, nz)
+                    fz = inv_z[K]
                     nfree[J, K] += 1
                     txm = tx[i - 1, j, m] if i > 0 else 0.0
                     tym = ty[i, j - 1, m] if j > 0 else 0.0
@@ -349,19 +382,19 @@ def galerkin_scaled(tx, ty, tz, diag, free, step, txc, tyc, tzc, diagc, freec):
                     # faces leaving the aggregate add to its diagonal; plus faces are also the
                     # coupling to the next aggregate
                     if i == i0:
-                        a += fx * txm
+                        a += gxm * txm
                     if i + 1 == i1:
-                        a += fx * txp
+                        a += gxp * txp
                         cxs[J, K] += txp
                     if j == j0:
-                        a += fy * tym
+                        a += gym * tym
                     if j + 1 == j1:
-                        a += fy * typ
+                        a += gyp * typ
                         cys[J, K] += typ
                     if m == k0:
-                        a += fz * tzm
+                        a += (face_z[K - 1] if K > 0 else fz) * tzm
                     if m + 1 == k1:
-                        a += fz * tzp
+                        a += face_z[K] * tzp
                         czs[J, K] += tzp
                     d[J, K] = a
         for J in range(ncy):
@@ -369,9 +402,10 @@ def galerkin_scaled(tx, ty, tz, diag, free, step, txc, tyc, tzc, diagc, freec):
                 n = nfree[J, K]
                 freec[I, J, K] = n > 0
                 diagc[I, J, K] = d[J, K] if n > 0 else 1.0
-                txc[I, J, K] = fx * cxs[J, K]
-                tyc[I, J, K] = fy * cys[J, K]
-                tzc[I, J, K] = fz * czs[J, K]
+                txc[I, J, K] = gxp * cxs[J, K]
+                tyc[I, J, K] = face_y[J] * cys[J, K]
+                tzc[I, J, K] = face_z[K] * czs[J, K]
+
 
 @njit(cache=True, inline="always")
 def _partner(i, s, nc):

@@ -230,11 +230,41 @@ def apply_dot(tx, ty, tz, diag, u, out):
     return s
 
 
+@njit(cache=True, inline="always")
+def span(I, s, o, n):
+    """Fine cells [lo, hi) along one axis of aggregate I: aggregates of ``s`` cells shifted
+    back by the offset ``o`` (0 <= o < s), so with s = 2 and o = 1 the first cell is alone and
+    the pairs are (1, 2), (3, 4), ...; the axis then has (n + o + s - 1) // s aggregates."""
+    return max(I * s - o, 0), min(I * s - o + s, n)
+
+
+@njit(cache=True, inline="always")
+def _pair_residuals(b, row, rc):
+    """rc[K] += the sum of b - row over cells 2K and 2K + 1 of one row (an odd last cell
+    alone): a unit-stride loop that vectorises."""
+    n = b.shape[0]
+    for K in range(n // 2):
+        rc[K] += (b[2 * K] - row[2 * K]) + (b[2 * K + 1] - row[2 * K + 1])
+    if n % 2:
+        rc[n // 2] += b[n - 1] - row[n - 1]
+
+
+@njit(cache=True, inline="always")
+def _pair_sums(r, rc):
+    """rc[K] += r[2K] + r[2K + 1] along one row (an odd last cell alone)."""
+    n = r.shape[0]
+    for K in range(n // 2):
+        rc[K] += r[2 * K] + r[2 * K + 1]
+    if n % 2:
+        rc[n // 2] += r[n - 1]
+
+
 @njit(cache=True, parallel=True)
-def residual_restrict(tx, ty, tz, diag, b, u, step, rc):
+def residual_restrict(tx, ty, tz, diag, b, u, step, off, rc):
     """rc = P^T (b - A u) for piecewise-constant P over aggregates of ``step`` cells per axis,
-    without storing the fine residual (each coarse x-plane is one thread's). As in
-    :func:`restrict`, held cells add nothing because their residual is zero.
+    shifted by ``off`` (see :func:`span`), without storing the fine residual (each coarse
+    x-plane is one thread's). As in :func:`restrict`, held cells add nothing because their
+    residual is zero.
 
     Each fine row's A u goes to a row buffer first (:func:`_apply_row`, branch-free), then
     its residuals are summed into the coarse row: both loops vectorise, where a residual added
@@ -243,27 +273,29 @@ def residual_restrict(tx, ty, tz, diag, b, u, step, rc):
     """
     nx, ny, nz = u.shape
     sx, sy, sz = step[0], step[1], step[2]
+    oy, oz = off[1], off[2]
     ncx, ncy, ncz = rc.shape
     for I in prange(ncx):
         row = np.empty(nz, dtype=u.dtype)
         for J in range(ncy):
             for K in range(ncz):
                 rc[I, J, K] = 0.0
-        for i in range(I * sx, min(I * sx + sx, nx)):
+        i0, i1 = span(I, sx, off[0], nx)
+        for i in range(i0, i1):
             for j in range(ny):
-                J = j // sy
+                J = (j + oy) // sy
                 _apply_row(tx, ty, tz, diag, u, row, i, j, nx, ny, nz)
-                if sz == 2:
-                    for K in range(nz // 2):
-                        rc[I, J, K] += (b[i, j, 2 * K] - row[2 * K]) + (b[i, j, 2 * K + 1] - row[2 * K + 1])
-                    if nz % 2:
-                        rc[I, J, ncz - 1] += b[i, j, nz - 1] - row[nz - 1]
+                if sz == 2 and oz:  # (the first cell alone, the pairs on views past it)
+                    rc[I, J, 0] += b[i, j, 0] - row[0]
+                    _pair_residuals(b[i, j, 1:], row[1:], rc[I, J, 1:])
+                elif sz == 2:
+                    _pair_residuals(b[i, j], row, rc[I, J])
                 elif sz == 1:
                     for m in range(nz):
                         rc[I, J, m] += b[i, j, m] - row[m]
                 else:
                     for m in range(nz):
-                        rc[I, J, m // sz] += b[i, j, m] - row[m]
+                        rc[I, J, (m + oz) // sz] += b[i, j, m] - row[m]
 
 
 @njit(cache=True, parallel=True)
@@ -279,60 +311,77 @@ def gauss_seidel_colour(tx, ty, tz, diag, b, u, colour):
 
 
 @njit(cache=True, parallel=True)
-def restrict(r, step, rc):
-    """rc = P^T r for piecewise-constant prolongation over aggregates of ``step`` cells per axis.
+def restrict(r, step, off, rc):
+    """rc = P^T r for piecewise-constant prolongation over aggregates of ``step`` cells per
+    axis, shifted by ``off`` (see :func:`span`).
 
     Sums every child, held ones included: a residual is zero on held cells (b = 0, u = 0,
     no couplings), which is what lets the inner loop run without a mask and vectorise.
     """
     nx, ny, nz = r.shape
     sx, sy, sz = step[0], step[1], step[2]
+    oz = off[2]
     ncx, ncy, ncz = rc.shape
     for I in prange(ncx):
+        i0, i1 = span(I, sx, off[0], nx)
         for J in range(ncy):
             for K in range(ncz):
                 rc[I, J, K] = 0.0
-            for i in range(I * sx, min(I * sx + sx, nx)):
-                for j in range(J * sy, min(J * sy + sy, ny)):
+            j0, j1 = span(J, sy, off[1], ny)
+            for i in range(i0, i1):
+                for j in range(j0, j1):
                     if sz == 1:
                         for K in range(nz):
                             rc[I, J, K] += r[i, j, K]
+                    elif sz == 2 and oz:
+                        rc[I, J, 0] += r[i, j, 0]
+                        _pair_sums(r[i, j, 1:], rc[I, J, 1:])
                     elif sz == 2:
-                        for K in range(nz // 2):
-                            rc[I, J, K] += r[i, j, 2 * K] + r[i, j, 2 * K + 1]
-                        if nz % 2:
-                            rc[I, J, ncz - 1] += r[i, j, nz - 1]
+                        _pair_sums(r[i, j], rc[I, J])
                     else:
                         for m in range(nz):
-                            rc[I, J, m // sz] += r[i, j, m]
+                            rc[I, J, (m + oz) // sz] += r[i, j, m]
+
+
+@njit(cache=True, inline="always")
+def _prolong_pairs(ec, free, scale, u):
+    """u[m] += scale * ec[m // 2] on the free cells of one row."""
+    for m in range(u.shape[0]):
+        if free[m]:
+            u[m] += scale * ec[m >> 1]
 
 
 @njit(cache=True, parallel=True)
-def prolong_add(ec, free, step, scale, u):
-    """u += scale * P ec on the free cells (P piecewise constant over the aggregates)."""
+def prolong_add(ec, free, step, off, scale, u):
+    """u += scale * P ec on the free cells (P piecewise constant over the aggregates of
+    ``step`` cells per axis shifted by ``off``, see :func:`span`)."""
     nx, ny, nz = u.shape
     sx, sy, sz = step[0], step[1], step[2]
+    ox, oy, oz = off[0], off[1], off[2]
     for i in prange(nx):
-        I = i // sx
+        I = (i + ox) // sx
         for j in range(ny):
-            J = j // sy
+            J = (j + oy) // sy
             if sz == 1:
                 for m in range(nz):
                     if free[i, j, m]:
                         u[i, j, m] += scale * ec[I, J, m]
+            elif sz == 2 and oz:  # (the first cell alone, the pairs on views past it)
+                if free[i, j, 0]:
+                    u[i, j, 0] += scale * ec[I, J, 0]
+                _prolong_pairs(ec[I, J, 1:], free[i, j, 1:], scale, u[i, j, 1:])
             elif sz == 2:
-                for m in range(nz):
-                    if free[i, j, m]:
-                        u[i, j, m] += scale * ec[I, J, m >> 1]
+                _prolong_pairs(ec[I, J], free[i, j], scale, u[i, j])
             else:
                 for m in range(nz):
                     if free[i, j, m]:
-                        u[i, j, m] += scale * ec[I, J, m // sz]
+                        u[i, j, m] += scale * ec[I, J, (m + oz) // sz]
 
 
 @njit(cache=True, parallel=True)
-def galerkin(tx, ty, tz, diag, free, step, txc, tyc, tzc, diagc, freec):
-    """Coarse face arrays P^T A P for piecewise-constant P over aggregates (free cells only).
+def galerkin(tx, ty, tz, diag, free, step, off, txc, tyc, tzc, diagc, freec):
+    """Coarse face arrays P^T A P for piecewise-constant P over aggregates (free cells only),
+    ``step`` cells per axis shifted by ``off`` (see :func:`span`).
 
     A coupling between two aggregates is the sum of the fine couplings crossing between
     them; a coarse diagonal is the sum of its free children's diagonals minus twice the
@@ -344,15 +393,17 @@ def galerkin(tx, ty, tz, diag, free, step, txc, tyc, tzc, diagc, freec):
     for I in prange(ncx):
         for J in range(ncy):
             for K in range(ncz):
-                i1, j1, k1 = min(I * sx + sx, nx), min(J * sy + sy, ny), min(K * sz + sz, nz)
+                i0, i1 = span(I, sx, off[0], nx)
+                j0, j1 = span(J, sy, off[1], ny)
+                k0, k1 = span(K, sz, off[2], nz)
                 d = 0.0
                 cxs = 0.0
                 cys = 0.0
                 czs = 0.0
                 nfree = 0
-                for i in range(I * sx, i1):
-                    for j in range(J * sy, j1):
-                        for m in range(K * sz, k1):
+                for i in range(i0, i1):
+                    for j in range(j0, j1):
+                        for m in range(k0, k1):
                             if not free[i, j, m]:
                                 continue
                             nfree += 1

@@ -101,6 +101,10 @@ def _steps() -> np.ndarray:
     return np.array([2, 2, 2], dtype=np.int64)
 
 
+def _offsets() -> np.ndarray:
+    return np.zeros(3, dtype=np.int64)
+
+
 Items = dict[str, Callable[[], None]]
 
 
@@ -148,7 +152,7 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         add("axis_weakness", tag, lambda t=level: _build(
             multigrid.axis_weakness, *_arrays(t, count=3), free, np.ones(3), 2.25, 1, True))
         add("galerkin_scaled", tag, lambda t=level: _build(
-            multigrid.galerkin_scaled, *_arrays(t, count=4), free, _steps(),
+            multigrid.galerkin_scaled, *_arrays(t, count=4), free, _steps(), _offsets(),
             *_arrays(f32, small, 4), freec.copy()))
         add("line_factor", tag, lambda t=level: _build(
             multigrid.line_factor, *_arrays(t, count=2), _arrays(f32)))
@@ -157,9 +161,10 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
             _arrays(f32), 0, 2, 1))
         add("residual_restrict", tag, lambda t=level: _build(
             stencil.residual_restrict, *_arrays(t, count=4), _arrays(t), _arrays(f32),
-            _steps(), _arrays(f32, small)))
+            _steps(), _offsets(), _arrays(f32, small)))
         add("prolong_add", tagged(f32), lambda: _build(
-            stencil.prolong_add, _arrays(f32, small), free, _steps(), 1.0, _arrays(f32)))
+            stencil.prolong_add, _arrays(f32, small), free, _steps(), _offsets(), 1.0,
+            _arrays(f32)))
     if plan.levels and top != f64:
         add("narrow", "float32", lambda: _build(multigrid.narrow, np.ones(8), np.ones(8, dtype=f32)))
     add("apply_dot", "float64", lambda: _build(stencil.apply_dot, *_arrays(f64, count=6)))

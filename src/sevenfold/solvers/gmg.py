@@ -52,7 +52,7 @@ import numpy as np
 from ..kernels import multigrid, stencil
 from .cg import Monitor, SolveResult, pcg
 from .coarsest import CoarsestSolver
-from .levels import Level, coarsening_step, strong_z
+from .levels import Level, aligned_pairs, coarsening_step, strong_z
 from .precision import coefficient_contrast, precision_note, preconditioner_precision
 
 # The coarsest level is factorised (coarsest.py); 16^3 keeps the aggregation levels where
@@ -81,12 +81,16 @@ class Hierarchy:
     ``out``: a float64 array of the fine grid's size whose bytes hold the finest level's
     work arrays and :meth:`precondition`'s result (CG lends the operator's product buffer,
     which is free while it preconditions).
+    ``planes``: per axis, the cell boundaries (b: between cells b - 1 and b) that should lie
+    between aggregates on every level (contact resistances, :func:`aligned_pairs`); not with
+    the linear transfer, whose interpolation assumes unshifted pairs.
     """
 
     def __init__(self, fine: Level, overcorrection: float | None = None, cycle: str = "V",
                  smoothing: int = 1, smoother: str = "line", transfer: str = "linear",
                  precision: str = "float64", coarsest_cells: int | None = None,
-                 finest: str = "copy", out: np.ndarray | None = None) -> None:
+                 finest: str = "copy", out: np.ndarray | None = None,
+                 planes: tuple[tuple[int, ...], ...] = ((), (), ())) -> None:
         if transfer not in ("linear", "constant", "scaled") or smoother not in ("line", "point", "auto"):
             raise ValueError(f"unknown transfer {transfer!r} or smoother {smoother!r}")
         self.dtype = np.dtype(precision)
@@ -98,6 +102,8 @@ class Hierarchy:
         self.sweeps = (smoothing, smoothing)  # before and after the coarse correction
         if finest not in ("copy", "operator"):
             raise ValueError(f"unknown finest {finest!r}")
+        if transfer == "linear" and any(planes):
+            raise ValueError("planes need piecewise-constant transfers")
         if fine.diag.dtype == self.dtype or finest == "operator":
             top = Level(fine.tx, fine.ty, fine.tz, fine.diag, fine.free, fine.step.copy(),
                         fine.spacing)
@@ -105,26 +111,31 @@ class Hierarchy:
             top = fine.astype(self.dtype)
         top.boost = np.ones(3)
         self.levels = [top]
+        # the coarsest level is the first whose unshifted size is small enough, so that a
+        # shift (one aggregate more on its axis) does not add a level
+        nominal = top.shape
         while True:
             lv = self.levels[-1]
-            if int(np.prod(lv.shape)) <= (coarsest_cells or COARSEST_CELLS):
+            if int(np.prod(nominal)) <= (coarsest_cells or COARSEST_CELLS):
                 break
             lv.lines = strong_z(lv) if smoother == "auto" else smoother == "line"
             step = coarsening_step(lv, lv.lines)
             if not (step > 1).any():
                 break
             lv.step = step
-            cshape = tuple(int((n + s - 1) // s) for n, s in zip(lv.shape, step))
+            lv.off, planes = aligned_pairs(planes, step)
+            nominal = tuple(int((n + s - 1) // s) for n, s in zip(nominal, step))
+            cshape = tuple(int((n + o + s - 1) // s) for n, o, s in zip(lv.shape, lv.off, step))
             arrays = [np.empty(cshape, dtype=self.dtype) for _ in range(4)]
             freec = np.empty(cshape, dtype=np.bool_)
             source = lv  # (from a float32 copy the finest Galerkin product compiles once)
             if transfer in ("linear", "scaled"):
                 multigrid.galerkin_scaled(source.tx, source.ty, source.tz, source.diag, lv.free,
-                                          step, *arrays, freec)
+                                          step, lv.off, *arrays, freec)
                 boost = lv.boost
             else:
                 stencil.galerkin(source.tx, source.ty, source.tz, source.diag, lv.free, step,
-                                 *arrays, freec)
+                                 lv.off, *arrays, freec)
                 boost = lv.boost * step
             coarse = Level(*arrays, freec, np.ones(3, dtype=np.int64), boost=boost)
             coarse.e, coarse.b = (np.empty(cshape, dtype=self.dtype) for _ in range(2))
@@ -169,6 +180,11 @@ class Hierarchy:
             return "point"
         return "z-line (levels " + ", ".join(str(i) for i, x in enumerate(lines) if x) + ") and point"
 
+    def shift_note(self) -> str:
+        shifted = [str(i) for i, lv in enumerate(self.levels[:-1]) if lv.off.any()]
+        return (", pairs shifted on level" + ("s " if len(shifted) > 1 else " ") + ", ".join(shifted)
+                + " to keep contact planes between aggregates") if shifted else ""
+
     @property
     def shapes(self) -> list[tuple[int, int, int]]:
         return [lv.shape for lv in self.levels]
@@ -188,13 +204,13 @@ class Hierarchy:
         if self.transfer == "linear":
             multigrid.restrict_linear(r, lv.free, lv.step, rc)
         else:
-            stencil.restrict(r, lv.step, rc)
+            stencil.restrict(r, lv.step, lv.off, rc)
 
     def _prolong_add(self, lv: Level, ec: np.ndarray, scale: float, u: np.ndarray) -> None:
         if self.transfer == "linear":
             multigrid.prolong_linear_add(ec, lv.free, lv.step, scale, u)
         else:
-            stencil.prolong_add(ec, lv.free, lv.step, scale, u)
+            stencil.prolong_add(ec, lv.free, lv.step, lv.off, scale, u)
 
     def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
         """Improve u for A_level u = b in place (u may start at zero)."""
@@ -216,7 +232,8 @@ class Hierarchy:
             stencil.residual(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.r)
             multigrid.restrict_linear(lv.r, lv.free, lv.step, coarse.b)
         else:
-            stencil.residual_restrict(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.step, coarse.b)
+            stencil.residual_restrict(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.step, lv.off,
+                                      coarse.b)
         coarse.e[...] = 0.0
         # one coarse cycle (V) or two in a row (W); each is symmetric, so the pair is too
         for _ in range(self.gamma if level + 2 < len(self.levels) else 1):
@@ -266,6 +283,8 @@ class Hierarchy:
         Returns the finest level's u as a new flat float64 array. The finest level works in
         the hierarchy's own arrays.
         """
+        if any(lv.off.any() for lv in self.levels):
+            raise ValueError("full multigrid interpolates between unshifted pairs (no planes)")
         top = self.levels[0]
         rhs = [self._rhs(b)]
         for lv, coarse in zip(self.levels[:-1], self.levels[1:]):
@@ -334,10 +353,12 @@ def solve_levels(fine: Level, b: np.ndarray, rtol: float, max_iterations: int,
     """gmg-CG on given face arrays (the finest level, float64) and right-hand side.
 
     ``options``: Hierarchy's (cycle, smoothing, smoother, transfer, precision,
-    overcorrection) and ``start``: "fmg" (full multigrid start) or "zero".
+    overcorrection, planes) and ``start``: "fmg" (full multigrid start) or "zero".
     """
     opts = {**DEFAULTS, **options}
     start = opts.pop("start")
+    if start == "fmg" or opts["transfer"] == "linear":
+        opts.pop("planes", None)  # (their interpolation assumes unshifted pairs)
     t1 = time.perf_counter()
     operator = FineOperator(fine)
     # the preconditioner writes z where the operator writes A p: CG is done with A p by then
@@ -356,8 +377,17 @@ def solve_levels(fine: Level, b: np.ndarray, rtol: float, max_iterations: int,
     result.notes = ("levels " + " > ".join("x".join(map(str, s)) for s in hierarchy.shapes)
                     + f"; {'W' if hierarchy.gamma == 2 else 'V'}-cycle, "
                     + hierarchy.smoothing_note() + f" smoothing{precision}"
-                    + (", full multigrid start" if start == "fmg" else ""))
+                    + (", full multigrid start" if start == "fmg" else "")
+                    + hierarchy.shift_note())
     return result, hierarchy
+
+
+def contact_planes(problem) -> tuple[tuple[int, ...], ...]:
+    """Per axis, the cell boundaries that carry a ``[[contact]]`` (for Hierarchy's planes)."""
+    planes: tuple[list[int], ...] = ([], [], [])
+    for c in problem.contacts:
+        planes[c.axis].append(c.index + 1)
+    return tuple(tuple(sorted(set(p))) for p in planes)
 
 
 def solve_gmg(problem, rtol: float, max_iterations: int, monitor: Monitor | None = None,
@@ -371,6 +401,7 @@ def solve_gmg(problem, rtol: float, max_iterations: int, monitor: Monitor | None
     contrast = coefficient_contrast(problem)
     chosen = "precision" not in options
     options.setdefault("precision", preconditioner_precision(contrast))
+    options.setdefault("planes", contact_planes(problem))
     t0 = time.perf_counter()
     fine, b = fine_level(problem)
     if hasattr(monitor, "operator_built"):  # the problem's cell fields may go now

@@ -4,7 +4,7 @@ level's operator which axes to coarsen and whether z-lines are needed (see
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -38,6 +38,8 @@ class Level:
     inv_w: np.ndarray | None = None  # z-line pivots (line smoother)
     lines: bool = True  # smoothed by z-lines (else red-black points)
     boost: np.ndarray | None = None  # per-axis factor of unscaled Galerkin couplings
+    # shift of the aggregates per axis (0 or 1: kernels.stencil.span), see aligned_pairs
+    off: np.ndarray = field(default_factory=lambda: np.zeros(3, dtype=np.int64))
 
     @property
     def shape(self) -> tuple[int, int, int]:
@@ -60,7 +62,7 @@ class Level:
             return out
 
         return Level(*(convert(a) for a in (self.tx, self.ty, self.tz, self.diag)),
-                     self.free, self.step.copy(), self.spacing)
+                     self.free, self.step.copy(), self.spacing, off=self.off.copy())
 
     def to_band(self) -> tuple[np.ndarray, tuple[int, int, int]]:
         """The level's matrix in LAPACK's lower band storage (float64), cells numbered in C
@@ -135,3 +137,30 @@ def coarsening_step(lv: Level, lines: bool) -> np.ndarray:
         step = np.array([2 if n > 1 and counts[a] == least else 1 for a, n in enumerate(shape)],
                         dtype=np.int64)
     return step
+
+
+def aligned_pairs(planes: tuple[tuple[int, ...], ...], step: np.ndarray
+                  ) -> tuple[np.ndarray, tuple[tuple[int, ...], ...]]:
+    """Offsets of the aggregates per axis (:func:`sevenfold.kernels.stencil.span`) that put
+    the most of ``planes`` between aggregates, and where those planes lie on the coarse level.
+
+    ``planes[axis]`` holds cell boundaries b (between cells b - 1 and b) that should not fall
+    inside an aggregate: faces carrying a contact resistance, whose weak coupling the Galerkin
+    product drops when both cells join one aggregate (the coarse levels then miss the
+    resistance, and a 64^3 job took 17 iterations instead of 5:
+    benchmarks/RESULTS_WALLS_CONTACT.md). On an axis coarsened by pairs, pairs (0, 1), ...
+    keep even boundaries apart and pairs (1, 2), ... odd ones; the parity that more planes
+    have wins, and the others are dropped for the coarser levels.
+    """
+    off = np.zeros(3, dtype=np.int64)
+    coarse = []
+    for axis, at in enumerate(planes):
+        s = int(step[axis])
+        if s == 1:
+            coarse.append(tuple(at))
+            continue
+        odd = sum(b % 2 for b in at)
+        o = 1 if s == 2 and 2 * odd > len(at) else 0
+        off[axis] = o
+        coarse.append(tuple(sorted({(b + o) // s for b in at if (b + o) % s == 0})))
+    return off, tuple(coarse)

@@ -1,0 +1,154 @@
+"""Aggregates shifted to keep contact planes apart, as it is against an earlier revision's
+unshifted hierarchy, in whole gmg solves and in the kernels that take the shift.
+
+    python benchmarks/shift_bench.py --against REVISION [--sizes 128 256]
+        [--cases contact layered inclusions constant column "graded job"] [--rounds 3]
+
+The cycle pairs cells (0, 1), (2, 3), ... on every coarsened axis. A contact resistance on the
+face inside a pair is dropped by the Galerkin product, so the coarse levels miss it (17 and 12
+iterations against 5 at 64^3 and 128^3: RESULTS_WALLS_CONTACT.md). Now gmg shifts the pairs,
+per level and axis, to (1, 2), (3, 4), ... where that keeps the job's contact planes between
+aggregates (`solvers.levels.aligned_pairs`), and scales each coarse coupling by the fine over
+the coarse centre distance (2 / (the two aggregates' sizes summed)). The level kernels take the
+shift as an argument, so every job pays for it in its loops, shifted or not.
+
+For each job, in one process, the two versions alternating (``--rounds`` times each, best of):
+
+* the warm gmg set-up + solve (one untimed solve, then the best of two), with gmg's Hierarchy
+  and level kernels as they are (*now*) and as they were at ``REVISION`` (*then*: the
+  revision's `solvers/gmg.py`, `kernels/stencil.py` and `kernels/multigrid.py` loaded beside
+  the current ones, compiled without numba's cache);
+* the fused residual and restriction alone on the finest level (float32, random b and u),
+  *then*, *now* unshifted and *now* with every axis shifted, in work units (seconds over one
+  float64 operator application).
+
+The *contact* job (`cycle_bench.contact_table`: a contact plane of 1000 times a cell's own
+resistance at x = 23/64, inside a pair at the second level at 128^3, at the first at 64^3 and
+at 256^3 ... see the levels column) is the case the shift is for; the others have no contact,
+so their solves must match *then*'s iterations and time.
+
+Writes benchmarks/RESULTS_SHIFT.md.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+import cycle_bench as cb  # noqa: E402
+import restrict_bench as rb  # noqa: E402
+import run as engine  # noqa: E402
+import timing  # noqa: E402
+import wall_bench  # noqa: E402
+
+CASES = ("contact",) + rb.CASES
+
+
+def uncached(source: str) -> str:
+    return source.replace("cache=True", "cache=False")
+
+
+def hierarchy_at(revision: str):
+    """gmg's Hierarchy as it was at ``revision``, on that revision's level kernels."""
+    stencil = wall_bench.module_at(revision, "sevenfold.kernels.stencil", edit=uncached)
+    multigrid = wall_bench.module_at(revision, "sevenfold.kernels.multigrid", edit=uncached)
+    gmg = wall_bench.module_at(revision, "sevenfold.solvers.gmg", edit=lambda s: uncached(
+        s.replace("from ..kernels import multigrid, stencil\n", "")))
+    gmg.multigrid, gmg.stencil = multigrid, stencil
+
+    def hierarchy(fine, planes=None, **options):  # (the revision knows no planes)
+        h = gmg.Hierarchy(fine, **options)
+        h.shift_note = lambda: ""
+        return h
+
+    return hierarchy, stencil
+
+
+def problem(n: int, case: str):
+    if case != "contact":
+        return rb.problem(n, case)
+    from sevenfold.problem import build_problem
+    from sevenfold.spec import parse_job
+
+    return build_problem(parse_job(cb.contact_table(n), "shift_bench"))
+
+
+def kernel_units(job, old_stencil, rounds: int) -> dict[str, float]:
+    """The fused residual and restriction on the finest level: then, now, now shifted (WU)."""
+    from sevenfold.kernels import stencil
+    from sevenfold.solvers.gmg import DEFAULTS, Hierarchy, fine_level
+
+    fine, _ = fine_level(job)
+    hierarchy = Hierarchy(fine, **{k: v for k, v in DEFAULTS.items() if k != "start"})
+    top = hierarchy.levels[0]
+    rng = np.random.default_rng(0)
+    b = rng.standard_normal(top.shape).astype(hierarchy.dtype)
+    u = rng.standard_normal(top.shape).astype(hierarchy.dtype)
+    zero, ones = np.zeros(3, dtype=np.int64), np.ones(3, dtype=np.int64)
+    shapes = {o: tuple(-(-(n + oo) // s) for n, oo, s in zip(top.shape, off, top.step))
+              for o, off in (("zero", zero), ("ones", ones))}
+    out = {o: np.empty(shape, hierarchy.dtype) for o, shape in shapes.items()}
+    calls = {
+        "then": lambda: old_stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u,
+                                                      top.step, out["zero"]),
+        "now": lambda: stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u,
+                                                 top.step, zero, out["zero"]),
+        "now shifted": lambda: stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u,
+                                                         top.step, ones, out["ones"]),
+    }
+    for call in calls.values():
+        call()
+    best = {name: np.inf for name in calls}
+    for _ in range(rounds):
+        for name, call in calls.items():
+            best[name] = min(best[name], timing.best(call, 9, time.perf_counter))
+    apply = rb.apply_seconds(fine)
+    return {name: seconds / apply for name, seconds in best.items()} | {"apply": apply}
+
+
+def levels_note(job) -> str:
+    from sevenfold.solvers.gmg import DEFAULTS, Hierarchy, contact_planes, fine_level
+
+    fine, _ = fine_level(job)
+    h = Hierarchy(fine, planes=contact_planes(job),
+                  **{k: v for k, v in DEFAULTS.items() if k != "start"})
+    return " > ".join("x".join(map(str, s)) for s in h.shapes) + h.shift_note()
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = rb.ab_arguments(__doc__, "RESULTS_SHIFT.md", argv, CASES)
+    lines, info = engine.report_head("shift_bench.py", argv,
+                                     "Aggregates shifted to keep contact planes apart")
+    from sevenfold.solvers import gmg
+
+    old_hierarchy, old_stencil = hierarchy_at(args.against)
+    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+              f"*then* = revision {args.against}, *now* = the working tree; *WU* = seconds over "
+              "one two-thread float64 operator application of the job's grid (*apply*); "
+              "*solve* = warm gmg set-up + solve, wall seconds, two threads.", "",
+              "| job | cells | iterations then / now | solve s then | solve s now | now / then | "
+              "restriction WU then / now / now shifted | apply ms | levels now |",
+              "|" + "---|" * 9]
+    for n in args.sizes:
+        for case in args.cases:
+            job = problem(n, case)
+            k = kernel_units(job, old_stencil, args.rounds)
+            s = rb.solve_pair(job, {(gmg, "Hierarchy"): old_hierarchy}, args.rounds)
+            lines.append(
+                f"| {case} | {n}^3 | {int(s['iterations then'])} / {int(s['iterations now'])} | "
+                f"{s['then']:.3f} | {s['now']:.3f} | {s['now'] / s['then']:.2f} | "
+                f"{k['then']:.2f} / {k['now']:.2f} / {k['now shifted']:.2f} | "
+                f"{k['apply'] * 1e3:.2f} | {levels_note(job)} |")
+            print(lines[-1], flush=True)
+            del job
+    engine.write_report(args.results, lines, info)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
