@@ -2,7 +2,7 @@
 unshifted hierarchy, in whole gmg solves and in the kernels that take the shift.
 
     python benchmarks/shift_bench.py --against REVISION [--sizes 128 256]
-        [--cases contact layered inclusions constant column "graded job"] [--rounds 3]
+        [--cases contact joints layered inclusions constant column "graded job"] [--rounds 3]
 
 The cycle pairs cells (0, 1), (2, 3), ... on every coarsened axis. A contact resistance on the
 face inside a pair is dropped by the Galerkin product, so the coarse levels miss it (17 and 12
@@ -24,8 +24,11 @@ For each job, in one process, the two versions alternating (``--rounds`` times e
 
 The *contact* job (`cycle_bench.contact_table`: a contact plane of 1000 times a cell's own
 resistance at x = 23/64, inside a pair at the second level at 128^3, at the first at 64^3 and
-at 256^3 ... see the levels column) is the case the shift is for; the others have no contact,
-so their solves must match *then*'s iterations and time.
+at 256^3 ... see the levels column) is the case the shift is for. The *joints* job
+(`joints_table`: three bonded joints along z at 19/64, 1/2 and 46/64, of both parities on the
+level that has 64 cells along z) is one no shift can serve: there z stays uncoarsened from that
+level on, since the z-lines solve along it. The others have no contact, so their solves must
+match *then*'s iterations and time.
 
 Writes benchmarks/RESULTS_SHIFT.md.
 """
@@ -46,7 +49,7 @@ import run as engine  # noqa: E402
 import timing  # noqa: E402
 import wall_bench  # noqa: E402
 
-CASES = ("contact",) + rb.CASES
+CASES = ("contact", "joints") + rb.CASES
 
 
 def uncached(source: str) -> str:
@@ -69,13 +72,25 @@ def hierarchy_at(revision: str):
     return hierarchy, stencil
 
 
+def joints_table(n: int) -> dict:
+    """k = 1 with three bonded joints along z (z = 19/64, 1/2, 46/64; each 1000 times a cell's
+    own resistance at 64^3), a unit source, u = 1 at x_min, 0 at x_max, exchange at z_max."""
+    table = cb.contact_table(n) | {"name": f"joints-{n}", "source": {"value": 1.0}}
+    table["contact"] = [{"axis": "z", "at": at, "resistance": 15.6}
+                        for at in (19 / 64, 32 / 64, 46 / 64)]
+    table["boundary"] = table["boundary"] | {
+        "z_max": {"type": "robin", "coefficient": 10.0, "reference": 0.0}}
+    return table
+
+
 def problem(n: int, case: str):
-    if case != "contact":
+    if case not in ("contact", "joints"):
         return rb.problem(n, case)
     from sevenfold.problem import build_problem
     from sevenfold.spec import parse_job
 
-    return build_problem(parse_job(cb.contact_table(n), "shift_bench"))
+    table = cb.contact_table(n) if case == "contact" else joints_table(n)
+    return build_problem(parse_job(table, "shift_bench"))
 
 
 def kernel_units(job, old_stencil, rounds: int) -> dict[str, float]:

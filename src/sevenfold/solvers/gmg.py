@@ -7,6 +7,12 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   an axis that is weakly coupled in more than a tenth of the cells is not coarsened
   (semi-coarsening), which is what keeps a grid graded along z, anisotropic only near its
   fine end, robust;
+* where the job has contact resistances (``planes``), the pairs of an axis may start one cell
+  later on a level, (0), (1, 2), (3, 4), ..., so that more contact planes lie between
+  aggregates (:func:`.levels.aligned_pairs`): the Galerkin product drops a coupling inside an
+  aggregate, and with it the contact (12 iterations against 5 at 128^3,
+  benchmarks/RESULTS_SHIFT.md); z planes that no shift keeps apart keep z uncoarsened on that
+  level (the z-lines solve along it);
 * coarse operators from the aggregation's Galerkin product P^T A P, which stays a 7-point
   stencil: every coarse coupling is the sum of the fine couplings crossing between two
   aggregates, so jumps in k reach the coarse levels as fluxes instead of being averaged; each
@@ -114,16 +120,19 @@ class Hierarchy:
         # the coarsest level is the first whose unshifted size is small enough, so that a
         # shift (one aggregate more on its axis) does not add a level
         nominal = top.shape
+        self._whole_z: list[int] = []  # levels whose z stays whole for contact planes
         while True:
             lv = self.levels[-1]
             if int(np.prod(nominal)) <= (coarsest_cells or COARSEST_CELLS):
                 break
             lv.lines = strong_z(lv) if smoother == "auto" else smoother == "line"
-            step = coarsening_step(lv, lv.lines)
-            if not (step > 1).any():
+            wanted = coarsening_step(lv, lv.lines)
+            if not (wanted > 1).any():
                 break
+            step, lv.off, planes = aligned_pairs(planes, wanted, lv.lines)
             lv.step = step
-            lv.off, planes = aligned_pairs(planes, step)
+            if step[2] < wanted[2]:
+                self._whole_z.append(len(self.levels) - 1)
             nominal = tuple(int((n + s - 1) // s) for n, s in zip(nominal, step))
             cshape = tuple(int((n + o + s - 1) // s) for n, o, s in zip(lv.shape, lv.off, step))
             arrays = [np.empty(cshape, dtype=self.dtype) for _ in range(4)]
@@ -181,9 +190,16 @@ class Hierarchy:
         return "z-line (levels " + ", ".join(str(i) for i, x in enumerate(lines) if x) + ") and point"
 
     def shift_note(self) -> str:
-        shifted = [str(i) for i, lv in enumerate(self.levels[:-1]) if lv.off.any()]
-        return (", pairs shifted on level" + ("s " if len(shifted) > 1 else " ") + ", ".join(shifted)
-                + " to keep contact planes between aggregates") if shifted else ""
+        """What the levels do for contact planes (empty when nothing)."""
+        def on(levels: list[int]) -> str:
+            return "level" + ("s " if len(levels) > 1 else " ") + ", ".join(map(str, levels))
+        shifted = [i for i, lv in enumerate(self.levels[:-1]) if lv.off.any()]
+        note = ""
+        if shifted:
+            note += f", pairs shifted on {on(shifted)} to keep contact planes between aggregates"
+        if self._whole_z:
+            note += f", z not coarsened on {on(self._whole_z)} to keep contact planes of both parities"
+        return note
 
     @property
     def shapes(self) -> list[tuple[int, int, int]]:

@@ -139,9 +139,9 @@ def coarsening_step(lv: Level, lines: bool) -> np.ndarray:
     return step
 
 
-def aligned_pairs(planes: tuple[tuple[int, ...], ...], step: np.ndarray
-                  ) -> tuple[np.ndarray, tuple[tuple[int, ...], ...]]:
-    """Offsets of the aggregates per axis (:func:`sevenfold.kernels.stencil.span`) that put
+def aligned_pairs(planes: tuple[tuple[int, ...], ...], step: np.ndarray, lines: bool = False
+                  ) -> tuple[np.ndarray, np.ndarray, tuple[tuple[int, ...], ...]]:
+    """Aggregate sizes and offsets per axis (:func:`sevenfold.kernels.stencil.span`) that put
     the most of ``planes`` between aggregates, and where those planes lie on the coarse level.
 
     ``planes[axis]`` holds cell boundaries b (between cells b - 1 and b) that should not fall
@@ -149,9 +149,18 @@ def aligned_pairs(planes: tuple[tuple[int, ...], ...], step: np.ndarray
     product drops when both cells join one aggregate (the coarse levels then miss the
     resistance, and a 64^3 job took 17 iterations instead of 5:
     benchmarks/RESULTS_WALLS_CONTACT.md). On an axis coarsened by pairs, pairs (0, 1), ...
-    keep even boundaries apart and pairs (1, 2), ... odd ones; the parity that more planes
-    have wins, and the others are dropped for the coarser levels.
+    keep even boundaries apart and pairs (1, 2), ... odd ones. Where a level smoothed along z
+    lines has z planes of both parities, z keeps its cells on that level (the lines solve
+    along z exactly, so it need not be coarsened, and every plane stays: three joints of
+    mixed parity at 128^3 took 5 iterations against 28, benchmarks/RESULTS_SHIFT.md), unless
+    no other axis would be coarsened. Otherwise the parity that more planes have wins, and
+    the others are dropped for the coarser levels. ``step`` (from :func:`coarsening_step`) is
+    not changed; the sizes returned may keep z whole.
     """
+    step = step.copy()
+    z = {b % 2 for b in planes[2]}
+    if lines and step[2] == 2 and len(z) > 1 and (step[:2] > 1).any():
+        step[2] = 1
     off = np.zeros(3, dtype=np.int64)
     coarse = []
     for axis, at in enumerate(planes):
@@ -163,4 +172,4 @@ def aligned_pairs(planes: tuple[tuple[int, ...], ...], step: np.ndarray
         o = 1 if s == 2 and 2 * odd > len(at) else 0
         off[axis] = o
         coarse.append(tuple(sorted({(b + o) // s for b in at if (b + o) % s == 0})))
-    return off, tuple(coarse)
+    return step, off, tuple(coarse)
