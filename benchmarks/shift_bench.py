@@ -17,7 +17,8 @@ For each job, in one process, the two versions alternating (``--rounds`` times e
 * the warm gmg set-up + solve (one untimed solve, then the best of two), with gmg's Hierarchy
   and level kernels as they are (*now*) and as they were at ``REVISION`` (*then*: the
   revision's `solvers/gmg.py`, `kernels/stencil.py` and `kernels/multigrid.py` loaded beside
-  the current ones, compiled without numba's cache);
+  the current ones, compiled without numba's cache; a revision whose Hierarchy takes the
+  contact planes is given them);
 * the fused residual and restriction alone on the finest level (float32, random b and u),
   *then*, *now* unshifted and *now* with every axis shifted, in work units (seconds over one
   float64 operator application).
@@ -35,6 +36,7 @@ Writes benchmarks/RESULTS_SHIFT.md.
 
 from __future__ import annotations
 
+import inspect
 import sys
 import time
 from pathlib import Path
@@ -63,10 +65,18 @@ def hierarchy_at(revision: str):
     gmg = wall_bench.module_at(revision, "sevenfold.solvers.gmg", edit=lambda s: uncached(
         s.replace("from ..kernels import multigrid, stencil\n", "")))
     gmg.multigrid, gmg.stencil = multigrid, stencil
+    if hasattr(gmg, "aligned_pairs"):  # (the revision's rule for the planes)
+        gmg.aligned_pairs = wall_bench.module_at(revision, "sevenfold.solvers.levels",
+                                                 edit=uncached).aligned_pairs
 
-    def hierarchy(fine, planes=None, **options):  # (the revision knows no planes)
+    takes_planes = "planes" in inspect.signature(gmg.Hierarchy).parameters
+
+    def hierarchy(fine, planes=None, **options):
+        if takes_planes and planes is not None:
+            options["planes"] = planes
         h = gmg.Hierarchy(fine, **options)
-        h.shift_note = lambda: ""
+        if not takes_planes:
+            h.shift_note = lambda: ""
         return h
 
     return hierarchy, stencil
@@ -105,12 +115,13 @@ def kernel_units(job, old_stencil, rounds: int) -> dict[str, float]:
     b = rng.standard_normal(top.shape).astype(hierarchy.dtype)
     u = rng.standard_normal(top.shape).astype(hierarchy.dtype)
     zero, ones = np.zeros(3, dtype=np.int64), np.ones(3, dtype=np.int64)
+    shift = [zero] if "off" in inspect.signature(old_stencil.residual_restrict.py_func).parameters else []
     shapes = {o: tuple(-(-(n + oo) // s) for n, oo, s in zip(top.shape, off, top.step))
               for o, off in (("zero", zero), ("ones", ones))}
     out = {o: np.empty(shape, hierarchy.dtype) for o, shape in shapes.items()}
     calls = {
         "then": lambda: old_stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u,
-                                                      top.step, out["zero"]),
+                                                      top.step, *shift, out["zero"]),
         "now": lambda: stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u,
                                                  top.step, zero, out["zero"]),
         "now shifted": lambda: stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u,
