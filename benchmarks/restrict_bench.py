@@ -49,10 +49,8 @@ CASES = ("layered", "inclusions", "constant", "column", "graded job")
 
 
 def stencil_at(revision: str):
-    """``sevenfold.kernels.stencil`` as it was at ``revision``, its kernels uncached (numba
-    caches only functions that live in a file)."""
-    return wall_bench.module_at(revision, "sevenfold.kernels.stencil",
-                                edit=lambda source: source.replace("cache=True", "cache=False"))
+    """``sevenfold.kernels.stencil`` as it was at ``revision`` (``wall_bench.kernels_at``)."""
+    return wall_bench.kernels_at(revision, "sevenfold.kernels.stencil")
 
 
 def problem(n: int, case: str):
@@ -91,7 +89,7 @@ def kernel_pair(job, old, rounds: int) -> dict[str, float]:
         stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, top.off, now)
 
     def run_then():
-        old.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, then)
+        old.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, top.off, then)
 
     run_now(), run_then()
     difference = float(np.abs(now - then).max() / np.abs(then).max())
@@ -159,6 +157,16 @@ def ab_arguments(doc: str, results: str, argv: list[str] | None,
     return p.parse_args(argv)
 
 
+def ab_preamble(doc: str, against: str, legend: str = "") -> list[str]:
+    """The text of an A/B report before its table: the script's description from ``doc`` and
+    what *then*, *now*, *WU* and *solve* mean (``legend``: the script's own terms, each
+    starting "; ")."""
+    return [doc.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+            f"*then* = revision {against}, *now* = the working tree; *WU* = seconds over one "
+            "two-thread float64 operator application of the job's grid (*apply*); *solve* = warm "
+            f"gmg set-up + solve, wall seconds, two threads{legend}.", ""]
+
+
 def main(argv: list[str] | None = None) -> int:
     args = ab_arguments(__doc__, "RESULTS_RESTRICT.md", argv)
     lines, info = engine.report_head("restrict_bench.py", argv,
@@ -166,10 +174,7 @@ def main(argv: list[str] | None = None) -> int:
     from sevenfold.solvers import gmg
 
     old = stencil_at(args.against)
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
-              f"*then* = revision {args.against}, *now* = the working tree; *WU* = seconds over one "
-              "two-thread float64 operator application of the job's grid (*apply*); *solve* = warm "
-              "gmg set-up + solve, wall seconds, two threads.", "",
+    lines += ab_preamble(__doc__, args.against) + [
               "| job | cells | apply ms | kernel WU then | kernel WU now | now / then | difference | "
               "iterations then / now | solve s then | solve s now | now / then | solve WU then | "
               "solve WU now |", "|" + "---|" * 13]

@@ -92,12 +92,10 @@ def main(argv: list[str] | None = None) -> int:
 
     old_cg = wall_bench.module_at(args.against, "sevenfold.solvers.cg")
     then = {(Level, "astype"): numpy_astype, (gmg, "pcg"): old_cg.pcg}
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
-              f"*then* = revision {args.against}, *now* = the working tree; *WU* = seconds over one "
-              "two-thread float64 operator application of the job's grid (*apply*); *solve* = warm "
-              "gmg set-up + solve, wall seconds, two threads; *same* = the same iterations, and "
-              "final relative residuals within 1e-6 of each other relative; *residual difference* "
-              "= the two true-residual forms' results on the same random x, relative to the revision's.", "",
+    lines += rb.ab_preamble(__doc__, args.against, "; *same* = the same iterations, and final "
+                            "relative residuals within 1e-6 of each other relative; *residual "
+                            "difference* = the two true-residual forms' results on the same random "
+                            "x, relative to the revision's") + [
               "| job | cells | apply ms | float32 copy WU then | now | now / then | true residual "
               "WU then | now | now / then | residual difference | solve s then | solve s now | "
               "now / then | same | solve WU then | solve WU now |",

@@ -62,6 +62,7 @@ def hierarchy_at(revision: str):
     """gmg's Hierarchy as it was at ``revision``, on that revision's level kernels."""
     stencil = wall_bench.module_at(revision, "sevenfold.kernels.stencil", edit=uncached)
     multigrid = wall_bench.module_at(revision, "sevenfold.kernels.multigrid", edit=uncached)
+    # (the revision's gmg calls them as they were, so not through wall_bench.kernels_at)
     gmg = wall_bench.module_at(revision, "sevenfold.solvers.gmg", edit=lambda s: uncached(
         s.replace("from ..kernels import multigrid, stencil\n", "")))
     gmg.multigrid, gmg.stencil = multigrid, stencil
@@ -153,10 +154,7 @@ def main(argv: list[str] | None = None) -> int:
     from sevenfold.solvers import gmg
 
     old_hierarchy, old_stencil = hierarchy_at(args.against)
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
-              f"*then* = revision {args.against}, *now* = the working tree; *WU* = seconds over "
-              "one two-thread float64 operator application of the job's grid (*apply*); "
-              "*solve* = warm gmg set-up + solve, wall seconds, two threads.", "",
+    lines += rb.ab_preamble(__doc__, args.against) + [
               "| job | cells | iterations then / now | solve s then | solve s now | now / then | "
               "restriction WU then / now / now shifted | apply ms | levels now |",
               "|" + "---|" * 9]

@@ -43,9 +43,8 @@ import wall_bench  # noqa: E402
 
 
 def multigrid_at(revision: str):
-    """``sevenfold.kernels.multigrid`` as it was at ``revision``, its kernels uncached."""
-    return wall_bench.module_at(revision, "sevenfold.kernels.multigrid",
-                                edit=lambda source: source.replace("cache=True", "cache=False"))
+    """``sevenfold.kernels.multigrid`` as it was at ``revision`` (``wall_bench.kernels_at``)."""
+    return wall_bench.kernels_at(revision, "sevenfold.kernels.multigrid")
 
 
 def one_sweep_per_pass(old):
@@ -128,11 +127,8 @@ def report(args, argv: list[str] | None, script: str, title: str, doc: str, old,
     report: ``old`` the revision's multigrid module, ``then`` the attributes its solves set
     (restrict_bench.solve_pair)."""
     lines, info = engine.report_head(script, argv, title)
-    lines += [doc.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
-              f"*then* = revision {args.against}, *now* = the working tree; *WU* = seconds over one "
-              "two-thread float64 operator application of the job's grid (*apply*); *two sweeps* = "
-              "one smoothing step on that level; *solve* = warm gmg set-up + solve, wall seconds, "
-              "two threads; *same* = the same iterations and final relative residual.", "",
+    lines += rb.ab_preamble(doc, args.against, "; *two sweeps* = one smoothing step on that "
+                            "level; *same* = the same iterations and final relative residual") + [
               "| job | cells | apply ms | level | two sweeps WU then | now | now / then | equal | "
               "solve s then | solve s now | now / then | same | solve WU then | solve WU now |",
               "|" + "---|" * 14]

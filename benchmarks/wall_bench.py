@@ -382,6 +382,38 @@ def module_at(revision: str, name: str, edit=None):
     return module
 
 
+# level kernels that take the pairs' shift (``off``) since db1aba3
+SHIFTED_KERNELS = ("residual_restrict", "restrict", "prolong_add", "galerkin", "galerkin_scaled")
+
+
+def kernels_at(revision: str, name: str):
+    """Kernel module ``name`` (e.g. "sevenfold.kernels.stencil") as it was at ``revision``,
+    uncached (numba caches only functions that live in a file), callable as gmg calls the
+    current one: a level kernel from before the pairs' shift (no ``off`` argument) takes a
+    zero shift and drops it, so revisions on either side of the change compare on jobs
+    without contact planes."""
+    import importlib
+    import inspect
+    import types
+
+    old = module_at(revision, name, edit=lambda source: source.replace("cache=True", "cache=False"))
+    current = importlib.import_module(name)
+    out = types.SimpleNamespace(**{k: v for k, v in vars(old).items() if not k.startswith("__")})
+    for kernel in SHIFTED_KERNELS:
+        then, now = getattr(old, kernel, None), getattr(current, kernel, None)
+        if then is None or now is None or "off" in inspect.signature(then.py_func).parameters:
+            continue
+        at = list(inspect.signature(now.py_func).parameters).index("off")
+
+        def dropped(*args, _then=then, _at=at):
+            if np.any(args[_at]):
+                raise ValueError(f"revision {revision} knows no shifted pairs")
+            return _then(*args[:_at], *args[_at + 1:])
+
+        setattr(out, kernel, dropped)
+    return out
+
+
 def machine_table(info: dict) -> list[str]:
     """The report's closing section: ``info`` as a two-column markdown table."""
     return ["## Machine", "", "| | |", "|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
