@@ -231,6 +231,7 @@ class WallHierarchy(gmg.Hierarchy):
         self.transfer, self.smoother, self.overcorrection = "scaled", "line", 1.0
         self.gamma, self.sweeps = 2, (2, 2)
         self.offsets = []
+        self._whole_z: list[int] = []  # (the prototype coarsens z wherever the rule says)
         top = fine.astype(self.dtype)
         top.boost = np.ones(3)
         self.levels = [top]
