@@ -152,8 +152,9 @@ def aligned_pairs(planes: tuple[tuple[int, ...], ...], step: np.ndarray, lines: 
     keep even boundaries apart and pairs (1, 2), ... odd ones. Where a level smoothed along z
     lines has z planes of both parities, z keeps its cells on that level (the lines solve
     along z exactly, so it need not be coarsened, and every plane stays: three joints of
-    mixed parity at 128^3 took 5 iterations against 28, benchmarks/RESULTS_SHIFT.md), unless
-    no other axis would be coarsened. Otherwise the parity that more planes have wins, and
+    both parities took 8 iterations against the majority rule's 15 and 11 at 128^3 and 256^3,
+    as many as the job without joints, benchmarks/RESULTS_SHIFT_JOINTS.md), unless no other
+    axis would be coarsened. Otherwise the parity that more planes have wins, and
     the others are dropped for the coarser levels. ``step`` (from :func:`coarsening_step`) is
     not changed; the sizes returned may keep z whole.
     """
