@@ -18,6 +18,9 @@ at random.
 The coarse operator is the kept scaled Galerkin product with the scale taken per face from the
 two aggregates' sizes (2 / (s1 + s2): 1/2 between pairs, as kept) and per aggregate for a cell's
 boundary excess (1 / s); transfers piecewise constant; W(2,2) z-line Gauss-Seidel in float32.
+Since db1aba3 the product's level kernels take the offsets themselves (gmg shifts pairs for
+contact planes it knows from the job), so this prototype only chooses the offsets from the
+operator; before, it carried its own shifted kernels (RESULTS_WALLS*.md were measured on them).
 
 Measured here against the kept hierarchy in the same process, one numba thread, CPU seconds
 (as benchmarks/cycle_bench.py). Writes benchmarks/RESULTS_WALLS.md.
@@ -35,7 +38,6 @@ from pathlib import Path
 
 import numba
 import numpy as np
-from numba import njit, prange
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
@@ -43,144 +45,12 @@ import cycle_bench as cb  # noqa: E402
 import run as engine  # noqa: E402
 
 from sevenfold.kernels import multigrid  # noqa: E402
-from sevenfold.kernels.stencil import _neighbours, _offdiag_row  # noqa: E402
 from sevenfold.solvers import gmg  # noqa: E402
 from sevenfold.solvers.coarsest import CoarsestSolver  # noqa: E402
 from sevenfold.solvers.levels import Level, coarsening_step  # noqa: E402
 
 WALL = 10.0  # neighbouring diagonals this many times apart: a wall between them
 COARSEST_ALLOWANCE = 1.2
-
-
-@njit
-def _span(I, s, o, n):
-    """Fine cells [lo, hi) of aggregate I along one axis (pairs shifted by o)."""
-    return max(I * s - o, 0), min(I * s - o + s, n)
-
-
-@njit
-def _face_scale(I, s, o, n, nc):
-    """Scale of the coupling between aggregates I and I + 1: 2 / (their sizes summed)."""
-    if s == 1:
-        return 1.0
-    a0, a1 = _span(I, s, o, n)
-    if I + 1 >= nc:
-        return 1.0 / (a1 - a0)
-    b0, b1 = _span(I + 1, s, o, n)
-    return 2.0 / ((a1 - a0) + (b1 - b0))
-
-
-@njit(parallel=True)  # (no cache: a cached kernel re-imports this module)
-def galerkin_shifted(tx, ty, tz, diag, free, step, off, txc, tyc, tzc, diagc, freec):
-    """multigrid.galerkin_scaled with aggregates shifted by ``off`` per axis."""
-    nx, ny, nz = diag.shape
-    sx, sy, sz = step[0], step[1], step[2]
-    ox, oy, oz = off[0], off[1], off[2]
-    ncx, ncy, ncz = diagc.shape
-    for I in prange(ncx):
-        d = np.zeros((ncy, ncz))
-        cxs = np.zeros((ncy, ncz))
-        cys = np.zeros((ncy, ncz))
-        czs = np.zeros((ncy, ncz))
-        nfree = np.zeros((ncy, ncz), dtype=np.int64)
-        i0, i1 = _span(I, sx, ox, nx)
-        gxm = _face_scale(I - 1, sx, ox, nx, ncx) if I > 0 else 1.0 / (i1 - i0)
-        gxp = _face_scale(I, sx, ox, nx, ncx)
-        fx = 1.0 / (i1 - i0)
-        for i in range(i0, i1):
-            for j in range(ny):
-                J = (j + oy) // sy
-                j0, j1 = _span(J, sy, oy, ny)
-                gym = _face_scale(J - 1, sy, oy, ny, ncy) if J > 0 else 1.0 / (j1 - j0)
-                gyp = _face_scale(J, sy, oy, ny, ncy)
-                fy = 1.0 / (j1 - j0)
-                for m in range(nz):
-                    if not free[i, j, m]:
-                        continue
-                    K = (m + oz) // sz
-                    k0, k1 = _span(K, sz, oz, nz)
-                    gzm = _face_scale(K - 1, sz, oz, nz, ncz) if K > 0 else 1.0 / (k1 - k0)
-                    gzp = _face_scale(K, sz, oz, nz, ncz)
-                    fz = 1.0 / (k1 - k0)
-                    nfree[J, K] += 1
-                    txm = tx[i - 1, j, m] if i > 0 else 0.0
-                    tym = ty[i, j - 1, m] if j > 0 else 0.0
-                    tzm = tz[i, j, m - 1] if m > 0 else 0.0
-                    txp = tx[i, j, m]
-                    typ = ty[i, j, m]
-                    tzp = tz[i, j, m]
-                    excess = diag[i, j, m] - (txm + txp + tym + typ + tzm + tzp)
-                    missing_x = (1 if txm == 0.0 else 0) + (1 if txp == 0.0 else 0)
-                    missing_y = (1 if tym == 0.0 else 0) + (1 if typ == 0.0 else 0)
-                    missing_z = (1 if tzm == 0.0 else 0) + (1 if tzp == 0.0 else 0)
-                    missing = missing_x + missing_y + missing_z
-                    a = d[J, K]
-                    if missing > 0:
-                        share = excess / missing
-                        a += share * (missing_x * fx + missing_y * fy + missing_z * fz)
-                    else:
-                        a += excess * (fx + fy + fz) / 3.0
-                    if i == i0:
-                        a += gxm * txm
-                    if i + 1 == i1:
-                        a += gxp * txp
-                        cxs[J, K] += txp
-                    if j == j0:
-                        a += gym * tym
-                    if j + 1 == j1:
-                        a += gyp * typ
-                        cys[J, K] += typ * gyp
-                    if m == k0:
-                        a += gzm * tzm
-                    if m + 1 == k1:
-                        a += gzp * tzp
-                        czs[J, K] += tzp * gzp
-                    d[J, K] = a
-        for J in range(ncy):
-            for K in range(ncz):
-                n = nfree[J, K]
-                freec[I, J, K] = n > 0
-                diagc[I, J, K] = d[J, K] if n > 0 else 1.0
-                txc[I, J, K] = gxp * cxs[J, K]
-                tyc[I, J, K] = cys[J, K]
-                tzc[I, J, K] = czs[J, K]
-
-
-@njit(parallel=True)  # (no cache: a cached kernel re-imports this module)
-def residual_restrict_shifted(tx, ty, tz, diag, b, u, step, off, rc):
-    """stencil.residual_restrict with aggregates shifted by ``off`` per axis."""
-    nx, ny, nz = u.shape
-    sx, sy, sz = step[0], step[1], step[2]
-    ox, oy, oz = off[0], off[1], off[2]
-    ncx, ncy, ncz = rc.shape
-    for I in prange(ncx):
-        for J in range(ncy):
-            for K in range(ncz):
-                rc[I, J, K] = 0.0
-        i0, i1 = _span(I, sx, ox, nx)
-        for i in range(i0, i1):
-            for j in range(ny):
-                J = (j + oy) // sy
-                wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
-                for m in range(nz):
-                    r = b[i, j, m] - diag[i, j, m] * u[i, j, m] + _offdiag_row(
-                        tx, ty, tz, u, i, j, m, wxm, wxp, wym, wyp, im, ip, jm, jp, nz)
-                    rc[I, J, (m + oz) // sz] += r
-
-
-@njit(parallel=True)  # (no cache: a cached kernel re-imports this module)
-def prolong_add_shifted(ec, free, step, off, scale, u):
-    """stencil.prolong_add with aggregates shifted by ``off`` per axis."""
-    nx, ny, nz = u.shape
-    sx, sy, sz = step[0], step[1], step[2]
-    ox, oy, oz = off[0], off[1], off[2]
-    for i in prange(nx):
-        I = (i + ox) // sx
-        for j in range(ny):
-            J = (j + oy) // sy
-            for m in range(nz):
-                if free[i, j, m]:
-                    u[i, j, m] += scale * ec[I, J, (m + oz) // sz]
 
 
 def wall_offsets(lv: Level, step: np.ndarray) -> np.ndarray:
@@ -249,7 +119,8 @@ class WallHierarchy(gmg.Hierarchy):
             cshape = tuple(int((n + o + s - 1) // s) for n, s, o in zip(lv.shape, step, off))
             arrays = [np.empty(cshape, dtype=self.dtype) for _ in range(4)]
             freec = np.empty(cshape, dtype=np.bool_)
-            galerkin_shifted(lv.tx, lv.ty, lv.tz, lv.diag, lv.free, step, off, *arrays, freec)
+            multigrid.galerkin_scaled(lv.tx, lv.ty, lv.tz, lv.diag, lv.free, step, off,
+                                      *arrays, freec)
             coarse = Level(*arrays, freec, np.ones(3, dtype=np.int64), boost=lv.boost)
             coarse.e, coarse.b = (np.empty(cshape, dtype=self.dtype) for _ in range(2))
             self.levels.append(coarse)
@@ -265,20 +136,6 @@ class WallHierarchy(gmg.Hierarchy):
             lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
             multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
         self.coarsest = CoarsestSolver(self.levels[-1])
-
-    def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
-        lv = self.levels[level]
-        if level == len(self.levels) - 1:
-            self.coarsest.solve(b, u)
-            return
-        coarse = self.levels[level + 1]
-        self._smooth(lv, b, u, 0)
-        residual_restrict_shifted(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.step, lv.off, coarse.b)
-        coarse.e[...] = 0.0
-        for _ in range(self.gamma if level + 2 < len(self.levels) else 1):
-            self.cycle(level + 1, coarse.b, coarse.e)
-        prolong_add_shifted(coarse.e, lv.free, lv.step, lv.off, 1.0, u)
-        self._smooth(lv, b, u, 1)
 
 
 def solve(fine, b, design: str):
@@ -299,7 +156,7 @@ DESIGNS = ("kept", "prototype, pairs as kept", "walls", "walls and weak faces")
 TITLE = "Aggregates that follow walls (a prototype)"
 INTRO = ("*kept* = `sevenfold.solvers.gmg`'s hierarchy; *prototype, pairs as kept* = this file's "
          "hierarchy with every offset 0 (it must match *kept*'s iterations: the check that the "
-         "prototype's kernels are the kept ones); *walls* = pairs shifted per level and axis so "
+         "prototype's set-up is the kept one); *walls* = pairs shifted per level and axis so "
          "that walls fall between aggregates (*offsets*: x, y, z per level, 1 = shifted); *walls "
          "and weak faces* = the same, also counting faces WALL times weaker than a neighbouring "
          "face along their axis (a contact resistance, `weak_face_offsets`). See "
