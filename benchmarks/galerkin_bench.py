@@ -147,7 +147,7 @@ def compare(n: int, case: str, repeats: int) -> dict:
     import restrict_bench as rb
     import timing
     from sevenfold.kernels import multigrid
-    from sevenfold.solvers.levels import coarsening_step
+    from sevenfold.solvers.levels import coarsening_step, pairs
 
     fine, _ = cb.problem_level(n, case)
     apply = rb.apply_seconds(fine)
@@ -157,7 +157,8 @@ def compare(n: int, case: str, repeats: int) -> dict:
     outs = {k: [np.empty(coarse, np.float32) for _ in range(4)] + [np.empty(coarse, np.bool_)]
             for k in ("kept", "rows")}
     args = (level.tx, level.ty, level.tz, level.diag, level.free, step)
-    calls = {"kept": lambda: multigrid.galerkin_scaled(*args, level.off, *outs["kept"]),
+    agg = pairs(level.shape, step)
+    calls = {"kept": lambda: multigrid.galerkin_scaled(*args[:-1], agg, *outs["kept"]),
              "rows": lambda: galerkin_rows(*args, *outs["rows"])}
     best = {k: np.inf for k in calls}
     for _ in range(repeats):

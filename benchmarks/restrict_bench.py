@@ -86,10 +86,10 @@ def kernel_pair(job, old, rounds: int) -> dict[str, float]:
     now, then = np.empty(coarse.shape, hierarchy.dtype), np.empty(coarse.shape, hierarchy.dtype)
 
     def run_now():
-        stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, top.off, now)
+        stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, top.agg, now)
 
     def run_then():
-        old.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, top.off, then)
+        old.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u, top.step, top.agg, then)
 
     run_now(), run_then()
     difference = float(np.abs(now - then).max() / np.abs(then).max())

@@ -1,22 +1,26 @@
-"""Aggregates shifted to keep contact planes apart, as it is against an earlier revision's
-unshifted hierarchy, in whole gmg solves and in the kernels that take the shift.
+"""Aggregates arranged to keep contact planes apart, as it is against an earlier revision's
+hierarchy, in whole gmg solves and in the kernels that take the aggregates.
 
     python benchmarks/shift_bench.py --against REVISION [--sizes 128 256]
-        [--cases contact joints layered inclusions constant column "graded job"] [--rounds 3]
+        [--cases contact joints "x joints" layered inclusions constant column "graded job"]
+        [--rounds 3]
 
 The cycle pairs cells (0, 1), (2, 3), ... on every coarsened axis. A contact resistance on the
 face inside a pair is dropped by the Galerkin product, so the coarse levels miss it (17 and 12
-iterations against 5 at 64^3 and 128^3: RESULTS_WALLS_CONTACT.md). Now gmg shifts the pairs,
-per level and axis, to (1, 2), (3, 4), ... where that keeps the job's contact planes between
-aggregates (`solvers.levels.aligned_pairs`), and scales each coarse coupling by the fine over
-the coarse centre distance (2 / (the two aggregates' sizes summed)). The level kernels take the
-shift as an argument, so every job pays for it in its loops, shifted or not.
+iterations against 5 at 64^3 and 128^3: RESULTS_WALLS_CONTACT.md). Now gmg arranges the pairs,
+per level and axis, so that the job's contact planes lie between aggregates
+(`solvers.levels.aggregates`: pairs from the parity most planes have, (1, 2), (3, 4), ... for
+odd ones, a cell alone where a pair would still hold a plane, or along z under z-lines no
+coarsening), and scales each coarse coupling by the fine over the coarse centre distance
+(2 / (the two aggregates' sizes summed)). The level kernels take each cell's aggregate per
+axis, so every job pays for it in its loops, arranged or not.
 
 For each job, in one process, the two versions alternating (``--rounds`` times each, best of):
 
 * the warm gmg set-up + solve (one untimed solve, then the best of two), with gmg's Hierarchy
   and level kernels as they are (*now*) and as they were at ``REVISION`` (*then*: the
-  revision's `solvers/gmg.py`, `kernels/stencil.py` and `kernels/multigrid.py` loaded beside
+  revision's `solvers/gmg.py`, `solvers/levels.py`, `kernels/stencil.py` and
+  `kernels/multigrid.py` loaded beside
   the current ones, compiled without numba's cache; a revision whose Hierarchy takes the
   contact planes is given them);
 * the fused residual and restriction alone on the finest level (float32, random b and u),
@@ -28,8 +32,9 @@ resistance at x = 23/64, inside a pair at the second level at 128^3, at the firs
 at 256^3 ... see the levels column) is the case the shift is for. The *joints* job
 (`joints_table`: three bonded joints along z at 19/64, 1/2 and 46/64, of both parities on the
 level that has 64 cells along z) is one no shift can serve: there z stays uncoarsened from that
-level on, since the z-lines solve along it. The others have no contact, so their solves must
-match *then*'s iterations and time.
+level on, since the z-lines solve along it. The *x joints* job is the same turned across x,
+where cells are left alone beside the joints instead (`solvers.levels.aggregates`). The others
+have no contact, so their solves must match *then*'s iterations and time.
 
 Writes benchmarks/RESULTS_SHIFT.md.
 """
@@ -51,7 +56,7 @@ import run as engine  # noqa: E402
 import timing  # noqa: E402
 import wall_bench  # noqa: E402
 
-CASES = ("contact", "joints") + rb.CASES
+CASES = ("contact", "joints", "x joints") + rb.CASES
 
 
 def uncached(source: str) -> str:
@@ -63,12 +68,11 @@ def hierarchy_at(revision: str):
     stencil = wall_bench.module_at(revision, "sevenfold.kernels.stencil", edit=uncached)
     multigrid = wall_bench.module_at(revision, "sevenfold.kernels.multigrid", edit=uncached)
     # (the revision's gmg calls them as they were, so not through wall_bench.kernels_at)
+    # the revision's levels (its Level and rule for the planes) beside the current ones
+    wall_bench.module_at(revision, "sevenfold.solvers.levels", edit=uncached)
     gmg = wall_bench.module_at(revision, "sevenfold.solvers.gmg", edit=lambda s: uncached(
         s.replace("from ..kernels import multigrid, stencil\n", "")))
     gmg.multigrid, gmg.stencil = multigrid, stencil
-    if hasattr(gmg, "aligned_pairs"):  # (the revision's rule for the planes)
-        gmg.aligned_pairs = wall_bench.module_at(revision, "sevenfold.solvers.levels",
-                                                 edit=uncached).aligned_pairs
 
     takes_planes = "planes" in inspect.signature(gmg.Hierarchy).parameters
 
@@ -76,18 +80,18 @@ def hierarchy_at(revision: str):
         if takes_planes and planes is not None:
             options["planes"] = planes
         h = gmg.Hierarchy(fine, **options)
-        if not takes_planes:
-            h.shift_note = lambda: ""
+        h.planes_note = getattr(h, "planes_note", getattr(h, "shift_note", lambda: ""))
         return h
 
-    return hierarchy, stencil
+    return hierarchy
 
 
-def joints_table(n: int) -> dict:
-    """k = 1 with three bonded joints along z (z = 19/64, 1/2, 46/64; each 1000 times a cell's
-    own resistance at 64^3), a unit source, u = 1 at x_min, 0 at x_max, exchange at z_max."""
-    table = cb.contact_table(n) | {"name": f"joints-{n}", "source": {"value": 1.0}}
-    table["contact"] = [{"axis": "z", "at": at, "resistance": 15.6}
+def joints_table(n: int, axis: str = "z") -> dict:
+    """k = 1 with three bonded joints across ``axis`` (at 19/64, 1/2, 46/64; each 1000 times a
+    cell's own resistance at 64^3), a unit source, u = 1 at x_min, 0 at x_max, exchange at
+    z_max."""
+    table = cb.contact_table(n) | {"name": f"joints-{axis}-{n}", "source": {"value": 1.0}}
+    table["contact"] = [{"axis": axis, "at": at, "resistance": 15.6}
                         for at in (19 / 64, 32 / 64, 46 / 64)]
     table["boundary"] = table["boundary"] | {
         "z_max": {"type": "robin", "coefficient": 10.0, "reference": 0.0}}
@@ -95,19 +99,22 @@ def joints_table(n: int) -> dict:
 
 
 def problem(n: int, case: str):
-    if case not in ("contact", "joints"):
+    if case not in ("contact", "joints", "x joints"):
         return rb.problem(n, case)
     from sevenfold.problem import build_problem
     from sevenfold.spec import parse_job
 
-    table = cb.contact_table(n) if case == "contact" else joints_table(n)
+    table = (cb.contact_table(n) if case == "contact"
+             else joints_table(n, "x" if case == "x joints" else "z"))
     return build_problem(parse_job(table, "shift_bench"))
 
 
 def kernel_units(job, old_stencil, rounds: int) -> dict[str, float]:
-    """The fused residual and restriction on the finest level: then, now, now shifted (WU)."""
+    """The fused residual and restriction on the finest level: then, now, now shifted (WU);
+    ``old_stencil`` from ``wall_bench.kernels_at``."""
     from sevenfold.kernels import stencil
     from sevenfold.solvers.gmg import DEFAULTS, Hierarchy, fine_level
+    from sevenfold.solvers.levels import pairs
 
     fine, _ = fine_level(job)
     hierarchy = Hierarchy(fine, **{k: v for k, v in DEFAULTS.items() if k != "start"})
@@ -115,18 +122,15 @@ def kernel_units(job, old_stencil, rounds: int) -> dict[str, float]:
     rng = np.random.default_rng(0)
     b = rng.standard_normal(top.shape).astype(hierarchy.dtype)
     u = rng.standard_normal(top.shape).astype(hierarchy.dtype)
-    zero, ones = np.zeros(3, dtype=np.int64), np.ones(3, dtype=np.int64)
-    shift = [zero] if "off" in inspect.signature(old_stencil.residual_restrict.py_func).parameters else []
-    shapes = {o: tuple(-(-(n + oo) // s) for n, oo, s in zip(top.shape, off, top.step))
-              for o, off in (("zero", zero), ("ones", ones))}
-    out = {o: np.empty(shape, hierarchy.dtype) for o, shape in shapes.items()}
+    agg = {o: pairs(top.shape, top.step, (o, o, o)) for o in (0, 1)}
+    out = {o: np.empty(tuple(int(a[-1]) + 1 for a in agg[o]), hierarchy.dtype) for o in (0, 1)}
     calls = {
         "then": lambda: old_stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u,
-                                                      top.step, *shift, out["zero"]),
+                                                      top.step, agg[0], out[0]),
         "now": lambda: stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u,
-                                                 top.step, zero, out["zero"]),
+                                                 top.step, agg[0], out[0]),
         "now shifted": lambda: stencil.residual_restrict(top.tx, top.ty, top.tz, top.diag, b, u,
-                                                         top.step, ones, out["ones"]),
+                                                         top.step, agg[1], out[1]),
     }
     for call in calls.values():
         call()
@@ -144,16 +148,17 @@ def levels_note(job) -> str:
     fine, _ = fine_level(job)
     h = Hierarchy(fine, planes=contact_planes(job),
                   **{k: v for k, v in DEFAULTS.items() if k != "start"})
-    return " > ".join("x".join(map(str, s)) for s in h.shapes) + h.shift_note()
+    return " > ".join("x".join(map(str, s)) for s in h.shapes) + h.planes_note()
 
 
 def main(argv: list[str] | None = None) -> int:
     args = rb.ab_arguments(__doc__, "RESULTS_SHIFT.md", argv, CASES)
     lines, info = engine.report_head("shift_bench.py", argv,
-                                     "Aggregates shifted to keep contact planes apart")
+                                     "Aggregates arranged to keep contact planes apart")
     from sevenfold.solvers import gmg
 
-    old_hierarchy, old_stencil = hierarchy_at(args.against)
+    old_hierarchy = hierarchy_at(args.against)
+    old_stencil = wall_bench.kernels_at(args.against, "sevenfold.kernels.stencil")
     lines += rb.ab_preamble(__doc__, args.against) + [
               "| job | cells | iterations then / now | solve s then | solve s now | now / then | "
               "restriction WU then / now / now shifted | apply ms | levels now |",

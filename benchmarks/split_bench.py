@@ -553,12 +553,12 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
             rct = np.empty((coarse.shape[0], coarse.shape[2], coarse.shape[1]), dtype=h.dtype)
             pairs["residual and restriction"] = (
                 lambda: stencil.residual_restrict(lv.tx, lv.ty, lv.tz, lv.diag, rhs, u, lv.step,
-                                                  lv.off, rc),
+                                                  lv.agg, rc),
                 lambda: (residual_restrict_split(s["tx"], s["ty"], s["tz"], s["diag"], sb, su,
                                                  lv.step, rct), swap_yz(rct, rc)))
             free = split(lv.free, h.dtype)
             pairs["prolongation"] = (
-                lambda: stencil.prolong_add(rc, lv.free, lv.step, lv.off, 1.0, u),
+                lambda: stencil.prolong_add(rc, lv.free, lv.step, lv.agg, 1.0, u),
                 lambda: (swap_yz(rc, rct), prolong_add_split(rct, free, lv.step, 1.0, su)))
             p64 = r.copy()
             out = np.empty_like(p64)

@@ -18,8 +18,8 @@ at random.
 The coarse operator is the kept scaled Galerkin product with the scale taken per face from the
 two aggregates' sizes (2 / (s1 + s2): 1/2 between pairs, as kept) and per aggregate for a cell's
 boundary excess (1 / s); transfers piecewise constant; W(2,2) z-line Gauss-Seidel in float32.
-Since db1aba3 the product's level kernels take the offsets themselves (gmg shifts pairs for
-contact planes it knows from the job), so this prototype only chooses the offsets from the
+Since db1aba3 the product's level kernels take the aggregates themselves (gmg arranges pairs
+for contact planes it knows from the job), so this prototype only chooses the offsets from the
 operator; before, it carried its own shifted kernels (RESULTS_WALLS*.md were measured on them).
 
 Measured here against the kept hierarchy in the same process, one numba thread, CPU seconds
@@ -47,7 +47,7 @@ import run as engine  # noqa: E402
 from sevenfold.kernels import multigrid  # noqa: E402
 from sevenfold.solvers import gmg  # noqa: E402
 from sevenfold.solvers.coarsest import CoarsestSolver  # noqa: E402
-from sevenfold.solvers.levels import Level, coarsening_step  # noqa: E402
+from sevenfold.solvers.levels import Level, coarsening_step, pairs  # noqa: E402
 
 WALL = 10.0  # neighbouring diagonals this many times apart: a wall between them
 COARSEST_ALLOWANCE = 1.2
@@ -115,12 +115,12 @@ class WallHierarchy(gmg.Hierarchy):
             if not (step > 1).any():
                 break
             off = offsets(lv, step) if follow else np.zeros(3, dtype=np.int64)
-            lv.step, lv.off = step, off
-            cshape = tuple(int((n + o + s - 1) // s) for n, s, o in zip(lv.shape, step, off))
+            lv.step, lv.agg = step, pairs(lv.shape, step, off)
+            cshape = tuple(int(a[-1]) + 1 for a in lv.agg)
             arrays = [np.empty(cshape, dtype=self.dtype) for _ in range(4)]
             freec = np.empty(cshape, dtype=np.bool_)
-            multigrid.galerkin_scaled(lv.tx, lv.ty, lv.tz, lv.diag, lv.free, step, off,
-                                      *arrays, freec)
+            multigrid.galerkin_scaled(lv.tx, lv.ty, lv.tz, lv.diag, lv.free, lv.agg, *arrays,
+                                      freec)
             coarse = Level(*arrays, freec, np.ones(3, dtype=np.int64), boost=lv.boost)
             coarse.e, coarse.b = (np.empty(cshape, dtype=self.dtype) for _ in range(2))
             self.levels.append(coarse)
@@ -221,7 +221,9 @@ def run_info() -> dict:
 def module_at(revision: str, name: str, edit=None):
     """Module ``name`` of sevenfold (e.g. "sevenfold.store") as it was at git ``revision``,
     loaded beside the current one for an A/B in one process; its relative imports resolve in
-    the installed package. ``edit`` (source -> source), when given, changes the text first."""
+    the installed package, except those of sibling modules already loaded at ``revision``
+    (load the ones it needs first). ``edit`` (source -> source), when given, changes the text
+    first."""
     import importlib.util
     import types
 
@@ -231,6 +233,9 @@ def module_at(revision: str, name: str, edit=None):
     if edit is not None:
         source = edit(source)
     package, _, leaf = name.rpartition(".")
+    for loaded in [m for m in sys.modules if m.startswith(f"{package}._") and m.endswith(f"_at_{revision}")]:
+        sibling = loaded[len(package) + 2:-len(f"_at_{revision}")]
+        source = source.replace(f"from .{sibling} import", f"from ._{sibling}_at_{revision} import")
     qualified = f"{package}._{leaf}_at_{revision}"
     module = types.ModuleType(qualified)
     module.__package__ = package
@@ -240,35 +245,61 @@ def module_at(revision: str, name: str, edit=None):
     return module
 
 
-# level kernels that take the pairs' shift (``off``) since db1aba3
-SHIFTED_KERNELS = ("residual_restrict", "restrict", "prolong_add", "galerkin", "galerkin_scaled")
+# level kernels that take each cell's aggregate per axis (``agg``) since a2d7a83's successor,
+# a shift of the pairs (``off``) from db1aba3 on, plain pairs before
+AGGREGATE_KERNELS = ("residual_restrict", "restrict", "prolong_add", "galerkin", "galerkin_scaled")
+
+
+def _called_as_now(then, now, revision: str):
+    """``then``, a revision's kernel, called with ``now``'s arguments: matched by name, with
+    the aggregate sizes (``step``) or the pairs' shift (``off``) it took derived from ``agg``."""
+    import inspect
+
+    old = list(inspect.signature(then.py_func).parameters)
+    new = list(inspect.signature(now.py_func).parameters)
+    if old == new:
+        return then
+
+    def called(*args):
+        given = dict(zip(new, args))
+        if "agg" in given:
+            step = np.array([1 if a[-1] + 1 == a.size else 2 for a in given["agg"]], dtype=np.int64)
+            off = np.zeros(3, dtype=np.int64)
+            for axis, (a, s) in enumerate(zip(given["agg"], step)):
+                if s == 2:
+                    off[axis] = int(a.size > 1 and a[1] != a[0])
+                    if not np.array_equal(a, (np.arange(a.size) + off[axis]) // 2):
+                        raise ValueError(f"revision {revision} knows no cells alone inside an axis")
+            if "off" not in old and off.any():
+                raise ValueError(f"revision {revision} knows no shifted pairs")
+            given.setdefault("step", step)
+            given["off"] = off
+        return then(*(given[name] for name in old))
+
+    return called
 
 
 def kernels_at(revision: str, name: str):
     """Kernel module ``name`` (e.g. "sevenfold.kernels.stencil") as it was at ``revision``,
     uncached (numba caches only functions that live in a file), callable as gmg calls the
-    current one: a level kernel from before the pairs' shift (no ``off`` argument) takes a
-    zero shift and drops it, so revisions on either side of the change compare on jobs
-    without contact planes."""
+    current one: a level kernel from before the aggregates per axis takes them and passes on
+    what it took instead (plain or shifted pairs), so revisions on either side of the change
+    compare on the jobs they both can run."""
     import importlib
-    import inspect
     import types
 
-    old = module_at(revision, name, edit=lambda source: source.replace("cache=True", "cache=False"))
+    def uncached(source: str) -> str:
+        return source.replace("cache=True", "cache=False")
+
+    if name == "sevenfold.kernels.multigrid":  # (it imports from stencil)
+        module_at(revision, "sevenfold.kernels.stencil", edit=uncached)
+    old = module_at(revision, name, edit=uncached)
     current = importlib.import_module(name)
     out = types.SimpleNamespace(**{k: v for k, v in vars(old).items() if not k.startswith("__")})
-    for kernel in SHIFTED_KERNELS:
+    for kernel in AGGREGATE_KERNELS:
         then, now = getattr(old, kernel, None), getattr(current, kernel, None)
-        if then is None or now is None or "off" in inspect.signature(then.py_func).parameters:
-            continue
-        at = list(inspect.signature(now.py_func).parameters).index("off")
-
-        def dropped(*args, _then=then, _at=at):
-            if np.any(args[_at]):
-                raise ValueError(f"revision {revision} knows no shifted pairs")
-            return _then(*args[:_at], *args[_at + 1:])
-
-        setattr(out, kernel, dropped)
+        if then is not None and now is not None:
+            setattr(out, kernel, _called_as_now(then, now, revision))
     return out
 
 

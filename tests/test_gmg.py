@@ -410,14 +410,13 @@ def test_linear_transfers_against_numpy(shape, step) -> None:
     assert abs(float((pe * r).sum()) - float((e * rc).sum())) <= 1e-12 * float(np.abs(pe * r).sum())
 
 
-def _galerkin_scaled_reference(tx, ty, tz, diag, free, step, off=(0, 0, 0)):
+def _galerkin_scaled_reference(tx, ty, tz, diag, free, agg):
     """The scaled aggregation coarse operator written out with numpy, cell contributions first
     and then summed per aggregate (the definition in kernels.multigrid.galerkin_scaled's
-    docstring, independent of its loops); aggregate of cell i along an axis: (i + off) // step,
-    a coupling scaled by 2 / (the two aggregates' sizes summed), a boundary share by 1 / size."""
+    docstring, independent of its loops); ``agg``: per axis, each cell's aggregate; a
+    coupling scaled by 2 / (the two aggregates' sizes summed), a boundary share by 1 / size."""
     shape = diag.shape
-    coarse = tuple(-(-(n + o) // s) for n, o, s in zip(shape, off, step))
-    agg = [(np.arange(n) + o) // s for n, o, s in zip(shape, off, step)]
+    coarse = tuple(int(a[-1]) + 1 for a in agg)
     sizes = [np.bincount(a, minlength=nc).astype(float) for a, nc in zip(agg, coarse)]
     face = [np.append(2.0 / (z[:-1] + z[1:]), 1.0 / z[-1]) for z in sizes]
 
@@ -454,27 +453,46 @@ def _galerkin_scaled_reference(tx, ty, tz, diag, free, step, off=(0, 0, 0)):
             np.where(freec, summed(contrib), 1.0), freec)
 
 
+def _maps(shape, step, off, planes=((), (), ())) -> tuple[np.ndarray, ...]:
+    """Each cell's aggregate per axis: single cells where ``step`` is 1, else pairs from
+    ``off`` with a cell alone wherever a pair would hold one of ``planes`` (levels.partition),
+    checked here against the plain formula (i + off) // 2 where no plane intervenes."""
+    from sevenfold.solvers.levels import partition
+
+    maps = tuple(np.arange(n, dtype=np.int64) if s == 1 else partition(n, p, o)
+                 for n, s, o, p in zip(shape, step, off, planes))
+    for m, n, s, o, p in zip(maps, shape, step, off, planes):
+        if s == 2 and not p:
+            assert np.array_equal(m, (np.arange(n) + o) // 2)
+    return maps
+
+
 SHIFTED = [((8, 6, 10), (2, 2, 2), (1, 0, 1)), ((7, 5, 9), (2, 1, 2), (1, 0, 1)),
            ((6, 9, 5), (1, 2, 1), (0, 1, 0)), ((5, 4, 7), (2, 2, 1), (0, 1, 0))]
 UNSHIFTED = [(shape, step, (0, 0, 0)) for shape, step, _ in SHIFTED]
+# cells alone inside an axis (x: 2 and 5 of 9, y: 2 of 7, z: 4 of 10, the kernels' general z
+# loop), and from a shifted start
+ARRANGED = [((9, 7, 10), (2, 2, 2), (0, 0, 0), ((3, 6), (3,), (5,))),
+            ((6, 8, 9), (2, 2, 2), (1, 0, 0), ((2, 4), (1, 5), (3, 6)))]
+CASES = [c + (((), (), ()),) for c in UNSHIFTED + SHIFTED] + ARRANGED
 
 
-@pytest.mark.parametrize("shape, step, off", UNSHIFTED + SHIFTED + [((1, 3, 8), (1, 2, 2), (0, 0, 0)),
-                                                                     ((1, 3, 8), (1, 2, 2), (0, 1, 1))])
-def test_scaled_galerkin_coarse_operator_against_numpy(shape, step, off) -> None:
+@pytest.mark.parametrize("shape, step, off, planes", CASES + [
+    ((1, 3, 8), (1, 2, 2), (0, 0, 0), ((), (), ())), ((1, 3, 8), (1, 2, 2), (0, 1, 1), ((), (), ()))])
+def test_scaled_galerkin_coarse_operator_against_numpy(shape, step, off, planes) -> None:
     """The coarse face arrays of the scaled aggregation (gmg's coarse levels) against the same
     definition written with numpy (odd last aggregates, pairs shifted so the first cell is
-    alone, held cells, semi-coarsening), and on a uniform grid with no boundary excess against
-    a rediscretisation on the aggregates (common practice: a coarse cell twice as wide couples
-    with k A / h, twice the fine coupling)."""
+    alone, cells alone inside an axis, held cells, semi-coarsening), and on a uniform grid
+    with no boundary excess against a rediscretisation on the aggregates (common practice: a
+    coarse cell twice as wide couples with k A / h, twice the fine coupling)."""
     from sevenfold.kernels import multigrid
 
     tx, ty, tz, diag, free = _random_level(shape)
-    coarse = tuple(-(-(n + o) // s) for n, o, s in zip(shape, off, step))
+    agg = _maps(shape, step, off, planes)
+    coarse = tuple(int(a[-1]) + 1 for a in agg)
     out = [np.empty(coarse) for _ in range(4)] + [np.empty(coarse, dtype=np.bool_)]
-    multigrid.galerkin_scaled(tx, ty, tz, diag, free, np.array(step, dtype=np.int64),
-                              np.array(off, dtype=np.int64), *out)
-    for got, want in zip(out, _galerkin_scaled_reference(tx, ty, tz, diag, free, step, off)):
+    multigrid.galerkin_scaled(tx, ty, tz, diag, free, agg, *out)
+    for got, want in zip(out, _galerkin_scaled_reference(tx, ty, tz, diag, free, agg)):
         assert np.allclose(got, want, rtol=1e-13, atol=1e-13), np.abs(got - want).max()
     # uniform couplings t = 1 along every axis, interior only (no boundary excess)
     n = (8, 8, 8)
@@ -483,8 +501,8 @@ def test_scaled_galerkin_coarse_operator_against_numpy(shape, step, off) -> None
     d = sum(t) + sum(np.roll(t[a], 1, axis=a) * (np.arange(8) > 0).reshape(
         [-1 if b == a else 1 for b in range(3)]) for a in range(3))
     out = [np.empty((4, 4, 4)) for _ in range(4)] + [np.empty((4, 4, 4), dtype=np.bool_)]
-    multigrid.galerkin_scaled(*t, d, np.ones(n, dtype=np.bool_), np.array([2, 2, 2]),
-                              np.zeros(3, dtype=np.int64), *out)
+    multigrid.galerkin_scaled(*t, d, np.ones(n, dtype=np.bool_), _maps(n, (2, 2, 2), (0, 0, 0)),
+                              *out)
     assert np.allclose(out[0][:-1], 2.0) and np.allclose(out[0][-1], 0.0)
     interior = out[3][1:-1, 1:-1, 1:-1]
     assert np.allclose(interior, 12.0), interior
@@ -521,10 +539,11 @@ def test_one_pass_line_sweeps_equal_the_colour_passes(shape, chunks, sweeps) -> 
             assert np.array_equal(one, two), (dtype, first, np.abs(one - two).max())
 
 
-@pytest.mark.parametrize("shape, step, off", UNSHIFTED + SHIFTED)
-def test_fused_residual_restriction_and_products(shape, step, off) -> None:
+@pytest.mark.parametrize("shape, step, off, planes", CASES)
+def test_fused_residual_restriction_and_products(shape, step, off, planes) -> None:
     """residual = b - A u, residual_restrict = P^T (b - A u) with P piecewise constant (numpy's
-    own sums over the aggregates, odd last aggregates and shifted pairs included), restrict =
+    own sums over the aggregates, odd last aggregates, shifted pairs and cells alone inside an
+    axis included), restrict =
     P^T r, prolong_add = u + s P e on free
     cells, apply_dot = (A u, u . A u), CG's r . z and p = z + beta p with a float32 z; A from the face arrays
     written out independently with numpy (common practice: 7-point stencil)."""
@@ -536,22 +555,23 @@ def test_fused_residual_restriction_and_products(shape, step, off) -> None:
     b = np.where(free, rng.standard_normal(shape), 0.0)
     au = _seven_point(tx, ty, tz, diag, u)
     r = b - au
-    step, off = np.array(step, dtype=np.int64), np.array(off, dtype=np.int64)
-    cshape = tuple(-(-(n + o) // s) for n, o, s in zip(shape, off, step))
-    agg = np.ix_(*((np.arange(n) + o) // s for n, o, s in zip(shape, off, step)))
+    maps = _maps(shape, step, off, planes)
+    step = np.array(step, dtype=np.int64)
+    cshape = tuple(int(a[-1]) + 1 for a in maps)
+    agg = np.ix_(*maps)
     expected = np.zeros(cshape)
     np.add.at(expected, tuple(np.broadcast_arrays(*agg)), r)
     fine_r = np.empty(shape)
     stencil.residual(tx, ty, tz, diag, b, u, fine_r)
     assert np.abs(fine_r - r).max() <= 1e-12 * np.abs(r).max()
     rc = np.empty(cshape)
-    stencil.residual_restrict(tx, ty, tz, diag, b, u, step, off, rc)
+    stencil.residual_restrict(tx, ty, tz, diag, b, u, step, maps, rc)
     assert np.abs(rc - expected).max() <= 1e-12 * np.abs(expected).max()
-    stencil.restrict(r, step, off, rc)
+    stencil.restrict(r, step, maps, rc)
     assert np.abs(rc - expected).max() <= 1e-12 * np.abs(expected).max()
     ec = rng.standard_normal(cshape)
     v = u.copy()
-    stencil.prolong_add(ec, free, step, off, 0.7, v)
+    stencil.prolong_add(ec, free, step, maps, 0.7, v)
     assert np.array_equal(v, u + np.where(free, 0.7 * ec[agg], 0.0))
     out = np.empty(shape)
     udotau = stencil.apply_dot(tx, ty, tz, diag, u, out)
@@ -700,32 +720,36 @@ def test_moderate_contrast_keeps_float32_levels() -> None:
     assert "float32 preconditioner" in result.notes and "float64" not in result.notes
 
 
-def test_aligned_pairs_keep_the_majority_parity_apart() -> None:
-    """Pairs (0, 1), ... keep even cell boundaries apart and (1, 2), ... odd ones; the parity
-    most planes have wins, the others are dropped, and the kept ones move to the coarse axis."""
-    from sevenfold.solvers.levels import aligned_pairs
+def test_aggregates_keep_every_contact_plane_between_aggregates() -> None:
+    """Each coarsened axis is paired from the parity most of its planes have, with a cell
+    alone wherever a pair would hold a plane: every plane starts an aggregate, no aggregate
+    holds more than two cells, and the planes move to their aggregates' indices. With z-line
+    smoothing, z planes of both parities keep z whole instead (unless z is the only axis to
+    coarsen)."""
+    from sevenfold.solvers.levels import aggregates
 
-    step = np.array([2, 2, 1])
-    sizes, off, coarse = aligned_pairs(((11, 13, 20), (4,), (7,)), step)
-    assert sizes.tolist() == [2, 2, 1] and off.tolist() == [1, 0, 0]
-    assert coarse == ((6, 7), (2,), (7,))  # (11 + 1) / 2, (13 + 1) / 2; 20 is dropped
-    sizes, off, coarse = aligned_pairs(((11, 20), (), ()), step)  # a tie keeps the pairs
-    assert off.tolist() == [0, 0, 0] and coarse == ((10,), (), ())
+    def check(agg, n, planes):
+        assert agg[0] == 0 and set(np.diff(agg)) <= {0, 1} and agg.size == n
+        assert np.bincount(agg).max() <= 2
+        assert all(agg[b] == agg[b - 1] + 1 for b in planes)
 
-
-def test_z_planes_of_both_parities_keep_z_whole_under_lines() -> None:
-    """With z-line smoothing, z planes of both parities keep z uncoarsened on that level (all
-    planes stay); without lines, or when no other axis is coarsened, the majority rule."""
-    from sevenfold.solvers.levels import aligned_pairs
-
+    step, agg, coarse = aggregates((24, 8, 8), ((11, 13, 20), (4,), (7,)), np.array([2, 2, 1]))
+    assert step.tolist() == [2, 2, 1]
+    for a, n, p in zip(agg, (24, 8, 8), ((11, 13, 20), (4,), (7,))):
+        check(a, n, p)
+    # x from the odd parity: cell 0 alone, then pairs, and cell 19 alone before plane 20
+    assert [i for i in range(24) if np.sum(agg[0] == agg[0][i]) == 1] == [0, 19]
+    assert np.array_equal(agg[1], np.arange(8) // 2) and np.array_equal(agg[2], np.arange(8))
+    assert coarse == ((6, 7, 11), (2,), (7,))
     planes = ((), (), (10, 17, 23))
-    sizes, off, coarse = aligned_pairs(planes, np.array([2, 2, 2]), lines=True)
-    assert sizes.tolist() == [2, 2, 1] and off.tolist() == [0, 0, 0] and coarse == planes
-    sizes, off, coarse = aligned_pairs(planes, np.array([2, 2, 2]), lines=False)
-    assert sizes.tolist() == [2, 2, 2] and off.tolist() == [0, 0, 1]
-    assert coarse == ((), (), (9, 12))  # 10 is dropped
-    sizes, off, coarse = aligned_pairs(planes, np.array([1, 1, 2]), lines=True)
-    assert sizes.tolist() == [1, 1, 2] and off.tolist() == [0, 0, 1]  # z must coarsen
+    step, agg, coarse = aggregates((32, 32, 32), planes, np.array([2, 2, 2]), lines=True)
+    assert step.tolist() == [2, 2, 1] and coarse == planes
+    assert np.array_equal(agg[2], np.arange(32))
+    for lines, wanted in ((False, [2, 2, 2]), (True, [1, 1, 2])):  # z must pair
+        step, agg, coarse = aggregates((32, 32, 32), planes, np.array(wanted), lines=lines)
+        assert step.tolist() == wanted
+        check(agg[2], 32, planes[2])
+        assert coarse[2] == tuple(int(agg[2][b]) for b in planes[2])
 
 
 def contact_job(n: int, contacts) -> object:
@@ -745,13 +769,13 @@ def test_contact_planes_lie_between_aggregates() -> None:
     """A contact resistance on a face inside a pair of cells is lost by the Galerkin product
     (the pair's internal coupling is dropped), so the coarse levels do not see it: measured at
     32^3 with contacts on x and z at odd boundaries, 20 iterations with the kept pairs and 6
-    with the pairs shifted so the contacts lie between aggregates
+    with the pairs arranged so the contacts lie between aggregates
     (benchmarks/RESULTS_WALLS_CONTACT.md at 64^3 and 128^3). The answer agrees with scipy's
     direct solve."""
     problem = contact_job(32, [("x", 11 / 32, 30.0), ("z", 7 / 32, 30.0)])
     assert [(c.axis, c.index + 1) for c in problem.contacts] == [(0, 11), (2, 7)]
     u, result = solve_gmg(problem, 1e-8, 100)
-    assert "pairs shifted on level 0" in result.notes, result.notes
+    assert "pairs arranged on level 0" in result.notes, result.notes
     assert result.iterations <= 7, result.iterations
     kept = solve_gmg(problem, 1e-8, 100, planes=((), (), ()))[1]
     assert kept.iterations >= 2 * result.iterations, kept.iterations  # what the shift avoids
@@ -760,22 +784,29 @@ def test_contact_planes_lie_between_aggregates() -> None:
     assert np.abs(u - direct).max() <= 1e-6 * np.abs(direct).max()
 
 
-def test_joints_of_both_parities_along_z_keep_z_whole(monkeypatch) -> None:
-    """Three bonded joints along z at boundaries 10, 17 and 23 of 32 cells: no shift of the
-    pairs keeps all three between aggregates, so z is not coarsened (the z-lines solve along
-    it). Measured at 32^3: 5 iterations with z whole, 16 with the majority's shift (one joint
-    inside a pair), 15 with the pairs as they are. The answer agrees with scipy's direct
-    solve."""
+def test_contacts_of_both_parities_keep_cells_alone_or_z_whole(monkeypatch) -> None:
+    """Three contacts at boundaries 10, 17 and 23 of 32 cells, one of them even, so no pairing
+    holds them all apart. Across x, cells are left alone beside them (measured at 32^3: 8
+    iterations against 18 with the majority's parity shifted and 26 with the pairs as they
+    are, benchmarks/RESULTS_PARTITION.md at 64^3 to 256^3); across z, z is not coarsened (the
+    z-lines solve along it: 5 against 15), or, without lines, cells alone along z (the level
+    kernels' general z loop). Every answer agrees with scipy's direct solve."""
     from sevenfold.solvers import gmg, levels
 
-    problem = contact_job(32, [("z", b / 32, 30.0) for b in (10, 17, 23)])
-    u, result = solve_gmg(problem, 1e-8, 100)
-    assert "z not coarsened on levels 0, 1" in result.notes, result.notes
-    assert result.iterations <= 6, result.iterations
-    monkeypatch.setattr(gmg, "aligned_pairs", lambda p, s, lines: levels.aligned_pairs(p, s))
-    majority = solve_gmg(problem, 1e-8, 100)[1]
-    assert "pairs shifted on level 0" in majority.notes, majority.notes
-    assert majority.iterations >= 2 * result.iterations, majority.iterations
-    system = assemble(problem)
-    direct = scatter(system, problem, sla.spsolve(system.matrix.tocsc(), system.rhs))
+    for axis, notes, bound in (("x", "pairs arranged on level 0", 9),
+                               ("z", "z not coarsened on levels 0, 1", 6)):
+        problem = contact_job(32, [(axis, b / 32, 30.0) for b in (10, 17, 23)])
+        system = assemble(problem)
+        direct = scatter(system, problem, sla.spsolve(system.matrix.tocsc(), system.rhs))
+        u, result = solve_gmg(problem, 1e-8, 100)
+        assert notes in result.notes, result.notes
+        assert result.iterations <= bound, (axis, result.iterations)
+        assert np.abs(u - direct).max() <= 1e-6 * np.abs(direct).max()
+        kept = solve_gmg(problem, 1e-8, 100, planes=((), (), ()))[1]
+        assert kept.iterations >= 2 * result.iterations, (axis, kept.iterations)
+    monkeypatch.setattr(gmg, "aggregates", lambda shape, planes, step, lines: levels.aggregates(
+        shape, planes, step))  # (no lines: z must pair)
+    u, alone = solve_gmg(problem, 1e-8, 100)
+    assert "pairs arranged on level 0" in alone.notes, alone.notes
+    assert alone.iterations <= 2 * result.iterations, alone.iterations
     assert np.abs(u - direct).max() <= 1e-6 * np.abs(direct).max()

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-from .stencil import span
+from .stencil import starts
 
 
 # Columns a line sweep (and line_factor) takes as one block; _line_plane writes out its eight
@@ -292,29 +292,28 @@ def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
 
 
 @njit(cache=True)
-def _axis_scales(n, s, o, nc):
-    """Per aggregate along one axis (``s`` cells shifted by ``o``, ``nc`` of them): 1 / its
-    size, and the scale of its coupling to the next aggregate, 2 / (the two sizes summed):
-    the fine cells' centre distance over the aggregates' (1/2 between pairs)."""
+def _axis_scales(agg, nc):
+    """Per aggregate along one axis (``agg``: each fine cell's, ``nc`` of them): its first
+    cell and the end (:func:`sevenfold.kernels.stencil.starts`), 1 / its size, and the scale
+    of its coupling to the next aggregate, 2 / (the two sizes summed): the fine cells' centre
+    distance over the aggregates' (1/2 between pairs)."""
+    first = starts(agg, nc)
     inv = np.empty(nc)
     face = np.empty(nc)
     for I in range(nc):
-        lo, hi = span(I, s, o, n)
-        inv[I] = 1.0 / (hi - lo)
+        inv[I] = 1.0 / (first[I + 1] - first[I])
     for I in range(nc):
         if I + 1 < nc:
-            lo, hi = span(I, s, o, n)
-            lo2, hi2 = span(I + 1, s, o, n)
-            face[I] = 2.0 / ((hi - lo) + (hi2 - lo2))
+            face[I] = 2.0 / (first[I + 2] - first[I])
         else:
             face[I] = inv[I]  # (no coupling leaves the last aggregate)
-    return inv, face
+    return first, inv, face
 
 
 @njit(cache=True, parallel=True)
-def galerkin_scaled(tx, ty, tz, diag, free, step, off, txc, tyc, tzc, diagc, freec):
-    """Coarse face arrays from aggregates of ``step`` cells per axis shifted by ``off``
-    (:func:`sevenfold.kernels.stencil.span`), scaled per axis to a rediscretisation.
+def galerkin_scaled(tx, ty, tz, diag, free, agg, txc, tyc, tzc, diagc, freec):
+    """Coarse face arrays from aggregates (``agg``: per axis, each fine cell's aggregate),
+    scaled per axis to a rediscretisation.
 
     The piecewise-constant Galerkin product P^T A P sums the fine couplings crossing between
     two aggregates (so coefficient jumps reach the coarse levels as fluxes, not averages); it
@@ -332,34 +331,33 @@ def galerkin_scaled(tx, ty, tz, diag, free, step, off, txc, tyc, tzc, diagc, fre
     the same bit for bit; 2 to 3 times faster than looping over aggregates).
     """
     nx, ny, nz = diag.shape
-    sx, sy, sz = step[0], step[1], step[2]
-    ox, oy, oz = off[0], off[1], off[2]
+    ax, ay, az = agg
     ncx, ncy, ncz = diagc.shape
-    inv_x, face_x = _axis_scales(nx, sx, ox, ncx)
-    inv_y, face_y = _axis_scales(ny, sy, oy, ncy)
-    inv_z, face_z = _axis_scales(nz, sz, oz, ncz)
+    xs, inv_x, face_x = _axis_scales(ax, ncx)
+    ys, inv_y, face_y = _axis_scales(ay, ncy)
+    zs, inv_z, face_z = _axis_scales(az, ncz)
     for I in prange(ncx):
         d = np.zeros((ncy, ncz))
         cxs = np.zeros((ncy, ncz))
         cys = np.zeros((ncy, ncz))
         czs = np.zeros((ncy, ncz))
         nfree = np.zeros((ncy, ncz), dtype=np.int64)
-        i0, i1 = span(I, sx, ox, nx)
+        i0, i1 = xs[I], xs[I + 1]
         fx = inv_x[I]
         gxm = face_x[I - 1] if I > 0 else fx  # (no coupling enters the first aggregate)
         gxp = face_x[I]
         for i in range(i0, i1):
             for j in range(ny):
-                J = (j + oy) // sy
-                j0, j1 = span(J, sy, oy, ny)
+                J = ay[j]
+                j0, j1 = ys[J], ys[J + 1]
                 fy = inv_y[J]
                 gym = face_y[J - 1] if J > 0 else fy
                 gyp = face_y[J]
                 for m in range(nz):
                     if not free[i, j, m]:
                         continue
-                    K = (m + oz) // sz
-                    k0, k1 = span(K, sz, oz, nz)
+                    K = az[m]
+                    k0, k1 = zs[K], zs[K + 1]
                     fz = inv_z[K]
                     nfree[J, K] += 1
                     txm = tx[i - 1, j, m] if i > 0 else 0.0

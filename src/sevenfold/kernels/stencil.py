@@ -230,12 +230,28 @@ def apply_dot(tx, ty, tz, diag, u, out):
     return s
 
 
-@njit(cache=True, inline="always")
-def span(I, s, o, n):
-    """Fine cells [lo, hi) along one axis of aggregate I: aggregates of ``s`` cells shifted
-    back by the offset ``o`` (0 <= o < s), so with s = 2 and o = 1 the first cell is alone and
-    the pairs are (1, 2), (3, 4), ...; the axis then has (n + o + s - 1) // s aggregates."""
-    return max(I * s - o, 0), min(I * s - o + s, n)
+@njit(cache=True)
+def starts(agg, nc):
+    """First fine cell of each of the ``nc`` aggregates along one axis (``agg``: each fine
+    cell's aggregate, non-decreasing from 0), and the axis's cell count at the end: aggregate
+    I holds cells [starts[I], starts[I + 1])."""
+    out = np.empty(nc + 1, dtype=np.int64)
+    out[nc] = agg.shape[0]
+    for i in range(agg.shape[0] - 1, -1, -1):
+        out[agg[i]] = i
+    return out
+
+
+@njit(cache=True)
+def pair_offset(agg):
+    """0 when ``agg`` pairs cells (0, 1), (2, 3), ..., 1 when (0), (1, 2), (3, 4), ... (an odd
+    last cell alone either way), -1 for any other partition (the kernels' general loop)."""
+    n = agg.shape[0]
+    o = 1 if n > 1 and agg[1] != agg[0] else 0
+    for i in range(n):
+        if agg[i] != (i + o) // 2:
+            return -1
+    return o
 
 
 @njit(cache=True, inline="always")
@@ -260,42 +276,44 @@ def _pair_sums(r, rc):
 
 
 @njit(cache=True, parallel=True)
-def residual_restrict(tx, ty, tz, diag, b, u, step, off, rc):
-    """rc = P^T (b - A u) for piecewise-constant P over aggregates of ``step`` cells per axis,
-    shifted by ``off`` (see :func:`span`), without storing the fine residual (each coarse
-    x-plane is one thread's). As in :func:`restrict`, held cells add nothing because their
-    residual is zero.
+def residual_restrict(tx, ty, tz, diag, b, u, step, agg, rc):
+    """rc = P^T (b - A u) for piecewise-constant P over aggregates (``agg``: per axis, each fine
+    cell's aggregate; ``step``: 1 on an axis not coarsened), without storing the fine
+    residual (each coarse x-plane is one thread's). As in :func:`restrict`, held cells add
+    nothing because their residual is zero.
 
     Each fine row's A u goes to a row buffer first (:func:`_apply_row`, branch-free), then
     its residuals are summed into the coarse row: both loops vectorise, where a residual added
     to its aggregate cell by cell did not (0.22-0.25 and 0.39-0.42 of that form's time at 128^3
-    and 256^3, benchmarks/RESULTS_RESTRICT.md).
+    and 256^3, benchmarks/RESULTS_RESTRICT.md). Pairs along z, shifted or not, take that
+    path; any other partition of z a cell-by-cell loop.
     """
     nx, ny, nz = u.shape
-    sx, sy, sz = step[0], step[1], step[2]
-    oy, oz = off[1], off[2]
+    ax, ay, az = agg
+    sz = step[2]
+    oz = pair_offset(az) if sz == 2 else 0
     ncx, ncy, ncz = rc.shape
+    xs = starts(ax, ncx)
     for I in prange(ncx):
         row = np.empty(nz, dtype=u.dtype)
         for J in range(ncy):
             for K in range(ncz):
                 rc[I, J, K] = 0.0
-        i0, i1 = span(I, sx, off[0], nx)
-        for i in range(i0, i1):
+        for i in range(xs[I], xs[I + 1]):
             for j in range(ny):
-                J = (j + oy) // sy
+                J = ay[j]
                 _apply_row(tx, ty, tz, diag, u, row, i, j, nx, ny, nz)
-                if sz == 2 and oz:  # (the first cell alone, the pairs on views past it)
-                    rc[I, J, 0] += b[i, j, 0] - row[0]
-                    _pair_residuals(b[i, j, 1:], row[1:], rc[I, J, 1:])
-                elif sz == 2:
-                    _pair_residuals(b[i, j], row, rc[I, J])
-                elif sz == 1:
+                if sz == 1:
                     for m in range(nz):
                         rc[I, J, m] += b[i, j, m] - row[m]
+                elif oz == 1:  # (the first cell alone, the pairs on views past it)
+                    rc[I, J, 0] += b[i, j, 0] - row[0]
+                    _pair_residuals(b[i, j, 1:], row[1:], rc[I, J, 1:])
+                elif oz == 0:
+                    _pair_residuals(b[i, j], row, rc[I, J])
                 else:
                     for m in range(nz):
-                        rc[I, J, (m + oz) // sz] += b[i, j, m] - row[m]
+                        rc[I, J, az[m]] += b[i, j, m] - row[m]
 
 
 @njit(cache=True, parallel=True)
@@ -311,36 +329,36 @@ def gauss_seidel_colour(tx, ty, tz, diag, b, u, colour):
 
 
 @njit(cache=True, parallel=True)
-def restrict(r, step, off, rc):
-    """rc = P^T r for piecewise-constant prolongation over aggregates of ``step`` cells per
-    axis, shifted by ``off`` (see :func:`span`).
+def restrict(r, step, agg, rc):
+    """rc = P^T r for piecewise-constant prolongation over aggregates (``step``, ``agg`` as in
+    :func:`residual_restrict`).
 
     Sums every child, held ones included: a residual is zero on held cells (b = 0, u = 0,
     no couplings), which is what lets the inner loop run without a mask and vectorise.
     """
-    nx, ny, nz = r.shape
-    sx, sy, sz = step[0], step[1], step[2]
-    oz = off[2]
+    nz = r.shape[2]
+    ax, ay, az = agg
+    sz = step[2]
+    oz = pair_offset(az) if sz == 2 else 0
     ncx, ncy, ncz = rc.shape
+    xs, ys = starts(ax, ncx), starts(ay, ncy)
     for I in prange(ncx):
-        i0, i1 = span(I, sx, off[0], nx)
         for J in range(ncy):
             for K in range(ncz):
                 rc[I, J, K] = 0.0
-            j0, j1 = span(J, sy, off[1], ny)
-            for i in range(i0, i1):
-                for j in range(j0, j1):
+            for i in range(xs[I], xs[I + 1]):
+                for j in range(ys[J], ys[J + 1]):
                     if sz == 1:
                         for K in range(nz):
                             rc[I, J, K] += r[i, j, K]
-                    elif sz == 2 and oz:
+                    elif oz == 1:
                         rc[I, J, 0] += r[i, j, 0]
                         _pair_sums(r[i, j, 1:], rc[I, J, 1:])
-                    elif sz == 2:
+                    elif oz == 0:
                         _pair_sums(r[i, j], rc[I, J])
                     else:
                         for m in range(nz):
-                            rc[I, J, (m + oz) // sz] += r[i, j, m]
+                            rc[I, J, az[m]] += r[i, j, m]
 
 
 @njit(cache=True, inline="always")
@@ -352,50 +370,51 @@ def _prolong_pairs(ec, free, scale, u):
 
 
 @njit(cache=True, parallel=True)
-def prolong_add(ec, free, step, off, scale, u):
-    """u += scale * P ec on the free cells (P piecewise constant over the aggregates of
-    ``step`` cells per axis shifted by ``off``, see :func:`span`)."""
+def prolong_add(ec, free, step, agg, scale, u):
+    """u += scale * P ec on the free cells (P piecewise constant over the aggregates;
+    ``step``, ``agg`` as in :func:`residual_restrict`)."""
     nx, ny, nz = u.shape
-    sx, sy, sz = step[0], step[1], step[2]
-    ox, oy, oz = off[0], off[1], off[2]
+    ax, ay, az = agg
+    sz = step[2]
+    oz = pair_offset(az) if sz == 2 else 0
     for i in prange(nx):
-        I = (i + ox) // sx
+        I = ax[i]
         for j in range(ny):
-            J = (j + oy) // sy
+            J = ay[j]
             if sz == 1:
                 for m in range(nz):
                     if free[i, j, m]:
                         u[i, j, m] += scale * ec[I, J, m]
-            elif sz == 2 and oz:  # (the first cell alone, the pairs on views past it)
+            elif oz == 1:  # (the first cell alone, the pairs on views past it)
                 if free[i, j, 0]:
                     u[i, j, 0] += scale * ec[I, J, 0]
                 _prolong_pairs(ec[I, J, 1:], free[i, j, 1:], scale, u[i, j, 1:])
-            elif sz == 2:
+            elif oz == 0:
                 _prolong_pairs(ec[I, J], free[i, j], scale, u[i, j])
             else:
                 for m in range(nz):
                     if free[i, j, m]:
-                        u[i, j, m] += scale * ec[I, J, (m + oz) // sz]
+                        u[i, j, m] += scale * ec[I, J, az[m]]
 
 
 @njit(cache=True, parallel=True)
-def galerkin(tx, ty, tz, diag, free, step, off, txc, tyc, tzc, diagc, freec):
-    """Coarse face arrays P^T A P for piecewise-constant P over aggregates (free cells only),
-    ``step`` cells per axis shifted by ``off`` (see :func:`span`).
+def galerkin(tx, ty, tz, diag, free, agg, txc, tyc, tzc, diagc, freec):
+    """Coarse face arrays P^T A P for piecewise-constant P over aggregates (free cells only;
+    ``agg`` as in :func:`residual_restrict`).
 
     A coupling between two aggregates is the sum of the fine couplings crossing between
     them; a coarse diagonal is the sum of its free children's diagonals minus twice the
     couplings inside the aggregate. An aggregate with no free child is held (diag 1).
     """
     nx, ny, nz = diag.shape
-    sx, sy, sz = step[0], step[1], step[2]
     ncx, ncy, ncz = diagc.shape
+    xs, ys, zs = starts(agg[0], ncx), starts(agg[1], ncy), starts(agg[2], ncz)
     for I in prange(ncx):
         for J in range(ncy):
             for K in range(ncz):
-                i0, i1 = span(I, sx, off[0], nx)
-                j0, j1 = span(J, sy, off[1], ny)
-                k0, k1 = span(K, sz, off[2], nz)
+                i0, i1 = xs[I], xs[I + 1]
+                j0, j1 = ys[J], ys[J + 1]
+                k0, k1 = zs[K], zs[K + 1]
                 d = 0.0
                 cxs = 0.0
                 cys = 0.0

@@ -101,8 +101,8 @@ def _steps() -> np.ndarray:
     return np.array([2, 2, 2], dtype=np.int64)
 
 
-def _offsets() -> np.ndarray:
-    return np.zeros(3, dtype=np.int64)
+def _aggregates(n: int = 4) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    return tuple(np.arange(n, dtype=np.int64) // 2 for _ in range(3))  # type: ignore[return-value]
 
 
 Items = dict[str, Callable[[], None]]
@@ -152,7 +152,7 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         add("axis_weakness", tag, lambda t=level: _build(
             multigrid.axis_weakness, *_arrays(t, count=3), free, np.ones(3), 2.25, 1, True))
         add("galerkin_scaled", tag, lambda t=level: _build(
-            multigrid.galerkin_scaled, *_arrays(t, count=4), free, _steps(), _offsets(),
+            multigrid.galerkin_scaled, *_arrays(t, count=4), free, _aggregates(),
             *_arrays(f32, small, 4), freec.copy()))
         add("line_factor", tag, lambda t=level: _build(
             multigrid.line_factor, *_arrays(t, count=2), _arrays(f32)))
@@ -161,9 +161,9 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
             _arrays(f32), 0, 2, 1))
         add("residual_restrict", tag, lambda t=level: _build(
             stencil.residual_restrict, *_arrays(t, count=4), _arrays(t), _arrays(f32),
-            _steps(), _offsets(), _arrays(f32, small)))
+            _steps(), _aggregates(), _arrays(f32, small)))
         add("prolong_add", tagged(f32), lambda: _build(
-            stencil.prolong_add, _arrays(f32, small), free, _steps(), _offsets(), 1.0,
+            stencil.prolong_add, _arrays(f32, small), free, _steps(), _aggregates(), 1.0,
             _arrays(f32)))
     if plan.levels and top != f64:
         add("narrow", "float32", lambda: _build(multigrid.narrow, np.ones(8), np.ones(8, dtype=f32)))

@@ -7,12 +7,13 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   an axis that is weakly coupled in more than a tenth of the cells is not coarsened
   (semi-coarsening), which is what keeps a grid graded along z, anisotropic only near its
   fine end, robust;
-* where the job has contact resistances (``planes``), the pairs of an axis may start one cell
-  later on a level, (0), (1, 2), (3, 4), ..., so that more contact planes lie between
-  aggregates (:func:`.levels.aligned_pairs`): the Galerkin product drops a coupling inside an
-  aggregate, and with it the contact (12 iterations against 5 at 128^3,
-  benchmarks/RESULTS_SHIFT.md); z planes that no shift keeps apart keep z uncoarsened on that
-  level (the z-lines solve along it);
+* where the job has contact resistances (``planes``), the pairs of an axis are arranged per
+  level so that every contact plane lies between aggregates (:func:`.levels.aggregates`:
+  pairs from the planes' parity, a cell alone where a pair would hold a plane; along z, planes
+  of both parities keep z uncoarsened instead, since the z-lines solve along it): the Galerkin
+  product drops a coupling inside an aggregate, and with it the contact (12 iterations
+  against 5 at 128^3, benchmarks/RESULTS_SHIFT.md; 39 against 8 for three contacts across x,
+  benchmarks/RESULTS_PARTITION.md);
 * coarse operators from the aggregation's Galerkin product P^T A P, which stays a 7-point
   stencil: every coarse coupling is the sum of the fine couplings crossing between two
   aggregates, so jumps in k reach the coarse levels as fluxes instead of being averaged; each
@@ -58,7 +59,7 @@ import numpy as np
 from ..kernels import multigrid, stencil
 from .cg import Monitor, SolveResult, pcg
 from .coarsest import CoarsestSolver
-from .levels import Level, aligned_pairs, coarsening_step, strong_z
+from .levels import Level, aggregates, coarsening_step, plain_pairs, strong_z
 from .precision import coefficient_contrast, precision_note, preconditioner_precision
 
 # The coarsest level is factorised (coarsest.py); 16^3 keeps the aggregation levels where
@@ -88,8 +89,8 @@ class Hierarchy:
     work arrays and :meth:`precondition`'s result (CG lends the operator's product buffer,
     which is free while it preconditions).
     ``planes``: per axis, the cell boundaries (b: between cells b - 1 and b) that should lie
-    between aggregates on every level (contact resistances, :func:`aligned_pairs`); not with
-    the linear transfer, whose interpolation assumes unshifted pairs.
+    between aggregates on every level (contact resistances, :func:`aggregates`); not with
+    the linear transfer, whose interpolation assumes plain pairs.
     """
 
     def __init__(self, fine: Level, overcorrection: float | None = None, cycle: str = "V",
@@ -117,8 +118,8 @@ class Hierarchy:
             top = fine.astype(self.dtype)
         top.boost = np.ones(3)
         self.levels = [top]
-        # the coarsest level is the first whose unshifted size is small enough, so that a
-        # shift (one aggregate more on its axis) does not add a level
+        # the coarsest level is the first whose size with plain pairs is small enough, so that
+        # cells left alone for contact planes (an aggregate more each) do not add a level
         nominal = top.shape
         self._whole_z: list[int] = []  # levels whose z stays whole for contact planes
         while True:
@@ -129,22 +130,22 @@ class Hierarchy:
             wanted = coarsening_step(lv, lv.lines)
             if not (wanted > 1).any():
                 break
-            step, lv.off, planes = aligned_pairs(planes, wanted, lv.lines)
+            step, lv.agg, planes = aggregates(lv.shape, planes, wanted, lv.lines)
             lv.step = step
             if step[2] < wanted[2]:
                 self._whole_z.append(len(self.levels) - 1)
             nominal = tuple(int((n + s - 1) // s) for n, s in zip(nominal, step))
-            cshape = tuple(int((n + o + s - 1) // s) for n, o, s in zip(lv.shape, lv.off, step))
+            cshape = tuple(int(a[-1]) + 1 for a in lv.agg)
             arrays = [np.empty(cshape, dtype=self.dtype) for _ in range(4)]
             freec = np.empty(cshape, dtype=np.bool_)
             source = lv  # (from a float32 copy the finest Galerkin product compiles once)
             if transfer in ("linear", "scaled"):
                 multigrid.galerkin_scaled(source.tx, source.ty, source.tz, source.diag, lv.free,
-                                          step, lv.off, *arrays, freec)
+                                          lv.agg, *arrays, freec)
                 boost = lv.boost
             else:
-                stencil.galerkin(source.tx, source.ty, source.tz, source.diag, lv.free, step,
-                                 lv.off, *arrays, freec)
+                stencil.galerkin(source.tx, source.ty, source.tz, source.diag, lv.free, lv.agg,
+                                 *arrays, freec)
                 boost = lv.boost * step
             coarse = Level(*arrays, freec, np.ones(3, dtype=np.int64), boost=boost)
             coarse.e, coarse.b = (np.empty(cshape, dtype=self.dtype) for _ in range(2))
@@ -189,14 +190,14 @@ class Hierarchy:
             return "point"
         return "z-line (levels " + ", ".join(str(i) for i, x in enumerate(lines) if x) + ") and point"
 
-    def shift_note(self) -> str:
+    def planes_note(self) -> str:
         """What the levels do for contact planes (empty when nothing)."""
         def on(levels: list[int]) -> str:
             return "level" + ("s " if len(levels) > 1 else " ") + ", ".join(map(str, levels))
-        shifted = [i for i, lv in enumerate(self.levels[:-1]) if lv.off.any()]
+        arranged = [i for i, lv in enumerate(self.levels[:-1]) if not plain_pairs(lv)]
         note = ""
-        if shifted:
-            note += f", pairs shifted on {on(shifted)} to keep contact planes between aggregates"
+        if arranged:
+            note += f", pairs arranged on {on(arranged)} to keep contact planes between aggregates"
         if self._whole_z:
             note += f", z not coarsened on {on(self._whole_z)} to keep contact planes of both parities"
         return note
@@ -220,13 +221,13 @@ class Hierarchy:
         if self.transfer == "linear":
             multigrid.restrict_linear(r, lv.free, lv.step, rc)
         else:
-            stencil.restrict(r, lv.step, lv.off, rc)
+            stencil.restrict(r, lv.step, lv.agg, rc)
 
     def _prolong_add(self, lv: Level, ec: np.ndarray, scale: float, u: np.ndarray) -> None:
         if self.transfer == "linear":
             multigrid.prolong_linear_add(ec, lv.free, lv.step, scale, u)
         else:
-            stencil.prolong_add(ec, lv.free, lv.step, lv.off, scale, u)
+            stencil.prolong_add(ec, lv.free, lv.step, lv.agg, scale, u)
 
     def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
         """Improve u for A_level u = b in place (u may start at zero)."""
@@ -248,7 +249,7 @@ class Hierarchy:
             stencil.residual(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.r)
             multigrid.restrict_linear(lv.r, lv.free, lv.step, coarse.b)
         else:
-            stencil.residual_restrict(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.step, lv.off,
+            stencil.residual_restrict(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.step, lv.agg,
                                       coarse.b)
         coarse.e[...] = 0.0
         # one coarse cycle (V) or two in a row (W); each is symmetric, so the pair is too
@@ -299,8 +300,8 @@ class Hierarchy:
         Returns the finest level's u as a new flat float64 array. The finest level works in
         the hierarchy's own arrays.
         """
-        if any(lv.off.any() for lv in self.levels):
-            raise ValueError("full multigrid interpolates between unshifted pairs (no planes)")
+        if not all(plain_pairs(lv) for lv in self.levels[:-1]):
+            raise ValueError("full multigrid interpolates between plain pairs (no planes)")
         top = self.levels[0]
         rhs = [self._rhs(b)]
         for lv, coarse in zip(self.levels[:-1], self.levels[1:]):
@@ -374,7 +375,7 @@ def solve_levels(fine: Level, b: np.ndarray, rtol: float, max_iterations: int,
     opts = {**DEFAULTS, **options}
     start = opts.pop("start")
     if start == "fmg" or opts["transfer"] == "linear":
-        opts.pop("planes", None)  # (their interpolation assumes unshifted pairs)
+        opts.pop("planes", None)  # (their interpolation assumes plain pairs)
     t1 = time.perf_counter()
     operator = FineOperator(fine)
     # the preconditioner writes z where the operator writes A p: CG is done with A p by then
@@ -394,7 +395,7 @@ def solve_levels(fine: Level, b: np.ndarray, rtol: float, max_iterations: int,
                     + f"; {'W' if hierarchy.gamma == 2 else 'V'}-cycle, "
                     + hierarchy.smoothing_note() + f" smoothing{precision}"
                     + (", full multigrid start" if start == "fmg" else "")
-                    + hierarchy.shift_note())
+                    + hierarchy.planes_note())
     return result, hierarchy
 
 

@@ -4,7 +4,7 @@ level's operator which axes to coarsen and whether z-lines are needed (see
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -38,8 +38,8 @@ class Level:
     inv_w: np.ndarray | None = None  # z-line pivots (line smoother)
     lines: bool = True  # smoothed by z-lines (else red-black points)
     boost: np.ndarray | None = None  # per-axis factor of unscaled Galerkin couplings
-    # shift of the aggregates per axis (0 or 1: kernels.stencil.span), see aligned_pairs
-    off: np.ndarray = field(default_factory=lambda: np.zeros(3, dtype=np.int64))
+    # per axis, each cell's aggregate on the next level (see aggregates); None on the coarsest
+    agg: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
 
     @property
     def shape(self) -> tuple[int, int, int]:
@@ -62,7 +62,7 @@ class Level:
             return out
 
         return Level(*(convert(a) for a in (self.tx, self.ty, self.tz, self.diag)),
-                     self.free, self.step.copy(), self.spacing, off=self.off.copy())
+                     self.free, self.step.copy(), self.spacing, agg=self.agg)
 
     def to_band(self) -> tuple[np.ndarray, tuple[int, int, int]]:
         """The level's matrix in LAPACK's lower band storage (float64), cells numbered in C
@@ -139,38 +139,71 @@ def coarsening_step(lv: Level, lines: bool) -> np.ndarray:
     return step
 
 
-def aligned_pairs(planes: tuple[tuple[int, ...], ...], step: np.ndarray, lines: bool = False
-                  ) -> tuple[np.ndarray, np.ndarray, tuple[tuple[int, ...], ...]]:
-    """Aggregate sizes and offsets per axis (:func:`sevenfold.kernels.stencil.span`) that put
-    the most of ``planes`` between aggregates, and where those planes lie on the coarse level.
+def partition(n: int, planes: tuple[int, ...], offset: int = 0) -> np.ndarray:
+    """Each cell's aggregate along an axis of ``n`` cells: pairs (0, 1), (2, 3), ... (``offset``
+    0) or (0), (1, 2), ... (1), with a cell left alone wherever the next pair would hold one
+    of ``planes`` (cell boundaries b, between cells b - 1 and b), so that every plane lies
+    between aggregates; an odd last cell alone."""
+    cut = set(planes)
+    agg = np.empty(n, dtype=np.int64)
+    i = coarse = 0
+    if offset and n > 1:
+        agg[0], i, coarse = 0, 1, 1
+    while i < n:
+        agg[i] = coarse
+        if i + 1 < n and i + 1 not in cut:
+            agg[i + 1] = coarse
+            i += 1
+        i += 1
+        coarse += 1
+    return agg
 
-    ``planes[axis]`` holds cell boundaries b (between cells b - 1 and b) that should not fall
+
+def pairs(shape: tuple[int, ...], step, off=(0, 0, 0)) -> tuple[np.ndarray, ...]:
+    """Each cell's aggregate per axis for pairs from ``off`` (0: (0, 1), ...; 1: (0), (1, 2),
+    ...) where ``step`` is 2, single cells where it is 1."""
+    return tuple(np.arange(n, dtype=np.int64) if s == 1 else partition(n, (), o)
+                 for n, s, o in zip(shape, step, off))
+
+
+def aggregates(shape: tuple[int, int, int], planes: tuple[tuple[int, ...], ...],
+               step: np.ndarray, lines: bool = False
+               ) -> tuple[np.ndarray, tuple[np.ndarray, ...], tuple[tuple[int, ...], ...]]:
+    """Aggregate sizes per axis, each fine cell's aggregate per axis, and where ``planes`` lie
+    on the coarse level, for a level of ``shape`` that :func:`coarsening_step` would coarsen
+    by ``step``.
+
+    ``planes[axis]`` holds cell boundaries b (between cells b - 1 and b) that must not fall
     inside an aggregate: faces carrying a contact resistance, whose weak coupling the Galerkin
     product drops when both cells join one aggregate (the coarse levels then miss the
-    resistance, and a 64^3 job took 17 iterations instead of 5:
-    benchmarks/RESULTS_WALLS_CONTACT.md). On an axis coarsened by pairs, pairs (0, 1), ...
-    keep even boundaries apart and pairs (1, 2), ... odd ones. Where a level smoothed along z
-    lines has z planes of both parities, z keeps its cells on that level (the lines solve
-    along z exactly, so it need not be coarsened, and every plane stays: three joints of
-    both parities took 8 iterations against the majority rule's 15 and 11 at 128^3 and 256^3,
-    as many as the job without joints, benchmarks/RESULTS_SHIFT_JOINTS.md), unless no other
-    axis would be coarsened. Otherwise the parity that more planes have wins, and
-    the others are dropped for the coarser levels. ``step`` (from :func:`coarsening_step`) is
-    not changed; the sizes returned may keep z whole.
+    resistance: 17 iterations instead of 5 at 64^3, benchmarks/RESULTS_WALLS_CONTACT.md; three
+    contacts across x of both parities 39 instead of 8 at 128^3,
+    benchmarks/RESULTS_PARTITION.md). A coarsened axis is paired from the parity most planes
+    have, with a cell alone wherever a pair would hold a plane (:func:`partition`). Along z,
+    the level kernels' pair loops vectorise only for pairs (shifted or not): where a level
+    smoothed along z lines has z planes of both parities, z keeps its cells instead (the lines
+    solve along z exactly, so it need not be coarsened: three joints of both parities took
+    8 iterations against the majority's shift's 15 and 11 at 128^3 and 256^3, as many as the
+    job without joints, benchmarks/RESULTS_SHIFT_JOINTS.md), unless no other axis would be
+    coarsened. ``step`` is not changed; the sizes returned may keep z whole.
     """
     step = step.copy()
-    z = {b % 2 for b in planes[2]}
-    if lines and step[2] == 2 and len(z) > 1 and (step[:2] > 1).any():
+    if lines and step[2] == 2 and len({b % 2 for b in planes[2]}) > 1 and (step[:2] > 1).any():
         step[2] = 1
-    off = np.zeros(3, dtype=np.int64)
-    coarse = []
-    for axis, at in enumerate(planes):
-        s = int(step[axis])
+    agg, coarse = [], []
+    for n, s, at in zip(shape, step, planes):
         if s == 1:
+            agg.append(np.arange(n, dtype=np.int64))
             coarse.append(tuple(at))
             continue
         odd = sum(b % 2 for b in at)
-        o = 1 if s == 2 and 2 * odd > len(at) else 0
-        off[axis] = o
-        coarse.append(tuple(sorted({(b + o) // s for b in at if (b + o) % s == 0})))
-    return step, off, tuple(coarse)
+        a = partition(n, at, 1 if 2 * odd > len(at) else 0)
+        agg.append(a)
+        coarse.append(tuple(sorted({int(a[b]) for b in at})))
+    return step, tuple(agg), tuple(coarse)
+
+
+def plain_pairs(lv: Level) -> bool:
+    """Whether ``lv``'s aggregates are the plain pairs (0, 1), (2, 3), ... (or single cells on
+    an axis not coarsened), which linear interpolation and full multigrid assume."""
+    return all(np.array_equal(a, b) for a, b in zip(lv.agg, pairs(lv.shape, lv.step)))
