@@ -786,11 +786,11 @@ def test_contact_planes_lie_between_aggregates() -> None:
 
 def test_contacts_of_both_parities_keep_cells_alone_or_z_whole(monkeypatch) -> None:
     """Three contacts at boundaries 10, 17 and 23 of 32 cells, one of them even, so no pairing
-    holds them all apart. Across x, cells are left alone beside them (measured at 32^3: 8
-    iterations against 18 with the majority's parity shifted and 26 with the pairs as they
-    are, benchmarks/RESULTS_PARTITION.md at 64^3 to 256^3); across z, z is not coarsened (the
-    z-lines solve along it: 5 against 15), or, without lines, cells alone along z (the level
-    kernels' general z loop). Every answer agrees with scipy's direct solve."""
+    holds them all apart. Across x, cells are left alone beside them (measured at 32^3: 7
+    iterations against 18 with the majority's parity shifted, as at a2d7a83, and 25 with the
+    pairs as they are; benchmarks/RESULTS_PARTITION.md at 64^3 to 256^3); across z, z is not
+    coarsened (the z-lines solve along it: 5 against 15), or, without lines, cells alone along
+    z (the level kernels' general z loop: 6). Every answer agrees with scipy's direct solve."""
     from sevenfold.solvers import gmg, levels
 
     for axis, notes, bound in (("x", "pairs arranged on level 0", 9),
