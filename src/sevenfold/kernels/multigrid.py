@@ -317,10 +317,10 @@ def galerkin_scaled(tx, ty, tz, diag, free, agg, txc, tyc, tzc, diagc, freec):
 
     The piecewise-constant Galerkin product P^T A P sums the fine couplings crossing between
     two aggregates (so coefficient jumps reach the coarse levels as fluxes, not averages); it
-    is about ``step`` times too strong along each coarsened axis compared with the same
+    is about twice too strong along each axis coarsened by pairs compared with the same
     operator rediscretised on the coarse cells. Scaling each coupling by the fine over the
     coarse centre distance (:func:`_axis_scales`: 1/2 between pairs, 2/3 between a pair and a
-    single cell at an axis's end) gives a coarse operator consistent with linear interpolation
+    single cell) gives a coarse operator consistent with linear interpolation
     (P_lin^T A P_lin on smooth errors) and with full multigrid. A cell's diagonal excess
     (boundary faces, couplings to held cells) is split equally over its faces that store no
     coupling, each share scaled by 1 / the aggregate's size along the face's axis (the
