@@ -1,0 +1,105 @@
+"""Whole `sevenfold run` processes with numpy's transparent huge pages on and off.
+
+    python benchmarks/hugepage_bench.py [--jobs column:128 inclusions:128 column:256 layered:256]
+        [--rounds 5]
+
+numpy asks Linux for transparent huge pages on every large array (madvise), and where the
+kernel's huge-page setting is "madvise" with "defrag" on madvise too (this host:
+/sys/kernel/mm/transparent_hugepage), a page fault in such an array may first compact memory
+to find 2 MB of free contiguous memory: on a host whose memory is fragmented by other
+tenants, the first touch of a new array then stalls (1 GB of new arrays took 0.6-2.3 s to
+fill with huge pages against 0.41-0.45 s with 4 kB pages, one-offs). A sevenfold job touches
+all its arrays once (assembly, set-up), so the stalls land in its own time; huge pages can
+make later passes faster (fewer TLB misses).
+
+For each job, whole processes alternate ``NUMPY_MADVISE_HUGEPAGE=1`` (numpy's default) and
+``=0`` (``--rounds`` each); the table gives each side's job time from the summary line
+(median and best) and its parts, and the whole process's wall time. Writes
+benchmarks/RESULTS_HUGEPAGES.md.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import re
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+import column  # noqa: E402
+import run as engine  # noqa: E402
+import speed  # noqa: E402
+
+PARTS = ("assembly", "setup", "solve", "write")
+
+
+def job_file(folder: Path, pattern: str, n: int) -> Path:
+    path = folder / f"{pattern}-{n}.toml"
+    out = folder / f"{pattern}-{n}.zarr"
+    path.write_text(column.job_text(n, out) if pattern == "column" else speed.job_text(n, pattern, str(out)))
+    return path
+
+
+def one_run(job: Path, huge: bool) -> dict[str, float]:
+    """One whole `sevenfold run` process: wall seconds, the job's seconds and its parts."""
+    env = dict(os.environ, NUMPY_MADVISE_HUGEPAGE="1" if huge else "0")
+    t = time.perf_counter()
+    command = str(Path(sys.executable).parent / "sevenfold")  # (the installed command)
+    done = subprocess.run([command, "run", str(job), "--here"],
+                          capture_output=True, text=True, env=env, check=True)
+    wall = time.perf_counter() - t
+    found = re.search(r"job ([0-9.]+) s \(assembly ([0-9.]+) s, setup ([0-9.]+) s, "
+                      r"solve ([0-9.]+) s, write ([0-9.]+) s\)", done.stdout)
+    if found is None:
+        raise RuntimeError(f"no summary line in:\n{done.stdout}\n{done.stderr}")
+    values = [float(x) for x in found.groups()]
+    return {"wall": wall, "job": values[0]} | dict(zip(PARTS, values[1:]))
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--jobs", nargs="+", default=["column:128", "inclusions:128", "column:256",
+                                                  "layered:256"])
+    p.add_argument("--rounds", type=int, default=5)
+    p.add_argument("--results", type=Path, default=HERE / "RESULTS_HUGEPAGES.md")
+    args = p.parse_args(argv)
+    lines, info = engine.report_head("hugepage_bench.py", argv,
+                                     "Whole runs with numpy's transparent huge pages on and off")
+    setting = {name: Path(f"/sys/kernel/mm/transparent_hugepage/{name}").read_text().strip()
+               for name in ("enabled", "defrag")}
+    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+              f"This host: enabled = `{setting['enabled']}`, defrag = `{setting['defrag']}`. "
+              "Seconds; *median* and *best* of the rounds; parts are medians.", "",
+              "| job | cells | huge pages | job s median | job s best | assembly | setup | solve | "
+              "write | wall s median | job median, off / on |", "|" + "---|" * 11]
+    with tempfile.TemporaryDirectory() as tmp:
+        for spec in args.jobs:
+            pattern, n = spec.split(":")
+            job = job_file(Path(tmp), pattern, int(n))
+            one_run(job, True)  # (loads the kernels' cache and the files once)
+            runs: dict[bool, list[dict[str, float]]] = {True: [], False: []}
+            for _ in range(args.rounds):
+                for huge in (True, False):
+                    runs[huge].append(one_run(job, huge))
+            med = {h: {k: statistics.median(r[k] for r in runs[h]) for k in runs[h][0]} for h in runs}
+            for huge in (True, False):
+                m = med[huge]
+                lines.append(
+                    f"| {pattern} | {n}^3 | {'on' if huge else 'off'} | {m['job']:.2f} | "
+                    f"{min(r['job'] for r in runs[huge]):.2f} | "
+                    + " | ".join(f"{m[k]:.2f}" for k in PARTS)
+                    + f" | {m['wall']:.2f} | "
+                    + (f"{med[False]['job'] / med[True]['job']:.2f} |" if not huge else "|"))
+                print(lines[-1], flush=True)
+    engine.write_report(args.results, lines, info)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
