@@ -11,9 +11,9 @@ import os
 import sys
 from pathlib import Path
 
-from . import one_blas_thread
+from . import command_environment
 
-one_blas_thread()  # before anything imports numpy
+command_environment()  # before anything imports numpy
 
 from rich.markup import escape  # noqa: E402
 from rich.table import Table  # noqa: E402
