@@ -14,7 +14,9 @@ make later passes faster (fewer TLB misses).
 
 For each job, whole processes alternate ``NUMPY_MADVISE_HUGEPAGE=1`` (numpy's default) and
 ``=0`` (``--rounds`` each); the table gives each side's job time from the summary line
-(median and best) and its parts, and the whole process's wall time. Writes
+(median and best) and its parts, and the whole process's wall time. With ``--resident``, also
+the job's time in a process that ran it before (``column.RESIDENT``: the third of three runs,
+what a worker's slot sees), alternating the same way, median. Writes
 benchmarks/RESULTS_HUGEPAGES.md.
 """
 
@@ -62,11 +64,20 @@ def one_run(job: Path, huge: bool) -> dict[str, float]:
     return {"wall": wall, "job": values[0]} | dict(zip(PARTS, values[1:]))
 
 
+def resident_run(job: Path, huge: bool) -> float:
+    """The job's own seconds in a process that has run it twice before."""
+    env = dict(os.environ, NUMPY_MADVISE_HUGEPAGE="1" if huge else "0")
+    done = subprocess.run([sys.executable, "-c", column.RESIDENT, str(job)], capture_output=True,
+                          text=True, env=env, check=True, cwd=job.parent)
+    return float(done.stdout.split()[-1])
+
+
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--jobs", nargs="+", default=["column:128", "inclusions:128", "column:256",
                                                   "layered:256"])
     p.add_argument("--rounds", type=int, default=5)
+    p.add_argument("--resident", action="store_true")
     p.add_argument("--results", type=Path, default=HERE / "RESULTS_HUGEPAGES.md")
     args = p.parse_args(argv)
     lines, info = engine.report_head("hugepage_bench.py", argv,
@@ -77,7 +88,8 @@ def main(argv: list[str] | None = None) -> int:
               f"This host: enabled = `{setting['enabled']}`, defrag = `{setting['defrag']}`. "
               "Seconds; *median* and *best* of the rounds; parts are medians.", "",
               "| job | cells | huge pages | job s median | job s best | assembly | setup | solve | "
-              "write | wall s median | job median, off / on |", "|" + "---|" * 11]
+              "write | wall s median | job median, off / on | resident job s median | "
+              "resident, off / on |", "|" + "---|" * 13]
     with tempfile.TemporaryDirectory() as tmp:
         for spec in args.jobs:
             pattern, n = spec.split(":")
@@ -87,7 +99,12 @@ def main(argv: list[str] | None = None) -> int:
             for _ in range(args.rounds):
                 for huge in (True, False):
                     runs[huge].append(one_run(job, huge))
+            resident: dict[bool, list[float]] = {True: [], False: []}
+            for _ in range(args.rounds if args.resident else 0):
+                for huge in (True, False):
+                    resident[huge].append(resident_run(job, huge))
             med = {h: {k: statistics.median(r[k] for r in runs[h]) for k in runs[h][0]} for h in runs}
+            res = {h: statistics.median(resident[h]) if resident[h] else float("nan") for h in resident}
             for huge in (True, False):
                 m = med[huge]
                 lines.append(
@@ -95,7 +112,9 @@ def main(argv: list[str] | None = None) -> int:
                     f"{min(r['job'] for r in runs[huge]):.2f} | "
                     + " | ".join(f"{m[k]:.2f}" for k in PARTS)
                     + f" | {m['wall']:.2f} | "
-                    + (f"{med[False]['job'] / med[True]['job']:.2f} |" if not huge else "|"))
+                    + (f"{med[False]['job'] / med[True]['job']:.2f}" if not huge else "")
+                    + f" | {res[huge]:.2f} | "
+                    + (f"{res[False] / res[True]:.2f} |" if not huge else "|"))
                 print(lines[-1], flush=True)
     engine.write_report(args.results, lines, info)
     return 0

@@ -36,13 +36,14 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-# This process times warm gmg solves itself: it runs BLAS on one thread and numpy on small
-# pages, as the `sevenfold` command does (before numpy loads); the baseline's children get the
-# environment as it was given (GIVEN_ENVIRONMENT), with their libraries' own defaults.
+# This process times warm gmg solves itself: it runs BLAS on one thread, as the `sevenfold`
+# command does (before numpy loads), and keeps numpy's huge pages, as a worker's slot does;
+# the baseline's children get the environment as it was given (GIVEN_ENVIRONMENT), with
+# their libraries' own defaults.
 GIVEN_ENVIRONMENT = dict(os.environ)
-from sevenfold import command_environment  # noqa: E402
+from sevenfold import one_blas_thread  # noqa: E402
 
-command_environment()
+one_blas_thread()
 
 import numpy as np  # noqa: E402
 

@@ -29,18 +29,13 @@ def small_pages() -> None:
 
     numpy advises huge pages on every large array; where Linux then compacts memory on a page
     fault to find 2 MB of contiguous memory (transparent_hugepage "defrag" on madvise, a common
-    default), the first touch of a job's arrays stalls on a host whose memory other processes
-    have fragmented. Whole 256^3 runs took 0.70-0.83 times as long (median of five) with small
-    pages, their assembly and set-up half as long; the best runs with huge pages were up to
-    7 % faster, and at 128^3 the two were within 5 % (benchmarks/RESULTS_HUGEPAGES.md).
+    default), the first touch of a fresh process's arrays stalls on a host whose memory other
+    processes have fragmented: whole 256^3 runs took 0.70-0.83 times as long (median of five)
+    with small pages, their assembly and set-up half as long. A process that runs job after
+    job (a worker's slot) gets its freed huge pages back without compaction and then runs
+    faster on them, so the command calls this for the commands that run a job in a fresh
+    process, not for ``worker`` (benchmarks/RESULTS_HUGEPAGES.md).
     """
     import os
 
     os.environ.setdefault("NUMPY_MADVISE_HUGEPAGE", "0")
-
-
-def command_environment() -> None:
-    """What the command line sets before its first import of numpy: :func:`one_blas_thread`
-    and :func:`small_pages` (a value the user set is kept)."""
-    one_blas_thread()
-    small_pages()

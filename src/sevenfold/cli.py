@@ -11,9 +11,9 @@ import os
 import sys
 from pathlib import Path
 
-from . import command_environment
+from . import one_blas_thread, small_pages
 
-command_environment()  # before anything imports numpy
+one_blas_thread()  # before anything imports numpy
 
 from rich.markup import escape  # noqa: E402
 from rich.table import Table  # noqa: E402
@@ -390,6 +390,8 @@ def main(argv: list[str] | None = None) -> int:
 
 def _dispatch(argv: list[str] | None) -> int:
     words = sys.argv[1:] if argv is None else argv
+    if words[:1] != ["worker"]:  # (a worker's slots run job after job: huge pages pay there)
+        small_pages()  # before anything imports numpy
     args = parser(queue=not words or words[0] not in CORE_COMMANDS).parse_args(argv)
     try:
         return args.func(args)

@@ -97,7 +97,6 @@ def slot_environment(threads: int) -> dict[str, str]:
         **{name: "1" for name in BLAS_THREAD_VARIABLES},
         "PYTHONUNBUFFERED": "1",
     })
-    env.setdefault("NUMPY_MADVISE_HUGEPAGE", "0")  # (see sevenfold.small_pages)
     return env
 
 
