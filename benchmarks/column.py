@@ -150,15 +150,22 @@ print(seconds["job"])
 
 def run_resident(folder: Path, job: Path) -> float:
     """sevenfold's own time for ``job`` in a process that has run it before: what a queue
-    worker's resident slot process sees (kernels loaded, modules imported); best of two."""
+    worker's resident slot process sees running a sweep (kernels loaded, modules imported,
+    and the environment of a one-slot worker's slot: every core, malloc keeping the memory
+    the last job freed); best of two."""
     import subprocess
 
+    from sevenfold.queue.worker import cores, slot_environment
+
+    env = slot_environment(cores())
+
     out = subprocess.run([sys.executable, "-c", RESIDENT.replace("range(3)", "range(2)"), str(job)],
-                         cwd=folder, capture_output=True, text=True)
+                         cwd=folder, capture_output=True, text=True, env=env)
     if out.returncode != 0:
         raise RuntimeError(f"the resident run of {job} failed:\n{out.stderr}")
     first = float(out.stdout.split()[-1])
-    out = subprocess.run([sys.executable, "-c", RESIDENT, str(job)], cwd=folder, capture_output=True, text=True)
+    out = subprocess.run([sys.executable, "-c", RESIDENT, str(job)], cwd=folder, capture_output=True, text=True,
+                         env=env)
     if out.returncode != 0:
         raise RuntimeError(f"the resident run of {job} failed:\n{out.stderr}")
     return min(first, float(out.stdout.split()[-1]))
@@ -291,7 +298,8 @@ def report(command: str, info: dict[str, str], sizes: list[Size], load: dict, ru
           f"{bw.process.peak_rss / 2**20:,.0f} | {bw.process.peak_rss / s.n**3:.0f} | | | |")
         w("")
         w(f"- own time in a resident process that has run the job before (what a queue worker's slot "
-          f"process sees: modules imported, kernels loaded): {s.resident:.2f} s, "
+          f"process sees in a sweep: modules imported, kernels loaded, the memory the last job freed "
+          f"kept): {s.resident:.2f} s, "
           f"{s.seconds('own')[0] / s.resident:.1f}x the baseline's own time")
         if np.isfinite(s.queued):
             w(f"- handed to a running worker: `sevenfold run -q`, which queues the job for the idle "

@@ -17,13 +17,15 @@ class Worker:
     """``sevenfold worker`` (one slot, every core) on its own queue home, for the handed-off
     run: its slot child imports and loads the kernels once, then runs the jobs it is given."""
 
-    def __init__(self, folder: Path) -> None:
+    def __init__(self, folder: Path, env: dict[str, str] | None = None) -> None:
+        import os
         import subprocess
 
         self.home = folder / "queue-home"
         self.log = open(folder / "worker.out", "w")  # noqa: SIM115 - closed in stop()
         self.proc = subprocess.Popen(engine.sevenfold_command() + ["worker", "--home", str(self.home), "--slots", "1"],
-                                     stdout=self.log, stderr=subprocess.STDOUT, cwd=folder)
+                                     stdout=self.log, stderr=subprocess.STDOUT, cwd=folder,
+                                     env=None if env is None else dict(os.environ, **env))
 
     def flow(self, job: Path, result: Path) -> tuple[float, float]:
         """What a user types with a worker running: ``sevenfold run -q JOB``, which hands the

@@ -447,3 +447,84 @@ def test_a_slots_process_runs_numba_and_numexpr_on_its_share_and_blas_on_one() -
     assert json.loads(proc.stdout.strip().splitlines()[-1]) == [2, 2]
     env = slot_environment(1)
     assert env["OPENBLAS_NUM_THREADS"] == env["MKL_NUM_THREADS"] == "1"
+    assert env["MALLOC_MMAP_MAX_"] == "0"  # freed memory kept for the next job (memory.KEEP_FREED_MEMORY)
+
+
+def test_a_user_s_malloc_settings_win_over_the_slot_s(monkeypatch) -> None:
+    from sevenfold.queue.worker import slot_environment
+
+    monkeypatch.setenv("MALLOC_MMAP_MAX_", "65536")
+    env = slot_environment(1)
+    assert env["MALLOC_MMAP_MAX_"] == "65536" and env["MALLOC_TRIM_THRESHOLD_"] == str(1 << 40)
+
+
+_HELD = """
+import json, numpy as np
+from pathlib import Path
+from sevenfold.memory import held_free_bytes, release_freed_memory
+def rss():
+    line = [l for l in Path("/proc/self/status").read_text().splitlines() if l.startswith("VmRSS:")][0]
+    return int(line.split()[1]) * 1024
+before = rss()
+a = np.ones(256 << 17)  # 256 MiB, touched
+del a
+freed, held = rss(), held_free_bytes()
+release_freed_memory()
+print(json.dumps([before, freed, held, rss()]))
+"""
+
+
+@pytest.mark.skipif(not Path("/proc/self/status").exists(), reason="reads VmRSS from Linux's /proc")
+def test_a_slot_keeps_the_memory_its_job_freed_until_it_gives_it_back() -> None:
+    """In a slot's environment a freed 256 MiB array stays resident and held by malloc
+    (glibc's mallinfo2) until release_freed_memory (malloc_trim); with glibc's own defaults it
+    is unmapped at once: the setting is what keeps it."""
+    from sevenfold.queue.worker import slot_environment
+
+    mib = 1 << 20
+
+    def probe(env: dict[str, str]) -> list[int]:
+        proc = subprocess.run([sys.executable, "-c", _HELD], env=env, capture_output=True, text=True,
+                              timeout=120)
+        assert proc.returncode == 0, proc.stderr
+        return json.loads(proc.stdout.strip().splitlines()[-1])
+
+    before, freed, held, released = probe(slot_environment(1))
+    assert freed - before > 200 * mib and held > 250 * mib
+    assert freed - released > 200 * mib
+    before, freed, held, released = probe({**slot_environment(1), "MALLOC_MMAP_MAX_": "65536",
+                                           "MALLOC_TRIM_THRESHOLD_": str(128 * 1024)})
+    assert freed - before < 50 * mib and held < 50 * mib
+
+
+def test_a_slot_reads_requests_and_says_when_it_has_waited_long_enough() -> None:
+    """child.requests: one JSON request a line, blank lines skipped, lines split across
+    writes joined; on_idle once per wait longer than ``idle`` (not again while still
+    waiting), none while requests keep coming; the end of the channel ends the requests."""
+    import threading
+    import time
+
+    read, write = os.pipe()
+    idle: list[float] = []
+    got: list[dict] = []
+
+    def reader() -> None:
+        for request in child.requests(read, 0.2, lambda: idle.append(time.monotonic())):
+            got.append(request)
+
+    thread = threading.Thread(target=reader, daemon=True)
+    thread.start()
+    try:
+        os.write(write, b'{"job": 1}\n\n{"jo')
+        time.sleep(0.05)
+        os.write(write, b'b": 2}\n')
+        time.sleep(0.7)  # one wait past 0.2 s: on_idle once
+        assert [r["job"] for r in got] == [1, 2] and len(idle) == 1
+        os.write(write, b'{"job": 3}\n')
+        time.sleep(0.05)
+        assert len(got) == 3 and len(idle) == 1
+    finally:
+        os.close(write)
+    thread.join(5.0)
+    assert not thread.is_alive() and len(idle) <= 2
+    os.close(read)

@@ -115,3 +115,48 @@ def human(nbytes: float) -> str:
             return f"{nbytes:.1f} {unit}" if unit != "B" else f"{int(nbytes)} B"
         nbytes /= 1024
     return f"{nbytes:.1f} TiB"
+
+
+# A slot process keeps the memory its jobs free (C library malloc, glibc): large arrays come
+# from the heap instead of fresh mmaps, and freed ones stay mapped for the next job. A 256^3
+# job maps about 2.3 GB of new arrays, and on a shared host the first touch of new memory is
+# slow and uneven (more so with huge pages, which must be compacted); the next job of a sweep
+# reuses the pages already touched (benchmarks/RESULTS_HEAP.md). Environment variables read
+# when the process starts; elsewhere than glibc they are ignored.
+KEEP_FREED_MEMORY = {"MALLOC_MMAP_MAX_": "0", "MALLOC_TRIM_THRESHOLD_": str(1 << 40)}
+
+
+def _libc():
+    import ctypes
+
+    try:
+        libc = ctypes.CDLL(None)
+        return libc if hasattr(libc, "malloc_trim") else None
+    except (OSError, AttributeError):  # not glibc
+        return None
+
+
+def held_free_bytes() -> int:
+    """Bytes malloc holds free for reuse in this process (glibc's mallinfo2 ``fordblks``);
+    0 where that cannot be asked."""
+    import ctypes
+
+    libc = _libc()
+    if libc is None or not hasattr(libc, "mallinfo2"):
+        return 0
+
+    class MallInfo2(ctypes.Structure):
+        _fields_ = [(name, ctypes.c_size_t) for name in (
+            "arena", "ordblks", "smblks", "hblks", "hblkhd", "usmblks", "fsmblks", "uordblks",
+            "fordblks", "keepcost")]
+
+    libc.mallinfo2.restype = MallInfo2
+    return int(libc.mallinfo2().fordblks)
+
+
+def release_freed_memory() -> None:
+    """Give the memory malloc holds free back to the system (glibc's malloc_trim); nothing
+    where there is no such call."""
+    libc = _libc()
+    if libc is not None:
+        libc.malloc_trim(0)

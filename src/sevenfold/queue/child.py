@@ -4,9 +4,13 @@ It warms the compiled kernels once (under a file lock in numba's cache, which ev
 and every `sevenfold run` of this install share, so only one process compiles them first),
 says ``{"ready": pid}``, then reads one JSON request per line on stdin and answers one JSON
 line per request on the stdout it was started with;
-whatever the libraries print goes to stderr (the slot's log). It dies with its worker
-(PR_SET_PDEATHSIG on Linux, and a parent check every iteration elsewhere). SIGUSR1 asks the
-running solve to stop at its next iteration.
+whatever the libraries print goes to stderr (the slot's log). Memory its jobs free stays
+with the process for the next job (the worker's environment,
+:func:`.worker.slot_environment`); it is given back when no request came for
+:data:`IDLE_RELEASE` s, and before a job whose estimate is smaller than what is held, so a
+slot holds about what its job is admitted for. It dies with its worker (PR_SET_PDEATHSIG
+on Linux, and a parent check every iteration elsewhere). SIGUSR1 asks the running solve to
+stop at its next iteration.
 
 The worker sets ``NUMBA_NUM_THREADS`` in its environment before numba is imported; nothing
 numerical is imported at module level here.
@@ -18,17 +22,20 @@ import argparse
 import contextlib
 import json
 import os
+import select
 import signal
 import sys
 import tempfile
 import time
 import traceback
 from pathlib import Path
-from typing import Any, Iterator, TextIO
+from typing import Any, Callable, Iterator, TextIO
 
 from ..errors import Cancelled, JobError, OutputError, SevenfoldError, SolverError, writing
 from .files import append_run
 from .home import Home
+
+IDLE_RELEASE = 0.5  # s without a request before a slot gives back the memory it holds free
 
 # Tiny jobs that touch every compiled kernel: each solver method once (on a problem every
 # method accepts), and the boundary and hold paths of the assembly once more.
@@ -246,6 +253,28 @@ def _send(channel: TextIO, message: dict[str, Any]) -> None:
     channel.flush()
 
 
+def requests(fd: int, idle: float, on_idle: Callable[[], None]) -> Iterator[dict[str, Any]]:
+    """The JSON requests arriving on ``fd``, one per line, until it closes; ``on_idle`` is
+    called once whenever ``idle`` s pass without one (counted from the start and from each
+    request's hand-back, i.e. the next ``next()``)."""
+    buffer = b""
+    while True:
+        waiting = True  # on_idle not yet called for this wait
+        while b"\n" not in buffer:
+            ready, _, _ = select.select([fd], [], [], idle if waiting else None)
+            if not ready:
+                on_idle()
+                waiting = False
+                continue
+            chunk = os.read(fd, 1 << 16)
+            if not chunk:
+                return
+            buffer += chunk
+        line, buffer = buffer.split(b"\n", 1)
+        if line.strip():
+            yield json.loads(line)
+
+
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(prog="python -m sevenfold.queue.child")
     p.add_argument("--home", required=True)
@@ -267,10 +296,11 @@ def main(argv: list[str] | None = None) -> int:
         _send(channel, {"fatal": f"warm-up failed: {type(exc).__name__}: {exc}"})
         return 1
     _send(channel, {"ready": os.getpid(), "warm_seconds": seconds})
-    for line in sys.stdin:
-        if not line.strip():
-            continue
-        request = json.loads(line)
+    from ..memory import held_free_bytes, release_freed_memory
+
+    for request in requests(sys.stdin.fileno(), IDLE_RELEASE, release_freed_memory):
+        if held_free_bytes() > request.get("memory_bytes", 0):
+            release_freed_memory()  # a smaller job: hold no more than it is admitted for
         reply = execute(request, home, state)
         state.interrupted = False
         _send(channel, {"job": request["job"], "run": request["run"], **reply})

@@ -31,7 +31,7 @@ from typing import Any, Callable
 
 from .. import BLAS_THREAD_VARIABLES
 from ..errors import QueueError
-from ..memory import available_bytes, human
+from ..memory import KEEP_FREED_MEMORY, available_bytes, human
 from .db import Queue
 from .records import Claim, ClaimResult
 from .files import remove_partials, write_text_atomic
@@ -84,8 +84,10 @@ def describe_exit(code: int | None) -> str:
 
 
 def slot_environment(threads: int) -> dict[str, str]:
-    """The environment of a slot's child process: this one's, with its share of the cores."""
-    env = dict(os.environ)
+    """The environment of a slot's child process: this one's, with its share of the cores,
+    and malloc keeping freed memory for the next job (:data:`~sevenfold.memory.KEEP_FREED_MEMORY`,
+    unless this environment already sets those variables; the child gives it back when idle)."""
+    env = {**KEEP_FREED_MEMORY, **os.environ}
     env.update({
         "NUMBA_NUM_THREADS": str(threads),
         # numexpr (the job's expressions) on the same share: it would otherwise follow
@@ -273,7 +275,7 @@ class Slot(threading.Thread):
         asked_at = 0.0
         try:
             child.send({"job": claim.id, "run": claim.run_id, "attempt": claim.attempt,
-                        "output": claim.output, "worker": w.id})
+                        "output": claim.output, "worker": w.id, "memory_bytes": claim.memory_bytes})
             while True:
                 msg = child.receive(0.25)
                 if msg is not None:
