@@ -27,17 +27,18 @@ class Worker:
                                      stdout=self.log, stderr=subprocess.STDOUT, cwd=folder,
                                      env=None if env is None else dict(os.environ, **env))
 
-    def flow(self, job: Path, result: Path) -> tuple[float, float]:
+    def flow(self, job: Path, result: Path, command: list[str] | None = None) -> tuple[float, float]:
         """What a user types with a worker running: ``sevenfold run -q JOB``, which hands the
-        job to the idle worker and follows it to its end. Returns the wall seconds of that
-        process, and the job's own seconds from its result."""
+        job to the idle worker and follows it to its end (``command`` in place of
+        ``sevenfold``, for an A/B). Returns the wall seconds of that process, and the job's
+        own seconds from its result."""
         import subprocess
         import time
 
         import zarr
 
         t0 = time.perf_counter()
-        proc = subprocess.run(engine.sevenfold_command() + ["run", "--home", str(self.home), "-q", str(job)],
+        proc = subprocess.run((command or engine.sevenfold_command()) + ["run", "--home", str(self.home), "-q", str(job)],
                               capture_output=True, text=True, check=False)
         wall = time.perf_counter() - t0
         attrs = dict(zarr.open_group(str(result), mode="r").attrs)

@@ -213,3 +213,19 @@ def test_hand_off_rings_the_worker_it_chose(idle_home, monkeypatch) -> None:
     (worker_pid,) = [int(w["pid"]) for w in handed.queue.workers() if w["id"] == handed.worker]
     assert rung == [(home.root, worker_pid)]
     assert follow(handed, lambda j, p: None).state == "done"
+
+
+def test_the_worker_rings_the_follower_when_the_run_ends(idle_home) -> None:
+    """The worker rings the handed job's bell (wake.job_bell) when its run ends, so `run`
+    reports at once: followed with a 30 s poll, a job of well under a second is reported
+    within 10 s only if the ring was heard (without it the first look after the start
+    comes 30 s later)."""
+    import time
+
+    home, root = idle_home
+    handed = handoff.hand_off(column_job(root, "bell"), None, home.root)
+    assert handed is not None
+    t0 = time.monotonic()
+    ended = follow(handed, lambda j, p: None, poll=30.0)
+    assert ended is not None and ended.state == "done"
+    assert time.monotonic() - t0 < 10.0

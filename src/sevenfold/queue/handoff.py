@@ -22,12 +22,13 @@ from .db import Queue
 from .records import FINISHED, Job
 from .files import pid_alive, remove_partials
 from .home import Home, has_queue, home_root
-from .wake import ring
+from .wake import Bell, job_bell, ring
 from .watch import Progress, read_progress
 from .worker import cores
 
 POLL = 0.05  # s between looks at the job and its residual log, for a job's first seconds
-SLOW_POLL = 0.5  # s between looks after QUICK (the whole log is read each time, as watch does)
+SLOW_POLL = 0.5  # s between looks after QUICK (the whole log is read each time, as watch does);
+# the worker rings the job's bell when its run ends, which ends the wait at once
 QUICK = 2.0  # s
 LOST_AFTER = 2.0  # s a queued hand-off may wait with no worker left to take it
 RECOVER_EVERY = 5.0  # s between looks for runs of workers that died
@@ -109,6 +110,18 @@ def follow(handed: Handed, on_progress: Callable[[Job, Progress], None],
     free worker to take it (the worker stopped, or another job took its slot first): it is
     then cancelled, and the caller runs it itself."""
     queue, job_id = handed.queue, handed.job.id
+    bell = Bell(queue.home.root, job_bell(job_id))
+    try:
+        return _follow(queue, job_id, on_progress, poll, bell)
+    finally:
+        bell.close()
+
+
+def _follow(queue: Queue, job_id: str, on_progress: Callable[[Job, Progress], None], poll: float,
+            bell: Bell) -> Job | None:
+    def sleep(seconds: float) -> None:  # until the next look, or the run's end
+        bell.wait(seconds) if bell.listening else time.sleep(seconds)
+
     start = time.monotonic()
     seen = -1
     waiting_since: float | None = None
@@ -131,11 +144,11 @@ def follow(handed: Handed, on_progress: Callable[[Job, Progress], None],
                 done = dict((j.id, what) for j, what in queue.cancel([job_id]))
                 if done.get(job_id) == "cancelled":
                     return None
-            time.sleep(poll)
+            sleep(poll)
             continue
         waiting_since = None
         p = read_progress(job.output, since=job.started)
         if len(p.rows) != seen:
             seen = len(p.rows)
             on_progress(job, p)
-        time.sleep(poll if time.monotonic() - start < QUICK else max(poll, SLOW_POLL))
+        sleep(poll if time.monotonic() - start < QUICK else max(poll, SLOW_POLL))

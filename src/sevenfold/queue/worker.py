@@ -37,7 +37,7 @@ from .records import Claim, ClaimResult
 from .files import remove_partials, write_text_atomic
 from .home import Home, Timing
 from .tomlwrite import dumps
-from .wake import Bell
+from .wake import Bell, job_bell, ring
 
 READY_TIMEOUT = 900.0  # s: a first compile on a loaded machine can take minutes
 MAX_FAILED_STARTS = 3  # a draining worker gives up after this many failed child starts
@@ -301,6 +301,8 @@ class Slot(threading.Thread):
             child.kill()
             remove_partials(output)
             self._died(queue, claim, reason, describe_exit(died.returncode), limit)
+        finally:
+            ring(home.root, job_bell(claim.id))  # a `run` following the job reports at once
 
     def _finish(self, queue: Queue, claim: Claim, msg: dict[str, Any], reason: str | None,
                 limit: float | None) -> None:
