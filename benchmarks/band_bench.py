@@ -127,7 +127,7 @@ def main(argv: list[str] | None = None) -> int:
 
     lines, info = engine.report_head("band_bench.py", argv,
                                      "The coarsest level as a banded Cholesky factor")
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+    lines += [engine.description(__doc__), "",
               "## 1-2. The coarsest level alone, and warm gmg solves", "",
               "*factor*, *solve*: milliseconds; *WU* = seconds over one two-thread float64 operator "
               "application of the job's grid (*apply*); *solve s*: warm gmg set-up + solve, wall "

@@ -26,7 +26,6 @@ Writes benchmarks/RESULTS_BLAS_THREADS.md.
 
 from __future__ import annotations
 
-import argparse
 import json
 import os
 import subprocess
@@ -85,14 +84,12 @@ def warm(pattern: str, n: int, setting: str) -> dict[str, float]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p = engine.ab_parser(__doc__, "RESULTS_BLAS_THREADS.md", rounds=5)
     p.add_argument("--jobs", nargs="+", default=["column:32", "inclusions:128", "layered:128",
                                                    "column:128", "column:256", "inclusions:256"])
-    p.add_argument("--rounds", type=int, default=5)
-    p.add_argument("--results", type=Path, default=HERE / "RESULTS_BLAS_THREADS.md")
     args = p.parse_args(argv)
     lines, info = engine.report_head("blas_bench.py", argv, "BLAS on one thread")
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+    lines += [engine.description(__doc__), "",
               "*one* = the variables unset (the command sets 1), *cores* = set to "
               f"{len(os.sched_getaffinity(0))}; seconds, best of {args.rounds}.", "",
               "| job | cells | whole s cores | whole s one | one / cores | own s cores | own s one | "

@@ -18,7 +18,6 @@ Writes benchmarks/RESULTS_FOLLOW.md.
 
 from __future__ import annotations
 
-import argparse
 import statistics
 import sys
 import tempfile
@@ -45,13 +44,11 @@ sys.exit(main())
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p = engine.ab_parser(__doc__, "RESULTS_FOLLOW.md", rounds=4)
     p.add_argument("--sizes", nargs="+", type=int, default=[128, 256])
-    p.add_argument("--rounds", type=int, default=4)
-    p.add_argument("--results", type=Path, default=HERE / "RESULTS_FOLLOW.md")
     args = p.parse_args(argv)
     lines, info = engine.report_head("follow_bench.py", argv, "A handed job's end: rung or polled")
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+    lines += [engine.description(__doc__), "",
               "Seconds, median of the rounds (all rounds in order in the last column).", "",
               "| cells | follower | run wall s | job s in the slot | outside the job s | "
               "outside, bell - polling | outside the job, every round |", "|" + "---|" * 7]

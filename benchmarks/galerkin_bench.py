@@ -186,7 +186,7 @@ def main(argv: list[str] | None = None) -> int:
 
     lines, info = engine.report_head("galerkin_bench.py", argv,
                                      "The Galerkin product through row buffers")
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+    lines += [engine.description(__doc__), "",
               "*kept* = `multigrid.galerkin_scaled` as committed, *rows* = the prototype in "
               "this script; *WU* = wall seconds over one two-thread float64 operator "
               "application of the job's grid (*apply*).", "",

@@ -22,7 +22,6 @@ benchmarks/RESULTS_HEAP.md.
 
 from __future__ import annotations
 
-import argparse
 import statistics
 import subprocess
 import sys
@@ -89,14 +88,12 @@ def batch(side: str, n: int, count: int) -> tuple[list[float], float]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p = engine.ab_parser(__doc__, "RESULTS_HEAP.md", rounds=2)
     p.add_argument("--jobs", nargs="+", default=["column:256", "column:128"])
     p.add_argument("--batch", type=int, default=4)
-    p.add_argument("--rounds", type=int, default=2)
-    p.add_argument("--results", type=Path, default=HERE / "RESULTS_HEAP.md")
     args = p.parse_args(argv)
     lines, info = engine.report_head("heap_bench.py", argv, "A sweep in a worker's slot: freed memory kept or not")
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+    lines += [engine.description(__doc__), "",
               "Seconds: each job's own time (job file read to result written) in the slot; "
               "*later jobs* = the batch's jobs after its first, median over the rounds.", "",
               "| job | cells | slot | rounds: job seconds in order | first job, median | later jobs, median | "

@@ -22,7 +22,6 @@ benchmarks/RESULTS_HUGEPAGES.md.
 
 from __future__ import annotations
 
-import argparse
 import os
 import re
 import statistics
@@ -73,18 +72,16 @@ def resident_run(job: Path, huge: bool) -> float:
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p = engine.ab_parser(__doc__, "RESULTS_HUGEPAGES.md", rounds=5)
     p.add_argument("--jobs", nargs="+", default=["column:128", "inclusions:128", "column:256",
                                                   "layered:256"])
-    p.add_argument("--rounds", type=int, default=5)
     p.add_argument("--resident", action="store_true")
-    p.add_argument("--results", type=Path, default=HERE / "RESULTS_HUGEPAGES.md")
     args = p.parse_args(argv)
     lines, info = engine.report_head("hugepage_bench.py", argv,
                                      "Whole runs with numpy's transparent huge pages on and off")
     setting = {name: Path(f"/sys/kernel/mm/transparent_hugepage/{name}").read_text().strip()
                for name in ("enabled", "defrag")}
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0], "",
+    lines += [engine.description(__doc__), "",
               f"This host: enabled = `{setting['enabled']}`, defrag = `{setting['defrag']}`. "
               "Seconds; *median* and *best* of the rounds; parts are medians.", "",
               "| job | cells | huge pages | job s median | job s best | assembly | setup | solve | "

@@ -163,6 +163,25 @@ def report_head(script: str, argv: list[str] | None, title: str) -> tuple[list[s
             "from that run. Do not edit by hand: run the command again.", ""], info
 
 
+def ab_parser(doc: str, results: str, rounds: int) -> argparse.ArgumentParser:
+    """The command line of an A/B script documented by ``doc``: ``--rounds`` (default
+    ``rounds``) and ``--results`` (default benchmarks/``results``); the script adds its own."""
+    p = argparse.ArgumentParser(description=doc.splitlines()[0])
+    p.add_argument("--rounds", type=int, default=rounds)
+    p.add_argument("--results", type=Path, default=HERE / results)
+    return p
+
+
+def description(doc: str) -> str:
+    """A benchmark script's docstring without its title, its usage and its closing "Writes ..."
+    sentence: the text its result file opens with."""
+    import re
+
+    body = doc.split("\n\n", 2)[2]
+    ends = [m.start() for m in re.finditer(r"Writes\s+benchmarks/", body)]
+    return (body[:ends[-1]] if ends else body).rstrip()
+
+
 def write_report(path: Path, lines: list[str], info: dict[str, str]) -> None:
     """Write a result file: ``lines``, then the machine's table ``info`` (:func:`machine`)."""
     lines = lines + ["", "## Machine", "", "| | |", "|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]

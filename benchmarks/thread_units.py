@@ -80,7 +80,7 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--results", type=Path, default=HERE / "RESULTS_THREAD_UNITS.md")
     args = p.parse_args(argv)
     lines, info = engine.report_head("thread_units.py", argv, "Work units on one thread against two")
-    lines += [__doc__.split("\n\n", 2)[2].split("\n\nWrites")[0].replace("\n", " "), "",
+    lines += [engine.description(__doc__).replace("\n", " "), "",
               "*solve* = warm set-up + solve (s), *apply* = one operator application (ms), *WU* = "
               "solve / apply; the best of the rounds for each thread count. *solve 1 / 2* and "
               "*apply 1 / 2* = how much faster two threads are than one.", "",
