@@ -18,6 +18,7 @@ import pytest
 import zarr
 
 from sevenfold.cli import main
+from sevenfold.memory import KEEP_FREED_MEMORY
 from sevenfold.queue import child, files
 from sevenfold.queue.commands import PUBLIC_FIELDS, public
 from sevenfold.queue.db import Queue
@@ -430,7 +431,7 @@ def test_the_warm_up_lock_is_taken_in_the_cache_and_skipped_where_there_is_none(
     assert "warm-up without a lock: cannot cache function" in capsys.readouterr().err
 
 
-def test_a_slots_process_runs_numba_and_numexpr_on_its_share_and_blas_on_one() -> None:
+def test_a_slots_process_runs_numba_and_numexpr_on_its_share_and_blas_on_one(no_malloc_settings) -> None:
     """The environment a slot's child starts with (queue.worker.slot_environment), asked of a
     fresh interpreter: numexpr followed OMP_NUM_THREADS = 1 before it was given its own."""
     import json
@@ -450,7 +451,15 @@ def test_a_slots_process_runs_numba_and_numexpr_on_its_share_and_blas_on_one() -
     assert env["MALLOC_MMAP_MAX_"] == "0"  # freed memory kept for the next job (memory.KEEP_FREED_MEMORY)
 
 
-def test_a_user_s_malloc_settings_win_over_the_slot_s(monkeypatch) -> None:
+@pytest.fixture
+def no_malloc_settings(monkeypatch) -> None:
+    """This process's environment without malloc variables (dask's nanny, started in-process
+    by the cluster tests, sets MALLOC_TRIM_THRESHOLD_ in os.environ)."""
+    for name in KEEP_FREED_MEMORY:
+        monkeypatch.delenv(name, raising=False)
+
+
+def test_a_user_s_malloc_settings_win_over_the_slot_s(monkeypatch, no_malloc_settings) -> None:
     from sevenfold.queue.worker import slot_environment
 
     monkeypatch.setenv("MALLOC_MMAP_MAX_", "65536")
@@ -475,7 +484,7 @@ print(json.dumps([before, freed, held, rss()]))
 
 
 @pytest.mark.skipif(not Path("/proc/self/status").exists(), reason="reads VmRSS from Linux's /proc")
-def test_a_slot_keeps_the_memory_its_job_freed_until_it_gives_it_back() -> None:
+def test_a_slot_keeps_the_memory_its_job_freed_until_it_gives_it_back(no_malloc_settings) -> None:
     """In a slot's environment a freed 256 MiB array stays resident and held by malloc
     (glibc's mallinfo2) until release_freed_memory (malloc_trim); with glibc's own defaults it
     is unmapped at once: the setting is what keeps it."""
