@@ -254,9 +254,9 @@ def _send(channel: TextIO, message: dict[str, Any]) -> None:
 
 
 def requests(fd: int, idle: float, on_idle: Callable[[], None]) -> Iterator[dict[str, Any]]:
-    """The JSON requests arriving on ``fd``, one per line, until it closes; ``on_idle`` is
-    called once whenever ``idle`` s pass without one (counted from the start and from each
-    request's hand-back, i.e. the next ``next()``)."""
+    """The JSON requests arriving on ``fd``, one per line, until it closes. While waiting for
+    the next one (from the start, and from when the caller asks for it after a job), call
+    ``on_idle`` once if ``idle`` s pass first."""
     buffer = b""
     while True:
         waiting = True  # on_idle not yet called for this wait
