@@ -506,6 +506,38 @@ def test_a_slot_keeps_the_memory_its_job_freed_until_it_gives_it_back(no_malloc_
     assert freed - before < 50 * mib and held < 50 * mib
 
 
+_BEFORE_JOBS = """
+import json, numpy as np
+from pathlib import Path
+from sevenfold.queue.child import hold_at_most
+def rss():
+    line = [l for l in Path("/proc/self/status").read_text().splitlines() if l.startswith("VmRSS:")][0]
+    return int(line.split()[1]) * 1024
+a = np.ones(256 << 17)  # 256 MiB, touched, then freed: held
+del a
+held = rss()
+hold_at_most(1 << 30)  # a job admitted for 1 GiB: keep it
+larger = rss()
+hold_at_most(64 << 20)  # a job admitted for 64 MiB: give it back
+print(json.dumps([held, larger, rss()]))
+"""
+
+
+@pytest.mark.skipif(not Path("/proc/self/status").exists(), reason="reads VmRSS from Linux's /proc")
+def test_a_slot_gives_back_what_a_smaller_job_is_not_admitted_for(no_malloc_settings) -> None:
+    """child.hold_at_most, called before each job: the freed 256 MiB stay for a job admitted
+    for 1 GiB and go before one admitted for 64 MiB."""
+    from sevenfold.queue.worker import slot_environment
+
+    proc = subprocess.run([sys.executable, "-c", _BEFORE_JOBS], env=slot_environment(1),
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    held, larger, smaller = json.loads(proc.stdout.strip().splitlines()[-1])
+    mib = 1 << 20
+    assert abs(larger - held) < 20 * mib
+    assert held - smaller > 200 * mib
+
+
 def test_a_slot_reads_requests_and_says_when_it_has_waited_long_enough() -> None:
     """child.requests: one JSON request a line, blank lines skipped, lines split across
     writes joined; on_idle once per wait longer than ``idle`` (not again while still

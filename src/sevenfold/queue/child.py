@@ -275,6 +275,16 @@ def requests(fd: int, idle: float, on_idle: Callable[[], None]) -> Iterator[dict
             yield json.loads(line)
 
 
+def hold_at_most(estimate: int) -> None:
+    """Before a job admitted for ``estimate`` bytes: give back the memory malloc holds free
+    when that is more (a smaller job after a larger one), so the slot holds about what the
+    worker's memory admission counts for it."""
+    from ..memory import held_free_bytes, release_freed_memory
+
+    if held_free_bytes() > estimate:
+        release_freed_memory()
+
+
 def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(prog="python -m sevenfold.queue.child")
     p.add_argument("--home", required=True)
@@ -296,11 +306,10 @@ def main(argv: list[str] | None = None) -> int:
         _send(channel, {"fatal": f"warm-up failed: {type(exc).__name__}: {exc}"})
         return 1
     _send(channel, {"ready": os.getpid(), "warm_seconds": seconds})
-    from ..memory import held_free_bytes, release_freed_memory
+    from ..memory import release_freed_memory
 
     for request in requests(sys.stdin.fileno(), IDLE_RELEASE, release_freed_memory):
-        if held_free_bytes() > request.get("memory_bytes", 0):
-            release_freed_memory()  # a smaller job: hold no more than it is admitted for
+        hold_at_most(request.get("memory_bytes", 0))
         reply = execute(request, home, state)
         state.interrupted = False
         _send(channel, {"job": request["job"], "run": request["run"], **reply})
