@@ -363,3 +363,76 @@ def test_the_warm_up_plan_holds_every_signature_the_run_compiles(tmp_path: Path,
     assert proc.returncode == 0, proc.stderr
     info = json.loads(proc.stdout.strip().splitlines()[-1])
     assert info == {"precision": precision, "added": []}
+
+
+LOAD = """
+import json, sys
+import numpy as np
+{patch}
+from sevenfold.kernels.vector import dot, dot_serial
+x = np.arange(200_000.0)
+values = [dot_serial(x[:5], x[:5]), dot(x, x)]
+import numba
+print(json.dumps({{"values": values, "threads": numba.get_num_threads(), "layer": numba.threading_layer(),
+                  "hits": sum(sum(k._cache_hits.values()) for k in (dot, dot_serial)),
+                  "compiler": "numba.np.linalg" in sys.modules}}))
+"""
+# numba's runtime start fails once, as if numba's internals had moved: the lean load gives way
+FAILING_RUNTIME = """
+from numba.core.runtime import rtsys
+real, calls = rtsys.initialize, []
+def initialize(ctx):
+    calls.append(ctx)
+    if len(calls) == 1:
+        raise RuntimeError("moved")
+    return real(ctx)
+rtsys.initialize = initialize
+"""
+
+
+def _load(cache: Path, patch: str = "") -> dict:
+    proc = subprocess.run([sys.executable, "-c", LOAD.format(patch=patch)], capture_output=True, text=True,
+                          env={**os.environ, "NUMBA_CACHE_DIR": str(cache)}, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    return json.loads(proc.stdout.splitlines()[-1])
+
+
+def test_cached_kernels_load_without_numbas_compiler_registries(tmp_path: Path) -> None:
+    """kernels/jit.py: a kernel found in the cache, serial or threaded, loads without the
+    registries numba's compiler refreshes (numba.np.linalg stands for them), and computes
+    what it computed when it was compiled. Expected sums: 0+1+4+9+16 and sum of i^2 for
+    i < 200,000 = (n-1) n (2n-1) / 6 (from memory)."""
+    n = 200_000
+    expected = [30.0, (n - 1) * n * (2 * n - 1) / 6]
+    compiled = _load(tmp_path)
+    assert compiled["hits"] == 0 and compiled["compiler"]  # compiling loads the registries
+    loaded = _load(tmp_path)
+    assert loaded["hits"] == 2
+    assert not loaded["compiler"]
+    assert loaded["values"] == compiled["values"]
+    assert loaded["values"] == pytest.approx(expected, rel=1e-12)
+    assert loaded["threads"] == compiled["threads"] and loaded["layer"] == compiled["layer"]
+
+
+def test_a_lean_load_that_fails_gives_way_to_numbas_own(tmp_path: Path) -> None:
+    _load(tmp_path)
+    loaded = _load(tmp_path, FAILING_RUNTIME)
+    assert loaded["hits"] == 2  # still from the cache, not compiled again
+    assert loaded["compiler"]  # numba's own load refreshed the context
+    assert loaded["values"][0] == 30.0
+
+
+def test_every_cached_kernel_loads_through_the_lean_cache() -> None:
+    """A kernel decorated with numba's own njit would load the slow way; none is."""
+    import importlib
+
+    from numba.core.dispatcher import Dispatcher
+
+    from sevenfold.kernels.jit import KernelCache
+
+    kernels = [k for name in ("assembly", "multigrid", "stencil", "vector")
+               for k in vars(importlib.import_module(f"sevenfold.kernels.{name}")).values()
+               if isinstance(k, Dispatcher)]
+    assert len(kernels) >= 40
+    assert all(isinstance(k._cache, KernelCache) for k in kernels), [
+        k.py_func.__name__ for k in kernels if not isinstance(k._cache, KernelCache)]

@@ -8,7 +8,9 @@ cell's row or -1 when it is held. Column indices of each row come out sorted.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit, prange
+from numba import prange
+
+from .jit import njit
 
 
 @njit(cache=True, parallel=True)

@@ -9,8 +9,9 @@ preconditioner's levels may be float32 while the caller's operator stays float64
 from __future__ import annotations
 
 import numpy as np
-from numba import njit, prange
+from numba import prange
 
+from .jit import njit
 from .stencil import starts
 
 

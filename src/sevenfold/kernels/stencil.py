@@ -16,7 +16,9 @@ matrix (``kernels.assembly``), the balance and the derived fluxes all start from
 from __future__ import annotations
 
 import numpy as np
-from numba import njit, prange
+from numba import prange
+
+from .jit import njit
 
 # The operator walks slabs of x planes in bands of y rows when a plane is large: the three
 # planes of u a row needs (i - 1, i, i + 1) then stay in cache from one plane to the next,

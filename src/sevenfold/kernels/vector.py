@@ -10,7 +10,9 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
-from numba import njit, prange
+from numba import prange
+
+from .jit import njit
 
 PARALLEL_FROM = 100_000
 # Sums may be reordered (reassociated) so that reductions vectorise: a dot product then runs
