@@ -436,3 +436,20 @@ def test_every_cached_kernel_loads_through_the_lean_cache() -> None:
     assert len(kernels) >= 40
     assert all(isinstance(k._cache, KernelCache) for k in kernels), [
         k.py_func.__name__ for k in kernels if not isinstance(k._cache, KernelCache)]
+
+
+def test_the_console_command_freezes_the_collector_before_it_exits(monkeypatch) -> None:
+    """cli.program: the command's exit code, with every object frozen out of the collector so
+    that the interpreter's shutdown does not walk them; the installed `sevenfold` runs it."""
+    from importlib.metadata import entry_points
+
+    from sevenfold import cli
+
+    frozen: list[bool] = []
+    monkeypatch.setattr(cli, "main", lambda: 2)
+    monkeypatch.setattr(cli.gc, "freeze", lambda: frozen.append(True))
+    with pytest.raises(SystemExit) as exit_:
+        cli.program()
+    assert exit_.value.code == 2 and frozen == [True]
+    (command,) = [e for e in entry_points(group="console_scripts") if e.name == "sevenfold"]
+    assert command.value == "sevenfold.cli:program"
