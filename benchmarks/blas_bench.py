@@ -89,12 +89,11 @@ def main(argv: list[str] | None = None) -> int:
                                                    "column:128", "column:256", "inclusions:256"])
     args = p.parse_args(argv)
     lines, info = engine.report_head("blas_bench.py", argv, "BLAS on one thread")
-    lines += [engine.description(__doc__), "",
-              "*one* = the variables unset (the command sets 1), *cores* = set to "
-              f"{len(os.sched_getaffinity(0))}; seconds, best of {args.rounds}.", "",
-              "| job | cells | whole s cores | whole s one | one / cores | own s cores | own s one | "
-              "one / cores | warm solve s cores | warm solve s one | one / cores | iterations | "
-              "WU cores | WU one |", "|" + "---|" * 14]
+    lines += engine.opening(
+        __doc__, "*one* = the variables unset (the command sets 1), *cores* = set to "
+        f"{len(os.sched_getaffinity(0))}; seconds, best of {args.rounds}.",
+        ["job", "cells", "whole s cores", "whole s one", "one / cores", "own s cores", "own s one", "one / cores",
+         "warm solve s cores", "warm solve s one", "one / cores", "iterations", "WU cores", "WU one"])
     with tempfile.TemporaryDirectory() as tmp:
         for item in args.jobs:
             pattern, n = item.split(":")

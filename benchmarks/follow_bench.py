@@ -48,10 +48,10 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--sizes", nargs="+", type=int, default=[128, 256])
     args = p.parse_args(argv)
     lines, info = engine.report_head("follow_bench.py", argv, "A handed job's end: rung or polled")
-    lines += [engine.description(__doc__), "",
-              "Seconds, median of the rounds (all rounds in order in the last column).", "",
-              "| cells | follower | run wall s | job s in the slot | outside the job s | "
-              "outside, bell - polling | outside the job, every round |", "|" + "---|" * 7]
+    lines += engine.opening(
+        __doc__, "Seconds, median of the rounds (all rounds in order in the last column).",
+        ["cells", "follower", "run wall s", "job s in the slot", "outside the job s", "outside, bell - polling",
+         "outside the job, every round"])
     commands = {"bell": None, "polling": [sys.executable, "-c", POLLING]}
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)

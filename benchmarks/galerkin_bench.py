@@ -186,12 +186,11 @@ def main(argv: list[str] | None = None) -> int:
 
     lines, info = engine.report_head("galerkin_bench.py", argv,
                                      "The Galerkin product through row buffers")
-    lines += [engine.description(__doc__), "",
-              "*kept* = `multigrid.galerkin_scaled` as committed, *rows* = the prototype in "
-              "this script; *WU* = wall seconds over one two-thread float64 operator "
-              "application of the job's grid (*apply*).", "",
-              "| job | cells | step | apply ms | kept WU | rows WU | rows / kept | largest "
-              "difference | free cells equal |", "|" + "---|" * 9]
+    lines += engine.opening(
+        __doc__, "*kept* = `multigrid.galerkin_scaled` as committed, *rows* = the prototype in this script; "
+        "*WU* = wall seconds over one two-thread float64 operator application of the job's grid (*apply*).",
+        ["job", "cells", "step", "apply ms", "kept WU", "rows WU", "rows / kept", "largest difference",
+         "free cells equal"])
     for n in args.sizes:
         for case in args.cases:
             r = compare(n, case, args.repeats)

@@ -93,11 +93,11 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--batch", type=int, default=4)
     args = p.parse_args(argv)
     lines, info = engine.report_head("heap_bench.py", argv, "A sweep in a worker's slot: freed memory kept or not")
-    lines += [engine.description(__doc__), "",
-              "Seconds: each job's own time (job file read to result written) in the slot; "
-              "*later jobs* = the batch's jobs after its first, median over the rounds.", "",
-              "| job | cells | slot | rounds: job seconds in order | first job, median | later jobs, median | "
-              "later, keep / default | slot MiB idle after |", "|" + "---|" * 8]
+    lines += engine.opening(
+        __doc__, "Seconds: each job's own time (job file read to result written) in the slot; "
+        "*later jobs* = the batch's jobs after its first, median over the rounds.",
+        ["job", "cells", "slot", "rounds: job seconds in order", "first job, median", "later jobs, median",
+         "later, keep / default", "slot MiB idle after"])
     for spec in args.jobs:
         pattern, n = spec.split(":")
         if pattern != "column":

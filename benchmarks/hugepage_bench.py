@@ -81,12 +81,11 @@ def main(argv: list[str] | None = None) -> int:
                                      "Whole runs with numpy's transparent huge pages on and off")
     setting = {name: Path(f"/sys/kernel/mm/transparent_hugepage/{name}").read_text().strip()
                for name in ("enabled", "defrag")}
-    lines += [engine.description(__doc__), "",
-              f"This host: enabled = `{setting['enabled']}`, defrag = `{setting['defrag']}`. "
-              "Seconds; *median* and *best* of the rounds; parts are medians.", "",
-              "| job | cells | huge pages | job s median | job s best | assembly | setup | solve | "
-              "write | wall s median | job median, off / on | resident job s median | "
-              "resident, off / on |", "|" + "---|" * 13]
+    lines += engine.opening(
+        __doc__, f"This host: enabled = `{setting['enabled']}`, defrag = `{setting['defrag']}`. "
+        "Seconds; *median* and *best* of the rounds; parts are medians.",
+        ["job", "cells", "huge pages", "job s median", "job s best", "assembly", "setup", "solve", "write",
+         "wall s median", "job median, off / on", "resident job s median", "resident, off / on"])
     with tempfile.TemporaryDirectory() as tmp:
         for spec in args.jobs:
             pattern, n = spec.split(":")

@@ -66,11 +66,10 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--sizes", nargs="+", type=int, default=[32, 128, 256])
     args = p.parse_args(argv)
     lines, info = engine.report_head("load_bench.py", argv, "A fresh process: loading cached kernels and exiting")
-    lines += [engine.description(__doc__), "",
-              "Seconds, median of the rounds (every round in order in the last column); ratio = shipped / "
-              "the side.", "",
-              "| cells | side | whole s | job s | whole min s | shipped / side, whole | shipped / side, job | "
-              "whole s, every round |", "|" + "---|" * 8]
+    lines += engine.opening(
+        __doc__, "Seconds, median of the rounds (every round in order in the last column); ratio = shipped / the side.",
+        ["cells", "side", "whole s", "job s", "whole min s", "shipped / side, whole", "shipped / side, job",
+         "whole s, every round"])
     order = list(SIDES)
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)

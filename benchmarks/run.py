@@ -182,6 +182,12 @@ def description(doc: str) -> str:
     return (body[:ends[-1]] if ends else body).rstrip()
 
 
+def opening(doc: str, reading: str, columns: list[str]) -> list[str]:
+    """A result file's text before its table: the script's :func:`description`, how to read
+    the table, and the table's head (one separator per column)."""
+    return [description(doc), "", reading, "", "| " + " | ".join(columns) + " |", "|" + "---|" * len(columns)]
+
+
 def write_report(path: Path, lines: list[str], info: dict[str, str]) -> None:
     """Write a result file: ``lines``, then the machine's table ``info`` (:func:`machine`)."""
     lines = lines + ["", "## Machine", "", "| | |", "|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
