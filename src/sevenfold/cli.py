@@ -429,8 +429,8 @@ def program() -> NoReturn:
     """The ``sevenfold`` console command: :func:`main`, then exit with its code. What the
     command allocated is frozen out of the garbage collector first: the interpreter's shutdown
     would otherwise walk every object that numba, pydantic, scipy and zarr keep, several
-    times over (0.19-0.22 s of a 128^3 run's whole process, benchmarks/RESULTS_LOAD.md), only
-    to free memory the ending process gives back anyway."""
+    times over (0.18-0.22 s of a whole 32^3 or 128^3 run, benchmarks/RESULTS_LOAD.md), only to
+    free memory the ending process gives back anyway."""
     code = main()
     gc.freeze()
     sys.exit(code)
