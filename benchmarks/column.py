@@ -128,9 +128,7 @@ def run_sevenfold(folder: Path, job: Path, result: Path) -> Run:
     before = cached_kernels()
     r = engine.run_process(engine.sevenfold_command() + ["run", "--no-progress", str(job)], folder)
     compiled = sorted(cached_kernels() - before)
-    own = speed.sevenfold_job_seconds(r.stdout)
-    if not np.isfinite(own):
-        raise RuntimeError(f"no 'job X s' in the summary of `sevenfold run {job}`:\n{r.stdout}")
+    own = speed.required_job_seconds(r.stdout, f"`sevenfold run {job}`")
     attrs = dict(zarr.open_group(str(result), mode="r").attrs)
     if not attrs.get("converged"):
         raise RuntimeError(f"`sevenfold run {job}` did not converge:\n{r.stdout}")
@@ -207,7 +205,7 @@ def run_size(folder: Path, n: int, runs: int, worker: Worker | None = None) -> S
     job, result, npy = folder / f"column-{n}.toml", folder / f"column-{n}.zarr", folder / f"baseline-{n}.npy"
     job.write_text(job_text(n, result))
     for i in range(runs):
-        for side in ("baseline", "sevenfold") if i % 2 == 0 else ("sevenfold", "baseline"):
+        for side in engine.rotation(["baseline", "sevenfold"], i):
             if side == "baseline":
                 size.baseline.append(run_baseline(folder, n, npy))
             else:

@@ -55,10 +55,7 @@ SIDES = {"shipped": COMMAND.format(change=""),
 def one_run(folder: Path, side: str, job: Path) -> tuple[float, float]:
     """Wall and job seconds of one ``sevenfold run`` process of ``side``."""
     r = engine.run_process([sys.executable, "-c", SIDES[side], "run", "--here", "--no-progress", str(job)], folder)
-    own = speed.sevenfold_job_seconds(r.stdout)
-    if own != own:  # nan: no summary line
-        raise RuntimeError(f"no 'job X s' in the output of {side}:\n{r.stdout}")
-    return r.wall, own
+    return r.wall, speed.required_job_seconds(r.stdout, side)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -70,7 +67,6 @@ def main(argv: list[str] | None = None) -> int:
         __doc__, "Seconds, median of the rounds (every round in order in the last column); ratio = shipped / the side.",
         ["cells", "side", "whole s", "job s", "whole min s", "shipped / side, whole", "shipped / side, job",
          "whole s, every round"])
-    order = list(SIDES)
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         for n in args.sizes:
@@ -79,7 +75,7 @@ def main(argv: list[str] | None = None) -> int:
             one_run(folder, "shipped", job)  # untimed: fills the cache at this size's signatures
             runs: dict[str, list[tuple[float, float]]] = {side: [] for side in SIDES}
             for i in range(args.rounds):
-                for side in order[i % len(order):] + order[:i % len(order)]:
+                for side in engine.rotation(list(SIDES), i):
                     runs[side].append(one_run(folder, side, job))
                     print(n, side, " ".join(f"{x:.2f}" for x in runs[side][-1]), flush=True)
             whole = {side: statistics.median(w for w, _ in r) for side, r in runs.items()}

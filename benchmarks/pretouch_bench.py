@@ -55,7 +55,13 @@ cli.program()
 INTERPRETER = 250 << 20  # bytes of a run's peak RSS that are not its arrays (imports, libraries)
 
 
-def one_run(folder: Path, side: str, job: Path, touch: int) -> engine.ProcessRun:
+def one_run(folder: Path, side: str, job: Path, touch: int) -> tuple[engine.ProcessRun, float]:
+    """One ``sevenfold run`` process of ``side`` and its job seconds."""
+    r = _process(folder, side, job, touch)
+    return r, speed.required_job_seconds(r.stdout, side)
+
+
+def _process(folder: Path, side: str, job: Path, touch: int) -> engine.ProcessRun:
     import os
 
     from sevenfold.memory import KEEP_FREED_MEMORY
@@ -86,23 +92,22 @@ def main(argv: list[str] | None = None) -> int:
             job = folder / f"{pattern}-{n}.toml"
             out = str(folder / f"{pattern}-{n}.zarr")
             job.write_text(column.job_text(n, Path(out)) if pattern == "column" else speed.job_text(n, pattern, out))
-            first = one_run(folder, "shipped", job, 0)  # untimed: the kernels' cache, the peak
+            first, _ = one_run(folder, "shipped", job, 0)  # untimed: the kernels' cache, the peak
             touch = max(first.peak_rss - INTERPRETER, 0)
-            runs: dict[str, list[engine.ProcessRun]] = {s: [] for s in sides}
+            runs: dict[str, list[tuple[engine.ProcessRun, float]]] = {s: [] for s in sides}
             for i in range(args.rounds):
-                for side in (sides if i % 2 == 0 else sides[::-1]):
+                for side in engine.rotation(sides, i):
                     runs[side].append(one_run(folder, side, job, touch))
-                    r = runs[side][-1]
-                    print(spec, side, f"{r.wall:.2f} {speed.sevenfold_job_seconds(r.stdout):.2f} "
-                          f"{r.peak_rss / 2**20:.0f}", flush=True)
-            whole = {s: statistics.median(r.wall for r in runs[s]) for s in sides}
-            own = {s: statistics.median(speed.sevenfold_job_seconds(r.stdout) for r in runs[s]) for s in sides}
+                    r, job_s = runs[side][-1]
+                    print(spec, side, f"{r.wall:.2f} {job_s:.2f} {r.peak_rss / 2**20:.0f}", flush=True)
+            whole = {s: statistics.median(r.wall for r, _ in runs[s]) for s in sides}
+            own = {s: statistics.median(job_s for _, job_s in runs[s]) for s in sides}
             for s in sides:
-                peak = statistics.median(r.peak_rss for r in runs[s]) / 2**20
+                peak = statistics.median(r.peak_rss for r, _ in runs[s]) / 2**20
                 ratio = f"{whole[s] / whole['shipped']:.2f}" if s != "shipped" else ""
                 lines.append(f"| {pattern} | {n}^3 | {s} | {touch / 2**20 if s != 'shipped' else 0:.0f} | "
                              f"{whole[s]:.2f} | {own[s]:.2f} | {peak:.0f} | {ratio} | "
-                             + " ".join(f"{r.wall:.2f}" for r in runs[s]) + " |")
+                             + " ".join(f"{r.wall:.2f}" for r, _ in runs[s]) + " |")
     engine.write_report(args.results, lines, info)
     return 0
 

@@ -188,6 +188,13 @@ def opening(doc: str, reading: str, columns: list[str]) -> list[str]:
     return [description(doc), "", reading, "", "| " + " | ".join(columns) + " |", "|" + "---|" * len(columns)]
 
 
+def rotation(sides: list[str], i: int) -> list[str]:
+    """The order of ``sides`` in an A/B script's round ``i``: each side goes first in turn (on a
+    shared host, the process right after another's exit can meet slow first touches)."""
+    k = i % len(sides)
+    return sides[k:] + sides[:k]
+
+
 def write_report(path: Path, lines: list[str], info: dict[str, str]) -> None:
     """Write a result file: ``lines``, then the machine's table ``info`` (:func:`machine`)."""
     lines = lines + ["", "## Machine", "", "| | |", "|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
@@ -399,8 +406,7 @@ def run_size(folder: Path, n: int, runs: int) -> SizeResult:
     npy_path = folder / f"baseline-{n}.npy"
     best_s = best_b = float("inf")
     for i in range(runs):
-        order = ("baseline", "sevenfold") if i % 2 == 0 else ("sevenfold", "baseline")
-        for side in order:
+        for side in rotation(["baseline", "sevenfold"], i):
             if side == "baseline":
                 r = run_process([sys.executable, str(HERE / "baseline.py"), "--cells", str(n),
                                  "--out", str(npy_path)], folder, GIVEN_ENVIRONMENT)

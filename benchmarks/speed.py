@@ -189,6 +189,15 @@ def sevenfold_job_seconds(stdout: str) -> float:
     return float(m.group(1)) if m else float("nan")
 
 
+def required_job_seconds(stdout: str, command: str) -> float:
+    """:func:`sevenfold_job_seconds`, or an error naming ``command`` when its output has no
+    summary line (a run that failed quietly must not enter a table as nan)."""
+    own = sevenfold_job_seconds(stdout)
+    if own != own:
+        raise RuntimeError(f"no 'job X s' in the summary of {command}:\n{stdout}")
+    return own
+
+
 def run_case(folder: Path, pattern: str, n: int, with_baseline: bool, repeats: int,
              lean: bool = False, worker: Worker | None = None) -> Case:
     """One pattern and size: baseline process, sevenfold process, the job handed to ``worker``
