@@ -1,5 +1,6 @@
 """The coarsest level's direct solve (solvers/coarsest.py) against scipy's sparse solver on
-the level's own matrix (Level.to_csr)."""
+the level's own matrix (Level.to_csr), and its banded Cholesky kernels (kernels/band.py)
+against LAPACK's (pbtrf and pbtrs through scipy.linalg) and numpy's dense factor."""
 
 from __future__ import annotations
 
@@ -8,6 +9,7 @@ import pytest
 import scipy.sparse.linalg as sla
 
 import sevenfold.solvers.coarsest as coarsest
+from sevenfold.kernels.band import band_cholesky, band_cholesky_solve
 from sevenfold.solvers.coarsest import CoarsestSolver
 from sevenfold.solvers.levels import Level
 
@@ -42,12 +44,14 @@ def test_band_storage_is_the_levels_matrix(shape) -> None:
     perm = np.arange(n).reshape(shape).transpose(order).ravel()
     expected = dense[np.ix_(perm, perm)]
     rebuilt = np.zeros((n, n))
-    for d in range(band.shape[0]):
+    for d in range(band.shape[1]):
         j = np.arange(n - d)
-        rebuilt[j + d, j] = band[d, : n - d]
-        rebuilt[j, j + d] = band[d, : n - d]
+        rebuilt[j + d, j] = band[: n - d, d]
+        rebuilt[j, j + d] = band[: n - d, d]
     assert np.array_equal(rebuilt, expected)
-    assert band.shape[0] - 1 == sorted(shape)[0] * sorted(shape)[1]  # the two shorter sides
+    j, d = np.indices(band.shape)
+    assert not band[j + d >= n].any()  # nothing beyond the matrix's last row
+    assert band.shape[1] - 1 == sorted(shape)[0] * sorted(shape)[1]  # the two shorter sides
 
 
 @pytest.mark.parametrize("shape", [(16, 16, 16), (8, 8, 32), (12, 1, 7), (1, 1, 1)])
@@ -83,3 +87,85 @@ def test_a_wide_band_or_an_indefinite_matrix_takes_the_sparse_lu(monkeypatch) ->
     assert solver.kind == "lu"
     solver.solve(b, u)
     assert np.abs(u - scipy_solution(indefinite, b)).max() <= 1e-9 * np.abs(u).max()
+
+
+@pytest.mark.parametrize("shape", [(16, 16, 16), (8, 8, 32), (12, 1, 7), (1, 1, 1)])
+def test_band_kernels_match_lapack_and_numpy(shape) -> None:
+    """The factor equals LAPACK's banded one (scipy.linalg.cholesky_banded, our layout
+    transposed) and numpy's dense one to rounding; the solve equals LAPACK's cho_solve_banded."""
+    from scipy.linalg import cho_solve_banded, cholesky_banded
+
+    level = random_level(shape, seed=5)
+    band, _ = level.to_band()
+    lapack = cholesky_banded(band.T.copy(), lower=True)
+    factor = band.copy()
+    assert band_cholesky(factor) == 0
+    j, d = np.indices(factor.shape)
+    inside = j + d < factor.shape[0]
+    scale = np.abs(lapack).max()
+    assert np.abs(factor[inside] - lapack.T[inside]).max() <= 1e-13 * scale
+    n = factor.shape[0]
+    dense = np.zeros((n, n))
+    dense[(j + d)[inside], j[inside]] = band[inside]
+    dense += np.tril(dense, -1).T
+    numpy_factor = np.linalg.cholesky(dense)
+    assert np.abs(numpy_factor[(j + d)[inside], j[inside]] - factor[inside]).max() <= 1e-13 * scale
+
+    b = np.random.default_rng(6).standard_normal(n)
+    x = b.copy()
+    band_cholesky_solve(factor, x)
+    reference = cho_solve_banded((lapack, True), b)
+    assert np.abs(x - reference).max() <= 1e-12 * np.abs(reference).max()
+    assert np.abs(dense @ x - b).max() <= 1e-10 * np.abs(b).max()
+
+
+def test_band_factor_reports_the_first_pivot_that_is_not_positive_like_lapack() -> None:
+    """LAPACK's info: i when the leading minor of order i is not positive definite."""
+    from scipy.linalg import LinAlgError, cholesky_banded
+
+    level = random_level((4, 4, 4), seed=7)
+    band, _ = level.to_band()
+    band[5, 0] = -1.0  # the sixth pivot is negative whatever came before
+    with pytest.raises(LinAlgError, match="6-th leading minor"):
+        cholesky_banded(band.T.copy(), lower=True)
+    assert band_cholesky(band.copy()) == 6
+    band[5, 0] = np.nan
+    assert band_cholesky(band.copy()) == 6
+
+
+def test_a_gmg_run_imports_no_scipy_linalg(tmp_path) -> None:
+    """The coarsest level's factor is our kernel: a gmg run in a fresh process whose kernels
+    are cached imports neither scipy.linalg (85-105 ms) nor scipy.sparse. (Compiling imports
+    scipy.linalg through numba's compiler, for its BLAS bindings: the first run fills the
+    cache.)"""
+    import json
+    import subprocess
+    import sys
+
+    job = tmp_path / "job.toml"
+    job.write_text("""
+name = "imports"
+[grid]
+cells = [24, 20, 16]
+size = [1.0, 1.0, 1.0]
+[material]
+value = "1 + 99 * (x > 0.5)"
+[source]
+value = 1.0
+[boundary]
+x_min = { type = "dirichlet", value = 0.0 }
+[solver]
+method = "gmg"
+[output]
+path = "imports.zarr"
+""")
+    probe = ("import json, sys\nfrom sevenfold.runner import run_job\n"
+             "result = run_job(sys.argv[1])\n"
+             "print(json.dumps([result.solve.converged, sorted(m for m in sys.modules if m.startswith('scipy.'))]))")
+    for _ in range(2):
+        proc = subprocess.run([sys.executable, "-c", probe, str(job)], capture_output=True,
+                              text=True, timeout=600, cwd=tmp_path)
+        assert proc.returncode == 0, proc.stderr
+    converged, modules = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert converged
+    assert not [m for m in modules if m.startswith(("scipy.linalg", "scipy.sparse"))], modules

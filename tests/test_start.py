@@ -332,7 +332,7 @@ def test_the_command_asks_numpy_for_small_pages_unless_told(command, given, huge
 PLAN_PROBE = """
 import json, sys
 from pathlib import Path
-from sevenfold.kernels import assembly, multigrid, stencil, vector, warmup
+from sevenfold.kernels import assembly, band, multigrid, stencil, vector, warmup
 from sevenfold.runner import gmg_precision, plan_job, prepare_problem, run_job
 job, out = Path(sys.argv[1]), Path(sys.argv[2])
 plan, problem = prepare_problem(plan_job(job, out))
@@ -340,7 +340,7 @@ precision = gmg_precision(problem)
 warmup.warm_up("gmg", problem.grid.cells, child=False, precision=precision)
 def counts():
     return {f"{m.__name__}.{n}": len(getattr(m, n).signatures)
-            for m in (assembly, multigrid, stencil, vector) for n in dir(m)
+            for m in (assembly, band, multigrid, stencil, vector) for n in dir(m)
             if hasattr(getattr(m, n), "signatures")}
 before = counts()
 run_job(job, out)
@@ -423,15 +423,18 @@ def test_a_lean_load_that_fails_gives_way_to_numbas_own(tmp_path: Path) -> None:
 
 
 def test_every_cached_kernel_loads_through_the_lean_cache() -> None:
-    """A kernel decorated with numba's own njit would load the slow way; none is."""
+    """A kernel decorated with numba's own njit would load the slow way; none is (every
+    module of the kernels package is looked at)."""
     import importlib
+    import pkgutil
 
     from numba.core.dispatcher import Dispatcher
 
+    import sevenfold.kernels
     from sevenfold.kernels.jit import KernelCache
 
-    kernels = [k for name in ("assembly", "multigrid", "stencil", "vector")
-               for k in vars(importlib.import_module(f"sevenfold.kernels.{name}")).values()
+    kernels = [k for module in pkgutil.iter_modules(sevenfold.kernels.__path__)
+               for k in vars(importlib.import_module(f"sevenfold.kernels.{module.name}")).values()
                if isinstance(k, Dispatcher)]
     assert len(kernels) >= 40
     assert all(isinstance(k._cache, KernelCache) for k in kernels), [

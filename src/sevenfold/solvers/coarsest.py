@@ -2,14 +2,14 @@
 
 The level's matrix (at most 16^3 cells by default) is symmetric positive definite: every
 coupling is a positive conductance and every level has a held cell, a fixed or convective
-face or a pin that anchors it. It is factored as a banded Cholesky factor (LAPACK's pbtrf and pbtrs
-through scipy.linalg), its cells numbered with the longest axis outermost so that the
-bandwidth is the product of the two shorter sides (256 at 16^3). Against scipy's sparse LU
-(SuperLU, minimum degree on A^T + A) the factor takes a third of the time (10-11 against 30
-ms at 16^3) and each solve about 1.3 times as long (the band holds 1.05 million entries, the
-LU 0.61 million; 8 x 8 x 32 solves faster); warm 128^3 gmg solves took 0.89-0.98 times as
-long, 256^3 ones 0.95-1.01 (benchmarks/RESULTS_COARSEST_BAND.md). A gmg run imports no
-scipy.sparse.
+face or a pin that anchors it. It is factored as a banded Cholesky factor (``kernels.band``),
+its cells numbered with the longest axis outermost so that the bandwidth is the product of the
+two shorter sides (256 at 16^3). Against scipy's sparse LU (SuperLU, minimum degree on A^T + A)
+a banded factor took a third of the time (benchmarks/RESULTS_COARSEST_BAND.md, LAPACK's pbtrf
+then). Our own kernel instead of LAPACK's through scipy.linalg spares a gmg run importing
+scipy.linalg (85-105 ms of every fresh process); it factors in 21 against LAPACK's 14 ms at
+16^3 on one thread and solves in 0.29 against 0.34 ms (benchmarks/RESULTS_COARSEST_KERNEL.md).
+A gmg run imports neither scipy.linalg nor scipy.sparse.
 
 Where the band would be wide (a coarsest level asked larger than the default) or the
 factorisation finds the matrix not positive definite (rounding in a float32 hierarchy could
@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..kernels.band import band_cholesky, band_cholesky_solve
 from .levels import Level
 
 # Largest band stored (entries; 8 bytes each): 16^3 needs 257 x 4096, about a million
@@ -38,16 +39,9 @@ class CoarsestSolver:
         self._lu = None
         self._factor = None
         band, self._order = level.to_band() if _band_entries(level.shape) <= BAND_ENTRIES else (None, None)
-        if band is not None:
-            from scipy.linalg import LinAlgError, cho_solve_banded, cholesky_banded
-
-            self._solve_banded = cho_solve_banded
-            try:
-                self._factor = cholesky_banded(band, lower=True, overwrite_ab=True,
-                                               check_finite=False)
-                self.kind = "band"
-            except LinAlgError:
-                pass
+        if band is not None and band_cholesky(band) == 0:
+            self._factor = band
+            self.kind = "band"
         if self.kind == "lu":
             import scipy.sparse.linalg as sla
 
@@ -63,8 +57,8 @@ class CoarsestSolver:
             u[...] = self._lu.solve(b.ravel().astype(np.float64)).reshape(self.shape)
             return
         order = self._order
-        x = self._solve_banded((self._factor, True), b.transpose(order).astype(np.float64).ravel(),
-                               check_finite=False)
+        x = b.transpose(order).astype(np.float64).ravel()  # a fresh array: solved in place
+        band_cholesky_solve(self._factor, x)
         u.transpose(order)[...] = x.reshape(tuple(self.shape[a] for a in order))
 
 
