@@ -7,8 +7,9 @@ jobs in a resident process against an earlier revision.
 
 gmg's coarsest level (at most 16^3 cells) was factored by scipy's sparse LU (SuperLU, minimum
 degree on A^T + A, symmetric mode); it is now a banded Cholesky factor (LAPACK's pbtrf through
-``scipy.linalg.cholesky_banded``, cells numbered with the longest axis outermost), and a gmg
-run no longer imports scipy.sparse. ``solvers.coarsest.CoarsestSolver`` keeps the LU for wide
+``scipy.linalg.cholesky_banded`` when this was written, our own kernel since:
+coarsest_kernel_bench.py), cells numbered with the longest axis outermost, and a gmg run no
+longer imports scipy.sparse. ``solvers.coarsest.CoarsestSolver`` keeps the LU for wide
 bands, so ``BAND_ENTRIES = 0`` gives the LU exactly as the product ran it before.
 
 1. *The coarsest level alone*, for each job of ``cycle_bench.problem_level`` (as in
