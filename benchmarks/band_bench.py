@@ -162,26 +162,19 @@ def main(argv: list[str] | None = None) -> int:
                   f"{args.rounds} children each, alternating.", "",
                   f"| job | cells | job s {args.against} | job s now | now / then | solve s then | "
                   "solve s now | set-up s then | set-up s now |", "|" + "---|" * 9]
-        with tempfile.TemporaryDirectory() as tmp:
-            tree = Path(tmp) / "then"
-            subprocess.run(["git", "worktree", "add", "--detach", str(tree), args.against],
-                           cwd=HERE, check=True, capture_output=True)
-            try:
-                for item in args.jobs:
-                    pattern, n = item.split(":")
-                    job = job_file(Path(tmp), pattern, int(n))
-                    runs: dict[str, list[tuple[float, float, float]]] = {"then": [], "now": []}
-                    for _ in range(args.rounds):
-                        runs["then"].append(resident(tree / "src", job))
-                        runs["now"].append(resident(HERE.parent / "src", job))
-                    then, now = min(runs["then"]), min(runs["now"])
-                    lines.append(f"| {pattern} | {n}^3 | {then[0]:.3f} | {now[0]:.3f} | "
-                                 f"{now[0] / then[0]:.2f} | {then[1]:.3f} | {now[1]:.3f} | "
-                                 f"{then[2]:.3f} | {now[2]:.3f} |")
-                    print(lines[-1], flush=True)
-            finally:
-                subprocess.run(["git", "worktree", "remove", "--force", str(tree)], cwd=HERE,
-                               capture_output=True)
+        with tempfile.TemporaryDirectory() as tmp, engine.revision_tree(args.against, Path(tmp)) as then:
+            for item in args.jobs:
+                pattern, n = item.split(":")
+                job = job_file(Path(tmp), pattern, int(n))
+                runs: dict[str, list[tuple[float, float, float]]] = {"then": [], "now": []}
+                for _ in range(args.rounds):
+                    runs["then"].append(resident(then, job))
+                    runs["now"].append(resident(HERE.parent / "src", job))
+                then_best, now = min(runs["then"]), min(runs["now"])
+                lines.append(f"| {pattern} | {n}^3 | {then_best[0]:.3f} | {now[0]:.3f} | "
+                             f"{now[0] / then_best[0]:.2f} | {then_best[1]:.3f} | {now[1]:.3f} | "
+                             f"{then_best[2]:.3f} | {now[2]:.3f} |")
+                print(lines[-1], flush=True)
     engine.write_report(args.results, lines, info)
     return 0
 

@@ -24,7 +24,6 @@ Writes benchmarks/RESULTS_COARSEST_KERNEL.md.
 from __future__ import annotations
 
 import statistics
-import subprocess
 import sys
 import tempfile
 import time
@@ -124,35 +123,28 @@ def main(argv: list[str] | None = None) -> int:
                   "last column); ratio = now / then.", "",
                   "| job | cells | code | whole s | job s | whole min s | ratio whole | ratio job | "
                   "whole s, every round |", "|" + "---|" * 9]
-        with tempfile.TemporaryDirectory() as tmp:
+        with tempfile.TemporaryDirectory() as tmp, engine.revision_tree(args.against, Path(tmp)) as then:
             folder = Path(tmp)
-            tree = folder / "then"
-            subprocess.run(["git", "worktree", "add", "--detach", str(tree), args.against],
-                           cwd=HERE, check=True, capture_output=True)
-            sources = {"now": HERE.parent / "src", "then": tree / "src"}
-            try:
-                for item in args.jobs:
-                    pattern, n = item.rsplit(":", 1)
-                    job = band_bench.job_file(folder, pattern, int(n))
-                    for source in sources.values():
-                        whole_run(folder, source, job)  # untimed: the kernels compiled
-                    runs: dict[str, list[tuple[float, float]]] = {side: [] for side in sources}
-                    for i in range(args.rounds):
-                        for side in engine.rotation(list(sources), i):
-                            runs[side].append(whole_run(folder, sources[side], job))
-                            print(item, side, " ".join(f"{x:.2f}" for x in runs[side][-1]), flush=True)
-                    whole = {s: statistics.median(w for w, _ in r) for s, r in runs.items()}
-                    own = {s: statistics.median(o for _, o in r) for s, r in runs.items()}
-                    for side, r in runs.items():
-                        ratios = (f"{whole['now'] / whole['then']:.2f} | {own['now'] / own['then']:.2f}"
-                                  if side == "now" else " | ")
-                        label = "working tree" if side == "now" else args.against
-                        lines.append(f"| {pattern} | {n}^3 | {label} | {whole[side]:.2f} | {own[side]:.2f} | "
-                                     f"{min(w for w, _ in r):.2f} | {ratios} | "
-                                     + " ".join(f"{w:.2f}" for w, _ in r) + " |")
-            finally:
-                subprocess.run(["git", "worktree", "remove", "--force", str(tree)], cwd=HERE,
-                               capture_output=True)
+            sources = {"now": HERE.parent / "src", "then": then}
+            for item in args.jobs:
+                pattern, n = item.rsplit(":", 1)
+                job = band_bench.job_file(folder, pattern, int(n))
+                for source in sources.values():
+                    whole_run(folder, source, job)  # untimed: the kernels compiled
+                runs: dict[str, list[tuple[float, float]]] = {side: [] for side in sources}
+                for i in range(args.rounds):
+                    for side in engine.rotation(list(sources), i):
+                        runs[side].append(whole_run(folder, sources[side], job))
+                        print(item, side, " ".join(f"{x:.2f}" for x in runs[side][-1]), flush=True)
+                whole = {s: statistics.median(w for w, _ in r) for s, r in runs.items()}
+                own = {s: statistics.median(o for _, o in r) for s, r in runs.items()}
+                for side, r in runs.items():
+                    ratios = (f"{whole['now'] / whole['then']:.2f} | {own['now'] / own['then']:.2f}"
+                              if side == "now" else " | ")
+                    label = "working tree" if side == "now" else args.against
+                    lines.append(f"| {pattern} | {n}^3 | {label} | {whole[side]:.2f} | {own[side]:.2f} | "
+                                 f"{min(w for w, _ in r):.2f} | {ratios} | "
+                                 + " ".join(f"{w:.2f}" for w, _ in r) + " |")
     engine.write_report(args.results, lines, info)
     return 0
 

@@ -23,6 +23,7 @@ benchmarks/RESULTS_ENGINE.md. One invocation, same problems and tolerance on bot
 from __future__ import annotations
 
 import argparse
+import contextlib
 import datetime
 import json
 import os
@@ -33,6 +34,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -186,6 +188,21 @@ def opening(doc: str, reading: str, columns: list[str]) -> list[str]:
     """A result file's text before its table: the script's :func:`description`, how to read
     the table, and the table's head (one separator per column)."""
     return [description(doc), "", reading, "", "| " + " | ".join(columns) + " |", "|" + "---|" * len(columns)]
+
+
+@contextlib.contextmanager
+def revision_tree(ref: str, folder: Path) -> Iterator[Path]:
+    """Revision ``ref`` checked out in a temporary git worktree ``folder``/then (its own
+    kernel cache beside its sources), removed afterwards; yields its ``src`` folder, for
+    PYTHONPATH."""
+    tree = folder / "then"
+    subprocess.run(["git", "worktree", "add", "--detach", str(tree), ref], cwd=HERE, check=True,
+                   capture_output=True)
+    try:
+        yield tree / "src"
+    finally:
+        subprocess.run(["git", "worktree", "remove", "--force", str(tree)], cwd=HERE,
+                       capture_output=True)
 
 
 def rotation(sides: list[str], i: int) -> list[str]:
