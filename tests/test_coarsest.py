@@ -135,7 +135,7 @@ def test_band_factor_reports_the_first_pivot_that_is_not_positive_like_lapack() 
 
 def test_a_gmg_run_imports_no_scipy_linalg(tmp_path) -> None:
     """The coarsest level's factor is our kernel: a gmg run in a fresh process whose kernels
-    are cached imports neither scipy.linalg (85-105 ms) nor scipy.sparse. (Compiling imports
+    are cached imports neither scipy.linalg (84-106 ms) nor scipy.sparse. (Compiling imports
     scipy.linalg through numba's compiler, for its BLAS bindings: the first run fills the
     cache.)"""
     import json

@@ -8,9 +8,9 @@ arithmetic as LAPACK's unblocked pbtf2; the solve is the forward substitution L 
 columns and the backward one L^T x = y by dot products along the same rows.
 
 Every inner loop runs over a slice, so its indices are known non-negative and it vectorises
-(indexed ``x[j + d]`` kept numba's negative-index check in the loop: the solve took 0.93 ms at
-16^3 against 0.29 ms with slices, benchmarks/RESULTS_COARSEST_KERNEL.md). Both kernels are
-serial: the level has at most 4096 cells.
+(indexed ``x[j + d]`` kept numba's negative-index check in the loop: a prototype's solve took
+0.93 ms at 16^3 against 0.29 ms with slices; benchmarks/ANALYSIS.md). Both kernels are serial:
+the level has at most 4096 cells.
 """
 
 from __future__ import annotations

@@ -7,8 +7,9 @@ its cells numbered with the longest axis outermost so that the bandwidth is the 
 two shorter sides (256 at 16^3). Against scipy's sparse LU (SuperLU, minimum degree on A^T + A)
 a banded factor took a third of the time (benchmarks/RESULTS_COARSEST_BAND.md, LAPACK's pbtrf
 then). Our own kernel instead of LAPACK's through scipy.linalg spares a gmg run importing
-scipy.linalg (85-105 ms of every fresh process); it factors in 21 against LAPACK's 14 ms at
-16^3 on one thread and solves in 0.29 against 0.34 ms (benchmarks/RESULTS_COARSEST_KERNEL.md).
+scipy.linalg (84-106 ms of every fresh process); at 16^3 it factors in 20.5-20.8 ms against
+LAPACK's 12.0-12.3 ms on one BLAS thread and solves in the same 0.30 ms
+(benchmarks/RESULTS_COARSEST_KERNEL.md).
 A gmg run imports neither scipy.linalg nor scipy.sparse.
 
 Where the band would be wide (a coarsest level asked larger than the default) or the
