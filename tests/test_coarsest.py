@@ -9,6 +9,7 @@ import pytest
 import scipy.sparse.linalg as sla
 
 import sevenfold.solvers.coarsest as coarsest
+from conftest import write_layer_job
 from sevenfold.kernels.band import band_cholesky, band_cholesky_solve
 from sevenfold.solvers.coarsest import CoarsestSolver
 from sevenfold.solvers.levels import Level
@@ -142,23 +143,7 @@ def test_a_gmg_run_imports_no_scipy_linalg(tmp_path) -> None:
     import subprocess
     import sys
 
-    job = tmp_path / "job.toml"
-    job.write_text("""
-name = "imports"
-[grid]
-cells = [24, 20, 16]
-size = [1.0, 1.0, 1.0]
-[material]
-value = "1 + 99 * (x > 0.5)"
-[source]
-value = 1.0
-[boundary]
-x_min = { type = "dirichlet", value = 0.0 }
-[solver]
-method = "gmg"
-[output]
-path = "imports.zarr"
-""")
+    job = write_layer_job(tmp_path / "job.toml", 1e-2, 24)  # 24^3: levels and a band
     probe = ("import json, sys\nfrom sevenfold.runner import run_job\n"
              "result = run_job(sys.argv[1])\n"
              "print(json.dumps([result.solve.converged, sorted(m for m in sys.modules if m.startswith('scipy.'))]))")
