@@ -22,6 +22,7 @@ import zarr
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from sevenfold import store
 from sevenfold.cli import main
 from sevenfold.errors import JobError, QueueError
 from sevenfold.queue import child
@@ -326,10 +327,14 @@ def test_failing_disk_write_fails_the_run_and_leaves_nothing_finished(tmp_path: 
         stored = q.get(j.id)
     write_text_atomic(home.job_file(j.id), dumps(stored.job_table))
 
-    def full(*args, **kwargs):
-        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+    original = store._write_json
 
-    monkeypatch.setattr(zarr, "consolidate_metadata", full)  # the last write before the rename
+    def full(path: Path, document) -> None:  # the group's metadata: the last write before the rename
+        if path.parent.name.startswith(f".{Path(stored.output).name}.partial-"):
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        original(path, document)
+
+    monkeypatch.setattr(store, "_write_json", full)
     reply = child.execute({"job": j.id, "run": "r1", "attempt": 1, "output": stored.output, "worker": "t"},
                           home, child.ChildState(os.getppid()))
     assert reply["status"] == "failed" and reply["kind"] == "os"

@@ -21,7 +21,7 @@ from __future__ import annotations
 import os
 import shutil
 import uuid
-import warnings
+import json
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -46,16 +46,69 @@ def partial_path(final: Path) -> Path:
     return final.with_name(f".{final.name}.partial-{os.getpid()}-{uuid.uuid4().hex[:8]}")
 
 
-def _compressors():
-    """Blosc's LZ4 after a byte shuffle: several times faster than zarr's default zstd on a
-    smooth float64 field for about the same stored size (benchmarks/RESULTS_WRITE.md)."""
-    from zarr.codecs import BloscCodec
-
-    return [BloscCodec(cname="lz4", clevel=5, shuffle="shuffle")]
+# Blosc's LZ4 after a byte shuffle: several times faster than zarr's default zstd on a smooth
+# float64 field for about the same stored size (benchmarks/RESULTS_WRITE.md)
+BLOSC = {"cname": "lz4", "clevel": 5, "shuffle": "shuffle", "blocksize": 0}
+_SHUFFLES = {"noshuffle": 0, "shuffle": 1, "bitshuffle": 2}
 
 
 def _chunks(shape: tuple[int, ...], wanted: tuple[int, ...]) -> tuple[int, ...]:
     return tuple(max(1, min(s, c)) for s, c in zip(shape, wanted))
+
+
+def array_metadata(var: Variable, chunks: tuple[int, ...]) -> dict[str, Any]:
+    """The zarr v3 metadata (``zarr.json``) of ``var`` stored in ``chunks``: a regular chunk
+    grid, "/"-separated chunk keys, fill value 0, the little-endian bytes codec then Blosc
+    (the zarr v3 specification, "Array metadata"; the fields and their order as zarr-python
+    writes them)."""
+    dtype = var.data.dtype
+    if dtype.kind not in "biuf":
+        raise TypeError(f"cannot store {dtype} arrays")
+    bytes_codec: dict[str, Any] = {"name": "bytes"}
+    if dtype.itemsize > 1:
+        bytes_codec["configuration"] = {"endian": "little"}
+    fill = False if dtype.kind == "b" else 0.0 if dtype.kind == "f" else 0
+    return {
+        "shape": list(var.data.shape),
+        "data_type": dtype.name,
+        "chunk_grid": {"name": "regular", "configuration": {"chunk_shape": list(chunks)}},
+        "chunk_key_encoding": {"name": "default", "configuration": {"separator": "/"}},
+        "fill_value": fill,
+        "codecs": [bytes_codec, {"name": "blosc", "configuration": {"typesize": dtype.itemsize, **BLOSC}}],
+        "attributes": var.attrs,
+        "dimension_names": list(var.dims),
+        "zarr_format": 3,
+        "node_type": "array",
+        "storage_transformers": [],
+    }
+
+
+def _write_json(path: Path, document: dict[str, Any]) -> None:
+    # as zarr-python writes its metadata: indented, NaN and infinities as JSON extensions
+    path.write_bytes(json.dumps(document, indent=2, allow_nan=True).encode())
+
+
+def _write_array(folder: Path, var: Variable, chunks: tuple[int, ...], codec) -> dict[str, Any]:
+    """Store ``var`` under ``folder`` chunk by chunk; returns its metadata. A chunk is stored
+    whole (an edge chunk padded with the fill value), little-endian in C order, compressed;
+    a chunk of fill values only is left out, as zarr-python leaves it (readers fill it in)."""
+    metadata = array_metadata(var, chunks)
+    folder.mkdir()
+    data = var.data.astype(var.data.dtype.newbyteorder("<"), copy=False)
+    counts = [-(-n // c) for n, c in zip(data.shape, chunks)]
+    for index in np.ndindex(*counts):
+        part = data[tuple(slice(i * c, (i + 1) * c) for i, c in zip(index, chunks))]
+        if not part.any():
+            continue
+        if part.shape != chunks:
+            whole = np.zeros(chunks, dtype=data.dtype)
+            whole[tuple(slice(0, n) for n in part.shape)] = part
+            part = whole
+        key = folder.joinpath("c", *map(str, index))
+        key.parent.mkdir(parents=True, exist_ok=True)
+        key.write_bytes(codec.encode(np.ascontiguousarray(part).view(np.uint8).reshape(-1)))
+    _write_json(folder / "zarr.json", metadata)
+    return metadata
 
 
 def write_result(
@@ -75,50 +128,36 @@ def write_result(
 
 def _write_result(final: Path, variables: dict[str, Variable], attrs: dict[str, Any],
                   chunks: tuple[int, int, int]) -> Path:
-    import zarr
+    """The zarr v3 group written directly, with Blosc from numcodecs (zarr's own codec
+    library): importing zarr cost a fresh process 0.14-0.16 s, numcodecs' Blosc 0.03 s
+    (benchmarks/ANALYSIS.md). The group's metadata is written last, with the arrays' metadata
+    consolidated into it (zarr-python's inline consolidated metadata, which xarray reads
+    first) and ``complete`` = true as its last attribute; the folder is renamed into place
+    after that."""
+    from numcodecs.blosc import Blosc
 
     final.parent.mkdir(parents=True, exist_ok=True)
     tmp = partial_path(final)
     try:
-        group = zarr.open_group(store=str(tmp), mode="w", zarr_format=3)
-        for name, var in variables.items():  # each array made and filled in one call
+        tmp.mkdir()
+        metadata = {}
+        for name, var in variables.items():
+            codec = Blosc(cname=BLOSC["cname"], clevel=BLOSC["clevel"], shuffle=_SHUFFLES[BLOSC["shuffle"]],
+                          blocksize=BLOSC["blocksize"], typesize=var.data.dtype.itemsize)
             c = _chunks(var.data.shape, chunks if var.data.ndim == 3 else (2**20,))
-            group.create_array(name, data=var.data, chunks=c, dimension_names=list(var.dims),
-                               attributes=var.attrs, compressors=_compressors())
-        # the group's metadata written once (attrs.update would rewrite it once per key), then
-        # the completion mark last
-        group.update_attributes({**attrs, "sevenfold_version": __version__})
-        group.attrs["complete"] = True
-        with warnings.catch_warnings():
-            # zarr notes that consolidated metadata is an extension to the v3 format;
-            # xarray reads it and falls back to plain metadata elsewhere.
-            warnings.simplefilter("ignore")
-            zarr.consolidate_metadata(str(tmp))
+            metadata[name] = _write_array(tmp / name, var, c, codec)
+        _write_json(tmp / "zarr.json", {
+            "attributes": {**attrs, "sevenfold_version": __version__, "complete": True},
+            "zarr_format": 3,
+            "consolidated_metadata": {"kind": "inline", "must_understand": False,
+                                      "metadata": dict(sorted(metadata.items()))},
+            "node_type": "group",
+        })
         _replace(tmp, final)
     except BaseException:
-        _settle_zarr()
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return final
-
-
-def _settle_zarr(timeout: float = 60.0) -> None:
-    """Wait for the writes zarr still has in flight. When one chunk's write fails (a full
-    disk), zarr raises at once and its other chunk writes go on in its own thread; removed
-    before they end, the temporary folder would come back with their files in it."""
-    import asyncio
-
-    from zarr.core.sync import sync
-
-    async def rest() -> None:
-        others = [t for t in asyncio.all_tasks() if t is not asyncio.current_task()]
-        if others:
-            await asyncio.wait(others, timeout=timeout)
-
-    try:
-        sync(rest())
-    except Exception:  # pragma: no cover - a broken event loop: remove what is there
-        pass
 
 
 def _replace(tmp: Path, final: Path) -> None:
