@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import copy
+
 import numpy as np
 import pytest
 import scipy.linalg
@@ -182,6 +184,36 @@ def test_region_changes_the_coefficient():
     assert 0 < np.count_nonzero(k[0] == 40.0) < k[0].size
     problem = build_problem(parse_job(table, "test"))
     assert all(np.allclose(problem.coefficient[a], k[a], rtol=1e-14) for a in range(3))
+
+
+def test_box_regions_select_the_cells_whose_centres_they_hold():
+    """Boxes are assigned as blocks of slices (no grid-sized mask each): overlapping boxes
+    (the later wins), a box valued by an expression, a source box's value and a total spread
+    over its cells' volume, against masks of the cell centres built in numpy (conftest)."""
+    from sevenfold.errors import JobError
+
+    table = make_table(
+        grid={"cells": [7, 6, 5], "size": SIZE, "origin": [-0.3, 0.1, 0.5]},
+        material={"value": 2.0, "region": [
+            {"box": {"min": [-0.3, 0.1, 0.5], "max": [0.3, 0.5, 1.3]}, "value": 40.0},
+            {"box": {"min": [0.0, 0.2, 0.9], "max": [0.7, 0.7, 2.5]}, "value": "3 + x * y + z"},
+        ]},
+        source={"value": "x + 2", "region": [
+            {"box": {"min": [0.1, 0.0, 0.0], "max": [0.5, 0.35, 1.7]}, "value": "10 * z"},
+            {"box": {"min": [-0.3, 0.3, 1.5], "max": [0.2, 0.7, 2.5]}, "total": 5.0},
+        ]},
+        boundary={"x_min": D(1.0)},
+    )
+    k, f, _, _ = reference_fields(table)
+    assert 0 < np.count_nonzero(k[0] == 40.0) and np.count_nonzero(k[0] == 2.0)
+    problem = build_problem(parse_job(table, "test"))
+    assert all(np.allclose(problem.coefficient[a], k[a], rtol=1e-14) for a in range(3))
+    np.testing.assert_allclose(problem.source, f, rtol=1e-14)
+    empty = copy.deepcopy(table)
+    empty["material"]["region"].append({"box": {"min": [0.0, 0.0, 0.0], "max": [0.01, 0.6, 2.5]}, "value": 1.0})
+    with pytest.raises(JobError, match="selects no cell centre") as info:
+        build_problem(parse_job(empty, "test"))
+    assert info.value.where == "material.region.2"
 
 
 SPD_CASES = {

@@ -16,8 +16,9 @@ from .shapes import box_slices, mask
 from .spec import Box, MaterialSpec, SourceSpec, components
 
 
-def _values(value: float | str, grid: Grid, where: np.ndarray | None = None) -> np.ndarray | float:
-    """A scalar, or the expression evaluated on the cell centres (only where ``where``)."""
+def _values(value: float | str, grid: Grid, where=None) -> np.ndarray | float:
+    """A scalar, or the expression evaluated on the cell centres (only at ``where``: a cell
+    mask or a block of slices, :func:`region_cells`)."""
     if isinstance(value, str):
         x, y, z = grid.mesh()
         full = evaluate(value, x, y, z)
@@ -32,27 +33,50 @@ def _check_finite(a: np.ndarray, where: str, positive: bool) -> None:
         raise JobError(f"must be positive everywhere, minimum is {float(a.min())!r}", where)
 
 
-def _cells(region, m: np.ndarray, v: np.ndarray | float, grid: Grid) -> np.ndarray | tuple[slice, ...]:
-    """Where to put the region's value ``v``: a box's block of slices when ``v`` is one number
-    (assigned at memory speed; a mask is scanned whole, 60 times for 60 boxes), else the mask."""
-    return box_slices(region.shape, grid) if isinstance(region.shape, Box) and not isinstance(v, np.ndarray) else m
+def _no_cell(where: str) -> JobError:
+    return JobError("selects no cell centre; enlarge it or refine the grid", where)
 
 
-def region_masks(regions, grid: Grid, where: str) -> list[np.ndarray]:
-    """One cell mask per region; a region that selects no cell is an error."""
+def region_masks(regions, grid: Grid, where: str, first: int = 0) -> list[np.ndarray]:
+    """One cell mask per region; a region that selects no cell is an error (``first``: the
+    index of the first region in its table, for the message)."""
     masks = []
-    for i, region in enumerate(regions):
+    for i, region in enumerate(regions, start=first):
         m = mask(region.shape, grid)
         if not m.any():
-            raise JobError("selects no cell centre; enlarge it or refine the grid", f"{where}.{i}")
+            raise _no_cell(f"{where}.{i}")
         masks.append(m)
     return masks
+
+
+def region_cells(regions, grid: Grid, where: str) -> list[tuple[slice, slice, slice] | np.ndarray]:
+    """Each region's cells as an index: a box's block of slices, any other shape's cell mask.
+    A box needs no grid-sized mask: 60 boxes' masks were 60 grid-sized arrays to fill and
+    scan, most of a 256^3 job's build (benchmarks/ANALYSIS.md). A region that selects no cell
+    is an error."""
+    out: list[tuple[slice, slice, slice] | np.ndarray] = []
+    for i, region in enumerate(regions):
+        if isinstance(region.shape, Box):
+            cells = box_slices(region.shape, grid)
+            if any(s.stop <= s.start for s in cells):
+                raise _no_cell(f"{where}.{i}")
+            out.append(cells)
+        else:
+            out.extend(region_masks([region], grid, where, first=i))
+    return out
+
+
+def selected_volume(grid: Grid, cells: tuple[slice, slice, slice] | np.ndarray) -> float:
+    """Total volume of the cells that ``cells`` (:func:`region_cells`) selects."""
+    if isinstance(cells, tuple):
+        return float(np.prod([grid.widths(a)[s].sum() for a, s in enumerate(cells)]))
+    return grid.volume(cells)
 
 
 Coefficient = tuple[np.ndarray, np.ndarray, np.ndarray]
 
 
-def _component(spec: MaterialSpec, grid: Grid, a: int, masks: list[np.ndarray], scale: float,
+def _component(spec: MaterialSpec, grid: Grid, a: int, selections: list, scale: float,
                base: np.ndarray | None) -> np.ndarray:
     where = "material" + ("" if not spec.anisotropic else f" ({'xyz'[a]} component)")
     k = np.empty(grid.shape, dtype=np.float64)
@@ -61,11 +85,11 @@ def _component(spec: MaterialSpec, grid: Grid, a: int, masks: list[np.ndarray], 
     else:
         k[...] = _values(components(spec.base)[a], grid)  # type: ignore[arg-type]
     _check_finite(k, "material.file" if base is not None else where, positive=True)
-    for i, (region, m) in enumerate(zip(spec.region, masks)):
-        v = _values(components(region.value)[a], grid, m)
+    for i, (region, cells) in enumerate(zip(spec.region, selections)):
+        v = _values(components(region.value)[a], grid, cells)
         if isinstance(v, np.ndarray):
             _check_finite(v, f"material.region.{i}.value", positive=True)
-        k[_cells(region, m, v, grid)] = v
+        k[cells] = v
     if scale != 1.0:
         k *= scale
     return k
@@ -76,12 +100,12 @@ def coefficient(spec: MaterialSpec, grid: Grid, scale: float = 1.0,
     """The coefficient on the cells as (kx, ky, kz), material values times ``scale``; positive
     and finite. Isotropic materials give the same array three times. ``base`` is the array
     loaded from ``file`` (one, or one per axis)."""
-    masks = region_masks(spec.region, grid, "material.region")
+    selections = region_cells(spec.region, grid, "material.region")
     if not spec.anisotropic:
-        k = _component(spec, grid, 0, masks, scale, base)  # type: ignore[arg-type]
+        k = _component(spec, grid, 0, selections, scale, base)  # type: ignore[arg-type]
         return k, k, k
     bases = base if isinstance(base, tuple) else (base, base, base)
-    return tuple(_component(spec, grid, a, masks, scale, bases[a]) for a in range(3))  # type: ignore[return-value]
+    return tuple(_component(spec, grid, a, selections, scale, bases[a]) for a in range(3))  # type: ignore[return-value]
 
 
 def is_isotropic(k: Coefficient) -> bool:
@@ -109,12 +133,12 @@ def source(spec: SourceSpec, grid: Grid, base: np.ndarray | None = None) -> np.n
     f = np.empty(grid.shape, dtype=np.float64)
     f[...] = base if base is not None else _values(spec.base if spec.base is not None else 0.0, grid)
     _check_finite(f, "source.file" if base is not None else "source", positive=False)
-    for i, (region, m) in enumerate(zip(spec.region, region_masks(spec.region, grid, "source.region"))):
+    for i, (region, cells) in enumerate(zip(spec.region, region_cells(spec.region, grid, "source.region"))):
         if region.total is not None:
-            f[m] = region.total / grid.volume(m)
+            f[cells] = region.total / selected_volume(grid, cells)
         else:
-            v = _values(region.value, grid, m)
+            v = _values(region.value, grid, cells)
             if isinstance(v, np.ndarray):
                 _check_finite(v, f"source.region.{i}.value", positive=False)
-            f[_cells(region, m, v, grid)] = v
+            f[cells] = v
     return f
