@@ -23,6 +23,7 @@ FACE_AXIS = {
 
 # Relative width variation below which an axis counts as uniform (rounding of edges).
 UNIFORM_RTOL = 1e-9
+SLAB_CELLS = 1 << 20  # cells per slab of a masked integral (8 MB of float64)
 
 
 def uniform_edges(cells: int, width: float, origin: float = 0.0) -> np.ndarray:
@@ -134,10 +135,19 @@ class Grid:
         return wx * wy * wz
 
     def integrate(self, values: np.ndarray, where: np.ndarray | None = None) -> float:
-        """Sum of ``values * cell volume`` over the cells (only where ``where``)."""
-        v = values if where is None else np.where(where, values, 0.0)
-        return float(np.einsum("ijk,i,j,k->", np.broadcast_to(v, self.shape),
-                               self.widths(0), self.widths(1), self.widths(2)))
+        """Sum of ``values * cell volume`` over the cells (only where ``where``). With a mask
+        the cells are taken a slab of x-planes at a time: no grid-sized temporary."""
+        v = np.broadcast_to(values, self.shape)
+        wx, wy, wz = self.widths(0), self.widths(1), self.widths(2)
+        if where is None:
+            return float(np.einsum("ijk,i,j,k->", v, wx, wy, wz))
+        where = np.broadcast_to(where, self.shape)
+        planes = max(1, SLAB_CELLS // (self.shape[1] * self.shape[2]))
+        total = 0.0
+        for i in range(0, self.shape[0], planes):
+            slab = slice(i, i + planes)
+            total += float(np.einsum("ijk,i,j,k->", np.where(where[slab], v[slab], 0.0), wx[slab], wy, wz))
+        return total
 
     def volume(self, where: np.ndarray) -> float:
         """Total volume of the cells selected by the boolean mask ``where``."""
