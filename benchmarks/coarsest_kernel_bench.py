@@ -23,9 +23,7 @@ Writes benchmarks/RESULTS_COARSEST_KERNEL.md.
 
 from __future__ import annotations
 
-import statistics
 import sys
-import tempfile
 import time
 from pathlib import Path
 
@@ -35,13 +33,9 @@ import run as engine  # noqa: E402  (first: BLAS on one thread, as the command r
 
 import numpy as np  # noqa: E402
 
-import band_bench  # noqa: E402
 import cycle_bench as cb  # noqa: E402
-import speed  # noqa: E402
 import timing  # noqa: E402
-
-COMMAND = "from sevenfold import cli; cli.program()"
-
+import whole_bench  # noqa: E402
 
 def level_pair(n: int, case: str, rounds: int) -> dict[str, float | str]:
     """Milliseconds of factoring and solving the job's coarsest level, LAPACK and kernel."""
@@ -88,14 +82,6 @@ def level_pair(n: int, case: str, rounds: int) -> dict[str, float | str]:
     return out
 
 
-def whole_run(folder: Path, source: Path, job: Path) -> tuple[float, float]:
-    """Wall and job seconds of one ``sevenfold run`` process on the package at ``source``."""
-    env = {**__import__("os").environ, "PYTHONPATH": str(source)}
-    r = engine.run_process([sys.executable, "-c", COMMAND, "run", "--here", "--no-progress", str(job)],
-                           folder, env=env)
-    return r.wall, speed.required_job_seconds(r.stdout, str(source))
-
-
 def main(argv: list[str] | None = None) -> int:
     p = engine.ab_parser(__doc__, "RESULTS_COARSEST_KERNEL.md", rounds=5)
     p.add_argument("--against", required=True, metavar="REVISION")
@@ -119,32 +105,10 @@ def main(argv: list[str] | None = None) -> int:
         print(lines[-1], flush=True)
     if args.jobs:
         lines += ["", f"## 2. Whole `sevenfold run` processes, against {args.against}", "",
-                  "Seconds, median of the rounds (every round's whole seconds in order in the "
-                  "last column); ratio = now / then.", "",
-                  "| job | cells | code | whole s | job s | whole min s | ratio whole | ratio job | "
-                  "whole s, every round |", "|" + "---|" * 9]
-        with tempfile.TemporaryDirectory() as tmp, engine.revision_tree(args.against, Path(tmp)) as then:
-            folder = Path(tmp)
-            sources = {"now": HERE.parent / "src", "then": then}
-            for item in args.jobs:
-                pattern, n = item.rsplit(":", 1)
-                job = band_bench.job_file(folder, pattern, int(n))
-                for source in sources.values():
-                    whole_run(folder, source, job)  # untimed: the kernels compiled
-                runs: dict[str, list[tuple[float, float]]] = {side: [] for side in sources}
-                for i in range(args.rounds):
-                    for side in engine.rotation(list(sources), i):
-                        runs[side].append(whole_run(folder, sources[side], job))
-                        print(item, side, " ".join(f"{x:.2f}" for x in runs[side][-1]), flush=True)
-                whole = {s: statistics.median(w for w, _ in r) for s, r in runs.items()}
-                own = {s: statistics.median(o for _, o in r) for s, r in runs.items()}
-                for side, r in runs.items():
-                    ratios = (f"{whole['now'] / whole['then']:.2f} | {own['now'] / own['then']:.2f}"
-                              if side == "now" else " | ")
-                    label = "working tree" if side == "now" else args.against
-                    lines.append(f"| {pattern} | {n}^3 | {label} | {whole[side]:.2f} | {own[side]:.2f} | "
-                                 f"{min(w for w, _ in r):.2f} | {ratios} | "
-                                 + " ".join(f"{w:.2f}" for w, _ in r) + " |")
+                  "Medians of the rounds (every round's whole seconds in order in the last column); "
+                  "ratio = now / then (benchmarks/whole_bench.py).", "",
+                  "| " + " | ".join(whole_bench.COLUMNS) + " |", "|" + "---|" * len(whole_bench.COLUMNS)]
+        lines += whole_bench.compare(args.jobs, args.against, args.rounds)
     engine.write_report(args.results, lines, info)
     return 0
 
