@@ -107,7 +107,7 @@ def test_interrupted_write_leaves_no_result(tmp_path: Path, monkeypatch) -> None
     with pytest.raises(OutputError, match=f"cannot write the result {re.escape(str(first.output))}: No space left"):
         run_job(job)  # a bad output is a bad input: one line naming the path and the reason
     monkeypatch.undo()
-    assert calls["n"] == 3  # the failure came while chunks were being written
+    assert 3 <= calls["n"] <= 4  # the failure came while chunks were being written, and stopped them
     # the earlier finished result is untouched, and nothing else is left beside it
     assert is_complete(first.output)
     np.testing.assert_array_equal(zarr.open_group(str(first.output), mode="r")["temperature"][:], before)

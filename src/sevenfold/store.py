@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import os
 import shutil
+import threading
 import uuid
 import json
 from dataclasses import dataclass
@@ -88,6 +89,36 @@ def _write_json(path: Path, document: dict[str, Any]) -> None:
     path.write_bytes(json.dumps(document, indent=2, allow_nan=True).encode())
 
 
+# threads compressing and writing a large array's chunks (Blosc and file writes release the
+# GIL); numcodecs runs Blosc single-threaded outside the main thread, so each chunk is one
+# thread's, and the bytes are the same as Blosc's own threads give
+WRITERS = 2
+
+
+def _write_chunks(folder: Path, data: np.ndarray, chunks: tuple[int, ...], codec,
+                  indices: list[tuple[int, ...]], failed: threading.Event) -> None:
+    """Store the chunks at ``indices`` (see :func:`_write_array`) through one reused buffer
+    (a fresh array per chunk would first-touch its pages every time); stop once ``failed``
+    is set, and set it on an error."""
+    buffer = np.empty(chunks, dtype=data.dtype)
+    for index in indices:
+        if failed.is_set():
+            return
+        part = data[tuple(slice(i * c, (i + 1) * c) for i, c in zip(index, chunks))]
+        if not part.any():
+            continue
+        if part.shape != chunks:
+            buffer[...] = 0
+        buffer[tuple(slice(0, n) for n in part.shape)] = part
+        key = folder.joinpath("c", *map(str, index))
+        try:
+            key.parent.mkdir(parents=True, exist_ok=True)
+            key.write_bytes(codec.encode(buffer.reshape(-1).view(np.uint8)))
+        except BaseException:
+            failed.set()
+            raise
+
+
 def _write_array(folder: Path, var: Variable, chunks: tuple[int, ...], codec) -> dict[str, Any]:
     """Store ``var`` under ``folder`` chunk by chunk; returns its metadata. A chunk is stored
     whole (an edge chunk padded with the fill value), little-endian in C order, compressed;
@@ -95,18 +126,17 @@ def _write_array(folder: Path, var: Variable, chunks: tuple[int, ...], codec) ->
     metadata = array_metadata(var, chunks)
     folder.mkdir()
     data = var.data.astype(var.data.dtype.newbyteorder("<"), copy=False)
-    counts = [-(-n // c) for n, c in zip(data.shape, chunks)]
-    for index in np.ndindex(*counts):
-        part = data[tuple(slice(i * c, (i + 1) * c) for i, c in zip(index, chunks))]
-        if not part.any():
-            continue
-        if part.shape != chunks:
-            whole = np.zeros(chunks, dtype=data.dtype)
-            whole[tuple(slice(0, n) for n in part.shape)] = part
-            part = whole
-        key = folder.joinpath("c", *map(str, index))
-        key.parent.mkdir(parents=True, exist_ok=True)
-        key.write_bytes(codec.encode(np.ascontiguousarray(part).view(np.uint8).reshape(-1)))
+    indices = list(np.ndindex(*(-(-n // c) for n, c in zip(data.shape, chunks))))
+    failed = threading.Event()
+    if len(indices) < 2 * WRITERS:
+        _write_chunks(folder, data, chunks, codec, indices, failed)
+    else:
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(WRITERS) as pool:  # (left only when every writer has stopped)
+            for done in [pool.submit(_write_chunks, folder, data, chunks, codec, indices[k::WRITERS], failed)
+                         for k in range(WRITERS)]:
+                done.result()  # (an error, a full disk, raised here)
     _write_json(folder / "zarr.json", metadata)
     return metadata
 
