@@ -16,7 +16,11 @@ from .shapes import box_slices, mask
 from .spec import Box, MaterialSpec, SourceSpec, components
 
 
-def _values(value: float | str, grid: Grid, where=None) -> np.ndarray | float:
+# the cells a region selects: a block of slices (a box) or a cell mask (other shapes)
+Cells = tuple[slice, slice, slice] | np.ndarray
+
+
+def _values(value: float | str, grid: Grid, where: Cells | None = None) -> np.ndarray | float:
     """A scalar, or the expression evaluated on the cell centres (only at ``where``: a cell
     mask or a block of slices, :func:`region_cells`)."""
     if isinstance(value, str):
@@ -49,12 +53,12 @@ def region_masks(regions, grid: Grid, where: str, first: int = 0) -> list[np.nda
     return masks
 
 
-def region_cells(regions, grid: Grid, where: str) -> list[tuple[slice, slice, slice] | np.ndarray]:
+def region_cells(regions, grid: Grid, where: str) -> list[Cells]:
     """Each region's cells as an index: a box's block of slices, any other shape's cell mask.
     A box needs no grid-sized mask: 60 boxes' masks were 60 grid-sized arrays to fill and
     scan, most of a 256^3 job's build (benchmarks/ANALYSIS.md). A region that selects no cell
     is an error."""
-    out: list[tuple[slice, slice, slice] | np.ndarray] = []
+    out: list[Cells] = []
     for i, region in enumerate(regions):
         if isinstance(region.shape, Box):
             cells = box_slices(region.shape, grid)
@@ -66,7 +70,7 @@ def region_cells(regions, grid: Grid, where: str) -> list[tuple[slice, slice, sl
     return out
 
 
-def selected_volume(grid: Grid, cells: tuple[slice, slice, slice] | np.ndarray) -> float:
+def selected_volume(grid: Grid, cells: Cells) -> float:
     """Total volume of the cells that ``cells`` (:func:`region_cells`) selects."""
     if isinstance(cells, tuple):
         return float(np.prod([grid.widths(a)[s].sum() for a, s in enumerate(cells)]))
@@ -76,7 +80,7 @@ def selected_volume(grid: Grid, cells: tuple[slice, slice, slice] | np.ndarray) 
 Coefficient = tuple[np.ndarray, np.ndarray, np.ndarray]
 
 
-def _component(spec: MaterialSpec, grid: Grid, a: int, selections: list, scale: float,
+def _component(spec: MaterialSpec, grid: Grid, a: int, selections: list[Cells], scale: float,
                base: np.ndarray | None) -> np.ndarray:
     where = "material" + ("" if not spec.anisotropic else f" ({'xyz'[a]} component)")
     k = np.empty(grid.shape, dtype=np.float64)

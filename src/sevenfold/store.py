@@ -18,11 +18,11 @@ Layout (every array carries ``dimension_names``, so ``xarray.open_zarr`` gives a
 
 from __future__ import annotations
 
+import json
 import os
 import shutil
 import threading
 import uuid
-import json
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -48,9 +48,17 @@ def partial_path(final: Path) -> Path:
 
 
 # Blosc's LZ4 after a byte shuffle: several times faster than zarr's default zstd on a smooth
-# float64 field for about the same stored size (benchmarks/RESULTS_WRITE.md)
+# float64 field for about the same stored size (benchmarks/RESULTS_WRITE.md); as the zarr v3
+# metadata names it (numcodecs numbers the shuffles: "shuffle" is 1)
 BLOSC = {"cname": "lz4", "clevel": 5, "shuffle": "shuffle", "blocksize": 0}
-_SHUFFLES = {"noshuffle": 0, "shuffle": 1, "bitshuffle": 2}
+
+
+def _blosc(typesize: int):
+    """numcodecs' Blosc codec as ``BLOSC`` says, for items of ``typesize`` bytes."""
+    from numcodecs.blosc import Blosc
+
+    return Blosc(cname=BLOSC["cname"], clevel=BLOSC["clevel"], shuffle=Blosc.SHUFFLE,
+                 blocksize=BLOSC["blocksize"], typesize=typesize)
 
 
 def _chunks(shape: tuple[int, ...], wanted: tuple[int, ...]) -> tuple[int, ...]:
@@ -131,7 +139,7 @@ def _write_array(folder: Path, var: Variable, chunks: tuple[int, ...], codec) ->
     if len(indices) < 2 * WRITERS:
         _write_chunks(folder, data, chunks, codec, indices, failed)
     else:
-        from concurrent.futures import ThreadPoolExecutor
+        from concurrent.futures import ThreadPoolExecutor  # (logging with it: not for `check`)
 
         with ThreadPoolExecutor(WRITERS) as pool:  # (left only when every writer has stopped)
             for done in [pool.submit(_write_chunks, folder, data, chunks, codec, indices[k::WRITERS], failed)
@@ -164,18 +172,14 @@ def _write_result(final: Path, variables: dict[str, Variable], attrs: dict[str, 
     consolidated into it (zarr-python's inline consolidated metadata, which xarray reads
     first) and ``complete`` = true as its last attribute; the folder is renamed into place
     after that."""
-    from numcodecs.blosc import Blosc
-
     final.parent.mkdir(parents=True, exist_ok=True)
     tmp = partial_path(final)
     try:
         tmp.mkdir()
         metadata = {}
         for name, var in variables.items():
-            codec = Blosc(cname=BLOSC["cname"], clevel=BLOSC["clevel"], shuffle=_SHUFFLES[BLOSC["shuffle"]],
-                          blocksize=BLOSC["blocksize"], typesize=var.data.dtype.itemsize)
             c = _chunks(var.data.shape, chunks if var.data.ndim == 3 else (2**20,))
-            metadata[name] = _write_array(tmp / name, var, c, codec)
+            metadata[name] = _write_array(tmp / name, var, c, _blosc(var.data.dtype.itemsize))
         _write_json(tmp / "zarr.json", {
             "attributes": {**attrs, "sevenfold_version": __version__, "complete": True},
             "zarr_format": 3,
