@@ -380,7 +380,7 @@ def _prolong_pairs(ec, free, scale, u):
 def prolong_add(ec, free, step, agg, scale, u):
     """u += scale * P ec on the free cells (P piecewise constant over the aggregates;
     ``step``, ``agg`` as in :func:`residual_restrict`). Along pairs in z a held cell gets
-    scale * e * 0 added instead of a branch, so that the loop vectorises: 0.45-0.57x the
+    scale * e * 0 added instead of a branch, so that the loop vectorises: 0.40-0.80x the
     branch's time at 128^3 and 256^3 (benchmarks/RESULTS_PROLONG.md); z kept whole (the graded
     job) keeps the branch, which masked stores vectorise as it is."""
     nx, ny, nz = u.shape
