@@ -68,26 +68,12 @@ def kernel_pair(job, old, rounds: int) -> dict[str, float]:
 def main(argv: list[str] | None = None) -> int:
     args = rb.ab_arguments(__doc__, "RESULTS_PROLONG.md", argv)
     lines, info = engine.report_head("prolong_bench.py", argv, "The prolongation, vectorised")
-    from sevenfold.solvers import gmg
-
     old = rb.stencil_at(args.against)
     lines += rb.ab_preamble(__doc__, args.against, "; *same* = the two forms' u bit for bit") + [
         "| job | cells | apply ms | kernel WU then | kernel WU now | now / then | same | "
         "iterations then / now | solve s then | solve s now | now / then | solve WU then | "
         "solve WU now |", "|" + "---|" * 13]
-    for n in args.sizes:
-        for case in args.cases:
-            job = rb.problem(n, case)
-            k = kernel_pair(job, old, args.rounds)
-            s = rb.solve_pair(job, {(gmg, "stencil"): old}, args.rounds)
-            del job
-            lines.append(
-                f"| {case} | {n}^3 | {k['apply'] * 1e3:.2f} | {k['then']:.2f} | {k['now']:.2f} | "
-                f"{k['now'] / k['then']:.2f} | {'yes' if k['same'] else 'no'} | "
-                f"{int(s['iterations then'])} / {int(s['iterations now'])} | {s['then']:.3f} | "
-                f"{s['now']:.3f} | {s['now'] / s['then']:.2f} | {s['then'] / k['apply']:.1f} | "
-                f"{s['now'] / k['apply']:.1f} |")
-            print(lines[-1], flush=True)
+    lines += rb.stencil_rows(args, old, kernel_pair, lambda k: "yes" if k["same"] else "no")
     engine.write_report(args.results, lines, info)
     return 0
 

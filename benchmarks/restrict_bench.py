@@ -171,13 +171,24 @@ def main(argv: list[str] | None = None) -> int:
     args = ab_arguments(__doc__, "RESULTS_RESTRICT.md", argv)
     lines, info = engine.report_head("restrict_bench.py", argv,
                                      "The fused residual and restriction, vectorised")
-    from sevenfold.solvers import gmg
-
     old = stencil_at(args.against)
     lines += ab_preamble(__doc__, args.against) + [
               "| job | cells | apply ms | kernel WU then | kernel WU now | now / then | difference | "
               "iterations then / now | solve s then | solve s now | now / then | solve WU then | "
               "solve WU now |", "|" + "---|" * 13]
+    lines += stencil_rows(args, old, kernel_pair, lambda k: f"{k['difference']:.1e}")
+    engine.write_report(args.results, lines, info)
+    return 0
+
+
+def stencil_rows(args: argparse.Namespace, old, kernel_pair, detail) -> list[str]:
+    """One table row per size and case of an A/B of a stencil kernel against ``old`` (the
+    module at the revision): ``kernel_pair(job, old, rounds)`` times the kernel alone (its
+    dict: then, now, apply), :func:`solve_pair` whole warm solves with the old module in
+    gmg's place; ``detail(kernel dict)`` is the row's seventh column."""
+    from sevenfold.solvers import gmg
+
+    lines = []
     for n in args.sizes:
         for case in args.cases:
             job = problem(n, case)
@@ -186,13 +197,12 @@ def main(argv: list[str] | None = None) -> int:
             del job
             lines.append(
                 f"| {case} | {n}^3 | {k['apply'] * 1e3:.2f} | {k['then']:.2f} | {k['now']:.2f} | "
-                f"{k['now'] / k['then']:.2f} | {k['difference']:.1e} | "
+                f"{k['now'] / k['then']:.2f} | {detail(k)} | "
                 f"{int(s['iterations then'])} / {int(s['iterations now'])} | {s['then']:.3f} | "
                 f"{s['now']:.3f} | {s['now'] / s['then']:.2f} | {s['then'] / k['apply']:.1f} | "
                 f"{s['now'] / k['apply']:.1f} |")
             print(lines[-1], flush=True)
-    engine.write_report(args.results, lines, info)
-    return 0
+    return lines
 
 
 if __name__ == "__main__":
