@@ -3,7 +3,8 @@
 A thin shell around :func:`sevenfold.runner.run_job`; the numerical core never imports it.
 
 * :mod:`.home`     where a queue lives and how its folders are laid out; timing settings
-* :mod:`.db`       the schema and every state change, each one short transaction
+* :mod:`.db`       :class:`~.db.Queue`: every state change, each one short transaction, from
+                  :mod:`.schema`, :mod:`.connection`, :mod:`.queries`, :mod:`.runs`, :mod:`.actions`
 * :mod:`.sweep`    ``[sweep]`` tables expanded into one job table per combination
 * :mod:`.submit`   validation and the snapshot of a job file and the inputs it names
 * :mod:`.worker`   slots, each with a long-lived child process; heartbeats, cancel, limits
