@@ -8,6 +8,7 @@ A thin shell around :func:`sevenfold.runner.run_job`; the numerical core never i
 * :mod:`.sweep`    ``[sweep]`` tables expanded into one job table per combination
 * :mod:`.submit`   validation and the snapshot of a job file and the inputs it names
 * :mod:`.worker`   slots, each with a long-lived child process; heartbeats, cancel, limits
+                  (a slot's thread :mod:`.slot`, its child's process and channel :mod:`.child_process`)
 * :mod:`.child`    the process that runs jobs for one slot
 * :mod:`.cluster`  ``worker --cluster``: the same claims, each job a task on a Dask cluster
 * :mod:`.watch`    convergence rate, remaining iterations and a terminal plot

@@ -6,7 +6,7 @@ says ``{"ready": pid}``, then reads one JSON request per line on stdin and answe
 line per request on the stdout it was started with;
 whatever the libraries print goes to stderr (the slot's log). Memory its jobs free stays
 with the process for the next job (the worker's environment,
-:func:`.worker.slot_environment`); it is given back when no request came for
+:func:`.child_process.slot_environment`); it is given back when no request came for
 :data:`IDLE_RELEASE` s, and before a job whose estimate is smaller than what is held, so a
 slot holds about what its job is admitted for. It dies with its worker (PR_SET_PDEATHSIG
 on Linux, and a parent check every iteration elsewhere). SIGUSR1 asks the running solve to

@@ -12,35 +12,33 @@ runs back once they are ``timing.stale`` seconds old. A cancel flag, a time limi
 shutdown asks the solve to stop at its next iteration; if it has not stopped after
 ``timing.grace`` seconds its process is killed. Half-written results of killed runs are
 removed.
+
+This module holds the worker as a whole (its slots, memory admission, heartbeat, shutdown);
+a slot's thread is :mod:`.slot`, its handle on the child process :mod:`.child_process`.
 """
 
 from __future__ import annotations
 
-import json
 import os
-import select
 import signal
 import socket
-import subprocess
-import sys
 import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Callable
 
-from .. import BLAS_THREAD_VARIABLES
 from ..errors import QueueError
-from ..memory import KEEP_FREED_MEMORY, available_bytes, human
+from ..memory import available_bytes, human
+from .child_process import slot_environment
 from .db import Queue
-from .records import Claim, ClaimResult
-from .files import remove_partials, write_text_atomic
+from .files import remove_partials
 from .home import Home, Timing
-from .tomlwrite import dumps
-from .wake import Bell, job_bell, ring
+from .records import ClaimResult
+from .slot import Slot
+from .wake import Bell
 
-READY_TIMEOUT = 900.0  # s: a first compile on a loaded machine can take minutes
-MAX_FAILED_STARTS = 3  # a draining worker gives up after this many failed child starts
+__all__ = ["Worker", "WorkerOptions", "cores", "slot_environment"]
 
 
 def cores() -> int:
@@ -62,294 +60,6 @@ class WorkerOptions:
     memory_bytes: int | None = None
     time_limit: float | None = None
     poll: float = 0.1  # s between looks at an empty queue (one cheap read)
-
-
-class ChildDied(Exception):
-    def __init__(self, returncode: int | None) -> None:
-        self.returncode = returncode
-        super().__init__(describe_exit(returncode))
-
-
-def describe_exit(code: int | None) -> str:
-    if code is None:
-        return "closed its channel"
-    if code < 0:
-        try:
-            name = signal.Signals(-code).name
-        except ValueError:
-            name = f"signal {-code}"
-        hint = " (the kernel's out-of-memory killer sends this)" if -code == signal.SIGKILL else ""
-        return f"was killed by {name}{hint}"
-    return f"exited with status {code}"
-
-
-def slot_environment(threads: int) -> dict[str, str]:
-    """The environment of a slot's child process: this one's, with its share of the cores,
-    and malloc keeping freed memory for the next job (:data:`~sevenfold.memory.KEEP_FREED_MEMORY`,
-    unless this environment already sets those variables; the child gives it back when idle)."""
-    env = {**KEEP_FREED_MEMORY, **os.environ}
-    env.update({
-        "NUMBA_NUM_THREADS": str(threads),
-        # numexpr (the job's expressions) on the same share: it would otherwise follow
-        # OMP_NUM_THREADS below and evaluate a 256^3 source on one thread
-        "NUMEXPR_NUM_THREADS": str(threads),
-        # One BLAS thread: the sparse solvers gain nothing from threaded BLAS and lose much
-        # to oversubscription on a busy machine (AMG setup at 24^3: 0.1 s, 0.5-4 s with 2).
-        "OMP_NUM_THREADS": "1",
-        **{name: "1" for name in BLAS_THREAD_VARIABLES},
-        "PYTHONUNBUFFERED": "1",
-    })
-    return env
-
-
-class Child:
-    """One child process and the line channel to it."""
-
-    def __init__(self, home: Home, threads: int, log: Path) -> None:
-        env = slot_environment(threads)
-        log.parent.mkdir(parents=True, exist_ok=True)
-        self._log = open(log, "ab")
-        self.proc = subprocess.Popen(
-            [sys.executable, "-m", "sevenfold.queue.child", "--home", str(home.root),
-             "--parent", str(os.getpid())],
-            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=self._log, env=env,
-            start_new_session=True,  # a Ctrl-C in the worker's terminal is the worker's to handle
-        )
-        self.pid = self.proc.pid
-        self._buffer = b""
-
-    def receive(self, timeout: float) -> dict[str, Any] | None:
-        """The next message, or None after ``timeout`` s; ChildDied when the child is gone."""
-        deadline = time.monotonic() + timeout
-        fd = self.proc.stdout.fileno()  # type: ignore[union-attr]
-        while b"\n" not in self._buffer:
-            left = deadline - time.monotonic()
-            if left <= 0:
-                return None
-            ready, _, _ = select.select([fd], [], [], left)
-            if not ready:
-                return None
-            chunk = os.read(fd, 1 << 16)
-            if not chunk:
-                raise ChildDied(self.proc.wait())
-            self._buffer += chunk
-        line, self._buffer = self._buffer.split(b"\n", 1)
-        return json.loads(line)
-
-    def send(self, message: dict[str, Any]) -> None:
-        try:
-            self.proc.stdin.write((json.dumps(message) + "\n").encode())  # type: ignore[union-attr]
-            self.proc.stdin.flush()  # type: ignore[union-attr]
-        except (BrokenPipeError, OSError):
-            raise ChildDied(self.proc.wait()) from None
-
-    def interrupt(self) -> None:
-        """Ask the running solve to stop at its next iteration."""
-        try:
-            os.kill(self.pid, signal.SIGUSR1)
-        except ProcessLookupError:
-            pass
-
-    def kill(self) -> int:
-        """Kill the child and reap it (so its pid no longer counts as alive)."""
-        try:
-            self.proc.kill()
-        except ProcessLookupError:
-            pass
-        code = self.proc.wait()
-        self._log.close()
-        return code
-
-    def close(self, timeout: float = 10.0) -> None:
-        try:
-            self.proc.stdin.close()  # type: ignore[union-attr]
-        except OSError:
-            pass
-        try:
-            self.proc.wait(timeout)
-        except subprocess.TimeoutExpired:
-            self.proc.kill()
-            self.proc.wait()
-        self._log.close()
-
-
-class Slot(threading.Thread):
-    """Claims jobs and runs them, one at a time, in its child process."""
-
-    def __init__(self, worker: "Worker", index: int, threads: int) -> None:
-        super().__init__(name=f"slot-{index}", daemon=True)
-        self.worker, self.index, self.threads = worker, index, threads
-        self.child: Child | None = None
-        self.current: Claim | None = None
-        self.busy = True  # until the first look at the queue
-        self.failure: str | None = None
-
-    # ---------------------------------------------------------------- child
-    def _start_child(self) -> Child:
-        w = self.worker
-        log = w.home.logs / f"{w.safe_id}-slot{self.index}.log"
-        child = Child(w.home, self.threads, log)
-        deadline = time.monotonic() + READY_TIMEOUT
-        while True:
-            if w.stopping.is_set():
-                child.kill()
-                raise ChildDied(None)
-            msg = child.receive(min(0.5, max(0.0, deadline - time.monotonic())))
-            if msg is not None:
-                if "compiling" in msg:  # a first start: said before the compile begins
-                    w.say(f"slot {self.index}: {msg['compiling']}")
-                    continue
-                if "ready" in msg:
-                    w.say(f"slot {self.index}: ready, {self.threads} thread(s), kernels warm in "
-                          f"{msg.get('warm_seconds', 0):.1f} s")
-                    return child
-                child.kill()
-                raise QueueError(f"the child could not start: {msg.get('fatal', msg)} "
-                                 f"(see {log})")
-            if time.monotonic() > deadline:
-                child.kill()
-                raise QueueError(f"the child did not get ready in {READY_TIMEOUT:.0f} s")
-
-    # ---------------------------------------------------------------- loop
-    def run(self) -> None:
-        w = self.worker
-        queue = Queue(w.home, w.timing)
-        backoff, failed_starts = 1.0, 0
-        try:
-            while not w.stopping.is_set():
-                if self.child is None:
-                    try:
-                        self.child = self._start_child()
-                        backoff, failed_starts = 1.0, 0
-                    except (ChildDied, QueueError) as exc:
-                        if w.stopping.is_set():
-                            break
-                        failed_starts += 1
-                        if w.options.drain and failed_starts >= MAX_FAILED_STARTS:
-                            raise QueueError(f"slot {self.index}: the child failed to start "
-                                             f"{failed_starts} times: {exc}") from None
-                        w.say(f"slot {self.index}: {exc}; trying again in {backoff:.0f} s")
-                        w.stopping.wait(backoff)
-                        backoff = min(backoff * 2, 60.0)
-                        continue
-                self.busy = True
-                result = w.claim(queue, self)
-                if result.claim is None:
-                    self.busy = False
-                    w.nap()
-                    continue
-                try:
-                    self._run(queue, result.claim)
-                finally:
-                    self.current = None
-                    w.release(self)
-                    self.busy = False
-        except BaseException as exc:  # a bug here must not leave the worker hanging silently
-            self.failure = str(exc) if isinstance(exc, QueueError) else f"{type(exc).__name__}: {exc}"
-            w.say(f"slot {self.index} stopped on an error: {self.failure}")
-            w.stopping.set()
-        finally:
-            self.busy = False
-            if self.child is not None:
-                self.child.close()
-                self.child = None
-            queue.close()
-
-    def _run(self, queue: Queue, claim: Claim) -> None:
-        w = self.worker
-        home = w.home
-        output = Path(claim.output)
-        w.say(f"started {claim.id} {claim.name} (slot {self.index}, attempt {claim.attempt})")
-        try:
-            write_text_atomic(home.job_file(claim.id), dumps(claim.job_table))
-            remove_partials(output)
-        except OSError as exc:
-            queue.fail(claim.id, claim.run_id, f"OS error preparing the run: {exc}")
-            w.say(f"failed {claim.id} {claim.name}: OS error preparing the run: {exc}")
-            return
-        child = self.child
-        assert child is not None
-        queue.set_pid(claim.id, claim.run_id, child.pid)
-        limit = claim.time_limit if claim.time_limit is not None else w.options.time_limit
-        reason: str | None = None  # why the slot asked the run to stop: cancel | time | shutdown | lost
-        asked_at = 0.0
-        try:
-            child.send({"job": claim.id, "run": claim.run_id, "attempt": claim.attempt,
-                        "output": claim.output, "worker": w.id, "memory_bytes": claim.memory_bytes})
-            while True:
-                msg = child.receive(0.25)
-                if msg is not None:
-                    self._finish(queue, claim, msg, reason, limit)
-                    return
-                now = time.monotonic()
-                if reason is None:
-                    if home.cancel_flag(claim.id).exists():
-                        reason, asked_at = "cancel", now  # the child polls the flag itself
-                    elif limit is not None and time.time() - claim.started > limit:
-                        reason, asked_at = "time", now
-                        child.interrupt()
-                    elif w.stopping.is_set():
-                        reason, asked_at = "shutdown", now
-                        child.interrupt()
-                    elif claim.run_id in w.lost:
-                        reason, asked_at = "lost", now
-                        child.interrupt()
-                elif now - asked_at > w.timing.grace:
-                    child.kill()  # the next receive reports it died
-        except ChildDied as died:
-            self.child = None
-            child.kill()
-            remove_partials(output)
-            self._died(queue, claim, reason, describe_exit(died.returncode), limit)
-        finally:
-            ring(home.root, job_bell(claim.id))  # a `run` following the job reports at once
-
-    def _finish(self, queue: Queue, claim: Claim, msg: dict[str, Any], reason: str | None,
-                limit: float | None) -> None:
-        w = self.worker
-        status = msg.get("status")
-        if status == "done":
-            if queue.finish(claim.id, claim.run_id, msg["summary"]):
-                s = msg["summary"]
-                w.say(f"done {claim.id} {claim.name}: {s.get('iterations')} iterations, relative residual "
-                      f"{s.get('final_relative_residual', float('nan')):.1e}, "
-                      f"{s.get('seconds', {}).get('job', float('nan')):.1f} s")
-            else:
-                w.say(f"{claim.id} {claim.name}: finished, but the job was taken back from this worker meanwhile")
-        elif status == "cancelled":
-            if reason is None and w.home.cancel_flag(claim.id).exists():
-                reason = "cancel"
-            self._stopped(queue, claim, reason, "stopped at its next iteration", limit)
-        else:
-            error = msg.get("error", "failed for an unknown reason")
-            queue.fail(claim.id, claim.run_id, error, msg.get("kind"))
-            w.say(f"failed {claim.id} {claim.name}: {error}")
-
-    def _stopped(self, queue: Queue, claim: Claim, reason: str | None, how: str, limit: float | None) -> None:
-        w = self.worker
-        if reason == "cancel":
-            queue.cancelled(claim.id, claim.run_id, f"cancelled while running; {how}")
-            w.say(f"cancelled {claim.id} {claim.name} ({how})")
-        elif reason == "time":
-            error = f"exceeded its time limit of {limit:g} s; {how}"
-            queue.fail(claim.id, claim.run_id, error)
-            w.say(f"failed {claim.id} {claim.name}: {error}")
-        elif reason == "shutdown":
-            queue.requeue(claim.id, claim.run_id, f"worker {w.id} shut down; {how}")
-            w.say(f"requeued {claim.id} {claim.name} (worker shutting down)")
-        elif reason == "lost":
-            w.say(f"{claim.id} {claim.name}: taken back from this worker (heartbeat went stale); {how}")
-        else:
-            queue.fail(claim.id, claim.run_id, f"the solve stopped without being asked to; {how}")
-
-    def _died(self, queue: Queue, claim: Claim, reason: str | None, how: str, limit: float | None) -> None:
-        if reason is not None:
-            grace = self.worker.timing.grace
-            self._stopped(queue, claim, reason, f"killed after the {grace:g} s grace period", limit)
-            return
-        error = f"the process running the job {how}"
-        queue.fail(claim.id, claim.run_id, error)
-        self.worker.say(f"failed {claim.id} {claim.name}: {error}; starting a new child for slot {self.index}")
 
 
 class Worker:
