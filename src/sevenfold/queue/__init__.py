@@ -11,6 +11,7 @@ A thin shell around :func:`sevenfold.runner.run_job`; the numerical core never i
                   (a slot's thread :mod:`.slot`, its child's process and channel :mod:`.child_process`)
 * :mod:`.child`    the process that runs jobs for one slot
 * :mod:`.cluster`  ``worker --cluster``: the same claims, each job a task on a Dask cluster
+                  (the task, run on a Dask worker: :mod:`.cluster_task`)
 * :mod:`.watch`    convergence rate, remaining iterations and a terminal plot
 * :mod:`.commands` the ``submit list show watch log cancel retry worker`` subcommands
 """

@@ -12,7 +12,7 @@ open the queue database.
 * Progress: the task writes the residual log and the run record beside the output, where
   ``watch``, ``log`` and ``show`` read them.
 * Cancel: a ``distributed.Event`` per run (``sevenfold-cancel-<run>``) that the task polls
-  every :data:`POLL_SECONDS`; a task that has not stopped after the grace period has its
+  every :data:`.cluster_task.POLL_SECONDS`; a task that has not stopped after the grace period has its
   future cancelled. The task also stops when its future is released (its claimer is gone).
 * A lost Dask worker: the scheduler runs the task again elsewhere (up to
   ``distributed.scheduler.allowed-failures`` times, then ``KilledWorker``). Each start appends
@@ -21,7 +21,9 @@ open the queue database.
 * Resources: ``memory`` (the job's estimate, bytes) and ``threads`` are requested only when
   the cluster's workers declare those resources (``dask worker --resources``).
 
-``distributed`` is imported only here and only when ``--cluster`` is used.
+What runs on the Dask worker (:func:`.cluster_task.run_task`) is :mod:`.cluster_task`; this
+module is the claiming side. ``distributed`` is imported only in these two, and only when
+``--cluster`` is used.
 """
 
 from __future__ import annotations
@@ -37,6 +39,7 @@ from typing import Any, Callable
 
 from ..errors import QueueError
 from ..memory import human
+from .cluster_task import cancel_event_name, run_task
 from .db import Queue
 from .records import Claim
 from .files import read_runs, remove_partials
@@ -44,7 +47,6 @@ from .home import Home, Timing
 
 INSTALL_HINT = "the cluster worker needs Dask: pip install 'sevenfold[cluster]'"
 CONNECT_TIMEOUT = 5.0  # s to reach the scheduler before giving up
-POLL_SECONDS = 0.25  # s between a task's looks at its cancel event
 INFO_SECONDS = 2.0  # s between looks at the cluster's workers (capacity, memory)
 
 
@@ -54,11 +56,6 @@ def _distributed():
     except ImportError:
         raise QueueError(INSTALL_HINT) from None
     return distributed
-
-
-def cancel_event_name(run_id: str) -> str:
-    """The ``distributed.Event`` that asks a run's task to stop."""
-    return f"sevenfold-cancel-{run_id}"
 
 
 def connect(address: str) -> Any:
@@ -74,77 +71,6 @@ def connect(address: str) -> Any:
                          f"({detail}); nothing was claimed, the queued jobs stay queued") from None
 
 
-# ---------------------------------------------------------------- on the Dask worker
-class TaskMonitor:
-    """Stops the solve when the run's cancel event is set or its task was released."""
-
-    def __init__(self, event: Any, worker: Any, key: Any) -> None:
-        self.event, self.worker, self.key = event, worker, key
-        self._last = 0.0
-        self._stop = False
-
-    def iteration(self, iteration: int, relative_residual: float, elapsed: float) -> None:
-        pass  # the runner writes the residual log beside the output
-
-    def _released(self) -> bool:
-        try:
-            ts = self.worker.state.tasks.get(self.key)
-        except AttributeError:  # a distributed without this state: rely on the event alone
-            return False
-        return ts is None or ts.state in ("cancelled", "released", "forgotten")
-
-    def stop_requested(self) -> bool:
-        now = time.monotonic()
-        if self._stop or now - self._last < POLL_SECONDS:
-            return self._stop
-        self._last = now
-        try:
-            self._stop = bool(self.event.is_set())
-        except Exception:  # the scheduler is briefly unreachable: keep solving
-            pass
-        self._stop = self._stop or self._released()
-        return self._stop
-
-
-def run_task(request: dict[str, Any]) -> dict[str, Any]:
-    """The Dask task: run one queued job on this Dask worker; a reply as the slot child gives.
-
-    ``request``: job, run, attempt (the claim's), output, job_table, job_file (a name for
-    messages), threads, worker (the claimer).
-    """
-    import distributed
-
-    from ..spec import parse_job
-    from .child import run_recorded
-
-    worker = distributed.get_worker()
-    key = worker.get_current_task()
-    event = distributed.Event(cancel_event_name(request["run"]))
-    if event.is_set():
-        return {"status": "cancelled", "error": "cancelled before it started", "attempt": request["attempt"]}
-    output = Path(request["output"])
-    starts = sum(1 for r in read_runs(output) if r.get("event") == "start" and r.get("run") == request["run"])
-    attempt = int(request["attempt"]) + starts  # the scheduler runs the task again when a worker dies
-    remove_partials(output)  # what a killed earlier attempt on this host left
-    threads = max(1, int(request.get("threads") or 1))
-    try:
-        import numba
-
-        numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
-    except (ImportError, ValueError):
-        pass
-    record = {"job": request["job"], "run": request["run"], "attempt": attempt,
-              "worker": request.get("worker"), "dask_worker": worker.address,
-              "host": socket.gethostname(), "pid": os.getpid()}
-    try:
-        spec = parse_job(request["job_table"], request["job_file"])
-    except Exception as exc:  # JobError: the snapshot was validated at submit, so rare
-        return {"status": "failed", "kind": "input", "error": str(exc), "attempt": attempt}
-    reply = run_recorded(Path(request["job_file"]), output, TaskMonitor(event, worker, key), record, spec)
-    return {**reply, "attempt": attempt}
-
-
-# ---------------------------------------------------------------- on the claiming machine
 @dataclass(frozen=True)
 class ClusterOptions:
     """``address`` of the scheduler; ``slots``: jobs in flight (default: what the cluster's
