@@ -1,10 +1,15 @@
-"""Exceptions of sevenfold. Every message is meant to be shown to a user as it is."""
+"""Exceptions of sevenfold, and the exit codes the command gives them. Every message is meant
+to be shown to a user as it is."""
 
 from __future__ import annotations
 
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Iterator
+
+# The ``sevenfold`` command's exit codes: a JobError (or another SevenfoldError) exits
+# EXIT_INPUT, a SolverError or Cancelled EXIT_SOLVER, Ctrl-C EXIT_INTERRUPTED.
+EXIT_OK, EXIT_SOLVER, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
 
 
 class SevenfoldError(Exception):

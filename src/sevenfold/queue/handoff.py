@@ -6,7 +6,7 @@ empty queue (so the job starts at once): then ``run`` validates the job file as 
 does (the spec and the plan; the worker builds the problem), queues it with one attempt,
 follows its residual log and reports as if it had run it. Otherwise nothing is touched (no
 queue home is made) and ``run`` solves in its own process. Queue logic only: what is shown
-is the caller's (:mod:`sevenfold.cli`).
+is the caller's (:mod:`sevenfold.cli_run`).
 """
 
 from __future__ import annotations
