@@ -370,13 +370,16 @@ LOAD = """
 import json, sys
 import numpy as np
 {patch}
+from sevenfold.kernels.stencil import starts
 from sevenfold.kernels.vector import dot, dot_serial
 x = np.arange(200_000.0)
 values = [dot_serial(x[:5], x[:5]), dot(x, x)]
 import numba
 print(json.dumps({{"values": values, "threads": numba.get_num_threads(), "layer": numba.threading_layer(),
-                  "hits": sum(sum(k._cache_hits.values()) for k in (dot, dot_serial)),
-                  "compiler": "numba.np.linalg" in sys.modules}}))
+                  "starts": starts(np.array([0, 0, 1, 1, 1, 2]), 3).tolist(),
+                  "hits": sum(sum(k._cache_hits.values()) for k in (dot, dot_serial, starts)),
+                  "compiler": "numba.np.linalg" in sys.modules,
+                  "array_lowering": "numba.np.arrayobj" in sys.modules}}))
 """
 # numba's runtime start fails once, as if numba's internals had moved: the lean load gives way
 FAILING_RUNTIME = """
@@ -400,16 +403,19 @@ def _load(cache: Path, patch: str = "") -> dict:
 
 def test_cached_kernels_load_without_numbas_compiler_registries(tmp_path: Path) -> None:
     """kernels/jit.py: a kernel found in the cache, serial or threaded, loads without the
-    registries numba's compiler refreshes (numba.np.linalg stands for them), and computes
-    what it computed when it was compiled. Expected sums: 0+1+4+9+16 and sum of i^2 for
-    i < 200,000 = (n-1) n (2n-1) / 6 (from memory)."""
+    registries numba's compiler refreshes (numba.np.linalg stands for them), and without the
+    array lowering that a threaded reduction's and an allocation's environments name, and
+    computes what it computed when it was compiled. Expected sums: 0+1+4+9+16 and sum of i^2
+    for i < 200,000 = (n-1) n (2n-1) / 6 (from memory); the starts of aggregates of 2, 3 and
+    1 cells: 0, 2, 5, and 6 cells in all."""
     n = 200_000
     expected = [30.0, (n - 1) * n * (2 * n - 1) / 6]
     compiled = _load(tmp_path)
     assert compiled["hits"] == 0 and compiled["compiler"]  # compiling loads the registries
     loaded = _load(tmp_path)
-    assert loaded["hits"] == 2
-    assert not loaded["compiler"]
+    assert loaded["hits"] == 3
+    assert not loaded["compiler"] and not loaded["array_lowering"]
+    assert loaded["starts"] == compiled["starts"] == [0, 2, 5, 6]
     assert loaded["values"] == compiled["values"]
     assert loaded["values"] == pytest.approx(expected, rel=1e-12)
     assert loaded["threads"] == compiled["threads"] and loaded["layer"] == compiled["layer"]
@@ -418,7 +424,7 @@ def test_cached_kernels_load_without_numbas_compiler_registries(tmp_path: Path) 
 def test_a_lean_load_that_fails_gives_way_to_numbas_own(tmp_path: Path) -> None:
     _load(tmp_path)
     loaded = _load(tmp_path, FAILING_RUNTIME)
-    assert loaded["hits"] == 2  # still from the cache, not compiled again
+    assert loaded["hits"] == 3  # still from the cache, not compiled again
     assert loaded["compiler"]  # numba's own load refreshed the context
     assert loaded["values"][0] == 30.0
 
