@@ -193,7 +193,7 @@ def test_no_kernel_is_compiled_twice_for_accidental_type_differences(tmp_path: P
     """Every method, holds, every face type, a pure-Neumann job, graded and directional grids:
     each kernel keeps one specialisation per real type combination (float32 next to float64
     would be a real one; C vs non-contiguous, int32 vs int64 or 1 vs 1.0 are accidents)."""
-    from sevenfold.kernels import assembly, stencil, vector
+    from sevenfold.kernels import assembly, finite_volume, stencil, vector
     from sevenfold.runner import run_job
     from sevenfold.spec import parse_job
 
@@ -220,7 +220,7 @@ def test_no_kernel_is_compiled_twice_for_accidental_type_differences(tmp_path: P
         spec = parse_job(table, "test")
         run_job(tmp_path / "job.toml", tmp_path / f"{spec.name}.zarr", spec=spec)
     compiled = 0
-    for module in (assembly, stencil, vector):
+    for module in (assembly, finite_volume, stencil, vector):
         for name in dir(module):
             d = getattr(module, name)
             if not hasattr(d, "signatures") or not d.signatures:
@@ -333,7 +333,7 @@ def test_the_command_asks_numpy_for_small_pages_unless_told(command, given, huge
 PLAN_PROBE = """
 import json, sys
 from pathlib import Path
-from sevenfold.kernels import assembly, band, multigrid, stencil, vector, warmup
+from sevenfold.kernels import assembly, band, finite_volume, lines, multigrid, stencil, vector, warmup
 from sevenfold.runner import gmg_precision, plan_job, prepare_problem, run_job
 job, out = Path(sys.argv[1]), Path(sys.argv[2])
 plan, problem = prepare_problem(plan_job(job, out))
@@ -341,7 +341,7 @@ precision = gmg_precision(problem)
 warmup.warm_up("gmg", problem.grid.cells, child=False, precision=precision)
 def counts():
     return {f"{m.__name__}.{n}": len(getattr(m, n).signatures)
-            for m in (assembly, band, multigrid, stencil, vector) for n in dir(m)
+            for m in (assembly, band, finite_volume, lines, multigrid, stencil, vector) for n in dir(m)
             if hasattr(getattr(m, n), "signatures")}
 before = counts()
 run_job(job, out)
