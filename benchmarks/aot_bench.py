@@ -45,7 +45,8 @@ ROOT = HERE.parent
 sys.path.insert(0, str(HERE))
 from start_bench import import_profile, load_average, revision, timed, write_job  # noqa: E402  (also sets SEVENFOLD_HOME)
 
-KERNEL_MODULES = ("sevenfold.kernels.stencil", "sevenfold.kernels.multigrid", "sevenfold.kernels.vector")
+KERNEL_MODULES = ("sevenfold.kernels.finite_volume", "sevenfold.kernels.stencil", "sevenfold.kernels.lines",
+                  "sevenfold.kernels.multigrid", "sevenfold.kernels.vector")
 TARGET = 1.2  # seconds, a warm 32^3 `sevenfold run` as a whole process (issue 10)
 MODULE = "sevenfold_aot"  # the extension's name (one folder per target CPU)
 PY = sys.executable

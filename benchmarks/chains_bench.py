@@ -4,7 +4,7 @@ loops across a column-interleaved block, alone and in whole gmg solves.
     python benchmarks/chains_bench.py --against REVISION [--sizes 128 256]
         [--cases layered inclusions constant column "graded job"] [--rounds 3]
 
-`multigrid._line_plane` solves the z-line systems of a block of eight columns. It gathered
+`lines._line_plane` solves the z-line systems of a block of eight columns. It gathered
 the block's right-hand sides, pivots and couplings into buffers interleaved by column and ran
 the Thomas recurrences as loops across the block, meant to vectorise. numba does not enable
 LLVM's SLP vectoriser, so those eight-iteration loops were unrolled into scalar code, and the
@@ -18,7 +18,7 @@ For each job, in one process, the two forms alternating (``--rounds`` times each
 The jobs are `cycle_bench.problem_level`'s, as in restrict_bench.py.
 
 * the kernel alone on the two finest smoothed levels of the solver's hierarchy (float32,
-  random b and u): one smoothing step (two sweeps, `multigrid.line_gauss_seidel`), wall
+  random b and u): one smoothing step (two sweeps, `lines.line_gauss_seidel`), wall
   seconds over one float64 operator application of the job's grid (best of many): work
   units; and whether the results are equal bit for bit;
 * the warm gmg set-up + solve (one untimed solve, then the best of two, as
@@ -44,10 +44,10 @@ def main(argv: list[str] | None = None) -> int:
     from sevenfold.solvers import gmg
 
     args = rb.ab_arguments(__doc__, "RESULTS_LINE_CHAINS.md", argv)
-    old = sweeps_bench.multigrid_at(args.against)
+    old = sweeps_bench.lines_at(args.against)
     return sweeps_bench.report(args, argv, "chains_bench.py",
                                "The z-line recurrences as written-out chains", __doc__, old,
-                               {(gmg, "multigrid"): old})
+                               {(gmg, "lines"): old})
 
 
 if __name__ == "__main__":

@@ -36,7 +36,7 @@ sys.path.insert(0, str(HERE))
 import cycle_bench as cb  # noqa: E402
 import wall_bench  # noqa: E402
 
-from sevenfold.kernels.multigrid import LINE_BLOCK  # noqa: E402
+from sevenfold.kernels.lines import LINE_BLOCK  # noqa: E402
 from sevenfold.solvers import gmg  # noqa: E402
 
 LB = LINE_BLOCK
@@ -48,8 +48,8 @@ HIGHEST = 2.0  # bound on the eigenvalues of M^-1 A
 def solve_block(y, w, t, nz):
     """Solve LB tridiagonal z-line systems side by side, in place: ``y`` (nz rows of LB, flat)
     holds their right-hand sides and gets the solutions; ``w`` the pivots 1 / w_k of
-    multigrid.line_factor and ``t`` the couplings tz, in the same layout (the sweep's block
-    solve until multigrid._line_plane wrote its recurrences out as chains)."""
+    lines.line_factor and ``t`` the couplings tz, in the same layout (the sweep's block
+    solve until lines._line_plane wrote its recurrences out as chains)."""
     for c in range(LB):
         y[c] = y[c] * w[c]
     for m in range(1, nz):
@@ -65,7 +65,7 @@ def solve_block(y, w, t, nz):
 @njit(parallel=True)  # (no cache: a cached kernel re-imports this module)
 def chebyshev_line_step(tx, ty, tz, diag, inv_w, b, u, d, keep, gain):
     """d = keep * d + gain * M^-1 (b - A u), M the z-line part of A (pivots ``inv_w`` as
-    multigrid.line_factor stores them); columns in blocks of LINE_BLOCK as in the sweep."""
+    lines.line_factor stores them); columns in blocks of LINE_BLOCK as in the sweep."""
     nx, ny, nz = u.shape
     for i in prange(nx):
         y = np.empty(nz * LB, dtype=u.dtype)

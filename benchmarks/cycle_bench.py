@@ -187,15 +187,15 @@ def patched(two_pass: bool = False, finest_sweeps: int | None = None, wide_rhs: 
     traffic); ``finest_sweeps``, that many sweeps each side on the finest level only;
     ``wide_rhs``, the finest level smoothing CG's float64 residual itself (as before the
     float32 copy: a second signature of each level kernel, no narrowing pass)."""
-    from sevenfold.kernels import multigrid
+    from sevenfold.kernels import lines
     from sevenfold.solvers.gmg import Hierarchy
 
-    one_pass, smooth, rhs = multigrid.line_gauss_seidel, Hierarchy._smooth, Hierarchy._rhs
+    one_pass, smooth, rhs = lines.line_gauss_seidel, Hierarchy._smooth, Hierarchy._rhs
 
     def sweep(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
         for _ in range(sweeps):
             for colour in (first, 1 - first):
-                multigrid.line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour)
+                lines.line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour)
 
     def fewer_on_finest(self, lv, b, u, first):
         kept = self.sweeps
@@ -206,7 +206,7 @@ def patched(two_pass: bool = False, finest_sweeps: int | None = None, wide_rhs: 
         finally:
             self.sweeps = kept
     if two_pass:
-        multigrid.line_gauss_seidel = sweep
+        lines.line_gauss_seidel = sweep
     if finest_sweeps is not None:
         Hierarchy._smooth = fewer_on_finest
     if wide_rhs:
@@ -214,7 +214,7 @@ def patched(two_pass: bool = False, finest_sweeps: int | None = None, wide_rhs: 
     try:
         yield
     finally:
-        multigrid.line_gauss_seidel, Hierarchy._smooth, Hierarchy._rhs = one_pass, smooth, rhs
+        lines.line_gauss_seidel, Hierarchy._smooth, Hierarchy._rhs = one_pass, smooth, rhs
 
 
 def run_case(n: int, case: str, names, repeats: int = 1) -> list[dict]:

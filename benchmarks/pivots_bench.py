@@ -28,12 +28,12 @@ import numba
 import numpy as np
 from numba import njit, prange
 
-from sevenfold.kernels import multigrid
+from sevenfold.kernels import lines
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 from timing import best  # noqa: E402
-LB = multigrid.LINE_BLOCK
+LB = lines.LINE_BLOCK
 
 
 @njit(parallel=True)
@@ -52,7 +52,7 @@ def factor_per_column(tz, diag, inv_w):
 
 @njit
 def _plane_on_the_fly(tx, ty, tz, diag, b, u, i, colour, y, w, t):
-    """multigrid._line_plane with w gathered from diag and inverted inside the recurrence."""
+    """lines._line_plane with w gathered from diag and inverted inside the recurrence."""
     nx, ny, nz = u.shape
     im, ip = max(i - 1, 0), min(i + 1, nx - 1)
     itm = i - 1 if i > 0 else nx - 1
@@ -93,7 +93,7 @@ def _plane_on_the_fly(tx, ty, tz, diag, b, u, i, colour, y, w, t):
 
 @njit(parallel=True)
 def sweep_on_the_fly(tx, ty, tz, diag, b, u, first, chunks):
-    """multigrid.line_gauss_seidel's one-pass wavefront with _plane_on_the_fly."""
+    """lines.line_gauss_seidel's one-pass wavefront with _plane_on_the_fly."""
     nx, nz = u.shape[0], u.shape[2]
     chunks = max(1, min(chunks, nx))
     second = 1 - first
@@ -135,16 +135,16 @@ def measure(n: int, dtype, repeats: int, threads: int) -> tuple:
     fly, sweep diff); seconds."""
     tx, ty, tz, diag, b = level(n, dtype)
     kept, before = (np.empty((n, n, n), np.float32) for _ in range(2))
-    multigrid.line_factor(tz, diag, kept)
+    lines.line_factor(tz, diag, kept)
     factor_per_column(tz, diag, before)
     pivots_diff = float(np.abs(kept / before - 1.0).max())
-    t_kept = best(lambda: multigrid.line_factor(tz, diag, kept), repeats)
+    t_kept = best(lambda: lines.line_factor(tz, diag, kept), repeats)
     t_before = best(lambda: factor_per_column(tz, diag, before), repeats)
     u1, u2 = (np.zeros((n, n, n), np.float32) for _ in range(2))
-    multigrid.line_gauss_seidel(tx, ty, tz, kept, b, u1, 0, 1, threads)
+    lines.line_gauss_seidel(tx, ty, tz, kept, b, u1, 0, 1, threads)
     sweep_on_the_fly(tx, ty, tz, diag, b, u2, 0, threads)
     sweep_diff = float(np.abs(u1 - u2).max() / np.abs(u1).max())
-    t_stored = best(lambda: multigrid.line_gauss_seidel(tx, ty, tz, kept, b, u1, 0, 1, threads), repeats)
+    t_stored = best(lambda: lines.line_gauss_seidel(tx, ty, tz, kept, b, u1, 0, 1, threads), repeats)
     t_fly = best(lambda: sweep_on_the_fly(tx, ty, tz, diag, b, u2, 0, threads), repeats)
     row = (n, np.dtype(dtype).name, t_kept, t_before, pivots_diff, t_stored, t_fly, sweep_diff)
     print(row, flush=True)

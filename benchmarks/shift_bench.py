@@ -71,8 +71,11 @@ def hierarchy_at(revision: str):
     # the revision's levels (its Level and rule for the planes) beside the current ones
     wall_bench.module_at(revision, "sevenfold.solvers.levels", edit=uncached)
     gmg = wall_bench.module_at(revision, "sevenfold.solvers.gmg", edit=lambda s: uncached(
-        s.replace("from ..kernels import multigrid, stencil\n", "")))
+        s.replace("from ..kernels import multigrid, stencil\n", "").replace(
+            "from ..kernels import lines, multigrid, stencil\n", "")))
     gmg.multigrid, gmg.stencil = multigrid, stencil
+    if not hasattr(multigrid, "line_gauss_seidel"):  # a revision after the z-line smoother's split
+        gmg.lines = wall_bench.module_at(revision, "sevenfold.kernels.lines", edit=uncached)
 
     takes_planes = "planes" in inspect.signature(gmg.Hierarchy).parameters
 

@@ -3,7 +3,7 @@ work-unit target.
 
     python benchmarks/split_bench.py [--sizes 128 256] [--cases column layered inclusions constant]
 
-The kept sweep (`sevenfold.kernels.multigrid.line_gauss_seidel`) stores a level as u[i, j, k],
+The kept sweep (`sevenfold.kernels.lines.line_gauss_seidel`) stores a level as u[i, j, k],
 z contiguous. Its columns of one colour ((i + j) % 2) are every other j, so each block of 8
 columns is gathered from 8 strided columns into a small buffer before the Thomas recurrences
 can run across the block; that gather and the scatter back are most of a sweep's time.
@@ -55,7 +55,7 @@ import cycle_bench as cb  # noqa: E402
 import timing  # noqa: E402
 import wall_bench  # noqa: E402
 
-from sevenfold.kernels import multigrid, stencil  # noqa: E402
+from sevenfold.kernels import lines, multigrid, stencil  # noqa: E402
 from sevenfold.solvers import gmg  # noqa: E402
 from sevenfold.solvers.cg import pcg  # noqa: E402
 
@@ -105,7 +105,7 @@ def _solve_row(b, txm, uxm, txp, uxp, tym, typ, uy, tz, iw, u, q):
     other colour's), uy the other colour's u in this row, tz and iw the z couplings and pivots,
     u the row's own u (written). q = 0: the y-minus neighbour of column h is the other colour's
     column h - 1, and h + 0 the y-plus one; q = 1: h and h + 1. The sums in the order of
-    multigrid._line_plane, the recurrences of its _forward and _backward; each loop runs across the
+    lines._line_plane, the recurrences of its _forward and _backward; each loop runs across the
     row's columns at unit stride and touches few arrays, so that it vectorises."""
     nz, nyh = u.shape
     for k in range(nz):
@@ -147,7 +147,7 @@ def _row(tx, ty, tz, iw, b, u, i, c):
 @njit(parallel=True)
 def sweep_split(tx, ty, tz, iw, b, u, first, chunks):
     """One zebra z-line Gauss-Seidel sweep on split arrays, colour ``first`` then the other,
-    in one pass (the order of multigrid.line_gauss_seidel: the second colour one row behind,
+    in one pass (the order of lines.line_gauss_seidel: the second colour one row behind,
     ``chunks`` runs of rows, the runs' border rows last)."""
     nx = u.shape[1]
     chunks = max(1, min(chunks, nx))
@@ -540,12 +540,12 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
         # the check the docstring promises: one sweep from the same random u, both layouts
         start = np.random.default_rng(level).standard_normal(lv.shape).astype(h.dtype)
         kept_u, split_u, back = start.copy(), split(start), np.empty_like(start)
-        multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, kept_u, 0, 1, threads)
+        lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, kept_u, 0, 1, threads)
         sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, split_u, 0, threads)
         from_split(split_u, back)
         same = bool(np.array_equal(kept_u, back))
         pairs = {"sweep": (
-            lambda: multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, u, 0, 1, threads),
+            lambda: lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, u, 0, 1, threads),
             lambda: sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, su, 0, threads))}
         if level == 0:
             coarse = h.levels[1]

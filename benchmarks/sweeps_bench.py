@@ -7,7 +7,7 @@ revision's one sweep per pass, alone and in whole gmg solves.
 gmg smooths each level with two zebra z-line Gauss-Seidel sweeps before the coarse correction
 and two after. Until this change each sweep was one pass over the level's arrays (its second
 colour trailing the first by one x-plane), so a smoothing step read the coefficients, pivots,
-right-hand side and solution twice. Now `multigrid.line_gauss_seidel` takes the number of
+right-hand side and solution twice. Now `lines.line_gauss_seidel` takes the number of
 sweeps and runs all four colour passes as one wavefront, each trailing the one before by a
 plane: the same column solves in an order that gives the same numbers bit for bit.
 
@@ -42,9 +42,10 @@ import timing  # noqa: E402
 import wall_bench  # noqa: E402
 
 
-def multigrid_at(revision: str):
-    """``sevenfold.kernels.multigrid`` as it was at ``revision`` (``wall_bench.kernels_at``)."""
-    return wall_bench.kernels_at(revision, "sevenfold.kernels.multigrid")
+def lines_at(revision: str):
+    """``sevenfold.kernels.lines`` (the z-line smoother) as it was at ``revision``
+    (``wall_bench.kernels_at``)."""
+    return wall_bench.kernels_at(revision, "sevenfold.kernels.lines")
 
 
 def one_sweep_per_pass(old):
@@ -79,7 +80,7 @@ def kernel_pair(job, old, rounds: int) -> list[dict]:
     smoothed), both forms, in work units of the job."""
     import numba
 
-    from sevenfold.kernels import multigrid
+    from sevenfold.kernels import lines
     from sevenfold.solvers.gmg import DEFAULTS, Hierarchy, fine_level
 
     fine, _ = fine_level(job)
@@ -96,7 +97,7 @@ def kernel_pair(job, old, rounds: int) -> list[dict]:
         now, then = start.copy(), start.copy()
 
         def run_now(u=now):
-            multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, 2, threads)
+            lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, 2, threads)
 
         def run_then(u=then):
             two_sweeps(old, lv, b, u, threads)
@@ -116,15 +117,15 @@ def main(argv: list[str] | None = None) -> int:
     from sevenfold.solvers import gmg
 
     args = rb.ab_arguments(__doc__, "RESULTS_SWEEPS.md", argv)
-    old = multigrid_at(args.against)
-    then = {(gmg, "multigrid"): old, (gmg.Hierarchy, "_smooth"): one_sweep_per_pass(old)}
+    old = lines_at(args.against)
+    then = {(gmg, "lines"): old, (gmg.Hierarchy, "_smooth"): one_sweep_per_pass(old)}
     return report(args, argv, "sweeps_bench.py", "Two z-line sweeps in one pass over memory",
                   __doc__, old, then)
 
 
 def report(args, argv: list[str] | None, script: str, title: str, doc: str, old, then: dict) -> int:
     """Run the kernel and solve pairs for every size and case of ``args`` and write the
-    report: ``old`` the revision's multigrid module, ``then`` the attributes its solves set
+    report: ``old`` the revision's z-line smoother module, ``then`` the attributes its solves set
     (restrict_bench.solve_pair)."""
     lines, info = engine.report_head(script, argv, title)
     lines += rb.ab_preamble(doc, args.against, "; *two sweeps* = one smoothing step on that "

@@ -44,7 +44,7 @@ sys.path.insert(0, str(HERE))
 import cycle_bench as cb  # noqa: E402
 import run as engine  # noqa: E402
 
-from sevenfold.kernels import multigrid  # noqa: E402
+from sevenfold.kernels import lines, multigrid  # noqa: E402
 from sevenfold.solvers import gmg  # noqa: E402
 from sevenfold.solvers.coarsest import CoarsestSolver  # noqa: E402
 from sevenfold.solvers.levels import Level, coarsening_step, pairs  # noqa: E402
@@ -134,7 +134,7 @@ class WallHierarchy(gmg.Hierarchy):
         self.notes = " ".join("".join(map(str, o)) for o in self.offsets)
         for lv in self.levels[:-1]:
             lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
-            multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
+            lines.line_factor(lv.tz, lv.diag, lv.inv_w)
         self.coarsest = CoarsestSolver(self.levels[-1])
 
 
@@ -279,9 +279,14 @@ def _called_as_now(then, now, revision: str):
     return called
 
 
+# kernel modules split off a module: their kernels' home at a revision before the split
+SPLIT_FROM = {"sevenfold.kernels.lines": "sevenfold.kernels.multigrid",
+              "sevenfold.kernels.finite_volume": "sevenfold.kernels.stencil"}
+
+
 def kernels_at(revision: str, name: str):
-    """Kernel module ``name`` (e.g. "sevenfold.kernels.stencil") as it was at ``revision``,
-    uncached (numba caches only functions that live in a file), callable as gmg calls the
+    """Kernel module ``name`` (e.g. "sevenfold.kernels.stencil") as it was at ``revision`` (at a
+    revision before ``name`` was split off, the module its kernels lived in then), uncached (numba caches only functions that live in a file), callable as gmg calls the
     current one: a level kernel from before the aggregates per axis takes them and passes on
     what it took instead (plain or shifted pairs), so revisions on either side of the change
     compare on the jobs they both can run."""
@@ -291,9 +296,14 @@ def kernels_at(revision: str, name: str):
     def uncached(source: str) -> str:
         return source.replace("cache=True", "cache=False")
 
-    if name == "sevenfold.kernels.multigrid":  # (it imports from stencil)
+    home = name
+    if name in SPLIT_FROM and subprocess.run(
+            ["git", "cat-file", "-e", f"{revision}:src/{name.replace('.', '/')}.py"],
+            cwd=HERE, capture_output=True).returncode != 0:
+        home = SPLIT_FROM[name]  # a revision from before the split
+    if home == "sevenfold.kernels.multigrid":  # (it imports from stencil)
         module_at(revision, "sevenfold.kernels.stencil", edit=uncached)
-    old = module_at(revision, name, edit=uncached)
+    old = module_at(revision, home, edit=uncached)
     current = importlib.import_module(name)
     out = types.SimpleNamespace(**{k: v for k, v in vars(old).items() if not k.startswith("__")})
     for kernel in AGGREGATE_KERNELS:

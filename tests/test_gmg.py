@@ -319,7 +319,7 @@ def test_line_sweep_solves_each_column_exactly(shape, dtype) -> None:
     and nz = 2."""
     from scipy.linalg import solve_banded
 
-    from sevenfold.kernels import multigrid
+    from sevenfold.kernels import lines
 
     tx, ty, tz, diag, _ = _random_level(shape)
     tx, ty, tz, diag = (a.astype(dtype) for a in (tx, ty, tz, diag))
@@ -327,11 +327,11 @@ def test_line_sweep_solves_each_column_exactly(shape, dtype) -> None:
     b = rng.standard_normal(shape).astype(dtype)
     u0 = rng.standard_normal(shape).astype(dtype)
     inv_w = np.empty(shape, dtype=dtype)
-    multigrid.line_factor(tz, diag, inv_w)
+    lines.line_factor(tz, diag, inv_w)
     nx, ny, nz = shape
     for colour in (0, 1):
         u = u0.copy()
-        multigrid.line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour)
+        lines.line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour)
         for i in range(nx):
             for j in range(ny):
                 if (i + j) % 2 != colour:
@@ -518,7 +518,7 @@ def test_one_pass_line_sweeps_equal_the_colour_passes(shape, chunks, sweeps) -> 
     for either first colour, any number of runs (more runs than planes, and too few planes for
     a wavefront, included), in float32 and float64: they only reorder independent column
     solves, whose exactness the test above checks."""
-    from sevenfold.kernels import multigrid
+    from sevenfold.kernels import lines
 
     tx, ty, tz, diag, _ = _random_level(shape)
     rng = np.random.default_rng(10)
@@ -527,14 +527,14 @@ def test_one_pass_line_sweeps_equal_the_colour_passes(shape, chunks, sweeps) -> 
     for dtype in (np.float64, np.float32):
         txd, tyd, tzd, diagd, u1 = (a.astype(dtype) for a in (tx, ty, tz, diag, u0))
         inv_w = np.empty(shape, dtype=dtype)
-        multigrid.line_factor(tzd, diagd, inv_w)
+        lines.line_factor(tzd, diagd, inv_w)
         for first in (0, 1):
             two, one = u1.copy(), u1.copy()
             for _ in range(2):
                 for _ in range(sweeps):
                     for colour in (first, 1 - first):
-                        multigrid.line_gauss_seidel_colour(txd, tyd, tzd, inv_w, b, two, colour)
-                multigrid.line_gauss_seidel(txd, tyd, tzd, inv_w, b, one, first, sweeps, chunks)
+                        lines.line_gauss_seidel_colour(txd, tyd, tzd, inv_w, b, two, colour)
+                lines.line_gauss_seidel(txd, tyd, tzd, inv_w, b, one, first, sweeps, chunks)
             assert not np.array_equal(two, u1)
             assert np.array_equal(one, two), (dtype, first, np.abs(one - two).max())
 
@@ -642,7 +642,7 @@ def test_finest_level_passes_per_iteration(monkeypatch, finest) -> None:
     z-line pivots are factored once, or, on the float64 operator where they live in the
     output buffer, once per application. These counts are what the work units of
     benchmarks/RESULTS_CYCLE.md are made of; a change that adds a pass shows here first."""
-    from sevenfold.kernels import multigrid, stencil, vector
+    from sevenfold.kernels import lines, stencil, vector
     from sevenfold.solvers import gmg
 
     fine, b = graded_level(24)
@@ -658,11 +658,11 @@ def test_finest_level_passes_per_iteration(monkeypatch, finest) -> None:
     def counting(module, name, size_of):
         monkeypatch.setattr(module, name, counted(name, getattr(module, name), size_of))
 
-    counting(multigrid, "line_gauss_seidel", lambda a: a[5].size)
+    counting(lines, "line_gauss_seidel", lambda a: a[5].size)
     sweeps = set()
-    calls = multigrid.line_gauss_seidel
-    monkeypatch.setattr(multigrid, "line_gauss_seidel", lambda *a: (sweeps.add(a[7]), calls(*a))[1])
-    counting(multigrid, "line_factor", lambda a: a[2].size)
+    calls = lines.line_gauss_seidel
+    monkeypatch.setattr(lines, "line_gauss_seidel", lambda *a: (sweeps.add(a[7]), calls(*a))[1])
+    counting(lines, "line_factor", lambda a: a[2].size)
     counting(stencil, "residual_restrict", lambda a: a[5].size)
     counting(stencil, "prolong_add", lambda a: a[5].size)
     counting(stencil, "apply_dot", lambda a: a[4].size)

@@ -193,7 +193,7 @@ def test_no_kernel_is_compiled_twice_for_accidental_type_differences(tmp_path: P
     """Every method, holds, every face type, a pure-Neumann job, graded and directional grids:
     each kernel keeps one specialisation per real type combination (float32 next to float64
     would be a real one; C vs non-contiguous, int32 vs int64 or 1 vs 1.0 are accidents)."""
-    from sevenfold.kernels import assembly, stencil, vector
+    from sevenfold.kernels import assembly, finite_volume, stencil, vector
     from sevenfold.runner import run_job
     from sevenfold.spec import parse_job
 
@@ -220,7 +220,7 @@ def test_no_kernel_is_compiled_twice_for_accidental_type_differences(tmp_path: P
         spec = parse_job(table, "test")
         run_job(tmp_path / "job.toml", tmp_path / f"{spec.name}.zarr", spec=spec)
     compiled = 0
-    for module in (assembly, stencil, vector):
+    for module in (assembly, finite_volume, stencil, vector):
         for name in dir(module):
             d = getattr(module, name)
             if not hasattr(d, "signatures") or not d.signatures:
@@ -333,7 +333,7 @@ def test_the_command_asks_numpy_for_small_pages_unless_told(command, given, huge
 PLAN_PROBE = """
 import json, sys
 from pathlib import Path
-from sevenfold.kernels import assembly, band, multigrid, stencil, vector, warmup
+from sevenfold.kernels import assembly, band, finite_volume, lines, multigrid, stencil, vector, warmup
 from sevenfold.runner import gmg_precision, plan_job, prepare_problem, run_job
 job, out = Path(sys.argv[1]), Path(sys.argv[2])
 plan, problem = prepare_problem(plan_job(job, out))
@@ -341,7 +341,7 @@ precision = gmg_precision(problem)
 warmup.warm_up("gmg", problem.grid.cells, child=False, precision=precision)
 def counts():
     return {f"{m.__name__}.{n}": len(getattr(m, n).signatures)
-            for m in (assembly, band, multigrid, stencil, vector) for n in dir(m)
+            for m in (assembly, band, finite_volume, lines, multigrid, stencil, vector) for n in dir(m)
             if hasattr(getattr(m, n), "signatures")}
 before = counts()
 run_job(job, out)
@@ -370,13 +370,16 @@ LOAD = """
 import json, sys
 import numpy as np
 {patch}
+from sevenfold.kernels.stencil import starts
 from sevenfold.kernels.vector import dot, dot_serial
 x = np.arange(200_000.0)
 values = [dot_serial(x[:5], x[:5]), dot(x, x)]
 import numba
 print(json.dumps({{"values": values, "threads": numba.get_num_threads(), "layer": numba.threading_layer(),
-                  "hits": sum(sum(k._cache_hits.values()) for k in (dot, dot_serial)),
-                  "compiler": "numba.np.linalg" in sys.modules}}))
+                  "starts": starts(np.array([0, 0, 1, 1, 1, 2]), 3).tolist(),
+                  "hits": sum(sum(k._cache_hits.values()) for k in (dot, dot_serial, starts)),
+                  "compiler": "numba.np.linalg" in sys.modules,
+                  "array_lowering": "numba.np.arrayobj" in sys.modules}}))
 """
 # numba's runtime start fails once, as if numba's internals had moved: the lean load gives way
 FAILING_RUNTIME = """
@@ -400,16 +403,19 @@ def _load(cache: Path, patch: str = "") -> dict:
 
 def test_cached_kernels_load_without_numbas_compiler_registries(tmp_path: Path) -> None:
     """kernels/jit.py: a kernel found in the cache, serial or threaded, loads without the
-    registries numba's compiler refreshes (numba.np.linalg stands for them), and computes
-    what it computed when it was compiled. Expected sums: 0+1+4+9+16 and sum of i^2 for
-    i < 200,000 = (n-1) n (2n-1) / 6 (from memory)."""
+    registries numba's compiler refreshes (numba.np.linalg stands for them), and without the
+    array lowering that a threaded reduction's and an allocation's environments name, and
+    computes what it computed when it was compiled. Expected sums: 0+1+4+9+16 and sum of i^2
+    for i < 200,000 = (n-1) n (2n-1) / 6 (from memory); the starts of aggregates of 2, 3 and
+    1 cells: 0, 2, 5, and 6 cells in all."""
     n = 200_000
     expected = [30.0, (n - 1) * n * (2 * n - 1) / 6]
     compiled = _load(tmp_path)
     assert compiled["hits"] == 0 and compiled["compiler"]  # compiling loads the registries
     loaded = _load(tmp_path)
-    assert loaded["hits"] == 2
-    assert not loaded["compiler"]
+    assert loaded["hits"] == 3
+    assert not loaded["compiler"] and not loaded["array_lowering"]
+    assert loaded["starts"] == compiled["starts"] == [0, 2, 5, 6]
     assert loaded["values"] == compiled["values"]
     assert loaded["values"] == pytest.approx(expected, rel=1e-12)
     assert loaded["threads"] == compiled["threads"] and loaded["layer"] == compiled["layer"]
@@ -418,7 +424,7 @@ def test_cached_kernels_load_without_numbas_compiler_registries(tmp_path: Path) 
 def test_a_lean_load_that_fails_gives_way_to_numbas_own(tmp_path: Path) -> None:
     _load(tmp_path)
     loaded = _load(tmp_path, FAILING_RUNTIME)
-    assert loaded["hits"] == 2  # still from the cache, not compiled again
+    assert loaded["hits"] == 3  # still from the cache, not compiled again
     assert loaded["compiler"]  # numba's own load refreshed the context
     assert loaded["values"][0] == 30.0
 

@@ -26,14 +26,14 @@ class Listen(event.Listener):
         if f.__module__.startswith("sevenfold"):
             compiled.append(f.__qualname__)
 
-from sevenfold.kernels import band, multigrid, stencil, vector, warmup
+from sevenfold.kernels import band, finite_volume, lines, multigrid, stencil, vector, warmup
 from sevenfold.runner import run_job
 
 def signatures():
-    # kernels only: a private helper (multigrid._line_plane) gets signatures when its caller
+    # kernels only: a private helper (lines._line_plane) gets signatures when its caller
     # compiles, none when the caller comes from the cache
     found = {}
-    for module in (stencil, multigrid, vector, band):
+    for module in (finite_volume, stencil, lines, multigrid, vector, band):
         for name, d in vars(module).items():
             if isinstance(d, CPUDispatcher) and d.signatures and not name.startswith("_"):
                 found[name] = sorted(map(str, d.signatures))

@@ -4,7 +4,7 @@ the sparse SPD system A u = b assembled from them.
 Each row is the balance of one free cell (amount per unit time, e.g. W for heat): the
 conductances to its neighbours and boundary faces times the differences in u equal the
 source integrated over the cell plus the boundary inflows. With graded cells this form keeps
-A symmetric. The discretisation itself lives in :mod:`sevenfold.kernels.stencil`; matrix-free
+A symmetric. The discretisation itself lives in :mod:`sevenfold.kernels.finite_volume`; matrix-free
 solvers use the face arrays, the others the CSR matrix built from them here.
 """
 
@@ -59,7 +59,7 @@ def conductances(problem: Problem, start: int = 0, stop: int | None = None,
     ``tx[i]`` couples cell ``start + i`` with the next one; the slab's last x plane couples to
     the cell after ``stop`` when there is one (so slabs tile the whole grid).
     """
-    from .kernels.stencil import transmissibility
+    from .kernels.finite_volume import transmissibility
 
     nx = problem.grid.cells[0]
     stop = nx if stop is None else stop
@@ -76,7 +76,7 @@ def conductances(problem: Problem, start: int = 0, stop: int | None = None,
 
 def face_arrays(problem: Problem) -> FaceArrays:
     """The finest level's face arrays, diagonal and right-hand side."""
-    from .kernels.stencil import fine_stencil
+    from .kernels.finite_volume import fine_stencil
 
     grid = problem.grid
     dx, dy, dz = widths(problem)

@@ -1,5 +1,5 @@
 """Parallel CSR assembly of the 7-point cell-centred finite-volume operator from its face
-arrays (built by :mod:`sevenfold.kernels.stencil`, the one place the discretisation lives).
+arrays (built by :mod:`sevenfold.kernels.finite_volume`, the one place the discretisation lives).
 
 Rows are the free (not held) cells in C order of the (nx, ny, nz) array; ``row[i, j, k]`` is a
 cell's row or -1 when it is held. Column indices of each row come out sorted.
@@ -42,7 +42,7 @@ def row_lengths(row: np.ndarray, counts: np.ndarray) -> None:
 @njit(cache=True, parallel=True)
 def fill_rows(tx, ty, tz, diag, b_full, row, indptr, indices, data, b) -> None:
     """Write every free row's entries and right-hand side from the level's face arrays
-    (:mod:`sevenfold.kernels.stencil`): -t to each free neighbour, ``diag`` on the diagonal."""
+    (:mod:`sevenfold.kernels.finite_volume`): -t to each free neighbour, ``diag`` on the diagonal."""
     nx, ny, nz = row.shape
     for i in prange(nx):
         for j in range(ny):

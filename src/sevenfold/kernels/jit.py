@@ -11,15 +11,53 @@ Loading needs numba's runtime (NRT), whose functions compiled code calls, and no
 as always (numba's compiler refreshes the context itself), and if the lean load raises (a
 numba whose internals moved), numba's own load runs instead. benchmarks/load_bench.py measures
 it against numba's own load.
+
+Each function in a kernel's machine code comes with an environment that holds its module's
+globals, and unpickling it imports that module. The globals are read only by object-mode code
+(``numba.core.pylowering``); sevenfold's kernels are all nopython. Yet a kernel that allocates
+(``np.empty``) or reduces in a ``prange`` carries numba's own helpers, whose environments
+import ``numba.np.arrayobj`` and ``numba.np.npyimpl``: 36-41 ms of a fresh gmg run (2026-12-04,
+32^3 and 128^3 runs, the imports timed inside the load) for modules of numba's compiler. The
+lean load gives an environment of a numba module not yet imported its name alone instead.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
+import sys
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from typing import Any
 
 from numba import njit as _numba_njit
+from numba.core import environment
 from numba.core.caching import FunctionCache
+
+
+def _lean_environment(modname: str, consts: list, env_name: str) -> environment.Environment:
+    """``numba.core.environment._rebuild_env``, without importing a numba module for the
+    globals that nopython code never reads (its name stands for them)."""
+    if (modname in sys.modules or not modname.startswith("numba.")
+            or environment.lookup_environment(env_name) is not None):
+        return _rebuild_env(modname, consts, env_name)
+    env = environment.Environment({"__name__": modname})
+    env.consts[:] = consts
+    env.env_name = env_name
+    environment.Environment._memo[env_name] = env
+    return env
+
+
+_rebuild_env = environment._rebuild_env
+
+
+@contextmanager
+def _lean_environments() -> Iterator[None]:
+    """Unpickled environments rebuilt by :func:`_lean_environment` (pickle looks the rebuild
+    function up by name; numba loads under its compiler lock, one load at a time)."""
+    environment._rebuild_env = _lean_environment
+    try:
+        yield
+    finally:
+        environment._rebuild_env = _rebuild_env
 
 
 class KernelCache(FunctionCache):
@@ -31,7 +69,7 @@ class KernelCache(FunctionCache):
             from numba.core.runtime import rtsys
 
             rtsys.initialize(target_context)
-            with self._guard_against_spurious_io_errors():
+            with self._guard_against_spurious_io_errors(), _lean_environments():
                 return self._load_overload(sig, target_context)
             return None  # the guard swallowed an I/O error: numba compiles
         except Exception:  # another numba's internals: its own load, refresh included

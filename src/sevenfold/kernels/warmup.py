@@ -115,7 +115,7 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
     """Each item compiles one kernel for tiny arrays of the argument types of the real run
     (solvers/gmg.py, solvers/levels.py, solvers/cg.py, operator.py), one signature per tag; and
     each item's tags (``item[tag]`` names one compiled signature in the cache's markers)."""
-    from . import band, multigrid, stencil, vector
+    from . import band, finite_volume, lines, multigrid, stencil, vector
 
     f64 = np.float64
     f32 = np.dtype(plan.precision).type  # the levels' type: float32 unless the contrast is high
@@ -142,10 +142,10 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         items[name] = (lambda: (before(), call())) if before else call
 
     add("transmissibility", "float64", lambda: _build(
-        stencil.transmissibility, *_arrays(f64, count=3), *widths, *_arrays(f64, count=3)))
+        finite_volume.transmissibility, *_arrays(f64, count=3), *widths, *_arrays(f64, count=3)))
     faces = tuple(np.ones((4, 4)) for _ in range(6))
     add("fine_stencil", "float64", lambda: _build(
-        stencil.fine_stencil, *_arrays(f64, count=3), ~free, _arrays(f64), _arrays(f64), *widths,
+        finite_volume.fine_stencil, *_arrays(f64, count=3), ~free, _arrays(f64), _arrays(f64), *widths,
         faces, faces, *_arrays(f64, count=2)))
     for i in range(len(plan.levels)):
         # every level's arrays and right-hand side are in the levels' type (the finest smooths
@@ -158,9 +158,9 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
             multigrid.galerkin_scaled, *_arrays(t, count=4), free, _aggregates(),
             *_arrays(f32, small, 4), freec.copy()))
         add("line_factor", tag, lambda t=level: _build(
-            multigrid.line_factor, *_arrays(t, count=2), _arrays(f32)))
+            lines.line_factor, *_arrays(t, count=2), _arrays(f32)))
         add("line_gauss_seidel", tag, lambda t=level: _build(
-            multigrid.line_gauss_seidel, *_arrays(t, count=3), _arrays(f32), _arrays(t),
+            lines.line_gauss_seidel, *_arrays(t, count=3), _arrays(f32), _arrays(t),
             _arrays(f32), 0, 2, 1))
         add("residual_restrict", tag, lambda t=level: _build(
             stencil.residual_restrict, *_arrays(t, count=4), _arrays(t), _arrays(f32),

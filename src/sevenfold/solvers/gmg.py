@@ -56,7 +56,7 @@ import time
 import numba
 import numpy as np
 
-from ..kernels import multigrid, stencil
+from ..kernels import lines, multigrid, stencil
 from .cg import Monitor, SolveResult, pcg
 from .coarsest import CoarsestSolver
 from .levels import Level, aggregates, coarsening_step, plain_pairs, strong_z
@@ -179,7 +179,7 @@ class Hierarchy:
         for lv in self.levels[:-1]:
             if lv.lines and lv.inv_w is None:
                 lv.inv_w = np.empty(lv.shape, dtype=self.dtype)
-                multigrid.line_factor(lv.tz, lv.diag, lv.inv_w)
+                lines.line_factor(lv.tz, lv.diag, lv.inv_w)
         self.coarsest = CoarsestSolver(self.levels[-1])
 
     def smoothing_note(self) -> str:
@@ -210,7 +210,7 @@ class Hierarchy:
         """The sweeps before (``first`` = 0: red then black) or after (1: black then red) the
         coarse correction."""
         if lv.lines:
-            multigrid.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, first,
+            lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, first,
                                         self.sweeps[first], numba.get_num_threads())
             return
         for _ in range(self.sweeps[first]):
@@ -280,7 +280,7 @@ class Hierarchy:
 
         top = self.levels[0]
         if self._refactor:
-            multigrid.line_factor(top.tz, top.diag, top.inv_w)
+            lines.line_factor(top.tz, top.diag, top.inv_w)
         top.e[...] = 0.0
         self.cycle(0, self._rhs(r), top.e)
         z = top.e.reshape(-1)
