@@ -112,6 +112,20 @@ def test_the_compile_notice_shows_on_a_first_run_only(tmp_path: Path) -> None:
         assert again["code"] == 0 and "compiling" not in text, text
 
 
+def test_a_quiet_first_run_says_the_notice_on_stderr_and_keeps_stdout_for_the_path(
+        tmp_path: Path) -> None:
+    """``run --quiet`` on an empty cache: stdout holds the result's path alone (scripts read
+    it), the compile notice goes to stderr."""
+    environ = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
+    path = job(tmp_path, "fft")
+    proc = subprocess.run([sys.executable, "-c", "import sys; from sevenfold.cli import main; "
+                           "sys.exit(main(sys.argv[1:]))", "run", "--here", "--quiet", str(path)],
+                          capture_output=True, text=True, env=environ, timeout=600)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.splitlines() == [str(tmp_path / "fft.zarr")], proc.stdout
+    assert "compiling the numerical kernels once" in proc.stderr
+
+
 def test_the_marker_follows_the_kernels(tmp_path: Path, monkeypatch) -> None:
     """An edited kernel module (another stamp) makes the method cold again."""
     from sevenfold.kernels import cache

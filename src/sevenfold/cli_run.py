@@ -24,9 +24,7 @@ def run(args: argparse.Namespace) -> int:
     plan = plan_job(args.job, args.output)
     with run_progress(disable=args.quiet or args.no_progress) as progress:
         task = progress.add_task(plan.spec.name, total=-math.log10(plan.spec.solver.rtol), info="building")
-        monitor = ProgressMonitor(progress, task, plan.spec.solver.rtol)
-        if args.quiet:  # stdout holds the result's path alone; warnings go to stderr
-            monitor.switched = lambda info: None  # type: ignore[method-assign]
+        monitor = ProgressMonitor(progress, task, plan.spec.solver.rtol, quiet=args.quiet)
         result = run_job(args.job, args.output, monitor, plan.spec,
                          on_warning=lambda text: (err if args.quiet else progress.console).print(
                              f"[yellow]warning:[/yellow] {escape(text)}", soft_wrap=True))
@@ -62,13 +60,13 @@ def run_on_worker(args: argparse.Namespace) -> int | None:
         def on_progress(j, p) -> None:  # the residual log grew
             nonlocal monitor, switches
             if monitor is None and p.rtol:  # the solve's start record gives rtol
-                monitor = ProgressMonitor(progress, task, p.rtol)
+                monitor = ProgressMonitor(progress, task, p.rtol, quiet=args.quiet)
                 progress.update(task, total=monitor.goal)
             if monitor is None:
                 return
             if p.history:
                 monitor.iteration(p.iteration, p.history[-1], 0.0)
-            for sw in p.switches[switches:] if not args.quiet else ():
+            for sw in p.switches[switches:]:
                 monitor.switched(sw)
             switches = len(p.switches)
 

@@ -44,10 +44,13 @@ def run_progress(disable: bool) -> Progress:
 
 
 class ProgressMonitor:
-    """Shows iteration and relative residual; the bar fills as log(residual) nears log(rtol)."""
+    """Shows iteration and relative residual; the bar fills as log(residual) nears log(rtol).
+    ``quiet`` (``--quiet``: stdout holds the result's path alone): no switch lines, and notes
+    go to stderr."""
 
-    def __init__(self, progress: Progress, task, rtol: float) -> None:
+    def __init__(self, progress: Progress, task, rtol: float, quiet: bool = False) -> None:
         self.progress, self.task, self.goal = progress, task, -math.log10(rtol)
+        self.quiet = quiet
 
     def iteration(self, iteration: int, relative_residual: float, elapsed: float) -> None:
         done = -math.log10(relative_residual) if relative_residual > 0 else self.goal
@@ -58,6 +61,8 @@ class ProgressMonitor:
 
     def switched(self, info: dict) -> None:
         """``auto`` changed method mid-solve: a marked line above the bar."""
+        if self.quiet:
+            return
         from .queue.watch import switch_text
 
         self.progress.console.print(f"[yellow]***[/yellow] {escape(switch_text(info))}", soft_wrap=True)
@@ -66,8 +71,8 @@ class ProgressMonitor:
         return False
 
     def note(self, text: str) -> None:
-        """A line above the bar (the first run's compile notice), shown with --quiet too."""
-        self.progress.console.print(f"[yellow]{escape(text)}[/yellow]")
+        """A line above the bar (the first run's compile notice); on stderr with --quiet."""
+        (err if self.quiet else self.progress.console).print(f"[yellow]{escape(text)}[/yellow]")
 
 
 def balance_table(balance: dict, title: str = "balance") -> Table:

@@ -70,6 +70,7 @@ COARSEST_CELLS = 4096
 # joining threads exceeds the work, and it grows sharply when another process holds a core.
 SERIAL_BELOW = 32_768
 
+
 class Hierarchy:
     """The levels, from the finest face arrays down to a factorised coarsest level.
 
