@@ -16,9 +16,10 @@ Each function in a kernel's machine code comes with an environment that holds it
 globals, and unpickling it imports that module. The globals are read only by object-mode code
 (``numba.core.pylowering``); sevenfold's kernels are all nopython. Yet a kernel that allocates
 (``np.empty``) or reduces in a ``prange`` carries numba's own helpers, whose environments
-import ``numba.np.arrayobj`` and ``numba.np.npyimpl``: 36-41 ms of a fresh gmg run (2026-12-04,
-32^3 and 128^3 runs, the imports timed inside the load) for modules of numba's compiler. The
-lean load gives an environment of a numba module not yet imported its name alone instead.
+import ``numba.np.arrayobj`` and ``numba.np.npyimpl`` (19 numba modules in all) for modules of
+numba's compiler. The lean load gives an environment of a numba module not yet imported its
+name alone instead: whole `sevenfold run` processes took 0.85x (32^3) and 0.91x (128^3) the
+time of numba's rebuild, 0.11-0.12 s less (benchmarks/RESULTS_ENVIRONMENTS_ALONE.md).
 """
 
 from __future__ import annotations
