@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import sqlite3
 import time
-from typing import Sequence
+from typing import Callable, Sequence
 
 from ..errors import JobError, QueueError
 from .queries import Queries
@@ -72,33 +72,24 @@ class Actions(Queries):
         """
         now = time.time()
 
-        def fn(c: sqlite3.Connection) -> list[tuple[int, str]]:
-            out = []
-            for job_id in ids:
-                row = c.execute("SELECT state, worker, cancel_requested FROM jobs WHERE id = ?",
-                                (job_id,)).fetchone()
-                if row is None:
-                    raise QueueError(f"there is no job {job_id}")
-                state = row["state"]
-                if state == "queued":
-                    c.execute("UPDATE jobs SET state = 'cancelled', finished = ?, error = ? WHERE id = ?",
-                              (now, "cancelled before it started", job_id))
-                    record_event(c, job_id, now, "cancelled", "cancelled before it started")
-                    out.append((job_id, "cancelled"))
-                elif state == "running":
-                    flag = self.home.cancel_flag(job_id)
-                    flag.parent.mkdir(parents=True, exist_ok=True)
-                    flag.touch()
-                    if not row["cancel_requested"]:
-                        c.execute("UPDATE jobs SET cancel_requested = 1 WHERE id = ?", (job_id,))
-                        record_event(c, job_id, now, "cancel-requested", f"running on {row['worker']}")
-                    out.append((job_id, f"stopping (running on {row['worker']})"))
-                else:
-                    out.append((job_id, f"already {state}; nothing to cancel"))
-            return out
+        def one(c: sqlite3.Connection, job_id: int, row: sqlite3.Row) -> str:
+            state = row["state"]
+            if state == "queued":
+                c.execute("UPDATE jobs SET state = 'cancelled', finished = ?, error = ? WHERE id = ?",
+                          (now, "cancelled before it started", job_id))
+                record_event(c, job_id, now, "cancelled", "cancelled before it started")
+                return "cancelled"
+            if state == "running":
+                flag = self.home.cancel_flag(job_id)
+                flag.parent.mkdir(parents=True, exist_ok=True)
+                flag.touch()
+                if not row["cancel_requested"]:
+                    c.execute("UPDATE jobs SET cancel_requested = 1 WHERE id = ?", (job_id,))
+                    record_event(c, job_id, now, "cancel-requested", f"running on {row['worker']}")
+                return f"stopping (running on {row['worker']})"
+            return f"already {state}; nothing to cancel"
 
-        before = {j.id: j for j in self.jobs(ids=ids)}
-        return [(before[i], what) for i, what in self.write(fn)]
+        return self._each_job(ids, "state, worker, cancel_requested", one)
 
     def retry(self, ids: Sequence[int], replace: dict[int, NewJob] | None = None) -> list[tuple[Job, str]]:
         """Send failed and cancelled jobs back to the queue, from their snapshot, attempts 0.
@@ -110,67 +101,66 @@ class Actions(Queries):
         now = time.time()
         replace = replace or {}
 
-        def fn(c: sqlite3.Connection) -> list[tuple[int, str]]:
-            out = []
-            for job_id in ids:
-                row = c.execute("SELECT state, output FROM jobs WHERE id = ?", (job_id,)).fetchone()
-                if row is None:
-                    raise QueueError(f"there is no job {job_id}")
-                state = row["state"]
-                if state in ("failed", "cancelled"):
-                    new = replace.get(job_id)
-                    output = new.output if new is not None else row["output"]
-                    other = _writer(c, output, job_id)
-                    if other is not None:
-                        out.append((job_id, f"not queued: {_taken(output, other)}"))
-                        continue
-                    self.home.cancel_flag(job_id).unlink(missing_ok=True)
-                    c.execute(
-                        "UPDATE jobs SET state = 'queued', attempts = 0, started = NULL, finished = NULL, "
-                        "worker = NULL, run_id = NULL, pid = NULL, heartbeat = NULL, "
-                        "cancel_requested = 0, error = NULL, summary = NULL WHERE id = ?", (job_id,))
-                    if new is not None:
-                        c.execute(
-                            "UPDATE jobs SET name = ?, output = ?, job_text = ?, job_table = ?, inputs = ?, "
-                            "cells = ?, method = ?, memory_bytes = ? WHERE id = ?",
-                            (new.name, new.output, new.job_text, json.dumps(new.job_table),
-                             json.dumps(new.inputs), new.cells, new.method, new.memory_bytes, job_id))
-                    record_event(c, job_id, now, "retried",
-                                 f"was {state}" + ("; from the job file as it is now" if new is not None else ""))
-                    out.append((job_id, "queued again" + (" from the edited job file" if new is not None else "")))
-                elif state == "done":
-                    out.append((job_id, "done; nothing to retry"))
-                else:
-                    out.append((job_id, f"{state}; nothing to retry"))
-            return out
+        def one(c: sqlite3.Connection, job_id: int, row: sqlite3.Row) -> str:
+            state = row["state"]
+            if state not in ("failed", "cancelled"):
+                return f"{state}; nothing to retry"
+            new = replace.get(job_id)
+            output = new.output if new is not None else row["output"]
+            other = _writer(c, output, job_id)
+            if other is not None:
+                return f"not queued: {_taken(output, other)}"
+            self.home.cancel_flag(job_id).unlink(missing_ok=True)
+            c.execute(
+                "UPDATE jobs SET state = 'queued', attempts = 0, started = NULL, finished = NULL, "
+                "worker = NULL, run_id = NULL, pid = NULL, heartbeat = NULL, "
+                "cancel_requested = 0, error = NULL, summary = NULL WHERE id = ?", (job_id,))
+            if new is not None:
+                c.execute(
+                    "UPDATE jobs SET name = ?, output = ?, job_text = ?, job_table = ?, inputs = ?, "
+                    "cells = ?, method = ?, memory_bytes = ? WHERE id = ?",
+                    (new.name, new.output, new.job_text, json.dumps(new.job_table),
+                     json.dumps(new.inputs), new.cells, new.method, new.memory_bytes, job_id))
+            record_event(c, job_id, now, "retried",
+                         f"was {state}" + ("; from the job file as it is now" if new is not None else ""))
+            return "queued again" + (" from the edited job file" if new is not None else "")
 
-        before = {j.id: j for j in self.jobs(ids=ids)}
-        return [(before[i], what) for i, what in self.write(fn)]
+        return self._each_job(ids, "state, output", one)
 
     def forget(self, ids: Sequence[int]) -> list[tuple[Job, str]]:
         """Remove finished jobs (done, failed, cancelled) and their history from the database,
         in one transaction; queued and running jobs are left alone. Returns each job (as it
         was) with what happened to it. Files are the caller's: see ``commands.forget_files``.
         """
+        def one(c: sqlite3.Connection, job_id: int, row: sqlite3.Row) -> str:
+            if row["state"] not in FINISHED:
+                return f"{row['state']}; not forgotten (only done, failed or cancelled jobs are)"
+            c.execute("DELETE FROM events WHERE job = ?", (job_id,))
+            c.execute("DELETE FROM jobs WHERE id = ?", (job_id,))
+            if row["batch"] is not None:
+                c.execute("DELETE FROM batches WHERE id = ? AND NOT EXISTS "
+                          "(SELECT 1 FROM jobs WHERE batch = ?)", (row["batch"], row["batch"]))
+            return "forgotten"
+
+        return self._each_job(ids, "state, batch", one)
+
+    def _each_job(self, ids: Sequence[int], columns: str,
+                  one: Callable[[sqlite3.Connection, int, sqlite3.Row], str]) -> list[tuple[Job, str]]:
+        """``one`` on each job of ``ids`` (its row's ``columns``), all in one transaction;
+        each job as it was before, with what ``one`` said happened to it. An unknown id
+        raises QueueError and changes nothing."""
         def fn(c: sqlite3.Connection) -> list[tuple[int, str]]:
             out = []
             for job_id in ids:
-                row = c.execute("SELECT state, batch FROM jobs WHERE id = ?", (job_id,)).fetchone()
+                row = c.execute(f"SELECT {columns} FROM jobs WHERE id = ?", (job_id,)).fetchone()
                 if row is None:
                     raise QueueError(f"there is no job {job_id}")
-                if row["state"] not in FINISHED:
-                    out.append((job_id, f"{row['state']}; not forgotten (only done, failed or cancelled jobs are)"))
-                    continue
-                c.execute("DELETE FROM events WHERE job = ?", (job_id,))
-                c.execute("DELETE FROM jobs WHERE id = ?", (job_id,))
-                if row["batch"] is not None:
-                    c.execute("DELETE FROM batches WHERE id = ? AND NOT EXISTS "
-                              "(SELECT 1 FROM jobs WHERE batch = ?)", (row["batch"], row["batch"]))
-                out.append((job_id, "forgotten"))
+                out.append((job_id, one(c, job_id, row)))
             return out
 
         before = {j.id: j for j in self.jobs(ids=ids)}
         return [(before[i], what) for i, what in self.write(fn)]
+
 
 def _writer(c: sqlite3.Connection, output: str, other_than: int | None = None) -> sqlite3.Row | None:
     """The queued or running job that writes ``output`` (not job ``other_than``), or None."""
