@@ -1,7 +1,8 @@
 """Whole `sevenfold run` processes: the working tree against a revision, alternating.
 
     python benchmarks/whole_bench.py --against REVISION [--rounds 5]
-        [--jobs column:32 inclusions:128 inclusions:256] [--results benchmarks/RESULTS_WHOLE.md]
+        [--jobs column:32 inclusions:128 inclusions:256] [--resident]
+        [--results benchmarks/RESULTS_WHOLE.md]
 
 Each job (``pattern:n``: ``column`` is issue 10's 1000:1 column, the others the speed suite's
 patterns, benchmarks/band_bench.py's ``job_file``) runs as ``sevenfold run --here
@@ -10,7 +11,9 @@ patterns, benchmarks/band_bench.py's ``job_file``) runs as ``sevenfold run --her
 cache): one untimed run each (the kernels compiled), then ``--rounds`` rounds, the order of
 the two rotating. *whole* = the process's wall seconds; *job* = its own clock (`job X s`,
 job file read to result written); *write* = the write's share of it (`write X s`); *peak
-RSS* from /usr/bin/time.
+RSS* from /usr/bin/time. With ``--resident``, each job's time in a resident process too
+(``band_bench.resident``: the third ``run_job`` in one child, as a worker's slot runs it),
+the two sides alternating the same way.
 """
 
 from __future__ import annotations
@@ -73,16 +76,48 @@ def compare(jobs: list[str], against: str, rounds: int) -> list[str]:
     return rows
 
 
+def compare_resident(jobs: list[str], against: str, rounds: int) -> list[str]:
+    """Table rows of the jobs' time in a resident process (``band_bench.resident``: the third
+    ``run_job`` in one child, what a worker's slot sees), the working tree and ``against``
+    alternating, medians."""
+    rows = []
+    with tempfile.TemporaryDirectory() as tmp, engine.revision_tree(against, Path(tmp)) as then:
+        sources = {"now": HERE.parent / "src", "then": then}
+        for item in jobs:
+            pattern, n = item.rsplit(":", 1)
+            job = band_bench.job_file(Path(tmp), pattern, int(n))
+            runs: dict[str, list[float]] = {side: [] for side in sources}
+            for i in range(rounds):
+                for side in engine.rotation(list(sources), i):
+                    runs[side].append(band_bench.resident(sources[side], job)[0])
+                    print(item, side, f"resident job {runs[side][-1]:.3f}", flush=True)
+            now, was = (statistics.median(runs[side]) for side in ("now", "then"))
+            rows.append(f"| {pattern} | {n}^3 | {now:.3f} | {was:.3f} | {now / was:.2f} | "
+                        + " ".join(f"{t:.3f}" for t in runs["now"]) + " | "
+                        + " ".join(f"{t:.3f}" for t in runs["then"]) + " |")
+    return rows
+
+
 def main(argv: list[str] | None = None) -> int:
     p = engine.ab_parser(__doc__, "RESULTS_WHOLE.md", rounds=5)
     p.add_argument("--against", required=True, metavar="REVISION")
     p.add_argument("--jobs", nargs="+", default=["column:32", "inclusions:128", "inclusions:256"])
+    p.add_argument("--resident", action="store_true",
+                   help="also the jobs' time in a resident process (a worker's slot)")
     args = p.parse_args(argv)
     lines, info = engine.report_head("whole_bench.py", argv, "Whole `sevenfold run` processes, A/B")
     lines += engine.opening(
         __doc__, f"Against {args.against}: seconds and peak RSS, medians of {args.rounds} rounds "
         "(every round's whole seconds in order in the last column); ratio = now / then.", COLUMNS)
     lines += compare(args.jobs, args.against, args.rounds)
+    if args.resident:
+        lines += ["", "## In a resident process", "",
+                  "The job's own seconds in the third `run_job` of one child (modules imported, "
+                  f"kernels loaded, as in a worker's slot), medians of {args.rounds} rounds "
+                  "alternating; ratio = now / then.", "",
+                  f"| job | cells | job s now | job s {args.against} | ratio | every round, now | "
+                  "every round, then |", "|" + "---|" * 7]
+        lines += compare_resident(args.jobs, args.against, args.rounds)
     engine.write_report(args.results, lines, info)
     return 0
 
