@@ -91,7 +91,10 @@ def _hoist(node: ast.AST, local: dict, run: Callable[[str], np.ndarray]) -> ast.
     return node
 
 
-def _part(node: ast.expr, outer: frozenset[str], local: dict, run: Callable[[str], np.ndarray]) -> ast.expr:
+def _part(node: ast.expr, outer: frozenset[str], local: dict,
+          run: Callable[[str], np.ndarray]) -> ast.expr:
+    """``node``, a part of an expression on the coordinates ``outer``, hoisted inside; itself
+    replaced by the name of its value when it needs some but not all of ``outer``."""
     inner = _coordinates(node)
     node = _hoist(node, local, run)
     if not inner or inner == outer or isinstance(node, ast.Name):
