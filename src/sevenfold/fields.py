@@ -22,12 +22,16 @@ Cells = tuple[slice, slice, slice] | np.ndarray
 
 def _values(value: float | str, grid: Grid, where: Cells | None = None) -> np.ndarray | float:
     """A scalar, or the expression evaluated on the cell centres (only at ``where``: a cell
-    mask or a block of slices, :func:`region_cells`)."""
-    if isinstance(value, str):
-        x, y, z = grid.mesh()
-        full = evaluate(value, x, y, z)
-        return full[where] if where is not None else np.array(full, dtype=np.float64)
-    return float(value)
+    mask or a block of slices, :func:`region_cells`). An array may be a read-only view: the
+    callers copy it into their own fields. A block of slices is evaluated on its cells alone."""
+    if not isinstance(value, str):
+        return float(value)
+    x, y, z = grid.mesh()
+    if isinstance(where, tuple):
+        sx, sy, sz = where
+        return evaluate(value, x[sx], y[:, sy], z[:, :, sz])
+    full = evaluate(value, x, y, z)
+    return full[where] if where is not None else full
 
 
 def _check_finite(a: np.ndarray, where: str, positive: bool) -> None:
