@@ -186,11 +186,23 @@ def test_region_changes_the_coefficient():
     assert all(np.allclose(problem.coefficient[a], k[a], rtol=1e-14) for a in range(3))
 
 
-def test_box_regions_select_the_cells_whose_centres_they_hold():
+def test_box_regions_select_the_cells_whose_centres_they_hold(monkeypatch):
     """Boxes are assigned as blocks of slices (no grid-sized mask each): overlapping boxes
     (the later wins), a box valued by an expression, a source box's value and a total spread
-    over its cells' volume, against masks of the cell centres built in numpy (conftest)."""
+    over its cells' volume, against masks of the cell centres built in numpy (conftest). A
+    box's expression is evaluated on the box's cells alone, the base's on the whole grid."""
+    from sevenfold import fields
     from sevenfold.errors import JobError
+
+    shapes: dict[str, tuple[int, ...]] = {}
+    real = fields.evaluate
+
+    def recorded(text, *xyz):
+        out = real(text, *xyz)
+        shapes[text] = out.shape
+        return out
+
+    monkeypatch.setattr(fields, "evaluate", recorded)
 
     table = make_table(
         grid={"cells": [7, 6, 5], "size": SIZE, "origin": [-0.3, 0.1, 0.5]},
@@ -209,6 +221,12 @@ def test_box_regions_select_the_cells_whose_centres_they_hold():
     problem = build_problem(parse_job(table, "test"))
     assert all(np.allclose(problem.coefficient[a], k[a], rtol=1e-14) for a in range(3))
     np.testing.assert_allclose(problem.source, f, rtol=1e-14)
+    centres = [problem.grid.centres(a) for a in range(3)]
+    for text, (lo, hi) in (("3 + x * y + z", ([0.0, 0.2, 0.9], [0.7, 0.7, 2.5])),
+                           ("10 * z", ([0.1, 0.0, 0.0], [0.5, 0.35, 1.7]))):
+        inside = tuple(int(np.count_nonzero((c >= l) & (c <= h))) for c, l, h in zip(centres, lo, hi))
+        assert shapes[text] == inside, (text, shapes[text], inside)
+    assert shapes["x + 2"] == (7, 6, 5)
     empty = copy.deepcopy(table)
     empty["material"]["region"].append({"box": {"min": [0.0, 0.0, 0.0], "max": [0.01, 0.6, 2.5]}, "value": 1.0})
     with pytest.raises(JobError, match="selects no cell centre") as info:

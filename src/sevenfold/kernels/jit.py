@@ -34,6 +34,9 @@ from numba.core import environment
 from numba.core.caching import FunctionCache
 
 
+_rebuild_env = environment._rebuild_env  # numba's own, restored after every lean load
+
+
 def _lean_environment(modname: str, consts: list, env_name: str) -> environment.Environment:
     """``numba.core.environment._rebuild_env``, without importing a numba module for the
     globals that nopython code never reads (its name stands for them)."""
@@ -45,9 +48,6 @@ def _lean_environment(modname: str, consts: list, env_name: str) -> environment.
     env.env_name = env_name
     environment.Environment._memo[env_name] = env
     return env
-
-
-_rebuild_env = environment._rebuild_env
 
 
 @contextmanager
