@@ -50,6 +50,18 @@ def test_parts_give_numexprs_numbers_bit_for_bit(text: str) -> None:
         assert np.array_equal(got, want, equal_nan=True), text
 
 
+@pytest.mark.parametrize("text", CASES)
+def test_evaluated_into_an_array_gives_the_same_numbers(text: str) -> None:
+    """With ``out`` the values land in that array (the one returned), the same bit for bit."""
+    grid = _grid()
+    for coords in [grid.mesh(), grid.face_mesh("y_max")]:
+        want = _whole(text, *coords)
+        out = np.full(want.shape, np.nan)
+        got = evaluate(text, *coords, out=out)
+        assert got is out
+        assert np.array_equal(out, want, equal_nan=True), text
+
+
 def test_a_product_of_sines_takes_one_sine_per_cell_of_each_axis(monkeypatch) -> None:
     """Each sine is evaluated on its own axis's centres (nx, ny or nz values), not once per cell
     of the grid; only the product is evaluated on the whole grid."""
@@ -59,6 +71,8 @@ def test_a_product_of_sines_takes_one_sine_per_cell_of_each_axis(monkeypatch) ->
     def recorded(source, *args, **kwargs):
         out = real(source, *args, **kwargs)
         calls.append((source, np.size(out)))
+        if kwargs.get("out") is not None:
+            assert out is kwargs["out"]
         return out
 
     monkeypatch.setattr(numexpr, "evaluate", recorded)
@@ -67,6 +81,11 @@ def test_a_product_of_sines_takes_one_sine_per_cell_of_each_axis(monkeypatch) ->
     sines = [size for source, size in calls if "sin" in source]
     assert sorted(sines) == sorted(grid.cells), calls
     assert calls[-1][1] == int(np.prod(grid.cells))
+    # into a field: the product is evaluated straight into it, no other grid-sized array
+    calls.clear()
+    field = np.empty(grid.shape)
+    evaluate("sin(pi*x)*sin(pi*y)*sin(pi*z)", *grid.mesh(), out=field)
+    assert calls[-1][1] == field.size and all(size < field.size for _, size in calls[:-1]), calls
 
 
 def test_a_malformed_expression_is_still_an_expression_error() -> None:

@@ -186,20 +186,53 @@ def test_region_changes_the_coefficient():
     assert all(np.allclose(problem.coefficient[a], k[a], rtol=1e-14) for a in range(3))
 
 
+def test_a_sphere_regions_expression_is_evaluated_on_the_block_around_it(monkeypatch):
+    """A region of another shape than a box takes its expression's values at its cells, which
+    are evaluated on the smallest block of cells holding the shape's cells, not on the whole
+    grid (values against the cell centres in numpy)."""
+    from sevenfold import fields
+
+    shapes: list[tuple[int, ...]] = []
+    real = fields.evaluate
+
+    def recorded(text, *xyz, **kwargs):
+        out = real(text, *xyz, **kwargs)
+        shapes.append(out.shape)
+        return out
+
+    monkeypatch.setattr(fields, "evaluate", recorded)
+    centre, radius = [0.6, 0.3, 1.1], 0.33
+    table = make_table(grid={"cells": [9, 8, 7], "size": SIZE},
+                       material={"value": 2.0, "region": [
+                           {"sphere": {"center": centre, "radius": radius}, "value": "5 + x * z - y"}]},
+                       boundary={"x_min": D(1.0)})
+    problem = build_problem(parse_job(table, "test"))
+    x, y, z = np.meshgrid(*(problem.grid.centres(a) for a in range(3)), indexing="ij")
+    inside = (x - centre[0]) ** 2 + (y - centre[1]) ** 2 + (z - centre[2]) ** 2 <= radius**2
+    assert 0 < inside.sum() < inside.size
+    np.testing.assert_allclose(problem.coefficient[0], np.where(inside, 5 + x * z - y, 2.0), rtol=1e-15)
+    block = tuple(int(np.count_nonzero(inside.any(axis=tuple(b for b in range(3) if b != a))))
+                  for a in range(3))
+    assert shapes == [block] and block != inside.shape, (shapes, block)
+
+
 def test_box_regions_select_the_cells_whose_centres_they_hold(monkeypatch):
     """Boxes are assigned as blocks of slices (no grid-sized mask each): overlapping boxes
     (the later wins), a box valued by an expression, a source box's value and a total spread
     over its cells' volume, against masks of the cell centres built in numpy (conftest). A
-    box's expression is evaluated on the box's cells alone, the base's on the whole grid."""
+    box's expression is evaluated on the box's cells alone, the base's on the whole grid,
+    straight into the field."""
     from sevenfold import fields
     from sevenfold.errors import JobError
 
     shapes: dict[str, tuple[int, ...]] = {}
+    into: dict[str, bool] = {}
     real = fields.evaluate
 
-    def recorded(text, *xyz):
-        out = real(text, *xyz)
+    def recorded(text, *xyz, **kwargs):
+        out = real(text, *xyz, **kwargs)
         shapes[text] = out.shape
+        into[text] = out is kwargs.get("out")
         return out
 
     monkeypatch.setattr(fields, "evaluate", recorded)
@@ -226,7 +259,8 @@ def test_box_regions_select_the_cells_whose_centres_they_hold(monkeypatch):
                            ("10 * z", ([0.1, 0.0, 0.0], [0.5, 0.35, 1.7]))):
         inside = tuple(int(np.count_nonzero((c >= l) & (c <= h))) for c, l, h in zip(centres, lo, hi))
         assert shapes[text] == inside, (text, shapes[text], inside)
-    assert shapes["x + 2"] == (7, 6, 5)
+    assert shapes["x + 2"] == (7, 6, 5) and into["x + 2"]
+    assert not into["10 * z"]
     empty = copy.deepcopy(table)
     empty["material"]["region"].append({"box": {"min": [0.0, 0.0, 0.0], "max": [0.01, 0.6, 2.5]}, "value": 1.0})
     with pytest.raises(JobError, match="selects no cell centre") as info:

@@ -104,12 +104,15 @@ def _part(node: ast.expr, outer: frozenset[str], local: dict,
     return ast.Name(id=name, ctx=ast.Load())
 
 
-def evaluate(text: str, x: np.ndarray, y: np.ndarray, z: np.ndarray) -> np.ndarray:
+def evaluate(text: str, x: np.ndarray, y: np.ndarray, z: np.ndarray,
+             out: np.ndarray | None = None) -> np.ndarray:
     """Evaluate a checked expression on broadcastable coordinate arrays (metres).
 
-    Returns a float64 array of the broadcast shape of ``x``, ``y`` and ``z``. Parts that
-    depend on fewer coordinates than the whole are evaluated first on their own, smaller
-    shapes (:func:`_hoist`).
+    Returns a float64 array of the broadcast shape of ``x``, ``y`` and ``z``, or writes it into
+    ``out`` (float64, that shape) and returns ``out``: an expression on every coordinate is then
+    evaluated straight into it, on numexpr's threads, with no array of the whole grid besides.
+    Parts that depend on fewer coordinates than the whole are evaluated first on their own,
+    smaller shapes (:func:`_hoist`).
     """
     import numexpr  # on first use: a job without expressions never loads it
 
@@ -117,11 +120,24 @@ def evaluate(text: str, x: np.ndarray, y: np.ndarray, z: np.ndarray) -> np.ndarr
     shape = np.broadcast_shapes(np.shape(x), np.shape(y), np.shape(z))
     local = {"x": x, "y": y, "z": z, **CONSTANTS}
 
-    def run(source: str) -> np.ndarray:
-        return numexpr.evaluate(source, local_dict=local, global_dict={})
+    def run(source: str, into: np.ndarray | None = None) -> np.ndarray:
+        return numexpr.evaluate(source, local_dict=local, global_dict={}, out=into)
 
     try:
-        result = run(ast.unparse(_hoist(ast.parse(text.strip(), mode="eval").body, local, run)))
+        tree = _hoist(ast.parse(text.strip(), mode="eval").body, local, run)
+        if out is not None and _shape(tree, local) == out.shape and out.flags.c_contiguous:
+            return run(ast.unparse(tree), out)
+        result = run(ast.unparse(tree))
     except Exception as exc:  # numexpr raises several types for malformed input
         raise ExpressionError(f"expression {text!r} cannot be evaluated: {exc}") from None
-    return np.broadcast_to(np.asarray(result, dtype=np.float64), shape)
+    result = np.broadcast_to(np.asarray(result, dtype=np.float64), shape)
+    if out is None:
+        return result
+    out[...] = result
+    return out
+
+
+def _shape(node: ast.AST, local: dict) -> tuple[int, ...]:
+    """The broadcast shape of the arrays that ``node`` names."""
+    return np.broadcast_shapes(*(np.shape(local[n.id]) for n in ast.walk(node)
+                                 if isinstance(n, ast.Name) and n.id in local))

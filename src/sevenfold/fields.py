@@ -20,18 +20,36 @@ from .spec import Box, MaterialSpec, SourceSpec, components
 Cells = tuple[slice, slice, slice] | np.ndarray
 
 
-def _values(value: float | str, grid: Grid, where: Cells | None = None) -> np.ndarray | float:
-    """A scalar, or the expression evaluated on the cell centres (only at ``where``: a cell
-    mask or a block of slices, :func:`region_cells`). An array may be a read-only view: the
-    callers copy it into their own fields. A block of slices is evaluated on its cells alone."""
+def _values(value: float | str, grid: Grid, where: Cells) -> np.ndarray | float:
+    """A scalar, or the expression evaluated on the cell centres at ``where`` (a cell mask or
+    a block of slices, :func:`region_cells`). An array may be a read-only view: the callers
+    copy it into their own fields. The expression is evaluated on the block's cells alone, or
+    on the smallest block holding the mask's cells."""
     if not isinstance(value, str):
         return float(value)
     x, y, z = grid.mesh()
-    if isinstance(where, tuple):
-        sx, sy, sz = where
-        return evaluate(value, x[sx], y[:, sy], z[:, :, sz])
-    full = evaluate(value, x, y, z)
-    return full[where] if where is not None else full
+    block = where if isinstance(where, tuple) else _bounding_block(where)
+    sx, sy, sz = block
+    values = evaluate(value, x[sx], y[:, sy], z[:, :, sz])
+    return values if isinstance(where, tuple) else values[where[block]]
+
+
+def _bounding_block(mask: np.ndarray) -> tuple[slice, slice, slice]:
+    """The smallest block of slices holding every cell of a (non-empty) mask."""
+    block = []
+    for axis in range(3):
+        hit = np.flatnonzero(mask.any(axis=tuple(a for a in range(3) if a != axis)))
+        block.append(slice(int(hit[0]), int(hit[-1]) + 1))
+    return tuple(block)  # type: ignore[return-value]
+
+
+def _fill(field: np.ndarray, value: float | str, grid: Grid) -> None:
+    """``field[...] = value`` on every cell: a scalar, or an expression evaluated on the cell
+    centres straight into ``field`` (no grid-sized array of its values besides)."""
+    if isinstance(value, str):
+        evaluate(value, *grid.mesh(), out=field)
+    else:
+        field[...] = value
 
 
 def _check_finite(a: np.ndarray, where: str, positive: bool) -> None:
@@ -91,7 +109,7 @@ def _component(spec: MaterialSpec, grid: Grid, a: int, selections: list[Cells], 
     if base is not None:
         k[...] = base
     else:
-        k[...] = _values(components(spec.base)[a], grid)  # type: ignore[arg-type]
+        _fill(k, components(spec.base)[a], grid)  # type: ignore[arg-type]
     _check_finite(k, "material.file" if base is not None else where, positive=True)
     for i, (region, cells) in enumerate(zip(spec.region, selections)):
         v = _values(components(region.value)[a], grid, cells)
@@ -139,7 +157,10 @@ def source(spec: SourceSpec, grid: Grid, base: np.ndarray | None = None) -> np.n
     """The source f per unit volume on the cells; finite. A region's ``total`` is spread evenly
     per unit volume over the cells it selects (cells take shares by their volume)."""
     f = np.empty(grid.shape, dtype=np.float64)
-    f[...] = base if base is not None else _values(spec.base if spec.base is not None else 0.0, grid)
+    if base is not None:
+        f[...] = base
+    else:
+        _fill(f, spec.base if spec.base is not None else 0.0, grid)
     _check_finite(f, "source.file" if base is not None else "source", positive=False)
     for i, (region, cells) in enumerate(zip(spec.region, region_cells(spec.region, grid, "source.region"))):
         if region.total is not None:
