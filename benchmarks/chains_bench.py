@@ -41,13 +41,13 @@ import sweeps_bench  # noqa: E402
 
 
 def main(argv: list[str] | None = None) -> int:
-    from sevenfold.solvers import gmg
+    from sevenfold.solvers import hierarchy
 
     args = rb.ab_arguments(__doc__, "RESULTS_LINE_CHAINS.md", argv)
     old = sweeps_bench.lines_at(args.against)
     return sweeps_bench.report(args, argv, "chains_bench.py",
                                "The z-line recurrences as written-out chains", __doc__, old,
-                               {(gmg, "lines"): old})
+                               {(hierarchy, "lines"): old})
 
 
 if __name__ == "__main__":

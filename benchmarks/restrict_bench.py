@@ -185,15 +185,15 @@ def stencil_rows(args: argparse.Namespace, old, kernel_pair, detail) -> list[str
     """One table row per size and case of an A/B of a stencil kernel against ``old`` (the
     module at the revision): ``kernel_pair(job, old, rounds)`` times the kernel alone (its
     dict: then, now, apply), :func:`solve_pair` whole warm solves with the old module in
-    gmg's place; ``detail(kernel dict)`` is the row's seventh column."""
-    from sevenfold.solvers import gmg
+    the hierarchy's place; ``detail(kernel dict)`` is the row's seventh column."""
+    from sevenfold.solvers import hierarchy
 
     lines = []
     for n in args.sizes:
         for case in args.cases:
             job = problem(n, case)
             k = kernel_pair(job, old, args.rounds)
-            s = solve_pair(job, {(gmg, "stencil"): old}, args.rounds)
+            s = solve_pair(job, {(hierarchy, "stencil"): old}, args.rounds)
             del job
             lines.append(
                 f"| {case} | {n}^3 | {k['apply'] * 1e3:.2f} | {k['then']:.2f} | {k['now']:.2f} | "

@@ -64,13 +64,16 @@ def uncached(source: str) -> str:
 
 
 def hierarchy_at(revision: str):
-    """gmg's Hierarchy as it was at ``revision``, on that revision's level kernels."""
+    """The multigrid Hierarchy as it was at ``revision`` (in solvers/gmg.py before it had a
+    module of its own), on that revision's level kernels."""
     stencil = wall_bench.module_at(revision, "sevenfold.kernels.stencil", edit=uncached)
     multigrid = wall_bench.module_at(revision, "sevenfold.kernels.multigrid", edit=uncached)
     # (the revision's gmg calls them as they were, so not through wall_bench.kernels_at)
     # the revision's levels (its Level and rule for the planes) beside the current ones
     wall_bench.module_at(revision, "sevenfold.solvers.levels", edit=uncached)
-    gmg = wall_bench.module_at(revision, "sevenfold.solvers.gmg", edit=lambda s: uncached(
+    home = ("sevenfold.solvers.hierarchy" if wall_bench.exists_at(revision, "sevenfold.solvers.hierarchy")
+            else "sevenfold.solvers.gmg")
+    gmg = wall_bench.module_at(revision, home, edit=lambda s: uncached(
         s.replace("from ..kernels import multigrid, stencil\n", "").replace(
             "from ..kernels import lines, multigrid, stencil\n", "")))
     gmg.multigrid, gmg.stencil = multigrid, stencil

@@ -114,11 +114,11 @@ def kernel_pair(job, old, rounds: int) -> list[dict]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    from sevenfold.solvers import gmg
+    from sevenfold.solvers import hierarchy
 
     args = rb.ab_arguments(__doc__, "RESULTS_SWEEPS.md", argv)
     old = lines_at(args.against)
-    then = {(gmg, "lines"): old, (gmg.Hierarchy, "_smooth"): one_sweep_per_pass(old)}
+    then = {(hierarchy, "lines"): old, (hierarchy.Hierarchy, "_smooth"): one_sweep_per_pass(old)}
     return report(args, argv, "sweeps_bench.py", "Two z-line sweeps in one pass over memory",
                   __doc__, old, then)
 

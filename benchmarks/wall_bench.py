@@ -279,6 +279,12 @@ def _called_as_now(then, now, revision: str):
     return called
 
 
+def exists_at(revision: str, name: str) -> bool:
+    """Whether sevenfold's module ``name`` existed at git ``revision``."""
+    return subprocess.run(["git", "cat-file", "-e", f"{revision}:src/{name.replace('.', '/')}.py"],
+                          cwd=HERE, capture_output=True).returncode == 0
+
+
 # kernel modules split off a module: their kernels' home at a revision before the split
 SPLIT_FROM = {"sevenfold.kernels.lines": "sevenfold.kernels.multigrid",
               "sevenfold.kernels.finite_volume": "sevenfold.kernels.stencil"}
@@ -297,9 +303,7 @@ def kernels_at(revision: str, name: str):
         return source.replace("cache=True", "cache=False")
 
     home = name
-    if name in SPLIT_FROM and subprocess.run(
-            ["git", "cat-file", "-e", f"{revision}:src/{name.replace('.', '/')}.py"],
-            cwd=HERE, capture_output=True).returncode != 0:
+    if name in SPLIT_FROM and not exists_at(revision, name):
         home = SPLIT_FROM[name]  # a revision from before the split
     if home == "sevenfold.kernels.multigrid":  # (it imports from stencil)
         module_at(revision, "sevenfold.kernels.stencil", edit=uncached)

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from sevenfold.solvers.gmg import Level
+from sevenfold.solvers.levels import Level
 
 
 def graded_widths(n: int, decades: float = 3.0) -> np.ndarray:

@@ -10,7 +10,8 @@ from conftest import make_spec, solve_spec
 from gmg_cases import graded_level
 from sevenfold.operator import assemble, scatter
 from sevenfold.problem import build_problem
-from sevenfold.solvers.gmg import DEFAULTS, FineOperator, Hierarchy, fine_level, solve_gmg, solve_levels
+from sevenfold.solvers.gmg import DEFAULTS, FineOperator, fine_level, solve_gmg, solve_levels
+from sevenfold.solvers.hierarchy import Hierarchy
 
 MIXED_FACES = {
     "x_min": {"type": "dirichlet", "value": "1 + y*z"},
@@ -791,7 +792,7 @@ def test_contacts_of_both_parities_keep_cells_alone_or_z_whole(monkeypatch) -> N
     pairs as they are; benchmarks/RESULTS_PARTITION.md at 64^3 to 256^3); across z, z is not
     coarsened (the z-lines solve along it: 5 against 15), or, without lines, cells alone along
     z (the level kernels' general z loop: 6). Every answer agrees with scipy's direct solve."""
-    from sevenfold.solvers import gmg, levels
+    from sevenfold.solvers import hierarchy, levels
 
     for axis, notes, bound in (("x", "pairs arranged on level 0", 9),
                                ("z", "z not coarsened on levels 0, 1", 6)):
@@ -804,7 +805,7 @@ def test_contacts_of_both_parities_keep_cells_alone_or_z_whole(monkeypatch) -> N
         assert np.abs(u - direct).max() <= 1e-6 * np.abs(direct).max()
         kept = solve_gmg(problem, 1e-8, 100, planes=((), (), ()))[1]
         assert kept.iterations >= 2 * result.iterations, (axis, kept.iterations)
-    monkeypatch.setattr(gmg, "aggregates", lambda shape, planes, step, lines: levels.aggregates(
+    monkeypatch.setattr(hierarchy, "aggregates", lambda shape, planes, step, lines: levels.aggregates(
         shape, planes, step))  # (no lines: z must pair)
     u, alone = solve_gmg(problem, 1e-8, 100)
     assert "pairs arranged on level 0" in alone.notes, alone.notes

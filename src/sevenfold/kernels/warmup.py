@@ -76,7 +76,7 @@ def gmg_plan(cells: tuple[int, int, int], precision: str = "float32") -> GmgPlan
     keeps an axis fine the real run may compile a signature or build of the coarse levels
     itself."""
     from ..memory import gmg_finest
-    from ..solvers.gmg import COARSEST_CELLS
+    from ..solvers.hierarchy import COARSEST_CELLS
 
     shape, levels = tuple(int(c) for c in cells), []
     while int(np.prod(shape)) > COARSEST_CELLS and max(shape) > 1:
@@ -113,7 +113,7 @@ Items = dict[str, Callable[[], None]]
 
 def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
     """Each item compiles one kernel for tiny arrays of the argument types of the real run
-    (solvers/gmg.py, solvers/levels.py, solvers/cg.py, operator.py), one signature per tag; and
+    (solvers/gmg.py, solvers/hierarchy.py, solvers/levels.py, solvers/cg.py, operator.py), one signature per tag; and
     each item's tags (``item[tag]`` names one compiled signature in the cache's markers)."""
     from . import band, finite_volume, lines, multigrid, stencil, vector
 
