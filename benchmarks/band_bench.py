@@ -92,8 +92,13 @@ def level_pair(n: int, case: str, rounds: int) -> dict[str, float]:
 
 
 def resident(source: Path, job: Path) -> tuple[float, float, float]:
-    """(job, solve, set-up) seconds of the third run of ``job`` in one child on ``source``."""
-    env = {**__import__("os").environ, "PYTHONPATH": str(source)}
+    """(job, solve, set-up) seconds of the third run of ``job`` in one child on ``source``, in
+    a worker slot's environment (every core, malloc keeping the memory the last job freed:
+    without it, glibc's trimming between runs refaulted 9,000 pages more per 128^3 column run
+    on one side of an A/B, an allocation order's accident that no slot sees)."""
+    from sevenfold.queue.worker import cores, slot_environment
+
+    env = {**slot_environment(cores()), "PYTHONPATH": str(source)}
     out = subprocess.run([sys.executable, "-c", RESIDENT, str(job)], cwd=job.parent, env=env,
                          capture_output=True, text=True)
     if out.returncode != 0:
