@@ -24,18 +24,53 @@ def one_blas_thread() -> None:
 
 
 def small_pages() -> None:
-    """Ask numpy for ordinary 4 kB pages instead of transparent huge pages, unless the
+    """Ask numpy for ordinary 4 kB pages instead of transparent huge pages on a machine that
+    hands its free memory back to a hypervisor (:func:`reports_free_pages`), unless the
     environment already says (``NUMPY_MADVISE_HUGEPAGE``; read when numpy loads).
 
-    numpy advises huge pages on every large array; where Linux then compacts memory on a page
-    fault to find 2 MB of contiguous memory (transparent_hugepage "defrag" on madvise, a common
-    default), the first touch of a fresh process's arrays stalls on a host whose memory other
-    processes have fragmented: whole 256^3 runs took 0.70-0.83 times as long (median of five)
-    with small pages, their assembly and set-up half as long. A process that runs job after
-    job (a worker's slot) gets its freed huge pages back without compaction and then runs
-    faster on them, so the command calls this for the commands that run a job in a fresh
-    process, not for ``worker`` (benchmarks/RESULTS_HUGEPAGES.md).
+    There, free memory goes back to the host about 2 s after it is freed, and the first touch
+    of a fresh process's huge pages then faults in the host as well: a whole 256^3 run took
+    about 1.4 times as long with huge pages as with small ones, while on memory the host still
+    backed (what a machine without free-page reporting always has) huge pages made it about
+    0.9 times as long; no fault stalled on compaction either way
+    (benchmarks/RESULTS_PAGES.md). Elsewhere numpy's huge pages are kept. The command calls
+    this for the commands that run a job in a fresh process, not for ``worker``, whose slots
+    keep their memory from job to job and run faster on huge pages
+    (benchmarks/RESULTS_HUGEPAGES.md).
     """
     import os
 
-    os.environ.setdefault("NUMPY_MADVISE_HUGEPAGE", "0")
+    if "NUMPY_MADVISE_HUGEPAGE" not in os.environ and reports_free_pages():
+        os.environ["NUMPY_MADVISE_HUGEPAGE"] = "0"
+
+
+# virtio device 5 is a memory balloon; feature bit 5 (VIRTIO_BALLOON_F_REPORTING, Linux's
+# include/uapi/linux/virtio_balloon.h) reports free pages to the hypervisor
+VIRTIO_DEVICES = "/sys/bus/virtio/devices"
+BALLOON_DEVICE = 5
+REPORTING_BIT = 5
+
+
+def reports_free_pages(devices: str = VIRTIO_DEVICES) -> bool:
+    """Whether this machine is a virtual machine whose balloon device, bound to its driver,
+    reports free pages to the hypervisor (``devices``: the virtio devices' sysfs folder, each
+    with ``device``, the negotiated ``features`` as a string of 0s and 1s, and ``driver``)."""
+    import os
+
+    try:
+        names = os.listdir(devices)
+    except OSError:
+        return False
+    for name in names:
+        folder = os.path.join(devices, name)
+        try:
+            with open(os.path.join(folder, "device")) as f:
+                device = int(f.read().strip(), 16)
+            with open(os.path.join(folder, "features")) as f:
+                features = f.read().strip()
+        except (OSError, ValueError):
+            continue
+        if (device == BALLOON_DEVICE and features[REPORTING_BIT:REPORTING_BIT + 1] == "1"
+                and os.path.exists(os.path.join(folder, "driver"))):
+            return True
+    return False
