@@ -3,14 +3,14 @@
     python benchmarks/hugepage_bench.py [--jobs column:128 inclusions:128 column:256 layered:256]
         [--rounds 5] [--resident] [--memory as-found reclaimed backed]
 
-numpy asks Linux for transparent huge pages on every large array (madvise), and where the
-kernel's huge-page setting is "madvise" with "defrag" on madvise too (this host:
-/sys/kernel/mm/transparent_hugepage), a page fault in such an array may first compact memory
-to find 2 MB of free contiguous memory: on a host whose memory is fragmented by other
-tenants, the first touch of a new array then stalls (1 GB of new arrays took 0.6-2.3 s to
-fill with huge pages against 0.41-0.45 s with 4 kB pages, one-offs). A sevenfold job touches
-all its arrays once (assembly, set-up), so the stalls land in its own time; huge pages can
-make later passes faster (fewer TLB misses).
+numpy asks Linux for transparent huge pages on every large array (madvise). The first
+reading of this benchmark blamed the kernel compacting memory at the page fault ("defrag" on
+madvise) for the slow first touch of a fresh process's huge pages; the counts of
+``--memory`` (RESULTS_PAGES.md) found no compaction stall and no fallback at all, and the cause
+in a virtual machine whose balloon reports free pages: the host had taken the free blocks
+back and faulted them in again. A sevenfold job touches all its arrays once (assembly,
+set-up), so such faults land in its own time; huge pages make later passes faster (fewer TLB
+misses).
 
 For each job, whole processes alternate ``NUMPY_MADVISE_HUGEPAGE=1`` (numpy's default) and
 ``=0`` (``--rounds`` each); the table gives each side's job time from the summary line

@@ -29,11 +29,11 @@ def small_pages() -> None:
     environment already says (``NUMPY_MADVISE_HUGEPAGE``; read when numpy loads).
 
     There, free memory goes back to the host about 2 s after it is freed, and the first touch
-    of a fresh process's huge pages then faults in the host as well: a whole 256^3 run took
-    about 1.4 times as long with huge pages as with small ones, while on memory the host still
-    backed (what a machine without free-page reporting always has) huge pages made it about
-    0.9 times as long; no fault stalled on compaction either way
-    (benchmarks/RESULTS_PAGES.md). Elsewhere numpy's huge pages are kept. The command calls
+    of a fresh process's huge pages then faults in the host as well: a 1000:1 column job took
+    1.21 times as long at 128^3 and 1.33 times at 256^3 with huge pages as with small ones
+    (medians of four); on memory the host still backed, what a machine without free-page
+    reporting always has, huge pages took 0.76 and 0.79 times as long. No fault stalled on
+    compaction or fell back either way (benchmarks/RESULTS_PAGES.md). Elsewhere numpy's huge pages are kept. The command calls
     this for the commands that run a job in a fresh process, not for ``worker``, whose slots
     keep their memory from job to job and run faster on huge pages
     (benchmarks/RESULTS_HUGEPAGES.md).
