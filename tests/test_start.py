@@ -331,7 +331,7 @@ print(json.dumps(numpy.core.multiarray._get_madvise_hugepage()))
                                             ("worker", None)])
 def test_the_command_asks_numpy_for_small_pages_where_free_memory_goes_back(command, given) -> None:
     """On a machine that reports its free pages to a hypervisor, a fresh process's first touch
-    of huge pages faults in the host too (a 256^3 job 1.33 times as long), so the
+    of huge pages faults in the host too (a 256^3 job 1.37 times as long), so the
     command asks numpy for small pages there; elsewhere, and for ``worker``, whose slots keep
     their memory from job to job, numpy's huge pages stay (benchmarks/RESULTS_PAGES.md,
     RESULTS_HUGEPAGES.md); a value the user set is kept."""
