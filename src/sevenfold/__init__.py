@@ -33,10 +33,10 @@ def small_pages() -> None:
     1.18 times as long at 128^3 and 1.37 times at 256^3 with huge pages as with small ones
     (medians of four); on memory the host still backed, what a machine without free-page
     reporting always has, huge pages took 0.76 and 0.86 times as long. No fault stalled on
-    compaction or fell back either way (benchmarks/RESULTS_PAGES.md). Elsewhere numpy's huge pages are kept. The command calls
-    this for the commands that run a job in a fresh process, not for ``worker``, whose slots
-    keep their memory from job to job and run faster on huge pages
-    (benchmarks/RESULTS_HUGEPAGES.md).
+    compaction or fell back either way (benchmarks/RESULTS_PAGES.md). Elsewhere numpy's huge
+    pages are kept. The command calls this for the commands that run a job in a fresh
+    process, not for ``worker``, whose slots keep their memory from job to job and run faster
+    on huge pages (benchmarks/RESULTS_HUGEPAGES.md).
     """
     import os
 

@@ -43,9 +43,10 @@ def _bounding_block(mask: np.ndarray) -> tuple[slice, slice, slice]:
     return tuple(block)  # type: ignore[return-value]
 
 
-def _fill(field: np.ndarray, value: float | str, grid: Grid) -> None:
-    """``field[...] = value`` on every cell: a scalar, or an expression evaluated on the cell
-    centres straight into ``field`` (no grid-sized array of its values besides)."""
+def _fill(field: np.ndarray, value: float | str | np.ndarray, grid: Grid) -> None:
+    """``field[...] = value`` on every cell: a scalar, an array (a loaded file), or an
+    expression evaluated on the cell centres straight into ``field`` (no grid-sized array of
+    its values besides)."""
     if isinstance(value, str):
         evaluate(value, *grid.mesh(), out=field)
     else:
@@ -106,10 +107,7 @@ def _component(spec: MaterialSpec, grid: Grid, a: int, selections: list[Cells], 
                base: np.ndarray | None) -> np.ndarray:
     where = "material" + ("" if not spec.anisotropic else f" ({'xyz'[a]} component)")
     k = np.empty(grid.shape, dtype=np.float64)
-    if base is not None:
-        k[...] = base
-    else:
-        _fill(k, components(spec.base)[a], grid)  # type: ignore[arg-type]
+    _fill(k, base if base is not None else components(spec.base)[a], grid)  # type: ignore[arg-type]
     _check_finite(k, "material.file" if base is not None else where, positive=True)
     for i, (region, cells) in enumerate(zip(spec.region, selections)):
         v = _values(components(region.value)[a], grid, cells)
@@ -157,10 +155,7 @@ def source(spec: SourceSpec, grid: Grid, base: np.ndarray | None = None) -> np.n
     """The source f per unit volume on the cells; finite. A region's ``total`` is spread evenly
     per unit volume over the cells it selects (cells take shares by their volume)."""
     f = np.empty(grid.shape, dtype=np.float64)
-    if base is not None:
-        f[...] = base
-    else:
-        _fill(f, spec.base if spec.base is not None else 0.0, grid)
+    _fill(f, base if base is not None else spec.base if spec.base is not None else 0.0, grid)
     _check_finite(f, "source.file" if base is not None else "source", positive=False)
     for i, (region, cells) in enumerate(zip(spec.region, region_cells(spec.region, grid, "source.region"))):
         if region.total is not None:
