@@ -370,6 +370,7 @@ def test_free_page_reporting_is_read_from_the_balloons_negotiated_features(tmp_p
     _virtio(tmp_path, "virtio3", 5, "011001")
     assert sevenfold.reports_free_pages(str(tmp_path))
 
+    monkeypatch.setenv("NUMPY_MADVISE_HUGEPAGE", "")  # (records the variable as it was, for the undo)
     for reports, given, expected in ((True, None, "0"), (False, None, None), (True, "1", "1")):
         monkeypatch.setattr(sevenfold, "reports_free_pages", lambda reports=reports: reports)
         if given is None:
