@@ -54,7 +54,9 @@ REPORTING_BIT = 5
 def reports_free_pages(devices: str = VIRTIO_DEVICES) -> bool:
     """Whether this machine is a virtual machine whose balloon device, bound to its driver,
     reports free pages to the hypervisor (``devices``: the virtio devices' sysfs folder, each
-    with ``device``, the negotiated ``features`` as a string of 0s and 1s, and ``driver``)."""
+    with ``device``, the negotiated ``features`` as a string of 0s and 1s, and ``driver``).
+    Only virtio balloons are recognised (KVM, QEMU, Firecracker); on another hypervisor that
+    takes free memory back, set ``NUMPY_MADVISE_HUGEPAGE=0`` yourself."""
     import os
 
     try:
