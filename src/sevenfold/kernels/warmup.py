@@ -113,8 +113,9 @@ Items = dict[str, Callable[[], None]]
 
 def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
     """Each item compiles one kernel for tiny arrays of the argument types of the real run
-    (solvers/gmg.py, solvers/hierarchy.py, solvers/levels.py, solvers/cg.py, operator.py), one signature per tag; and
-    each item's tags (``item[tag]`` names one compiled signature in the cache's markers)."""
+    (solvers/gmg.py, solvers/hierarchy.py, solvers/levels.py, solvers/cg.py, operator.py),
+    one signature per tag; and each item's tags (``item[tag]`` names one compiled signature in
+    the cache's markers)."""
     from . import band, finite_volume, lines, multigrid, stencil, vector
 
     f64 = np.float64
