@@ -189,31 +189,35 @@ def test_region_changes_the_coefficient():
 def test_a_sphere_regions_expression_is_evaluated_on_the_block_around_it(monkeypatch):
     """A region of another shape than a box takes its expression's values at its cells, which
     are evaluated on the smallest block of cells holding the shape's cells, not on the whole
-    grid (values against the cell centres in numpy)."""
+    grid (values against the cell centres in numpy); the material's base expression is
+    evaluated straight into k."""
     from sevenfold import fields
 
     shapes: list[tuple[int, ...]] = []
+    into: list[bool] = []
     real = fields.evaluate
 
     def recorded(text, *xyz, **kwargs):
         out = real(text, *xyz, **kwargs)
         shapes.append(out.shape)
+        into.append(out is kwargs.get("out"))
         return out
 
     monkeypatch.setattr(fields, "evaluate", recorded)
     centre, radius = [0.6, 0.3, 1.1], 0.33
     table = make_table(grid={"cells": [9, 8, 7], "size": SIZE},
-                       material={"value": 2.0, "region": [
+                       material={"value": "2 + y", "region": [
                            {"sphere": {"center": centre, "radius": radius}, "value": "5 + x * z - y"}]},
                        boundary={"x_min": D(1.0)})
     problem = build_problem(parse_job(table, "test"))
     x, y, z = np.meshgrid(*(problem.grid.centres(a) for a in range(3)), indexing="ij")
     inside = (x - centre[0]) ** 2 + (y - centre[1]) ** 2 + (z - centre[2]) ** 2 <= radius**2
     assert 0 < inside.sum() < inside.size
-    np.testing.assert_allclose(problem.coefficient[0], np.where(inside, 5 + x * z - y, 2.0), rtol=1e-15)
+    np.testing.assert_allclose(problem.coefficient[0], np.where(inside, 5 + x * z - y, 2 + y), rtol=1e-15)
     block = tuple(int(np.count_nonzero(inside.any(axis=tuple(b for b in range(3) if b != a))))
                   for a in range(3))
-    assert shapes == [block] and block != inside.shape, (shapes, block)
+    assert shapes == [inside.shape, block] and block != inside.shape, (shapes, block)
+    assert into == [True, False]
 
 
 def test_box_regions_select_the_cells_whose_centres_they_hold(monkeypatch):
