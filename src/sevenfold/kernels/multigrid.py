@@ -80,6 +80,34 @@ def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
     return total
 
 
+@njit(cache=True)  # serial: one pass over diag, a small share of the set-up
+def wall_counts(diag, free, ratio):
+    """Per cell boundary across x (between planes i and i + 1) and across y (rows j and
+    j + 1), the pairs of free neighbouring cells whose diagonals differ more than ``ratio``
+    times: where the conductivity jumps (:func:`sevenfold.solvers.levels.material_walls`)."""
+    nx, ny, nz = diag.shape
+    cx = np.zeros(max(nx - 1, 0), dtype=np.int64)
+    cy = np.zeros(max(ny - 1, 0), dtype=np.int64)
+    for i in range(nx):
+        for j in range(ny):
+            nxt, side = 0, 0
+            for m in range(nz):
+                d = diag[i, j, m]
+                if i + 1 < nx and free[i, j, m] and free[i + 1, j, m]:
+                    e = diag[i + 1, j, m]
+                    if d > ratio * e or e > ratio * d:
+                        nxt += 1
+                if j + 1 < ny and free[i, j, m] and free[i, j + 1, m]:
+                    e = diag[i, j + 1, m]
+                    if d > ratio * e or e > ratio * d:
+                        side += 1
+            if i + 1 < nx:
+                cx[i] += nxt
+            if j + 1 < ny:
+                cy[j] += side
+    return cx, cy
+
+
 @njit(cache=True)
 def _axis_scales(agg, nc):
     """Per aggregate along one axis (``agg``: each fine cell's, ``nc`` of them): its first

@@ -44,7 +44,7 @@ COST = {
     "transmissibility": 2.6, "fine_stencil": 7.4, "axis_weakness": 2.3, "galerkin_scaled": 7.4,
     "line_factor": 1.9, "line_gauss_seidel": 8.9, "residual_restrict": 6.3, "prolong_add": 2.1,
     "apply_dot": 3.1, "narrow": 0.6, "vectors_threaded": 2.5, "vectors_serial": 1.2,
-    "band_cholesky": 1.3,
+    "band_cholesky": 1.3, "wall_counts": 1.0,
 }
 # What starting the child costs before it compiles (the interpreter, numba, the kernel modules)
 CHILD_START = 1.5
@@ -148,6 +148,8 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
     add("fine_stencil", "float64", lambda: _build(
         finite_volume.fine_stencil, *_arrays(f64, count=3), ~free, _arrays(f64), _arrays(f64), *widths,
         faces, faces, *_arrays(f64, count=2)))
+    if plan.levels:  # the walls in the conductivity, read from the float64 operator
+        add("wall_counts", "float64", lambda: _build(multigrid.wall_counts, _arrays(f64), free, 10.0))
     for i in range(len(plan.levels)):
         # every level's arrays and right-hand side are in the levels' type (the finest smooths
         # a copy of CG's residual), except a finest level smoothed on the float64 operator

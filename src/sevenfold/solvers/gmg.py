@@ -13,7 +13,9 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   of both parities keep z uncoarsened instead, since the z-lines solve along it): the Galerkin
   product drops a coupling inside an aggregate, and with it the contact (12 iterations
   against 5 at 128^3, benchmarks/RESULTS_SHIFT.md; 39 against 8 for three contacts across x,
-  benchmarks/RESULTS_PARTITION.md);
+  benchmarks/RESULTS_PARTITION.md); walls in the conductivity across x and y (a 1000:1
+  column's sides) are kept between aggregates the same way while an axis has few of them
+  (:func:`.levels.material_walls`: 7 iterations against 9 for the 1000:1 column at 256^3);
 * coarse operators from the aggregation's Galerkin product P^T A P, which stays a 7-point
   stencil: every coarse coupling is the sum of the fine couplings crossing between two
   aggregates, so jumps in k reach the coarse levels as fluxes instead of being averaged; each
@@ -111,6 +113,7 @@ def solve_levels(fine: Level, b: np.ndarray, rtol: float, max_iterations: int,
     start = opts.pop("start")
     if start == "fmg" or opts["transfer"] == "linear":
         opts.pop("planes", None)  # (their interpolation assumes plain pairs)
+        opts["walls"] = False
     t1 = time.perf_counter()
     operator = FineOperator(fine)
     # the preconditioner writes z where the operator writes A p: CG is done with A p by then

@@ -12,7 +12,7 @@ import numpy as np
 
 from ..kernels import lines, multigrid, stencil
 from .coarsest import CoarsestSolver
-from .levels import Level, aggregates, coarsening_step, plain_pairs, strong_z
+from .levels import Level, aggregates, coarsening_step, material_walls, plain_pairs, strong_z
 
 # The coarsest level is factorised (coarsest.py); 16^3 keeps the aggregation levels where
 # thin 1000:1 layers are still resolved (coarser aggregates of layered media slowed the cycle
@@ -44,13 +44,17 @@ class Hierarchy:
     ``planes``: per axis, the cell boundaries (b: between cells b - 1 and b) that should lie
     between aggregates on every level (contact resistances, :func:`aggregates`); not with
     the linear transfer, whose interpolation assumes plain pairs.
+    ``walls``: also keep the conductivity's walls across x and y, read from the operator
+    (:func:`.levels.material_walls`), between aggregates while they are few (not with the
+    linear transfer).
     """
 
     def __init__(self, fine: Level, overcorrection: float | None = None, cycle: str = "V",
                  smoothing: int = 1, smoother: str = "line", transfer: str = "linear",
                  precision: str = "float64", coarsest_cells: int | None = None,
                  finest: str = "copy", out: np.ndarray | None = None,
-                 planes: tuple[tuple[int, ...], ...] = ((), (), ())) -> None:
+                 planes: tuple[tuple[int, ...], ...] = ((), (), ()),
+                 walls: bool = True) -> None:
         if transfer not in ("linear", "constant", "scaled") or smoother not in ("line", "point", "auto"):
             raise ValueError(f"unknown transfer {transfer!r} or smoother {smoother!r}")
         self.dtype = np.dtype(precision)
@@ -75,6 +79,12 @@ class Hierarchy:
         # cells left alone for contact planes (an aggregate more each) do not add a level
         nominal = top.shape
         self._whole_z: list[int] = []  # levels whose z stays whole for contact planes
+        coarsened = int(np.prod(nominal)) > (coarsest_cells or COARSEST_CELLS)
+        found = (material_walls(fine) if walls and transfer != "linear" and coarsened
+                 else ((), (), ()))
+        kept = [name for name, there in (("contact planes", any(planes)),
+                                         ("walls in the conductivity", any(found))) if there]
+        self._kept = " and ".join(kept)  # what the arranged pairs keep between aggregates
         while True:
             lv = self.levels[-1]
             if int(np.prod(nominal)) <= (coarsest_cells or COARSEST_CELLS):
@@ -83,7 +93,7 @@ class Hierarchy:
             wanted = coarsening_step(lv, lv.lines)
             if not (wanted > 1).any():
                 break
-            step, lv.agg, planes = aggregates(lv.shape, planes, wanted, lv.lines)
+            step, lv.agg, planes, found = aggregates(lv.shape, planes, wanted, lv.lines, found)
             lv.step = step
             if step[2] < wanted[2]:
                 self._whole_z.append(len(self.levels) - 1)
@@ -144,13 +154,13 @@ class Hierarchy:
         return "z-line (levels " + ", ".join(str(i) for i, x in enumerate(on_lines) if x) + ") and point"
 
     def planes_note(self) -> str:
-        """What the levels do for contact planes (empty when nothing)."""
+        """What the levels do for contact planes and walls (empty when nothing)."""
         def on(levels: list[int]) -> str:
             return "level" + ("s " if len(levels) > 1 else " ") + ", ".join(map(str, levels))
         arranged = [i for i, lv in enumerate(self.levels[:-1]) if not plain_pairs(lv)]
         note = ""
         if arranged:
-            note += f", pairs arranged on {on(arranged)} to keep contact planes between aggregates"
+            note += f", pairs arranged on {on(arranged)} to keep {self._kept} between aggregates"
         if self._whole_z:
             note += f", z not coarsened on {on(self._whole_z)} to keep contact planes of both parities"
         return note

@@ -21,6 +21,13 @@ if TYPE_CHECKING:
 WEAK_RATIO = 2.25
 WEAK_FRACTION = 0.1
 SAMPLE_CELLS = 200_000  # cells the coarsening rule looks at per level (a regular subsample)
+# A cell boundary across x or y is a wall in the conductivity where, over at least WALL_COVER
+# of its plane, the cells on its two sides have diagonals more than WALL_RATIO times apart;
+# walls are kept between aggregates on an axis while there is at most one per WALL_SPACING
+# cells along it (each costs an aggregate of one cell where a pair would straddle it).
+WALL_RATIO = 10.0
+WALL_COVER = 0.05
+WALL_SPACING = 16
 
 
 @dataclass
@@ -167,20 +174,44 @@ def pairs(shape: tuple[int, ...], step, off=(0, 0, 0)) -> tuple[np.ndarray, ...]
                  for n, s, o in zip(shape, step, off))
 
 
+def material_walls(lv: Level) -> tuple[tuple[int, ...], tuple[int, ...], tuple[int, ...]]:
+    """Per axis, the cell boundaries b (between cells b - 1 and b) across x and y where the
+    conductivity jumps over a good part of the plane (WALL_RATIO, WALL_COVER), read from the
+    operator's diagonal; none along z.
+
+    A pair of cells that straddles such a wall, a cell of a 1000:1 column with one of its
+    surroundings, is one unknown on the coarse level, where the two sides' errors differ: the
+    1000:1 column took 9 iterations at 256^3 with its walls inside pairs, 7 with them kept
+    between aggregates (benchmarks/RESULTS_MATERIAL_WALLS.md). Along z the lines solve
+    exactly, and walls of both parities would keep z whole (:func:`aggregates`)."""
+    nx, ny, nz = lv.shape
+    cx, cy = multigrid.wall_counts(lv.diag, lv.free, WALL_RATIO)
+    found = []
+    for counts, plane in ((cx, ny * nz), (cy, nx * nz)):
+        found.append(tuple(int(b) + 1 for b in np.nonzero(counts >= WALL_COVER * plane)[0]))
+    return found[0], found[1], ()
+
+
 def aggregates(shape: tuple[int, int, int], planes: tuple[tuple[int, ...], ...],
-               step: np.ndarray, lines: bool = False
-               ) -> tuple[np.ndarray, tuple[np.ndarray, ...], tuple[tuple[int, ...], ...]]:
-    """Aggregate sizes per axis, each fine cell's aggregate per axis, and where ``planes`` lie
-    on the coarse level, for a level of ``shape`` that :func:`coarsening_step` would coarsen
-    by ``step``.
+               step: np.ndarray, lines: bool = False,
+               walls: tuple[tuple[int, ...], ...] = ((), (), ()),
+               ) -> tuple[np.ndarray, tuple[np.ndarray, ...], tuple[tuple[int, ...], ...],
+                          tuple[tuple[int, ...], ...]]:
+    """Aggregate sizes per axis, each fine cell's aggregate per axis, and where ``planes`` and
+    ``walls`` lie on the coarse level, for a level of ``shape`` that :func:`coarsening_step`
+    would coarsen by ``step``.
 
     ``planes[axis]`` holds cell boundaries b (between cells b - 1 and b) that must not fall
     inside an aggregate: faces carrying a contact resistance, whose weak coupling the Galerkin
     product drops when both cells join one aggregate (the coarse levels then miss the
     resistance: 17 iterations instead of 5 at 64^3, benchmarks/RESULTS_WALLS_CONTACT.md; three
     contacts across x of both parities 39 instead of 8 at 128^3,
-    benchmarks/RESULTS_PARTITION.md). A coarsened axis is paired from the parity most planes
-    have, with a cell alone wherever a pair would hold a plane (:func:`partition`). Along z,
+    benchmarks/RESULTS_PARTITION.md). ``walls[axis]`` (:func:`material_walls`) are kept
+    between aggregates like planes while the axis has at most one per WALL_SPACING cells, and
+    dropped for good once it has more: many walls of both parities (a stack of layers) would
+    leave many cells alone, which cost more than they give (1.14x the time of a layered job at
+    128^3 for the same iterations). A coarsened axis is paired from the parity most of them
+    have, with a cell alone wherever a pair would hold one (:func:`partition`). Along z,
     the level kernels' pair loops vectorise only for pairs (shifted or not): where a level
     smoothed along z lines has z planes of both parities, z keeps its cells instead (the lines
     solve along z exactly, so it need not be coarsened: three joints of both parities took
@@ -191,17 +222,21 @@ def aggregates(shape: tuple[int, int, int], planes: tuple[tuple[int, ...], ...],
     step = step.copy()
     if lines and step[2] == 2 and len({b % 2 for b in planes[2]}) > 1 and (step[:2] > 1).any():
         step[2] = 1
-    agg, coarse = [], []
-    for n, s, at in zip(shape, step, planes):
+    walls = tuple(at if len(at) <= n // WALL_SPACING else () for n, at in zip(shape, walls))
+    agg, coarse, coarse_walls = [], [], []
+    for n, s, at, kept in zip(shape, step, planes, walls):
         if s == 1:
             agg.append(np.arange(n, dtype=np.int64))
             coarse.append(tuple(at))
+            coarse_walls.append(tuple(kept))
             continue
-        odd = sum(b % 2 for b in at)
-        a = partition(n, at, 1 if 2 * odd > len(at) else 0)
+        cut = tuple(sorted(set(at) | set(kept)))
+        odd = sum(b % 2 for b in cut)
+        a = partition(n, cut, 1 if 2 * odd > len(cut) else 0)
         agg.append(a)
         coarse.append(tuple(sorted({int(a[b]) for b in at})))
-    return step, tuple(agg), tuple(coarse)
+        coarse_walls.append(tuple(sorted({int(a[b]) for b in kept})))
+    return step, tuple(agg), tuple(coarse), tuple(coarse_walls)
 
 
 def plain_pairs(lv: Level) -> bool:
