@@ -209,8 +209,9 @@ def aggregates(shape: tuple[int, int, int], planes: tuple[tuple[int, ...], ...],
     benchmarks/RESULTS_PARTITION.md). ``walls[axis]`` (:func:`material_walls`) are kept
     between aggregates like planes while the axis has at most one per WALL_SPACING cells, and
     dropped for good once it has more: many walls of both parities (a stack of layers) would
-    leave many cells alone, which cost more than they give (1.14x the time of a layered job at
-    128^3 for the same iterations). A coarsened axis is paired from the parity most of them
+    leave many cells alone, which cost more than they give (every wall kept: the speed suite's
+    layered job 1.17x at 128^3 and 2.15x at 256^3 in the same iterations, its coarse levels
+    no longer coarsened along y and z; benchmarks/RESULTS_MATERIAL_WALLS.md). A coarsened axis is paired from the parity most of them
     have, with a cell alone wherever a pair would hold one (:func:`partition`). Along z,
     the level kernels' pair loops vectorise only for pairs (shifted or not): where a level
     smoothed along z lines has z planes of both parities, z keeps its cells instead (the lines
