@@ -220,7 +220,8 @@ def test_run_prints_the_balance(tmp_path: Path, capsys) -> None:
 def test_a_masked_integral_slab_by_slab_is_the_whole_sum(monkeypatch) -> None:
     """Grid.integrate over a mask takes a few x-planes at a time (no grid-sized temporary):
     with slabs of one, three and all planes it equals sum(values * volume) over the mask,
-    on a graded grid (common practice: the midpoint rule per cell)."""
+    on a graded grid (common practice: the midpoint rule per cell); without a mask, over
+    every cell, a constant included."""
     from sevenfold import grid as grid_module
     from sevenfold.grid import grid_from_spec
 
@@ -234,3 +235,6 @@ def test_a_masked_integral_slab_by_slab_is_the_whole_sum(monkeypatch) -> None:
         monkeypatch.setattr(grid_module, "SLAB_CELLS", cells)
         assert grid.integrate(values, mask) == pytest.approx(expected, rel=1e-13)
         assert grid.volume(mask) == pytest.approx(float(grid.cell_volumes()[mask].sum()), rel=1e-13)
+    whole = float((values * grid.cell_volumes()).sum())  # and without a mask
+    assert grid.integrate(values) == pytest.approx(whole, rel=1e-13)
+    assert grid.integrate(np.full((), 2.0)) == pytest.approx(2.0 * 1.0 * 0.6 * 0.5, rel=1e-14)

@@ -78,6 +78,34 @@ def test_region_mean_of_a_linear_field_is_its_centre_value() -> None:
     assert r["max"] == pytest.approx(100.0 * (1 - 0.0225 / L), rel=1e-12)  # first selected centre
 
 
+def test_region_numbers_of_a_sphere_count_its_cells_only() -> None:
+    """A sphere selects part of the block of cells around it: its mean and max over the cells
+    whose centres lie inside it equal numpy's over the full mask of those cells, and differ
+    from the block's. On the linear field of a plane wall: a sphere in the middle (radius
+    0.0176 m, so the block's first x-plane holds no selected cell) for the max, and one cut in
+    half by x_min for the mean (the half ball's centroid lies nearer the face than the
+    block's)."""
+    n, L, r = 20, 0.1, 0.0176
+    centres = ([0.05, 0.05, 0.05], [0.0, 0.05, 0.05])
+    spec = make_spec(physics="heat", grid={"cells": [n, n, n], "size": [L, L, L]},
+                     material={"value": 1.0, "region": [
+                         {"sphere": {"center": c, "radius": r}, "value": 1.0} for c in centres]},
+                     boundary={"x_min": {"type": "dirichlet", "value": 100.0},
+                               "x_max": {"type": "dirichlet", "value": 0.0}})
+    h, u, problem = _headline(spec)
+    x, y, z = problem.grid.mesh()
+    for row, (cx, cy, cz) in zip(h["regions"], centres):
+        inside = (x - cx) ** 2 + (y - cy) ** 2 + (z - cz) ** 2 <= r**2
+        block = (np.abs(x - cx) <= r) & (np.abs(y - cy) <= r) & (np.abs(z - cz) <= r)
+        assert row["cells"] == int(inside.sum()) > 0
+        assert row["mean"] == pytest.approx(u[inside].mean(), rel=1e-12)
+        assert row["max"] == pytest.approx(u[inside].max(), rel=1e-12)
+        if cx > 0:
+            assert u[block].max() > u[inside].max() + 1.0
+        else:
+            assert u[block].mean() < u[inside].mean() - 1.0
+
+
 # ---------------------------------------------------------------- thermal resistance
 def test_thermal_resistance_of_a_plane_wall() -> None:
     # A heated first cell (insulated behind) conducts its heat through the wall to a Robin face:

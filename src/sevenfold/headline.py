@@ -82,9 +82,8 @@ def region_numbers(spec: JobSpec, grid: Grid, u: np.ndarray | None = None) -> li
                 "mean": float("nan"), "max": float("nan"),
             }
             if sel.cells and u is not None:
-                values = sel.values(u)
-                row["mean"] = float(np.dot(values, sel.cell_volumes(grid)) / sel.volume)
-                row["max"] = float(values.max())
+                row["mean"] = sel.integral(u, grid) / sel.volume
+                row["max"] = sel.maximum(u)
             out.append(row)
     return out
 

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .grid import Grid
+from .grid import Grid, weighted_sum
 from .shapes import mask
 from .spec import Box, Cylinder, Sphere
 
@@ -42,14 +42,15 @@ class Selection:
     cells: int
     volume: float  # m^3, the selected cells' volume
 
-    def values(self, field: np.ndarray) -> np.ndarray:
-        """The field's values on the selected cells (1D)."""
-        return field[self.block][self.mask]
+    def integral(self, field: np.ndarray, grid: Grid) -> float:
+        """The sum of ``field`` times the cell volume over the selected cells (no copy of
+        the selected values)."""
+        return weighted_sum(field[self.block], tuple(grid.widths(a)[self.block[a]] for a in range(3)),
+                            self.mask)
 
-    def cell_volumes(self, grid: Grid) -> np.ndarray:
-        """Volumes of the selected cells (1D, in the order of :meth:`values`)."""
-        w = [grid.widths(a)[self.block[a]] for a in range(3)]
-        return (w[0][:, None, None] * w[1][None, :, None] * w[2][None, None, :])[self.mask]
+    def maximum(self, field: np.ndarray) -> float:
+        """The largest value of ``field`` on the selected cells (at least one)."""
+        return float(np.max(field[self.block], where=self.mask, initial=-np.inf))
 
     def full_mask(self, shape: tuple[int, int, int]) -> np.ndarray:
         out = np.zeros(shape, dtype=bool)
