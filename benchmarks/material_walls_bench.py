@@ -27,7 +27,6 @@ Writes benchmarks/RESULTS_MATERIAL_WALLS.md.
 from __future__ import annotations
 
 import argparse
-import gc
 import re
 import sys
 from pathlib import Path
@@ -43,9 +42,8 @@ ARMS = ("without", "walls", "every wall")
 
 
 def warm(job, arm: str) -> dict:
-    """``rb.warm_gmg``'s measure for one arm, with the solve's notes (its levels)."""
-    from sevenfold.solvers import gmg, levels, solve_problem
-    from sevenfold.spec import SolverSpec
+    """``rb.warm_gmg`` (its row has the solve's notes, its levels) for one arm."""
+    from sevenfold.solvers import gmg, levels
 
     kept, spacing = gmg.Hierarchy, levels.WALL_SPACING
     if arm == "without":
@@ -53,17 +51,7 @@ def warm(job, arm: str) -> dict:
     elif arm == "every wall":
         levels.WALL_SPACING = 1
     try:
-        best: dict = {}
-        for i in range(3):
-            _, result = solve_problem(job, SolverSpec(method="gmg", rtol=1e-8), "gmg")
-            row = {"seconds": result.setup_seconds + result.solve_seconds,
-                   "iterations": result.iterations, "residual": result.final_relative_residual,
-                   "notes": result.notes}
-            if i and (not best or row["seconds"] < best["seconds"]):
-                best = row
-            del result
-            gc.collect()
-        return best
+        return rb.warm_gmg(job)
     finally:
         gmg.Hierarchy, levels.WALL_SPACING = kept, spacing
 

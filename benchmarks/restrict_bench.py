@@ -112,7 +112,7 @@ def warm_gmg(job, timed: int = 2) -> dict[str, float]:
     for i in range(timed + 1):
         _, result = solve_problem(job, SolverSpec(method="gmg", rtol=1e-8), "gmg")
         row = {"seconds": result.setup_seconds + result.solve_seconds, "iterations": result.iterations,
-               "residual": result.final_relative_residual}
+               "residual": result.final_relative_residual, "notes": result.notes}
         if i and (not best or row["seconds"] < best["seconds"]):
             best = row
         del result
