@@ -192,17 +192,19 @@ def patched(two_pass: bool = False, finest_sweeps: int | None = None, wide_rhs: 
 
     one_pass, smooth, rhs = lines.line_gauss_seidel, Hierarchy._smooth, Hierarchy._rhs
 
-    def sweep(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
+    def sweep(tx, ty, tz, inv_w, b, u, first, sweeps, chunks, zero):
+        if zero:
+            u[...] = 0.0
         for _ in range(sweeps):
             for colour in (first, 1 - first):
                 lines.line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour)
 
-    def fewer_on_finest(self, lv, b, u, first):
+    def fewer_on_finest(self, lv, b, u, first, zero=False):
         kept = self.sweeps
         if lv is self.levels[0]:
             self.sweeps = (finest_sweeps, finest_sweeps)
         try:
-            smooth(self, lv, b, u, first)
+            smooth(self, lv, b, u, first, zero)
         finally:
             self.sweeps = kept
     if two_pass:

@@ -540,12 +540,12 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
         # the check the docstring promises: one sweep from the same random u, both layouts
         start = np.random.default_rng(level).standard_normal(lv.shape).astype(h.dtype)
         kept_u, split_u, back = start.copy(), split(start), np.empty_like(start)
-        lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, kept_u, 0, 1, threads)
+        lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, kept_u, 0, 1, threads, False)
         sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, split_u, 0, threads)
         from_split(split_u, back)
         same = bool(np.array_equal(kept_u, back))
         pairs = {"sweep": (
-            lambda: lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, u, 0, 1, threads),
+            lambda: lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, u, 0, 1, threads, False),
             lambda: sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, su, 0, threads))}
         if level == 0:
             coarse = h.levels[1]

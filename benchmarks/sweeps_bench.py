@@ -54,7 +54,9 @@ def one_sweep_per_pass(old):
 
     from sevenfold.kernels import stencil
 
-    def smooth(self, lv, b, u, first):
+    def smooth(self, lv, b, u, first, zero=False):
+        if zero:
+            u[...] = 0.0
         for _ in range(self.sweeps[first]):
             if lv.lines:
                 old.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, first,
@@ -97,7 +99,7 @@ def kernel_pair(job, old, rounds: int) -> list[dict]:
         now, then = start.copy(), start.copy()
 
         def run_now(u=now):
-            lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, 2, threads)
+            lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, 2, threads, False)
 
         def run_then(u=then):
             two_sweeps(old, lv, b, u, threads)

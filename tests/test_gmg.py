@@ -535,9 +535,36 @@ def test_one_pass_line_sweeps_equal_the_colour_passes(shape, chunks, sweeps) -> 
                 for _ in range(sweeps):
                     for colour in (first, 1 - first):
                         lines.line_gauss_seidel_colour(txd, tyd, tzd, inv_w, b, two, colour)
-                lines.line_gauss_seidel(txd, tyd, tzd, inv_w, b, one, first, sweeps, chunks)
+                lines.line_gauss_seidel(txd, tyd, tzd, inv_w, b, one, first, sweeps, chunks, False)
             assert not np.array_equal(two, u1)
             assert np.array_equal(one, two), (dtype, first, np.abs(one - two).max())
+
+
+@pytest.mark.parametrize("shape", [(5, 7, 9), (9, 19, 6), (1, 4, 3), (12, 35, 4), (64, 3, 4)])
+@pytest.mark.parametrize("chunks", [1, 2, 5])
+def test_line_sweeps_from_zero_read_no_u(shape, chunks) -> None:
+    """``zero``: sweeps from u = 0 on an array full of NaN give bit for bit what the sweeps
+    give on a zeroed array (a single read of the old u would carry a NaN into the result), so
+    the cycle may skip zeroing its corrections (common practice: the first colour of a sweep
+    from zero sees only the right-hand side)."""
+    from sevenfold.kernels import lines
+
+    tx, ty, tz, diag, _ = _random_level(shape)
+    b = np.random.default_rng(12).standard_normal(shape)
+    for dtype in (np.float64, np.float32):
+        txd, tyd, tzd, diagd = (a.astype(dtype) for a in (tx, ty, tz, diag))
+        inv_w = np.empty(shape, dtype=dtype)
+        lines.line_factor(tzd, diagd, inv_w)
+        for first in (0, 1):
+            for sweeps in (1, 2):
+                zeroed = np.zeros(shape, dtype=dtype)
+                lines.line_gauss_seidel(txd, tyd, tzd, inv_w, b, zeroed, first, sweeps, chunks,
+                                        False)
+                garbage = np.full(shape, np.nan, dtype=dtype)
+                lines.line_gauss_seidel(txd, tyd, tzd, inv_w, b, garbage, first, sweeps, chunks,
+                                        True)
+                assert np.isfinite(zeroed).all() and np.abs(zeroed).max() > 0
+                assert np.array_equal(garbage, zeroed), (dtype, first, sweeps)
 
 
 @pytest.mark.parametrize("shape, step, off, planes", CASES)

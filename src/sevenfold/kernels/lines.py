@@ -57,17 +57,20 @@ def line_factor(tz, diag, inv_w):
 
 @njit(cache=True, inline="always")
 def _forward(r, tz, inv_w, o, i, j, m, prev):
-    """One forward step of the Thomas recurrence for column (i, j) at row m >= 1: y_m =
-    (rhs_m + tz_{m-1} y_{m-1}) / w_m, the right-hand side read from and y_m stored to r[o + m]."""
-    v = (r[o + m] + tz[i, j, m - np.uint64(1)] * prev) * inv_w[i, j, m]
+    """One forward step for column (i, j) at row m >= 1: z_m = rhs_m + (tz_{m-1} / w_{m-1})
+    z_{m-1}, the right-hand side read from and z_m stored to r[o + m]."""
+    k = m - np.uint64(1)
+    v = r[o + m] + (tz[i, j, k] * inv_w[i, j, k]) * prev
     r[o + m] = v
     return v
 
 
 @njit(cache=True, inline="always")
 def _backward(r, tz, inv_w, u, o, i, j, m, nxt):
-    """One back-substitution step for column (i, j) at row m: u_m = y_m + tz_m / w_m u_{m+1}."""
-    v = r[o + m] + tz[i, j, m] * inv_w[i, j, m] * nxt
+    """One back-substitution step for column (i, j) at row m: u_m = z_m / w_m + (tz_m / w_m)
+    u_{m+1}."""
+    w = inv_w[i, j, m]
+    v = r[o + m] * w + (tz[i, j, m] * w) * nxt
     u[i, j, m] = v
     return v
 
@@ -79,9 +82,16 @@ def _line_buffer(u):
 
 
 @njit(cache=True)
-def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, r):
+def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
     """Exact z-line solves for the columns (i, j) of plane i with (i + j) % 2 == colour, x and
-    y neighbours taken from the current u.
+    y neighbours taken from the current u, or, when ``zero``, taken as zero (u's current values
+    are not read: the first colour of a sweep from u = 0 needs neither u nor its zeroing).
+
+    Each column's system is solved as L D L^T with L unit lower bidiagonal (l_m = -tz_{m-1} /
+    w_{m-1}) and D = diag(w): forward z_m = rhs_m + (tz_{m-1} / w_{m-1}) z_{m-1}, then
+    u_m = z_m / w_m + (tz_m / w_m) u_{m+1}. Each step's dependence on the step before is one
+    multiply and one add; the Thomas form, (rhs_m + tz_{m-1} y_{m-1}) / w_m, puts a third
+    operation on that chain (0.88-0.92 of the sweep's time, benchmarks/RESULTS_LDL.md).
 
     Columns go in blocks of LINE_BLOCK: the block's right-hand sides are formed column by
     column at unit stride into r (this vectorises), then the Thomas recurrences
@@ -94,13 +104,16 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, r):
     warm gmg solve 0.81-0.90, the same numbers bit for bit (benchmarks/RESULTS_LINE_CHAINS.md). A short last block runs its columns one
     at a time.
     A missing x or y neighbour is read through the last plane's coupling, which is zero by the
-    face-array convention, so no weights are needed.
+    face-array convention, so no weights are needed; its value is taken from the neighbour on
+    the other side, a column of the other colour, which this sweep has written (the column's
+    own value may be anything when the sweep started from ``zero``, and 0 times NaN is NaN).
+    Planes one column wide have no such neighbour: :func:`line_gauss_seidel` zeroes them.
     """
     nx, ny, nz = u.shape
-    im = max(i - 1, 0)
-    ip = min(i + 1, nx - 1)
+    im = i - 1 if i > 0 else min(i + 1, nx - 1)
+    ip = i + 1 if i < nx - 1 else max(i - 1, 0)
     itm = i - 1 if i > 0 else nx - 1  # the zero plane stands in for a missing coupling
-    one, zero = np.uint64(1), np.uint64(0)
+    one, start = np.uint64(1), np.uint64(0)
     unz = np.uint64(nz)
     last = unz - one
     ui = np.uint64(i)
@@ -109,10 +122,14 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, r):
         nb = min(LINE_BLOCK, (ny - j0 + 1) // 2)
         for c in range(nb):
             j = j0 + 2 * c
-            jm = max(j - 1, 0)
+            jm = j - 1 if j > 0 else min(j + 1, ny - 1)
             jtm = j - 1 if j > 0 else ny - 1
-            jp = min(j + 1, ny - 1)
+            jp = j + 1 if j < ny - 1 else max(j - 1, 0)
             o = c * nz
+            if zero:
+                for m in range(nz):
+                    r[o + m] = b[i, j, m]
+                continue
             for m in range(nz):
                 r[o + m] = (b[i, j, m] + tx[itm, j, m] * u[im, j, m]
                             + tx[i, j, m] * u[ip, j, m] + ty[i, jtm, m] * u[i, jm, m]
@@ -121,7 +138,7 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, r):
             a0 = np.uint64(j0)
             a1, a2, a3 = a0 + np.uint64(2), a0 + np.uint64(4), a0 + np.uint64(6)
             a4, a5, a6, a7 = a0 + np.uint64(8), a0 + np.uint64(10), a0 + np.uint64(12), a0 + np.uint64(14)
-            o0 = zero  # (uint64 sums: numba types int64 * uint64 as float64)
+            o0 = start  # (uint64 sums: numba types int64 * uint64 as float64)
             o1 = o0 + unz
             o2 = o1 + unz
             o3 = o2 + unz
@@ -129,15 +146,14 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, r):
             o5 = o4 + unz
             o6 = o5 + unz
             o7 = o6 + unz
-            p0 = r[o0] * inv_w[ui, a0, zero]
-            p1 = r[o1] * inv_w[ui, a1, zero]
-            p2 = r[o2] * inv_w[ui, a2, zero]
-            p3 = r[o3] * inv_w[ui, a3, zero]
-            p4 = r[o4] * inv_w[ui, a4, zero]
-            p5 = r[o5] * inv_w[ui, a5, zero]
-            p6 = r[o6] * inv_w[ui, a6, zero]
-            p7 = r[o7] * inv_w[ui, a7, zero]
-            r[o0], r[o1], r[o2], r[o3], r[o4], r[o5], r[o6], r[o7] = p0, p1, p2, p3, p4, p5, p6, p7
+            p0 = r[o0]
+            p1 = r[o1]
+            p2 = r[o2]
+            p3 = r[o3]
+            p4 = r[o4]
+            p5 = r[o5]
+            p6 = r[o6]
+            p7 = r[o7]
             for m in range(one, unz):
                 p0 = _forward(r, tz, inv_w, o0, ui, a0, m, p0)
                 p1 = _forward(r, tz, inv_w, o1, ui, a1, m, p1)
@@ -147,6 +163,10 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, r):
                 p5 = _forward(r, tz, inv_w, o5, ui, a5, m, p5)
                 p6 = _forward(r, tz, inv_w, o6, ui, a6, m, p6)
                 p7 = _forward(r, tz, inv_w, o7, ui, a7, m, p7)
+            p0, p1 = p0 * inv_w[ui, a0, last], p1 * inv_w[ui, a1, last]
+            p2, p3 = p2 * inv_w[ui, a2, last], p3 * inv_w[ui, a3, last]
+            p4, p5 = p4 * inv_w[ui, a4, last], p5 * inv_w[ui, a5, last]
+            p6, p7 = p6 * inv_w[ui, a6, last], p7 * inv_w[ui, a7, last]
             u[ui, a0, last], u[ui, a1, last], u[ui, a2, last], u[ui, a3, last] = p0, p1, p2, p3
             u[ui, a4, last], u[ui, a5, last], u[ui, a6, last], u[ui, a7, last] = p4, p5, p6, p7
             for k in range(one, unz):
@@ -163,10 +183,10 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, r):
             for c in range(nb):
                 a = np.uint64(j0 + 2 * c)
                 o = np.uint64(c * nz)
-                p = r[o] * inv_w[ui, a, zero]
-                r[o] = p
+                p = r[o]
                 for m in range(one, unz):
                     p = _forward(r, tz, inv_w, o, ui, a, m, p)
+                p = p * inv_w[ui, a, last]
                 u[ui, a, last] = p
                 for k in range(one, unz):
                     p = _backward(r, tz, inv_w, u, o, ui, a, last - k, p)
@@ -180,15 +200,16 @@ def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
     nx = u.shape[0]
     for i in prange(nx):
         r = _line_buffer(u)
-        _line_plane(tx, ty, tz, inv_w, b, u, i, colour, r)
+        _line_plane(tx, ty, tz, inv_w, b, u, i, colour, False, r)
 
 
 @njit(cache=True, parallel=True)
-def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
+def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks, zero):
     """``sweeps`` zebra z-line Gauss-Seidel sweeps, each colour ``first`` then the other, in
     one pass over memory: the same result, bit for bit, as :func:`line_gauss_seidel_colour`
     for ``first`` and then for ``1 - first``, ``sweeps`` times, for a fraction of the memory
-    traffic.
+    traffic. ``zero``: start from u = 0 without reading u (it need not be zeroed: the first
+    two colour passes write every cell before any is read), the same result bit for bit.
 
     The 2 ``sweeps`` colour passes are stages of a wavefront, each trailing the one before by
     one x-plane: at step i stage s solves plane i - s. Its columns read only columns of the
@@ -200,7 +221,10 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
     stage, one border per thread. Two sweeps in one pass took 0.84-0.85 of the time of two
     one-sweep passes on 256^3 finest levels, 0.91-0.95 on 128^3 (benchmarks/RESULTS_SWEEPS.md).
     """
-    nx = u.shape[0]
+    nx, ny = u.shape[0], u.shape[1]
+    if zero and (nx < 2 or ny < 2):  # no column of the other colour beside a border column
+        u[...] = 0.0
+        zero = False
     stages = 2 * sweeps
     # a run spans at least 2 (stages - 1) planes, so that its two borders' planes stay apart
     chunks = min(chunks, nx // (2 * (stages - 1)))
@@ -208,7 +232,7 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
         r = _line_buffer(u)
         for s in range(stages):
             for plane in range(nx):
-                _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, r)
+                _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, zero and s == 0, r)
         return
     # the plane solve is a called function, not inlined: four inlined copies compiled in 18.6 s,
     # the call in 7 s, for sweeps within measurement noise of each other
@@ -219,10 +243,10 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks):
             for s in range(stages):
                 plane = i - s
                 if lo + s <= plane <= hi - 1 - s:
-                    _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, r)
+                    _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, zero and s == 0, r)
     for k in prange(chunks + 1):  # the border at plane k nx / chunks (0 and nx: the ends)
         r = _line_buffer(u)
         p = k * nx // chunks
         for s in range(1, stages):
             for plane in range(max(p - s, 0), min(p + s, nx)):
-                _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, r)
+                _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, zero and s == 0, r)

@@ -164,7 +164,7 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
             lines.line_factor, *_arrays(t, count=2), _arrays(f32)))
         add("line_gauss_seidel", tag, lambda t=level: _build(
             lines.line_gauss_seidel, *_arrays(t, count=3), _arrays(f32), _arrays(t),
-            _arrays(f32), 0, 2, 1))
+            _arrays(f32), 0, 2, 1, False))
         add("residual_restrict", tag, lambda t=level: _build(
             stencil.residual_restrict, *_arrays(t, count=4), _arrays(t), _arrays(f32),
             _steps(), _aggregates(), _arrays(f32, small)))

@@ -169,13 +169,16 @@ class Hierarchy:
     def shapes(self) -> list[tuple[int, int, int]]:
         return [lv.shape for lv in self.levels]
 
-    def _smooth(self, lv: Level, b: np.ndarray, u: np.ndarray, first: int) -> None:
+    def _smooth(self, lv: Level, b: np.ndarray, u: np.ndarray, first: int,
+                zero: bool = False) -> None:
         """The sweeps before (``first`` = 0: red then black) or after (1: black then red) the
-        coarse correction."""
+        coarse correction; ``zero``: from u = 0, whatever u holds."""
         if lv.lines:
             lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, first,
-                                        self.sweeps[first], numba.get_num_threads())
+                                    self.sweeps[first], numba.get_num_threads(), zero)
             return
+        if zero:
+            u[...] = 0.0
         for _ in range(self.sweeps[first]):
             for colour in (first, 1 - first):
                 stencil.gauss_seidel_colour(lv.tx, lv.ty, lv.tz, lv.diag, b, u, colour)
@@ -192,32 +195,33 @@ class Hierarchy:
         else:
             stencil.prolong_add(ec, lv.free, lv.step, lv.agg, scale, u)
 
-    def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
-        """Improve u for A_level u = b in place (u may start at zero)."""
+    def cycle(self, level: int, b: np.ndarray, u: np.ndarray, zero: bool = False) -> None:
+        """Improve u for A_level u = b in place; ``zero``: start from u = 0, whatever u holds
+        (the z-line sweeps then skip both the zeroing and the first colour's reads of u)."""
         lv = self.levels[level]
         threads = numba.get_num_threads()
         if threads > 1 and lv.diag.size < SERIAL_BELOW:
             numba.set_num_threads(1)
             try:
-                self.cycle(level, b, u)
+                self.cycle(level, b, u, zero)
             finally:
                 numba.set_num_threads(threads)
             return
         if level == len(self.levels) - 1:
-            self.coarsest.solve(b, u)
+            self.coarsest.solve(b, u)  # (writes every cell of u)
             return
         coarse = self.levels[level + 1]
-        self._smooth(lv, b, u, 0)
+        self._smooth(lv, b, u, 0, zero)
         if self.transfer == "linear":
             stencil.residual(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.r)
             multigrid.restrict_linear(lv.r, lv.free, lv.step, coarse.b)
         else:
             stencil.residual_restrict(lv.tx, lv.ty, lv.tz, lv.diag, b, u, lv.step, lv.agg,
                                       coarse.b)
-        coarse.e[...] = 0.0
-        # one coarse cycle (V) or two in a row (W); each is symmetric, so the pair is too
-        for _ in range(self.gamma if level + 2 < len(self.levels) else 1):
-            self.cycle(level + 1, coarse.b, coarse.e)
+        # one coarse cycle (V) or two in a row (W), the first from zero; each is symmetric, so
+        # the pair is too
+        for k in range(self.gamma if level + 2 < len(self.levels) else 1):
+            self.cycle(level + 1, coarse.b, coarse.e, k == 0)
         self._prolong_add(lv, coarse.e, self.overcorrection, u)
         self._smooth(lv, b, u, 1)
 
@@ -244,8 +248,7 @@ class Hierarchy:
         top = self.levels[0]
         if self._refactor:
             lines.line_factor(top.tz, top.diag, top.inv_w)
-        top.e[...] = 0.0
-        self.cycle(0, self._rhs(r), top.e)
+        self.cycle(0, self._rhs(r), top.e, zero=True)
         z = top.e.reshape(-1)
         return z, vector_ops(z.size).dot(r, z)
 
