@@ -155,3 +155,35 @@ def test_gmg_goes_lean_on_large_grids(monkeypatch) -> None:
     assert memory.gmg_finest(big) == "operator" and memory.gmg_finest(below) == "copy"
     assert memory.estimate_bytes(big, big, "gmg") == memory.BASE_BYTES + memory.LEAN_GMG_BYTES_PER_CELL * big
     assert memory.estimate_bytes(below, below, "gmg") == memory.BASE_BYTES + memory.BYTES_PER_CELL["gmg"] * below
+
+
+KEEPS = """
+import sys
+import numpy as np
+from sevenfold.memory import held_free_bytes, keep_freed_memory
+if sys.argv[1] == "keep":
+    assert keep_freed_memory()
+a = np.ones(2**23)  # 64 MiB, above glibc's largest mmap threshold
+del a
+print(held_free_bytes())
+"""
+
+
+def test_a_run_keeps_the_memory_it_frees() -> None:
+    """After keep_freed_memory a freed 64 MiB array stays with malloc for the next one (glibc's
+    mallinfo2); with glibc's defaults it goes back to the system (an mmap of its own)."""
+    held = {arm: int(subprocess.run([sys.executable, "-c", KEEPS, arm], capture_output=True,
+                                    text=True, check=True).stdout)
+            for arm in ("keep", "default")}
+    assert held["keep"] >= 2**26 > held["default"], held
+
+
+def test_only_jobs_below_the_lean_size_keep_freed_memory() -> None:
+    """Jobs big enough to be run lean keep glibc's defaults (a heap's fragments would add to
+    the peak that limits them), and so does a user who set malloc's variables."""
+    from sevenfold.memory import LEAN_FROM_CELLS, keeps_freed_memory
+
+    assert keeps_freed_memory(256**3, {})
+    assert not keeps_freed_memory(LEAN_FROM_CELLS, {})
+    assert not keeps_freed_memory(128**3, {"MALLOC_MMAP_MAX_": "65536"})
+    assert not keeps_freed_memory(128**3, {"MALLOC_ARENA_MAX": "4"})

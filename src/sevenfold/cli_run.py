@@ -19,9 +19,12 @@ def run(args: argparse.Namespace) -> int:
         code = run_on_worker(args)
         if code is not None:
             return code
+    from .memory import keep_freed_memory, keeps_freed_memory
     from .runner import plan_job, run_job
 
     plan = plan_job(args.job, args.output)
+    if keeps_freed_memory(plan.cells):
+        keep_freed_memory()
     with run_progress(disable=args.quiet or args.no_progress) as progress:
         task = progress.add_task(plan.spec.name, total=-math.log10(plan.spec.solver.rtol), info="building")
         monitor = ProgressMonitor(progress, task, plan.spec.solver.rtol, quiet=args.quiet)

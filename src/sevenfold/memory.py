@@ -126,6 +126,34 @@ def human(nbytes: float) -> str:
 KEEP_FREED_MEMORY = {"MALLOC_MMAP_MAX_": "0", "MALLOC_TRIM_THRESHOLD_": str(1 << 40)}
 
 
+# glibc's mallopt parameters (malloc.h)
+_M_TRIM_THRESHOLD, _M_MMAP_MAX, _M_ARENA_MAX = -1, -4, -8
+
+
+def keeps_freed_memory(cells: int, environ=os.environ) -> bool:
+    """Whether a `sevenfold run` of ``cells`` cells should keep the memory it frees
+    (:func:`keep_freed_memory`): below :data:`LEAN_FROM_CELLS`, where a job's peak is not what
+    limits it, and unless the user set glibc's malloc variables themselves."""
+    return cells < LEAN_FROM_CELLS and not any(
+        name in environ for name in (*KEEP_FREED_MEMORY, "MALLOC_ARENA_MAX"))
+
+
+def keep_freed_memory() -> bool:
+    """From now on in this process, malloc serves large arrays from its heap, keeps what is
+    freed for the next array and uses one arena for every thread (glibc's mallopt), as a
+    worker's slot does (:data:`KEEP_FREED_MEMORY`): the arrays a job frees (its cell fields
+    once the face arrays exist, the build's temporaries) are then reused by the solve instead of
+    new memory being first-touched (slow on a virtual machine whose host takes freed memory
+    back). A fresh 256^3 column run took 3.73-3.76 s whole against 4.15-4.21 s, peak 2,099
+    against 2,095 MiB (one-offs; benchmarks/RESULTS_KEEP.md). False where the C library is not
+    glibc (nothing changes)."""
+    libc = _libc()
+    if libc is None or not hasattr(libc, "mallopt"):
+        return False
+    return all(libc.mallopt(option, value) == 1 for option, value in (
+        (_M_MMAP_MAX, 0), (_M_TRIM_THRESHOLD, 2**31 - 1), (_M_ARENA_MAX, 1)))
+
+
 def _libc():
     import ctypes
 
