@@ -120,6 +120,20 @@ def warm_gmg(job, timed: int = 2) -> dict[str, float]:
     return best
 
 
+def best_of_arms(arms: tuple[str, ...], rounds: int, warm) -> dict[str, dict]:
+    """``warm(arm)`` (a :func:`warm_gmg` row) ``rounds`` times for each arm, the arms' order
+    turning every round; each arm's fastest row, every one checked to have reached rtol 1e-8."""
+    runs: dict[str, list[dict]] = {arm: [] for arm in arms}
+    for r in range(rounds):
+        k = r % len(arms)
+        for arm in arms[k:] + arms[:k]:
+            runs[arm].append(warm(arm))
+    best = {arm: min(rs, key=lambda x: x["seconds"]) for arm, rs in runs.items()}
+    for arm, row in best.items():
+        assert row["residual"] <= 1e-8, (arm, row)
+    return best
+
+
 def solve_pair(job, then: dict, rounds: int) -> dict[str, float]:
     """Warm gmg set-up + solve as the code is (*now*) and with ``then``'s attributes set
     ({(object, name): value}: the revision's pieces), alternating, best of ``rounds`` each."""
