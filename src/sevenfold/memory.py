@@ -145,7 +145,7 @@ def keep_freed_memory() -> bool:
     once the face arrays exist, the build's temporaries) are then reused by the solve instead of
     new memory being first-touched (slow on a virtual machine whose host takes freed memory
     back). A fresh 256^3 column run took 3.73-3.76 s whole against 4.15-4.21 s, peak 2,099
-    against 2,095 MiB (one-offs; benchmarks/RESULTS_KEEP.md). False where the C library is not
+    against 2,095 MiB (one-offs; whole runs in benchmarks/RESULTS_KEEP.md). False where the C library is not
     glibc (nothing changes)."""
     libc = _libc()
     if libc is None or not hasattr(libc, "mallopt"):

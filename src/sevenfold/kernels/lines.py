@@ -91,10 +91,11 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
     w_{m-1}) and D = diag(w): forward z_m = rhs_m + (tz_{m-1} / w_{m-1}) z_{m-1}, then
     u_m = z_m / w_m + (tz_m / w_m) u_{m+1}. Each step's dependence on the step before is one
     multiply and one add; the Thomas form, (rhs_m + tz_{m-1} y_{m-1}) / w_m, puts a third
-    operation on that chain (0.88-0.92 of the sweep's time, benchmarks/RESULTS_LDL.md).
+    operation on that chain (a smoothing step 0.88-0.92 of its time in a one-off of the kernel
+    alone, 0.90-1.05 on the solver's finest levels, benchmarks/RESULTS_LDL.md).
 
     Columns go in blocks of LINE_BLOCK: the block's right-hand sides are formed column by
-    column at unit stride into r (this vectorises), then the Thomas recurrences
+    column at unit stride into r (this vectorises), then the recurrences
     (:func:`line_factor`'s pivots) run as eight independent chains, one per column, written
     out so that each chain's running value stays in a register and the eight overlap in the
     pipeline. Indices are unsigned, so no negative-index wraparound is compiled in. Against
