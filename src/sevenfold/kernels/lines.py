@@ -56,29 +56,27 @@ def line_factor(tz, diag, inv_w):
 
 
 @njit(cache=True, inline="always")
-def _forward(r, tz, inv_w, o, i, j, m, prev):
-    """One forward step for column (i, j) at row m >= 1: z_m = rhs_m + (tz_{m-1} / w_{m-1})
-    z_{m-1}, the right-hand side read from and z_m stored to r[o + m]."""
-    k = m - np.uint64(1)
-    v = r[o + m] + (tz[i, j, k] * inv_w[i, j, k]) * prev
-    r[o + m] = v
+def _forward(r, l, inv_w, o, i, j, m, prev):
+    """One forward step for column (i, j) at row m >= 1: z_m = rhs_m + l_{m-1} z_{m-1}, the
+    right-hand side read from r[o + m] and y_m = z_m / w_m stored there (l in ``l[o + m]``)."""
+    v = r[o + m] + l[o + m - np.uint64(1)] * prev
+    r[o + m] = v * inv_w[i, j, m]
     return v
 
 
 @njit(cache=True, inline="always")
-def _backward(r, tz, inv_w, u, o, i, j, m, nxt):
-    """One back-substitution step for column (i, j) at row m: u_m = z_m / w_m + (tz_m / w_m)
-    u_{m+1}."""
-    w = inv_w[i, j, m]
-    v = r[o + m] * w + (tz[i, j, m] * w) * nxt
+def _backward(r, l, u, o, i, j, m, nxt):
+    """One back-substitution step for column (i, j) at row m: u_m = y_m + l_m u_{m+1}."""
+    v = r[o + m] + l[o + m] * nxt
     u[i, j, m] = v
     return v
 
 
 @njit(cache=True, inline="always")
 def _line_buffer(u):
-    """A thread's buffer for :func:`_line_plane`: LINE_BLOCK columns' right-hand sides."""
-    return np.empty(u.shape[2] * LINE_BLOCK, dtype=u.dtype)
+    """A thread's buffer for :func:`_line_plane`: LINE_BLOCK columns' right-hand sides, then
+    as many columns' products l = tz / w."""
+    return np.empty(2 * u.shape[2] * LINE_BLOCK, dtype=u.dtype)
 
 
 @njit(cache=True)
@@ -87,10 +85,10 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
     y neighbours taken from the current u, or, when ``zero``, taken as zero (u's current values
     are not read: the first colour of a sweep from u = 0 needs neither u nor its zeroing).
 
-    Each column's system is solved as L D L^T with L unit lower bidiagonal (l_m = -tz_{m-1} /
-    w_{m-1}) and D = diag(w): forward z_m = rhs_m + (tz_{m-1} / w_{m-1}) z_{m-1}, then
-    u_m = z_m / w_m + (tz_m / w_m) u_{m+1}. Each step's dependence on the step before is one
-    multiply and one add; the Thomas form, (rhs_m + tz_{m-1} y_{m-1}) / w_m, puts a third
+    Each column's system is solved as L D L^T with L unit lower bidiagonal (entries -l_{m-1},
+    l_m = tz_m / w_m) and D = diag(w): forward z_m = rhs_m + l_{m-1} z_{m-1}, storing
+    y_m = z_m / w_m, then u_m = y_m + l_m u_{m+1}. Each step's dependence on the step before is
+    one multiply and one add; the Thomas form, (rhs_m + tz_{m-1} y_{m-1}) / w_m, puts a third
     operation on that chain (a smoothing step 0.88-0.92 of its time in a one-off of the kernel
     alone, 0.90-1.05 on the solver's finest levels, benchmarks/RESULTS_LDL.md).
 
@@ -102,8 +100,18 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
     the block gathered into a column-interleaved buffer and advanced with loops across it
     (numba does not enable the SLP vectoriser, so those ran as scalar code anyway, with
     wraparound arithmetic on every access) a smoothing step took 0.63-0.76 of the time and a
-    warm gmg solve 0.81-0.90, the same numbers bit for bit (benchmarks/RESULTS_LINE_CHAINS.md). A short last block runs its columns one
-    at a time.
+    warm gmg solve 0.81-0.90, the same numbers bit for bit (benchmarks/RESULTS_LINE_CHAINS.md).
+    A short last block runs its columns one at a time.
+
+    The block's products l go to the buffer beside its right-hand sides as these are formed,
+    and the forward pass leaves y there, so that the back substitution reads the buffer alone
+    and writes u. When it read tz and the pivots in place, the chains had 24 columns of three
+    arrays in flight, and on a 256^3 level same-colour columns lie 2 KiB apart, a power of two
+    that maps all of them to two sets of the first-level cache: a step took 1.4-1.9x the time
+    per cell of a 256^2 x 248 level (one-offs). With the buffer it takes 0.55-0.69x its former
+    time at 256^3 and the same at 128^3, the numbers bit for bit the same
+    (benchmarks/RESULTS_BLOCK_BUFFER.md).
+
     A missing x or y neighbour is read through the last plane's coupling, which is zero by the
     face-array convention, so no weights are needed; its value is taken from the neighbour on
     the other side, a column of the other colour, which this sweep has written (the column's
@@ -119,6 +127,7 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
     last = unz - one
     ui = np.uint64(i)
     j0 = (i + colour) & 1
+    lb = r[LINE_BLOCK * nz:]  # the block's products l
     while j0 < ny:
         nb = min(LINE_BLOCK, (ny - j0 + 1) // 2)
         for c in range(nb):
@@ -129,9 +138,11 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
             o = c * nz
             if zero:
                 for m in range(nz):
+                    lb[o + m] = tz[i, j, m] * inv_w[i, j, m]
                     r[o + m] = b[i, j, m]
                 continue
             for m in range(nz):
+                lb[o + m] = tz[i, j, m] * inv_w[i, j, m]
                 r[o + m] = (b[i, j, m] + tx[itm, j, m] * u[im, j, m]
                             + tx[i, j, m] * u[ip, j, m] + ty[i, jtm, m] * u[i, jm, m]
                             + ty[i, j, m] * u[i, jp, m])
@@ -147,23 +158,21 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
             o5 = o4 + unz
             o6 = o5 + unz
             o7 = o6 + unz
-            p0 = r[o0]
-            p1 = r[o1]
-            p2 = r[o2]
-            p3 = r[o3]
-            p4 = r[o4]
-            p5 = r[o5]
-            p6 = r[o6]
-            p7 = r[o7]
+            p0, p1, p2, p3 = r[o0], r[o1], r[o2], r[o3]
+            p4, p5, p6, p7 = r[o4], r[o5], r[o6], r[o7]
+            r[o0], r[o1] = p0 * inv_w[ui, a0, start], p1 * inv_w[ui, a1, start]
+            r[o2], r[o3] = p2 * inv_w[ui, a2, start], p3 * inv_w[ui, a3, start]
+            r[o4], r[o5] = p4 * inv_w[ui, a4, start], p5 * inv_w[ui, a5, start]
+            r[o6], r[o7] = p6 * inv_w[ui, a6, start], p7 * inv_w[ui, a7, start]
             for m in range(one, unz):
-                p0 = _forward(r, tz, inv_w, o0, ui, a0, m, p0)
-                p1 = _forward(r, tz, inv_w, o1, ui, a1, m, p1)
-                p2 = _forward(r, tz, inv_w, o2, ui, a2, m, p2)
-                p3 = _forward(r, tz, inv_w, o3, ui, a3, m, p3)
-                p4 = _forward(r, tz, inv_w, o4, ui, a4, m, p4)
-                p5 = _forward(r, tz, inv_w, o5, ui, a5, m, p5)
-                p6 = _forward(r, tz, inv_w, o6, ui, a6, m, p6)
-                p7 = _forward(r, tz, inv_w, o7, ui, a7, m, p7)
+                p0 = _forward(r, lb, inv_w, o0, ui, a0, m, p0)
+                p1 = _forward(r, lb, inv_w, o1, ui, a1, m, p1)
+                p2 = _forward(r, lb, inv_w, o2, ui, a2, m, p2)
+                p3 = _forward(r, lb, inv_w, o3, ui, a3, m, p3)
+                p4 = _forward(r, lb, inv_w, o4, ui, a4, m, p4)
+                p5 = _forward(r, lb, inv_w, o5, ui, a5, m, p5)
+                p6 = _forward(r, lb, inv_w, o6, ui, a6, m, p6)
+                p7 = _forward(r, lb, inv_w, o7, ui, a7, m, p7)
             p0, p1 = p0 * inv_w[ui, a0, last], p1 * inv_w[ui, a1, last]
             p2, p3 = p2 * inv_w[ui, a2, last], p3 * inv_w[ui, a3, last]
             p4, p5 = p4 * inv_w[ui, a4, last], p5 * inv_w[ui, a5, last]
@@ -172,25 +181,26 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
             u[ui, a4, last], u[ui, a5, last], u[ui, a6, last], u[ui, a7, last] = p4, p5, p6, p7
             for k in range(one, unz):
                 m = last - k
-                p0 = _backward(r, tz, inv_w, u, o0, ui, a0, m, p0)
-                p1 = _backward(r, tz, inv_w, u, o1, ui, a1, m, p1)
-                p2 = _backward(r, tz, inv_w, u, o2, ui, a2, m, p2)
-                p3 = _backward(r, tz, inv_w, u, o3, ui, a3, m, p3)
-                p4 = _backward(r, tz, inv_w, u, o4, ui, a4, m, p4)
-                p5 = _backward(r, tz, inv_w, u, o5, ui, a5, m, p5)
-                p6 = _backward(r, tz, inv_w, u, o6, ui, a6, m, p6)
-                p7 = _backward(r, tz, inv_w, u, o7, ui, a7, m, p7)
+                p0 = _backward(r, lb, u, o0, ui, a0, m, p0)
+                p1 = _backward(r, lb, u, o1, ui, a1, m, p1)
+                p2 = _backward(r, lb, u, o2, ui, a2, m, p2)
+                p3 = _backward(r, lb, u, o3, ui, a3, m, p3)
+                p4 = _backward(r, lb, u, o4, ui, a4, m, p4)
+                p5 = _backward(r, lb, u, o5, ui, a5, m, p5)
+                p6 = _backward(r, lb, u, o6, ui, a6, m, p6)
+                p7 = _backward(r, lb, u, o7, ui, a7, m, p7)
         else:
             for c in range(nb):
                 a = np.uint64(j0 + 2 * c)
                 o = np.uint64(c * nz)
                 p = r[o]
+                r[o] = p * inv_w[ui, a, start]
                 for m in range(one, unz):
-                    p = _forward(r, tz, inv_w, o, ui, a, m, p)
+                    p = _forward(r, lb, inv_w, o, ui, a, m, p)
                 p = p * inv_w[ui, a, last]
                 u[ui, a, last] = p
                 for k in range(one, unz):
-                    p = _backward(r, tz, inv_w, u, o, ui, a, last - k, p)
+                    p = _backward(r, lb, u, o, ui, a, last - k, p)
         j0 += 2 * LINE_BLOCK
 
 
