@@ -105,12 +105,12 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
 
     The block's products l go to the buffer beside its right-hand sides as these are formed,
     and the forward pass leaves y there, so that the back substitution reads the buffer alone
-    and writes u. When it read tz and the pivots in place, the chains had 24 columns of three
-    arrays in flight, and on a 256^3 level same-colour columns lie 2 KiB apart, a power of two
-    that maps all of them to two sets of the first-level cache: a step took 1.4-1.9x the time
-    per cell of a 256^2 x 248 level (one-offs). With the buffer it takes 0.55-0.69x its former
-    time at 256^3 and the same at 128^3, the numbers bit for bit the same
-    (benchmarks/RESULTS_BLOCK_BUFFER.md).
+    and writes u. When it read tz and the pivots in place, 32 columns were in flight, and on a
+    256^3 level same-colour columns lie 2 KiB apart, a power of two that puts a block's columns
+    in two sets of the first-level cache: a step took 1.4x the time per cell of a 256^2 x 248
+    level. With the buffer it takes 0.63-0.65x its former time on 256^3 finest levels and
+    0.85-0.88x at 128^3, the numbers bit for bit the same, and warm gmg solves 0.75-0.86x and
+    0.83-0.98x (benchmarks/RESULTS_BLOCK_BUFFER.md).
 
     A missing x or y neighbour is read through the last plane's coupling, which is zero by the
     face-array convention, so no weights are needed; its value is taken from the neighbour on
