@@ -29,7 +29,6 @@ Writes benchmarks/RESULTS_BLOCK_BUFFER.md.
 
 from __future__ import annotations
 
-import argparse
 import sys
 import time
 from pathlib import Path
@@ -120,13 +119,7 @@ def warm(job, module) -> dict:
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    p.add_argument("--against", required=True, help="the revision before this change")
-    p.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
-    p.add_argument("--cases", nargs="+", default=list(CASES), choices=shift_bench.CASES)
-    p.add_argument("--rounds", type=int, default=3)
-    p.add_argument("--results", type=Path, default=HERE / "RESULTS_BLOCK_BUFFER.md")
-    args = p.parse_args(argv)
+    args = rb.ab_arguments(__doc__, "RESULTS_BLOCK_BUFFER.md", argv, CASES)
     lines, info = engine.report_head("block_buffer_bench.py", argv,
                                      "The z-line back substitution from the block's buffer")
     old = wall_bench.kernels_at(args.against, "sevenfold.kernels.lines")

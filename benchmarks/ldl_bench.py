@@ -33,7 +33,6 @@ Writes benchmarks/RESULTS_LDL.md.
 
 from __future__ import annotations
 
-import argparse
 import sys
 import time
 from pathlib import Path
@@ -128,13 +127,7 @@ def kernel_units(job, old, rounds: int) -> dict[str, float]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    p.add_argument("--against", required=True, help="the revision before this change")
-    p.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
-    p.add_argument("--cases", nargs="+", default=list(CASES), choices=shift_bench.CASES)
-    p.add_argument("--rounds", type=int, default=3)
-    p.add_argument("--results", type=Path, default=HERE / "RESULTS_LDL.md")
-    args = p.parse_args(argv)
+    args = rb.ab_arguments(__doc__, "RESULTS_LDL.md", argv, CASES)
     lines, info = engine.report_head("ldl_bench.py", argv,
                                      "The z-line solves as L D L^T, smoothing from zero unzeroed")
     old = wall_bench.kernels_at(args.against, "sevenfold.kernels.lines")
