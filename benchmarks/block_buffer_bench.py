@@ -142,20 +142,16 @@ def main(argv: list[str] | None = None) -> int:
               "max |now - then| / max |then| after one step.", "",
               "| job | cells | step then / now | now / then | difference | iterations then / now "
               "| solve s then / now | now / then | WU then / now |", "|" + "---|" * 9]
-    for n in args.sizes:
-        for case in args.cases:
-            job = shift_bench.problem(n, case)
-            step, difference, unit = job_step(job, old, args.rounds)
-            best = rb.best_of_arms(ARMS, args.rounds, lambda arm: warm(job, arms[arm]))
-            t = {arm: b["seconds"] for arm, b in best.items()}
-            lines.append(
-                f"| {case} | {n}^3 | {step['then'] / unit:.2f} / {step['now'] / unit:.2f} | "
-                f"{step['now'] / step['then']:.2f} | {difference:.1e} | "
-                + " / ".join(str(best[arm]["iterations"]) for arm in ARMS) + " | "
-                + " / ".join(f"{t[arm]:.3f}" for arm in ARMS) + " | "
+    def row(n: int, case: str) -> str:
+        job = shift_bench.problem(n, case)
+        step, difference, unit = job_step(job, old, args.rounds)
+        best = rb.best_of_arms(ARMS, args.rounds, lambda arm: warm(job, arms[arm]))
+        t = {arm: b["seconds"] for arm, b in best.items()}
+        return (f"| {case} | {n}^3 | {step['then'] / unit:.2f} / {step['now'] / unit:.2f} | "
+                f"{step['now'] / step['then']:.2f} | {difference:.1e} | {rb.arm_cells(best, ARMS)} | "
                 f"{t['now'] / t['then']:.2f} | {t['then'] / unit:.1f} / {t['now'] / unit:.1f} |")
-            print(lines[-1], flush=True)
-            del job
+
+    rb.job_rows(args, lines, row)
     engine.write_report(args.results, lines, info)
     return 0
 

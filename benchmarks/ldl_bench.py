@@ -140,22 +140,19 @@ def main(argv: list[str] | None = None) -> int:
               "(from 0) | difference | iterations then / LDL / now | solve s then / LDL / now | "
               "LDL / then | now / then | WU then / now |",
               "|" + "---|" * 12]
-    for n in args.sizes:
-        for case in args.cases:
-            job = shift_bench.problem(n, case)
-            k = kernel_units(job, old, args.rounds)
-            best = rb.best_of_arms(ARMS, args.rounds, lambda arm: warm(job, arm, old))
-            t = {arm: b["seconds"] for arm, b in best.items()}
-            lines.append(
-                f"| {case} | {n}^3 | {k['then']:.2f} / {k['LDL']:.2f} | "
+    def row(n: int, case: str) -> str:
+        job = shift_bench.problem(n, case)
+        k = kernel_units(job, old, args.rounds)
+        best = rb.best_of_arms(ARMS, args.rounds, lambda arm: warm(job, arm, old))
+        t = {arm: b["seconds"] for arm, b in best.items()}
+        return (f"| {case} | {n}^3 | {k['then']:.2f} / {k['LDL']:.2f} | "
                 f"{k['then from 0']:.2f} / {k['now from 0']:.2f} | {k['LDL'] / k['then']:.2f} | "
                 f"{k['now from 0'] / k['then from 0']:.2f} | {k['difference']:.1e} | "
-                + " / ".join(str(best[arm]["iterations"]) for arm in ARMS) + " | "
-                + " / ".join(f"{t[arm]:.3f}" for arm in ARMS) + " | "
+                f"{rb.arm_cells(best, ARMS)} | "
                 f"{t['LDL'] / t['then']:.2f} | {t['now'] / t['then']:.2f} | "
                 f"{t['then'] / k['apply']:.1f} / {t['now'] / k['apply']:.1f} |")
-            print(lines[-1], flush=True)
-            del job
+
+    rb.job_rows(args, lines, row)
     engine.write_report(args.results, lines, info)
     return 0
 

@@ -76,32 +76,28 @@ def main(argv: list[str] | None = None) -> int:
               "solve s without / walls / every wall | walls / without | every wall / without | "
               "WU without / walls | levels with walls | levels with every wall |",
               "|" + "---|" * 10]
-    for n in args.sizes:
-        for case in args.cases:
-            job = shift_bench.problem(n, case)
-            fine, _ = gmg.fine_level(job)
-            found = material_walls(fine)
-            apply = rb.apply_seconds(fine)
-            del fine
-            best = rb.best_of_arms(ARMS, args.rounds, lambda arm: warm(job, arm))
-            t = {arm: b["seconds"] for arm, b in best.items()}
-            walls = " / ".join(", ".join(map(str, at)) or "-" for at in found[:2])
+    def row(n: int, case: str) -> str:
+        job = shift_bench.problem(n, case)
+        fine, _ = gmg.fine_level(job)
+        found = material_walls(fine)
+        apply = rb.apply_seconds(fine)
+        del fine
+        best = rb.best_of_arms(ARMS, args.rounds, lambda arm: warm(job, arm))
+        t = {arm: b["seconds"] for arm, b in best.items()}
+        walls = " / ".join(", ".join(map(str, at)) or "-" for at in found[:2])
 
-            def levels(arm: str) -> str:
-                notes = best[arm]["notes"]
-                return notes.split("levels ", 1)[1].split(";")[0] + "".join(
-                    f"; {m[1]} on {m[2]}" for m in re.finditer(
-                        r"(pairs arranged|z not coarsened) on (levels? [\d, ]+?) to keep", notes))
+        def levels(arm: str) -> str:
+            notes = best[arm]["notes"]
+            return notes.split("levels ", 1)[1].split(";")[0] + "".join(
+                f"; {m[1]} on {m[2]}" for m in re.finditer(
+                    r"(pairs arranged|z not coarsened) on (levels? [\d, ]+?) to keep", notes))
 
-            lines.append(
-                f"| {case} | {n}^3 | {walls} | "
-                + " / ".join(str(best[arm]["iterations"]) for arm in ARMS) + " | "
-                + " / ".join(f"{t[arm]:.3f}" for arm in ARMS) + " | "
+        return (f"| {case} | {n}^3 | {walls} | {rb.arm_cells(best, ARMS)} | "
                 f"{t['walls'] / t['without']:.2f} | {t['every wall'] / t['without']:.2f} | "
                 f"{t['without'] / apply:.1f} / {t['walls'] / apply:.1f} | {levels('walls')} | "
                 f"{levels('every wall')} |")
-            print(lines[-1], flush=True)
-            del job
+
+    rb.job_rows(args, lines, row)
     engine.write_report(args.results, lines, info)
     return 0
 

@@ -134,6 +134,21 @@ def best_of_arms(arms: tuple[str, ...], rounds: int, warm) -> dict[str, dict]:
     return best
 
 
+def arm_cells(best: dict[str, dict], arms: tuple[str, ...]) -> str:
+    """Two report cells from :func:`best_of_arms`: each arm's iterations, then its seconds."""
+    return (" / ".join(str(best[arm]["iterations"]) for arm in arms) + " | "
+            + " / ".join(f"{best[arm]['seconds']:.3f}" for arm in arms))
+
+
+def job_rows(args, lines: list[str], row) -> None:
+    """``row(n, case)`` (a report line) for every size and case of ``args``, each appended to
+    ``lines`` and printed as it comes (a job's arrays go when its row returns)."""
+    for n in args.sizes:
+        for case in args.cases:
+            lines.append(row(n, case))
+            print(lines[-1], flush=True)
+
+
 def solve_pair(job, then: dict, rounds: int) -> dict[str, float]:
     """Warm gmg set-up + solve as the code is (*now*) and with ``then``'s attributes set
     ({(object, name): value}: the revision's pieces), alternating, best of ``rounds`` each."""

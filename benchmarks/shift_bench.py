@@ -169,18 +169,16 @@ def main(argv: list[str] | None = None) -> int:
               "| job | cells | iterations then / now | solve s then | solve s now | now / then | "
               "restriction WU then / now / now shifted | apply ms | levels now |",
               "|" + "---|" * 9]
-    for n in args.sizes:
-        for case in args.cases:
-            job = problem(n, case)
-            k = kernel_units(job, old_stencil, args.rounds)
-            s = rb.solve_pair(job, {(gmg, "Hierarchy"): old_hierarchy}, args.rounds)
-            lines.append(
-                f"| {case} | {n}^3 | {int(s['iterations then'])} / {int(s['iterations now'])} | "
+    def row(n: int, case: str) -> str:
+        job = problem(n, case)
+        k = kernel_units(job, old_stencil, args.rounds)
+        s = rb.solve_pair(job, {(gmg, "Hierarchy"): old_hierarchy}, args.rounds)
+        return (f"| {case} | {n}^3 | {int(s['iterations then'])} / {int(s['iterations now'])} | "
                 f"{s['then']:.3f} | {s['now']:.3f} | {s['now'] / s['then']:.2f} | "
                 f"{k['then']:.2f} / {k['now']:.2f} / {k['now shifted']:.2f} | "
                 f"{k['apply'] * 1e3:.2f} | {levels_note(job)} |")
-            print(lines[-1], flush=True)
-            del job
+
+    rb.job_rows(args, lines, row)
     engine.write_report(args.results, lines, info)
     return 0
 
