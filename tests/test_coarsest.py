@@ -120,6 +120,35 @@ def test_band_kernels_match_lapack_and_numpy(shape) -> None:
     assert np.abs(dense @ x - b).max() <= 1e-10 * np.abs(b).max()
 
 
+def column_by_column(band: np.ndarray) -> np.ndarray:
+    """The banded Cholesky factor the plain way (LAPACK's pbtf2 order), in numpy."""
+    a = band.copy()
+    n, w = a.shape
+    for j in range(n):
+        a[j, 0] = np.sqrt(a[j, 0])
+        m = min(w - 1, n - 1 - j)
+        a[j, 1:m + 1] /= a[j, 0]
+        for c in range(m):
+            a[j + 1 + c, 0:m - c] -= a[j, 1 + c:m + 1] * a[j, 1 + c]
+    return a
+
+
+@pytest.mark.parametrize("shape", [(5, 7, 3), (3, 4, 5), (9, 9, 8), (2, 3, 40), (1, 1, 9), (1, 2, 2)])
+def test_the_factor_in_panels_is_the_column_by_column_factor(shape) -> None:
+    """Panels of 8 columns, updates four columns at a time and the shorter reach of the last
+    columns change nothing but rounding: bands narrower and wider than a panel, row counts
+    that are not a multiple of it (common practice: the blocked form is a reordering of the
+    same sums)."""
+    band, _ = random_level(shape, seed=8).to_band()
+    factor = band.copy()
+    assert band_cholesky(factor) == 0
+    reference = column_by_column(band)
+    j, d = np.indices(band.shape)
+    inside = j + d < band.shape[0]
+    assert np.abs(factor[inside] - reference[inside]).max() <= 1e-14 * np.abs(reference).max()
+    assert np.array_equal(factor[~inside], band[~inside])  # the unused corner is not touched
+
+
 def test_band_factor_reports_the_first_pivot_that_is_not_positive_like_lapack() -> None:
     """LAPACK's info: i when the leading minor of order i is not positive definite."""
     from scipy.linalg import LinAlgError, cholesky_banded

@@ -135,7 +135,12 @@ def pcg(
     start = time.perf_counter()
     n = b.shape[0]
     x = np.zeros(n)
-    nb = float(np.linalg.norm(b))
+    # norms by our own kernel, not numpy's: a BLAS call wakes BLAS's threads, which then spin
+    # beside ours for tens of milliseconds (1.6 times the first iterations' smoothing time at
+    # 128^3 in a process with two BLAS threads; benchmarks/ANALYSIS.md)
+    ops = vector_ops(n)
+    dot = ops.dot
+    nb = float(np.sqrt(dot(b, b)))
     history, times = [1.0 if nb > 0 else 0.0], [0.0]
     if nb == 0.0:
         monitor.iteration(0, history[0], 0.0)
@@ -143,7 +148,7 @@ def pcg(
     if x0 is not None:
         x[...] = x0
         r = residual_into(A, x, b, np.empty(n))
-        history[0] = float(np.linalg.norm(r)) / nb
+        history[0] = float(np.sqrt(dot(r, r))) / nb
         if history[0] >= 1.0:  # a start worse than zero (possible on extreme grids): drop it
             x[...] = 0.0
             r = b.astype(np.float64, copy=True)
@@ -154,8 +159,6 @@ def pcg(
     if history[0] <= rtol:
         return SolveResult(x, method, 0, True, history[0], setup_seconds,
                            time.perf_counter() - start, history, times)
-    ops = vector_ops(n)
-    dot = ops.dot
 
     def true_residual() -> float:
         """||b - A x|| / ||b|| in one pass over b and A x (no b - A x stored)."""
