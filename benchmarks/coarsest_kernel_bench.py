@@ -9,9 +9,11 @@ LAPACK's pbtrf and pbtrs through ``scipy.linalg.cholesky_banded`` and ``cho_solv
 it now uses ``kernels.band``, so that a gmg run does not import scipy.linalg.
 
 1. *The coarsest level alone*, for each job of ``--levels`` (the level gmg builds for it):
-   the factor and one solve (a float64 right-hand side), LAPACK and the kernel alternating,
-   best of 7 per round, ``--rounds`` rounds; the largest difference of the two solutions
-   relative to LAPACK's largest value. BLAS on one thread, as the command runs it.
+   the factor and one solve (a float64 right-hand side), LAPACK, the kernel and the kernel as
+   it was at ``REVISION`` (*then*) in turn, best of 7 per round, ``--rounds`` rounds; the
+   largest difference of the kernel's solution from LAPACK's relative to LAPACK's largest
+   value, and whether the factor is the one *then* gave bit for bit. BLAS on one thread, as
+   the command runs it.
 2. *Whole processes*: ``sevenfold run --here --no-progress`` (``cli.program``) on the working
    tree and on ``REVISION`` (checked out in a temporary worktree, with its own kernel cache),
    one untimed run each per job (the kernels compiled), then ``--rounds`` rounds, the order
@@ -35,10 +37,12 @@ import numpy as np  # noqa: E402
 
 import cycle_bench as cb  # noqa: E402
 import timing  # noqa: E402
+import wall_bench  # noqa: E402
 import whole_bench  # noqa: E402
 
-def level_pair(n: int, case: str, rounds: int) -> dict[str, float | str]:
-    """Milliseconds of factoring and solving the job's coarsest level, LAPACK and kernel."""
+def level_pair(n: int, case: str, rounds: int, then) -> dict[str, float | str]:
+    """Milliseconds of factoring and solving the job's coarsest level: LAPACK, the kernel and
+    ``then`` (``kernels.band`` at another revision)."""
     from scipy.linalg import cho_solve_banded, cholesky_banded
 
     from sevenfold.kernels.band import band_cholesky, band_cholesky_solve
@@ -52,23 +56,23 @@ def level_pair(n: int, case: str, rounds: int) -> dict[str, float | str]:
     factors = {"lapack": cholesky_banded(lapack_band, lower=True, check_finite=False)}
     factors["kernel"] = band.copy()
     assert band_cholesky(factors["kernel"]) == 0
-
-    def factor_kernel() -> None:
-        a = band.copy()
-        band_cholesky(a)
+    factors["then"] = band.copy()
+    assert then.band_cholesky(factors["then"]) == 0
 
     factor = {"lapack": lambda: cholesky_banded(lapack_band, lower=True, check_finite=False),
-              "kernel": factor_kernel}
+              "kernel": lambda: band_cholesky(band.copy()),
+              "then": lambda: then.band_cholesky(band.copy())}
     solve = {"lapack": lambda: cho_solve_banded((factors["lapack"], True), b, check_finite=False),
-             "kernel": lambda: band_cholesky_solve(factors["kernel"], b.copy())}
+             "kernel": lambda: band_cholesky_solve(factors["kernel"], b.copy()),
+             "then": lambda: then.band_cholesky_solve(factors["then"], b.copy())}
     copy = timing.best(lambda: band.copy(), 7, time.perf_counter)  # the kernel's copy of the band
     vector_copy = timing.best(lambda: b.copy(), 21, time.perf_counter)
     times: dict[str, list[float]] = {}
     for i in range(rounds):
-        for side in engine.rotation(["lapack", "kernel"], i):
+        for side in engine.rotation(["lapack", "kernel", "then"], i):
             f = timing.best(factor[side], 7, time.perf_counter)
             s = timing.best(solve[side], 21, time.perf_counter)
-            if side == "kernel":  # the kernel works in place: its input's copy is not its cost
+            if side != "lapack":  # the kernels work in place: their input's copy is not their cost
                 f, s = f - copy, s - vector_copy
             times.setdefault(f"factor {side}", []).append(f)
             times.setdefault(f"solve {side}", []).append(s)
@@ -77,6 +81,7 @@ def level_pair(n: int, case: str, rounds: int) -> dict[str, float | str]:
     band_cholesky_solve(factors["kernel"], x)
     reference = solve["lapack"]()
     out["difference"] = float(np.abs(x - reference).max() / np.abs(reference).max())
+    out["same"] = "yes" if np.array_equal(factors["kernel"], factors["then"]) else "no"
     out["shape"] = "x".join(map(str, level.shape))
     out["band"] = "x".join(map(str, band.shape))
     return out
@@ -89,18 +94,22 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--jobs", nargs="*", default=["column:32", "column:128", "inclusions:128"])
     args = p.parse_args(argv)
     lines, info = engine.report_head("coarsest_kernel_bench.py", argv,
-                                     "The coarsest level's factor: our kernel against LAPACK's")
+                                     "The coarsest level's factor: our kernel against LAPACK's and its own past")
+    then = wall_bench.kernels_at(args.against, "sevenfold.kernels.band")
     lines += engine.opening(
-        __doc__, "## 1. The coarsest level alone\n\nMilliseconds, best over the rounds; ratio = kernel / LAPACK.",
-        ["job", "cells", "coarsest", "band (n x w)", "factor LAPACK", "factor kernel", "ratio",
-         "solve LAPACK", "solve kernel", "ratio", "difference"])
+        __doc__, "## 1. The coarsest level alone\n\nMilliseconds, best over the rounds; ratios = "
+        f"kernel / LAPACK and kernel / *then* ({args.against}).",
+        ["job", "cells", "coarsest", "band (n x w)", "factor LAPACK", "factor then", "factor kernel",
+         "kernel / LAPACK", "kernel / then", "same factor as then", "solve LAPACK", "solve kernel",
+         "ratio", "difference"])
     for item in args.levels:
         case, n = item.rsplit(":", 1)
-        c = level_pair(int(n), case, args.rounds)
+        c = level_pair(int(n), case, args.rounds, then)
         lines.append(
             f"| {case} | {n}^3 | {c['shape']} | {c['band']} | {c['factor lapack']:.2f} | "
-            f"{c['factor kernel']:.2f} | {c['factor kernel'] / c['factor lapack']:.2f} | "
-            f"{c['solve lapack']:.3f} | {c['solve kernel']:.3f} | "
+            f"{c['factor then']:.2f} | {c['factor kernel']:.2f} | "
+            f"{c['factor kernel'] / c['factor lapack']:.2f} | {c['factor kernel'] / c['factor then']:.2f} | "
+            f"{c['same']} | {c['solve lapack']:.3f} | {c['solve kernel']:.3f} | "
             f"{c['solve kernel'] / c['solve lapack']:.2f} | {c['difference']:.1e} |")
         print(lines[-1], flush=True)
     if args.jobs:

@@ -135,20 +135,22 @@ def pcg(
     start = time.perf_counter()
     n = b.shape[0]
     x = np.zeros(n)
-    # norms by our own kernel, not numpy's: a BLAS call wakes BLAS's threads, which then spin
-    # beside ours for tens of milliseconds (1.6 times the first iterations' smoothing time at
-    # 128^3 in a process with two BLAS threads; benchmarks/ANALYSIS.md)
+    # norms by the true residual's kernel (||b - A x|| without storing it), not numpy's: a
+    # BLAS call wakes BLAS's threads, which then spin beside ours for tens of milliseconds (the
+    # first iterations' smoothing took twice its time at 128^3 in a process with two BLAS
+    # threads; benchmarks/ANALYSIS.md); ||b|| is the distance from x = 0
     ops = vector_ops(n)
     dot = ops.dot
-    nb = float(np.sqrt(dot(b, b)))
+    nb = float(np.sqrt(ops.distance_squared(b, x)))
     history, times = [1.0 if nb > 0 else 0.0], [0.0]
     if nb == 0.0:
         monitor.iteration(0, history[0], 0.0)
         return SolveResult(x, method, 0, True, 0.0, setup_seconds, 0.0, history, times)
     if x0 is not None:
         x[...] = x0
-        r = residual_into(A, x, b, np.empty(n))
-        history[0] = float(np.sqrt(dot(r, r))) / nb
+        q = A @ x
+        history[0] = float(np.sqrt(ops.distance_squared(b, q))) / nb
+        r = np.subtract(b, q, out=np.empty(n))
         if history[0] >= 1.0:  # a start worse than zero (possible on extreme grids): drop it
             x[...] = 0.0
             r = b.astype(np.float64, copy=True)
