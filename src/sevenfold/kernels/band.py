@@ -7,8 +7,9 @@ The factor is right-looking, the same arithmetic as LAPACK's unblocked pbtf2, ta
 of PANEL columns: a panel's columns are scaled and update each other, then every later column
 the panel reaches takes the panel's updates in one pass, four columns' products at a time,
 while its entries are in the first-level cache. Each entry receives the same updates in the
-same order as column by column, so the factor is the same bit for bit; at 17 x 17 x 16 cells
-it took 21 ms against 26 ms (benchmarks/RESULTS_COARSEST_KERNEL.md). The solve is the forward
+same order as column by column, so the factor is the same bit for bit. At 17 x 17 x 16 cells
+it took 21.2 ms against 26.5 ms; on bands of 65-82 the calls cost more than the passes save
+(1.0-1.2 ms against 0.8; benchmarks/RESULTS_COARSEST_PANELS.md). The solve is the forward
 substitution L y = b by columns and the backward one L^T x = y by dot products along the same
 rows.
 
