@@ -660,6 +660,23 @@ def test_operator_in_bands_on_large_planes(shape) -> None:
     assert abs(udotau - float(np.sum(u * au))) <= 1e-12 * float(np.sum(np.abs(u * au)))
 
 
+@pytest.mark.parametrize("start", ["zero", "fmg"])
+def test_a_gmg_solve_calls_no_blas(monkeypatch, start) -> None:
+    """numpy's BLAS-backed products are not called from the set-up to the true-residual check
+    (a BLAS call wakes BLAS's threads, which then spin beside numba's: the first smoothing
+    steps at 128^3 took twice their time; benchmarks/ANALYSIS.md). The README says so."""
+    fine, b = graded_level(24)
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("a BLAS-backed numpy call inside a gmg solve")
+
+    for name in ("dot", "vdot", "inner", "matmul"):
+        monkeypatch.setattr(np, name, refuse)
+    monkeypatch.setattr(np.linalg, "norm", refuse)
+    result, _ = solve_levels(fine, b, 1e-8, 100, start=start)
+    assert result.converged
+
+
 @pytest.mark.parametrize("finest", ["copy", "operator"])
 def test_finest_level_passes_per_iteration(monkeypatch, finest) -> None:
     """Work per CG iteration on the finest level, counted in kernel passes (not times): one
