@@ -1,6 +1,8 @@
-"""The coarsest level's direct solve (solvers/coarsest.py) against scipy's sparse solver on
-the level's own matrix (Level.to_csr), and its banded Cholesky kernels (kernels/band.py)
-against LAPACK's (pbtrf and pbtrs through scipy.linalg) and numpy's dense factor."""
+"""The coarsest level's direct solve (solvers/coarsest.py): its sparse Cholesky factor front
+by front in nested-dissection order (solvers/dissection.py, kernels/fronts.py) against
+scipy's sparse solver and numpy's dense factor of the level's own matrix (Level.to_csr), and
+the dense kernel each front is factored with (kernels/band.py) against LAPACK's (pbtrf
+through scipy.linalg) and a plain column-by-column factor."""
 
 from __future__ import annotations
 
@@ -10,9 +12,13 @@ import scipy.sparse.linalg as sla
 
 import sevenfold.solvers.coarsest as coarsest
 from conftest import write_layer_job
-from sevenfold.kernels.band import band_cholesky, band_cholesky_solve
+from sevenfold.kernels.band import band_cholesky
 from sevenfold.solvers.coarsest import CoarsestSolver
+from sevenfold.solvers.dissection import LEAF, fronts
 from sevenfold.solvers.levels import Level
+
+SHAPES = [(16, 16, 16), (17, 17, 16), (8, 8, 32), (5, 7, 3), (12, 1, 7), (1, 30, 2), (1, 1, 9),
+          (1, 1, 1)]
 
 
 def random_level(shape: tuple[int, int, int], seed: int = 0, margin: float = 1e-2) -> Level:
@@ -33,34 +39,65 @@ def scipy_solution(level: Level, b: np.ndarray) -> np.ndarray:
     return sla.spsolve(level.to_csr().tocsc(), b.ravel()).reshape(level.shape)
 
 
-@pytest.mark.parametrize("shape", [(16, 16, 16), (8, 8, 32), (5, 7, 3), (12, 1, 7), (1, 30, 2),
-                                   (1, 1, 9), (1, 1, 1)])
-def test_band_storage_is_the_levels_matrix(shape) -> None:
-    """Every entry of the band, put back in place, is the CSR matrix's (and nothing else is)."""
-    level = random_level(shape)
-    band, order = level.to_band()
-    dense = level.to_csr().toarray()
-    # the band numbers cells in C order of the transposed grid: renumber the CSR matrix so
+def band_of(dense: np.ndarray, w: int) -> np.ndarray:
+    """Lower band storage, a column per row: ``a[j, d]`` = entry (j + d, j)."""
+    n = dense.shape[0]
+    a = np.zeros((n, w))
+    for d in range(min(w, n)):
+        a[: n - d, d] = np.diagonal(dense, -d)
+    return a
+
+
+@pytest.mark.parametrize("shape", [(12, 9, 8), (5, 7, 3), (12, 1, 7), (1, 30, 2), (1, 1, 9),
+                                   (1, 1, 1)])
+def test_the_fronts_hold_every_entry_of_the_factor(shape) -> None:
+    """Each cell is eliminated by one front; numpy's dense Cholesky factor of the matrix in
+    that order has no entry outside the fronts' rows (the fronts are a true structure of the
+    factor, so the kernels drop nothing), and the kernels' factor equals numpy's there."""
+    level = random_level(shape, seed=11)
+    tree = fronts(shape)
     n = level.diag.size
-    perm = np.arange(n).reshape(shape).transpose(order).ravel()
-    expected = dense[np.ix_(perm, perm)]
-    rebuilt = np.zeros((n, n))
-    for d in range(band.shape[1]):
-        j = np.arange(n - d)
-        rebuilt[j + d, j] = band[: n - d, d]
-        rebuilt[j, j + d] = band[: n - d, d]
-    assert np.array_equal(rebuilt, expected)
-    j, d = np.indices(band.shape)
-    assert not band[j + d >= n].any()  # nothing beyond the matrix's last row
-    assert band.shape[1] - 1 == sorted(shape)[0] * sorted(shape)[1]  # the two shorter sides
+    own = [tree.index[s:s + o] for s, o in zip(tree.start[:-1], tree.own)]
+    order = np.concatenate(own)
+    assert np.array_equal(np.sort(order), np.arange(n))  # a permutation
+    dense = level.to_csr().toarray()[np.ix_(order, order)]
+    numpy_factor = np.linalg.cholesky(dense)
+    solver = CoarsestSolver(level)
+    assert solver.kind == "fronts"
+    position = np.empty(n, dtype=np.int64)
+    position[order] = np.arange(n)
+    reached = np.zeros((n, n), dtype=bool)
+    scale = np.abs(numpy_factor).max()
+    for f in range(len(tree.own)):
+        cells = tree.index[tree.start[f]:tree.start[f + 1]]
+        rows = position[cells]
+        stored = solver._factor[tree.factor_start[f]:tree.factor_start[f + 1]].reshape(tree.own[f], -1)
+        for c in range(tree.own[f]):
+            reached[rows[c:], rows[c]] = True
+            assert np.abs(stored[c, :cells.size - c] - numpy_factor[rows[c:], rows[c]]).max() <= 1e-13 * scale
+    assert np.abs(numpy_factor[~reached]).max(initial=0.0) <= 1e-13 * scale
+    assert reached[np.tril_indices(n)].sum() == tree.factor_start[-1] - sum(
+        o * (o - 1) // 2 for o in tree.own)  # every front row held once (own blocks lower only)
 
 
-@pytest.mark.parametrize("shape", [(16, 16, 16), (8, 8, 32), (12, 1, 7), (1, 1, 1)])
+def test_the_dissection_cuts_fewer_multiply_adds_than_the_band() -> None:
+    """The reason for the order: at 17 x 17 x 16 the factor's column counts give about a third
+    of the band's multiply-adds (the band: longest axis outermost, width 17 x 16 + 1)."""
+    tree = fronts((17, 17, 16))
+    size = np.diff(tree.start)
+    work = sum(sum((s - c) * (s - c - 1) / 2 for c in range(o)) for o, s in zip(tree.own, size))
+    n, w = 17 * 17 * 16, 17 * 16
+    band = sum(min(w, n - 1 - j) * (min(w, n - 1 - j) + 1) / 2 for j in range(n))
+    assert work < 0.4 * band
+    assert tree.own[tree.children == 0].max() <= LEAF  # leaves: boxes of at most LEAF cells
+
+
+@pytest.mark.parametrize("shape", SHAPES)
 @pytest.mark.parametrize("dtype", [np.float32, np.float64])
-def test_banded_cholesky_solves_the_level_like_scipy(shape, dtype) -> None:
+def test_the_fronts_solve_the_level_like_scipy(shape, dtype) -> None:
     level = random_level(shape, seed=1)
     solver = CoarsestSolver(level)
-    assert solver.kind == "band"
+    assert solver.kind == "fronts"
     b = np.random.default_rng(2).standard_normal(shape).astype(dtype)
     u = np.empty(shape, dtype=dtype)
     solver.solve(b, u)
@@ -70,16 +107,16 @@ def test_banded_cholesky_solves_the_level_like_scipy(shape, dtype) -> None:
     assert np.abs(u - reference).max() <= tol * np.abs(reference).max()
 
 
-def test_a_wide_band_or_an_indefinite_matrix_takes_the_sparse_lu(monkeypatch) -> None:
+def test_a_large_level_or_an_indefinite_matrix_takes_the_sparse_lu(monkeypatch) -> None:
     """Both fallbacks give scipy's solution too."""
     level = random_level((6, 5, 4), seed=3)
-    monkeypatch.setattr(coarsest, "BAND_ENTRIES", 10)  # far below (20 + 1) x 120
-    wide = CoarsestSolver(level)
+    monkeypatch.setattr(coarsest, "FRONT_ENTRIES", 10)
+    large = CoarsestSolver(level)
     monkeypatch.undo()
     b = np.random.default_rng(4).standard_normal(level.shape)
     u = np.empty(level.shape)
-    wide.solve(b, u)
-    assert wide.kind == "lu"
+    large.solve(b, u)
+    assert large.kind == "lu"
     assert np.abs(u - scipy_solution(level, b)).max() <= 1e-11 * np.abs(u).max()
 
     indefinite = random_level((6, 5, 4), seed=3, margin=-5.0)  # a negative eigenvalue or more
@@ -90,17 +127,36 @@ def test_a_wide_band_or_an_indefinite_matrix_takes_the_sparse_lu(monkeypatch) ->
     assert np.abs(u - scipy_solution(indefinite, b)).max() <= 1e-9 * np.abs(u).max()
 
 
-@pytest.mark.parametrize("shape", [(16, 16, 16), (8, 8, 32), (12, 1, 7), (1, 1, 1)])
-def test_band_kernels_match_lapack_and_numpy(shape) -> None:
-    """The factor equals LAPACK's banded one (scipy.linalg.cholesky_banded, our layout
-    transposed) and numpy's dense one to rounding; the solve equals LAPACK's cho_solve_banded."""
-    from scipy.linalg import cho_solve_banded, cholesky_banded
+def column_by_column(band: np.ndarray, stop: int) -> np.ndarray:
+    """The banded Cholesky factor's first ``stop`` columns the plain way (LAPACK's pbtf2
+    order), in numpy, the later columns updated by them."""
+    a = band.copy()
+    n, w = a.shape
+    for j in range(stop):
+        a[j, 0] = np.sqrt(a[j, 0])
+        m = min(w - 1, n - 1 - j)
+        a[j, 1:m + 1] /= a[j, 0]
+        for c in range(m):
+            a[j + 1 + c, 0:m - c] -= a[j, 1 + c:m + 1] * a[j, 1 + c]
+    return a
 
-    level = random_level(shape, seed=5)
-    band, _ = level.to_band()
+
+def level_band(shape: tuple[int, int, int], seed: int) -> np.ndarray:
+    """The level's matrix in band storage, C order (width: the last two sides' product + 1)."""
+    dense = random_level(shape, seed=seed).to_csr().toarray()
+    return band_of(dense, shape[1] * shape[2] + 1)
+
+
+@pytest.mark.parametrize("shape", [(16, 16, 16), (8, 8, 32), (12, 1, 7), (1, 1, 1)])
+def test_band_kernel_matches_lapack_and_numpy(shape) -> None:
+    """The whole factor equals LAPACK's banded one (scipy.linalg.cholesky_banded, our layout
+    transposed) and numpy's dense one to rounding."""
+    from scipy.linalg import cholesky_banded
+
+    band = level_band(shape, seed=5)
     lapack = cholesky_banded(band.T.copy(), lower=True)
     factor = band.copy()
-    assert band_cholesky(factor) == 0
+    assert band_cholesky(factor, factor.shape[0]) == 0
     j, d = np.indices(factor.shape)
     inside = j + d < factor.shape[0]
     scale = np.abs(lapack).max()
@@ -112,55 +168,46 @@ def test_band_kernels_match_lapack_and_numpy(shape) -> None:
     numpy_factor = np.linalg.cholesky(dense)
     assert np.abs(numpy_factor[(j + d)[inside], j[inside]] - factor[inside]).max() <= 1e-13 * scale
 
-    b = np.random.default_rng(6).standard_normal(n)
-    x = b.copy()
-    band_cholesky_solve(factor, x)
-    reference = cho_solve_banded((lapack, True), b)
-    assert np.abs(x - reference).max() <= 1e-12 * np.abs(reference).max()
-    assert np.abs(dense @ x - b).max() <= 1e-10 * np.abs(b).max()
-
-
-def column_by_column(band: np.ndarray) -> np.ndarray:
-    """The banded Cholesky factor the plain way (LAPACK's pbtf2 order), in numpy."""
-    a = band.copy()
-    n, w = a.shape
-    for j in range(n):
-        a[j, 0] = np.sqrt(a[j, 0])
-        m = min(w - 1, n - 1 - j)
-        a[j, 1:m + 1] /= a[j, 0]
-        for c in range(m):
-            a[j + 1 + c, 0:m - c] -= a[j, 1 + c:m + 1] * a[j, 1 + c]
-    return a
-
 
 @pytest.mark.parametrize("shape", [(5, 7, 3), (3, 4, 5), (9, 9, 8), (2, 3, 40), (1, 1, 9), (1, 2, 2)])
-def test_the_factor_in_panels_is_the_column_by_column_factor(shape) -> None:
+@pytest.mark.parametrize("part", [1.0, 0.5, 0.13])
+def test_the_factor_in_panels_is_the_column_by_column_factor(shape, part) -> None:
     """Panels of 8 columns, updates four columns at a time and the shorter reach of the last
-    columns change nothing but rounding: bands narrower and wider than a panel, row counts
-    that are not a multiple of it (common practice: the blocked form is a reordering of the
-    same sums)."""
-    band, _ = random_level(shape, seed=8).to_band()
+    columns change nothing but rounding: bands narrower and wider than a panel, row and stop
+    counts that are not a multiple of it (common practice: the blocked form is a reordering of
+    the same sums). Stopped early, the later columns hold the Schur complement."""
+    band = level_band(shape, seed=8)
+    stop = max(1, int(part * band.shape[0]))
     factor = band.copy()
-    assert band_cholesky(factor) == 0
-    reference = column_by_column(band)
+    assert band_cholesky(factor, stop) == 0
+    reference = column_by_column(band, stop)
     j, d = np.indices(band.shape)
     inside = j + d < band.shape[0]
     assert np.abs(factor[inside] - reference[inside]).max() <= 1e-14 * np.abs(reference).max()
     assert np.array_equal(factor[~inside], band[~inside])  # the unused corner is not touched
+    if stop < band.shape[0]:  # the rest: A22 - A21 A11^-1 A12 (numpy, dense)
+        n = band.shape[0]
+        dense = np.zeros((n, n))
+        dense[(j + d)[inside], j[inside]] = band[inside]
+        dense += np.tril(dense, -1).T
+        schur = dense[stop:, stop:] - dense[stop:, :stop] @ np.linalg.solve(dense[:stop, :stop], dense[:stop, stop:])
+        rest = band_of(schur, band.shape[1])
+        k, e = np.indices(rest.shape)
+        kept = k + e < rest.shape[0]
+        assert np.abs(factor[stop:][kept] - rest[kept]).max() <= 1e-12 * np.abs(schur).max()
 
 
 def test_band_factor_reports_the_first_pivot_that_is_not_positive_like_lapack() -> None:
     """LAPACK's info: i when the leading minor of order i is not positive definite."""
     from scipy.linalg import LinAlgError, cholesky_banded
 
-    level = random_level((4, 4, 4), seed=7)
-    band, _ = level.to_band()
+    band = level_band((4, 4, 4), seed=7)
     band[5, 0] = -1.0  # the sixth pivot is negative whatever came before
     with pytest.raises(LinAlgError, match="6-th leading minor"):
         cholesky_banded(band.T.copy(), lower=True)
-    assert band_cholesky(band.copy()) == 6
+    assert band_cholesky(band.copy(), 64) == 6
     band[5, 0] = np.nan
-    assert band_cholesky(band.copy()) == 6
+    assert band_cholesky(band.copy(), 64) == 6
 
 
 def test_a_gmg_run_imports_no_scipy_linalg(tmp_path) -> None:
@@ -172,7 +219,7 @@ def test_a_gmg_run_imports_no_scipy_linalg(tmp_path) -> None:
     import subprocess
     import sys
 
-    job = write_layer_job(tmp_path / "job.toml", 1e-2, 24)  # 24^3: levels and a band
+    job = write_layer_job(tmp_path / "job.toml", 1e-2, 24)  # 24^3: levels and a factor
     probe = ("import json, sys\nfrom sevenfold.runner import run_job\n"
              "result = run_job(sys.argv[1])\n"
              "print(json.dumps([result.solve.converged, sorted(m for m in sys.modules if m.startswith('scipy.'))]))")

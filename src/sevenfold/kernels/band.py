@@ -1,24 +1,21 @@
-"""A banded Cholesky factor and its solve: the coarsest multigrid level's direct solver.
+"""A dense or banded Cholesky factor, whole or of its first columns: each front of the
+coarsest level's factor (:mod:`.fronts`) is factored with it.
 
 Storage is LAPACK's lower band transposed (common practice, LAPACK Users' Guide, "band
 storage"), so that a column of the factor is one contiguous row: ``a[j, d]`` holds entry
-(j + d, j) of the symmetric matrix, d = 0 .. w - 1 (``a[j, d]`` for j + d >= n is unused).
-The factor is right-looking, the same arithmetic as LAPACK's unblocked pbtf2, taken in panels
-of PANEL columns: a panel's columns are scaled and update each other, then every later column
-the panel reaches takes the panel's updates in one pass, four columns' products at a time,
-while its entries are in the first-level cache. Each entry receives the same updates in the
-same order as column by column, so the factor is the same bit for bit. At 17 x 17 x 16 cells
-it took 21.2 ms against 26.5 ms; on bands of 65-82 the calls cost more than the passes save
-(1.0-1.2 ms against 0.8; benchmarks/RESULTS_COARSEST_PANELS.md). The solve is the forward
-substitution L y = b by columns and the backward one L^T x = y by dot products along the same
-rows.
+(j + d, j) of the symmetric matrix, d = 0 .. w - 1 (``a[j, d]`` for j + d >= n is unused); a
+dense matrix is a band as wide as it is long. The factor is right-looking, the same arithmetic
+as LAPACK's unblocked pbtf2, taken in panels of PANEL columns: a panel's columns are scaled
+and update each other, then every later column the panel reaches takes the panel's updates in
+one pass, four columns' products at a time, while its entries are in the first-level cache.
+Each entry receives the same updates in the same order as column by column, so the factor is
+the same bit for bit. As the coarsest level's whole-band factor it took 21.2 ms against
+26.5 ms column by column at 17 x 17 x 16 cells (benchmarks/RESULTS_COARSEST_PANELS.md).
+Stopped after some columns, the later ones hold what remains of the matrix once those are
+eliminated (the Schur complement), which is a front's update.
 
-The solve's inner loops run over slices, so their indices are known non-negative and they
-vectorise (indexed ``x[j + d]`` kept numba's negative-index check in the loop: a prototype's
-solve took 0.93 ms at 16^3 against 0.29 ms with slices; benchmarks/ANALYSIS.md). The factor's
-updates are small functions of their own: written inside its loop nest they compiled to
-scalar instructions only (inspected in the machine code). Both kernels are serial:
-the level has at most 4096 cells (a few more where aggregates are arranged).
+The factor's updates are small functions of their own: written inside its loop nest they
+compiled to scalar instructions only (inspected in the machine code). The kernel is serial.
 """
 
 from __future__ import annotations
@@ -55,13 +52,15 @@ def _take_one(a: np.ndarray, c: int, j: int, start: int, stop: int) -> None:
 
 
 @njit(cache=True, fastmath={"contract"})
-def band_cholesky(a: np.ndarray) -> int:
-    """Overwrite the band ``a`` (n, w) of an SPD matrix with its Cholesky factor L in the same
-    storage. Returns 0, or j + 1 when the pivot of column j is not positive (the matrix is not
-    positive definite; ``a`` is then partly overwritten)."""
+def band_cholesky(a: np.ndarray, stop: int) -> int:
+    """Overwrite the first ``stop`` columns of the band ``a`` (n, w) of an SPD matrix with
+    those of its Cholesky factor L, in the same storage, and the later columns with the Schur
+    complement that remains of them (``stop`` = n: the whole factor). Returns 0, or j + 1
+    when the pivot of column j is not positive (the matrix is not positive definite; ``a`` is
+    then partly overwritten)."""
     n, w = a.shape
-    for j0 in range(0, n, PANEL):
-        j1 = min(j0 + PANEL, n)
+    for j0 in range(0, stop, PANEL):
+        j1 = min(j0 + PANEL, stop)
         for j in range(j0, j1):  # the panel's columns, each updating the panel's later ones
             pivot = a[j, 0]
             if not pivot > 0.0:  # also catches NaN
@@ -89,25 +88,3 @@ def band_cholesky(a: np.ndarray) -> int:
             for jj in range(j, j1):
                 _take_one(a, c, jj, 0, min(jj + w, n) - c)
     return 0
-
-
-@njit(cache=True, fastmath={"reassoc", "contract", "nsz"})
-def band_cholesky_solve(a: np.ndarray, x: np.ndarray) -> None:
-    """x = (L L^T)^-1 x in place, for the factor ``a`` from :func:`band_cholesky`."""
-    n, w = a.shape
-    for j in range(n):  # L y = b, column by column
-        xj = x[j] / a[j, 0]
-        x[j] = xj
-        m = min(w - 1, n - 1 - j)
-        column = a[j, 1:m + 1]
-        below = x[j + 1:j + m + 1]
-        for d in range(m):
-            below[d] -= column[d] * xj
-    for j in range(n - 1, -1, -1):  # L^T x = y, a dot product per row
-        m = min(w - 1, n - 1 - j)
-        column = a[j, 1:m + 1]
-        below = x[j + 1:j + m + 1]
-        s = 0.0
-        for d in range(m):
-            s += column[d] * below[d]
-        x[j] = (x[j] - s) / a[j, 0]

@@ -37,14 +37,15 @@ import numpy as np
 # a number of sweeps compiled in 4.2-4.3 s against the one-sweep form's 4.0-4.2 s the same way,
 # within the estimate's precision, so its cost stands. The vectors items include the true
 # residual's norm (distance_squared), added since: 0.29-0.36 s threaded, 0.07 s serial (one
-# signature in a fresh process after the other vector kernels, 2026-12-03). band_cholesky (the
-# coarsest level's factor and solve) compiled in 0.5-0.6 s where transmissibility took 1.1 s
-# and fine_stencil 3.1 s (one process, 2026-12-04), so about 2.4 times that in these units.
+# signature in a fresh process after the other vector kernels, 2026-12-03). fronts_factor (the
+# coarsest level's factor and solve) stands at the band factor's before it: 0.5-0.6 s where
+# transmissibility took 1.1 s and fine_stencil 3.1 s (one process, 2026-12-04), so about 2.4
+# times that in these units.
 COST = {
     "transmissibility": 2.6, "fine_stencil": 7.4, "axis_weakness": 2.3, "galerkin_scaled": 7.4,
     "line_factor": 1.9, "line_gauss_seidel": 8.9, "residual_restrict": 6.3, "prolong_add": 2.1,
     "apply_dot": 3.1, "narrow": 0.6, "vectors_threaded": 2.5, "vectors_serial": 1.2,
-    "band_cholesky": 1.3, "wall_counts": 1.0,
+    "fronts_factor": 1.3, "wall_counts": 1.0,
 }
 # What starting the child costs before it compiles (the interpreter, numba, the kernel modules)
 CHILD_START = 1.5
@@ -116,7 +117,7 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
     (solvers/gmg.py, solvers/hierarchy.py, solvers/levels.py, solvers/cg.py, operator.py),
     one signature per tag; and each item's tags (``item[tag]`` names one compiled signature in
     the cache's markers)."""
-    from . import band, finite_volume, lines, multigrid, stencil, vector
+    from . import finite_volume, fronts, lines, multigrid, stencil, vector
 
     f64 = np.float64
     f32 = np.dtype(plan.precision).type  # the levels' type: float32 unless the contrast is high
@@ -176,10 +177,16 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
     add("apply_dot", "float64", lambda: _build(stencil.apply_dot, *_arrays(f64, count=6)))
 
     def coarsest():  # every gmg run factors its coarsest level (solvers/coarsest.py)
-        _build(band.band_cholesky, np.ones((4, 2)))
-        _build(band.band_cholesky_solve, np.ones((4, 2)), np.ones(4))
+        from ..solvers.dissection import fronts as tree_of
 
-    add("band_cholesky", "float64", coarsest)
+        tree = tree_of((2, 1, 1))
+        ints = (tree.index, tree.start, tree.own)
+        factor = np.empty(int(tree.factor_start[-1]))
+        _build(fronts.fronts_factor, *_arrays(f64, (2, 1, 1), 4), *ints, tree.children,
+               tree.factor_start, factor, np.empty(max(tree.stack, 1)))
+        _build(fronts.fronts_solve, *ints, tree.factor_start, factor, np.ones(2))
+
+    add("fronts_factor", "float64", coarsest)
     ops, name = ((vector.THREADED, "vectors_threaded") if plan.cells >= vector.PARALLEL_FROM
                  else (vector.SERIAL, "vectors_serial"))
 

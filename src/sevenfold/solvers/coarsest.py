@@ -2,19 +2,16 @@
 
 The level's matrix (at most 16^3 cells by default) is symmetric positive definite: every
 coupling is a positive conductance and every level has a held cell, a fixed or convective
-face or a pin that anchors it. It is factored as a banded Cholesky factor (``kernels.band``),
-its cells numbered with the longest axis outermost so that the bandwidth is the product of the
-two shorter sides (256 at 16^3). Against scipy's sparse LU (SuperLU, minimum degree on A^T + A)
-a banded factor took a third of the time (benchmarks/RESULTS_COARSEST_BAND.md, LAPACK's pbtrf
-then). Our own kernel instead of LAPACK's through scipy.linalg spares a gmg run importing
-scipy.linalg (84-106 ms of every fresh process); at 16^3 it factors in 20.5-20.8 ms against
-LAPACK's 12.0-12.3 ms on one BLAS thread and solves in the same 0.30 ms
-(benchmarks/RESULTS_COARSEST_KERNEL.md); taken in panels since, it factors the 17 x 17 x 16
-level of a 128^3 job with arranged aggregates in 21.2 ms against 26.5 ms, LAPACK's 12.3 ms
-(benchmarks/RESULTS_COARSEST_PANELS.md).
-A gmg run imports neither scipy.linalg nor scipy.sparse.
+face or a pin that anchors it. It is factored by sparse Cholesky, front by front, in the
+nested-dissection order of :mod:`.dissection` (``kernels.fronts``). At 17 x 17 x 16 cells that
+took 9 ms against 22 ms for the banded Cholesky factor used before (the level numbered
+longest axis outermost, a band of 273), and a solve 0.46 against 0.75 ms (one-offs on this
+host, 2026-12-05; benchmarks/RESULTS_FRONTS.md); on a long thin level (8 x 8 x 32, a band of
+65) the band was faster, 1.3 against 1.8 ms, and a level of that shape costs little either way.
+Both are our own kernels, so a gmg run imports neither scipy.linalg nor scipy.sparse (84-106
+ms of every fresh process; benchmarks/RESULTS_COARSEST_KERNEL.md).
 
-Where the band would be wide (a coarsest level asked larger than the default) or the
+Where the factor would be large (a coarsest level asked much larger than the default) or the
 factorisation finds the matrix not positive definite (rounding in a float32 hierarchy could
 make it so), a sparse LU takes over.
 """
@@ -23,28 +20,35 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..kernels.band import band_cholesky, band_cholesky_solve
+from ..kernels.fronts import fronts_factor, fronts_solve
+from .dissection import fronts
 from .levels import Level
 
-# Largest band stored (entries; 8 bytes each): 16^3 needs 257 x 4096, about a million
-BAND_ENTRIES = 1 << 21
+# Largest factor, front and waiting updates kept (entries; 8 bytes each): 17 x 17 x 16 needs
+# about 0.7 million; a coarsest level asked much larger than the default takes the sparse LU
+FRONT_ENTRIES = 1 << 22
+# Levels larger than this are not dissected at all (the tree is built in Python)
+LEVEL_CELLS = 1 << 16
 
 
 class CoarsestSolver:
     """Factor once, then solve the level's equations for any right-hand side.
 
-    ``kind`` is "band" (banded Cholesky) or "lu" (sparse LU).
+    ``kind`` is "fronts" (sparse Cholesky in nested-dissection order) or "lu" (sparse LU).
     """
 
     def __init__(self, level: Level) -> None:
         self.shape = level.shape
         self.kind = "lu"
         self._lu = None
-        self._factor = None
-        band, self._order = level.to_band() if _band_entries(level.shape) <= BAND_ENTRIES else (None, None)
-        if band is not None and band_cholesky(band) == 0:
-            self._factor = band
-            self.kind = "band"
+        tree = self._tree = fronts(level.shape) if level.diag.size <= LEVEL_CELLS else None
+        if tree is not None and tree.entries <= FRONT_ENTRIES:
+            self._factor = np.empty(int(tree.factor_start[-1]))
+            arrays = (np.ascontiguousarray(a, dtype=np.float64)
+                      for a in (level.tx, level.ty, level.tz, level.diag))
+            if fronts_factor(*arrays, tree.index, tree.start, tree.own, tree.children,
+                             tree.factor_start, self._factor, np.empty(tree.stack)) == 0:
+                self.kind = "fronts"
         if self.kind == "lu":
             import scipy.sparse.linalg as sla
 
@@ -59,13 +63,7 @@ class CoarsestSolver:
         if self.kind == "lu":
             u[...] = self._lu.solve(b.ravel().astype(np.float64)).reshape(self.shape)
             return
-        order = self._order
-        x = b.transpose(order).astype(np.float64).ravel()  # a fresh array: solved in place
-        band_cholesky_solve(self._factor, x)
-        u.transpose(order)[...] = x.reshape(tuple(self.shape[a] for a in order))
-
-
-def _band_entries(shape: tuple[int, int, int]) -> int:
-    """Entries of the lower band of a level with this shape, longest axis outermost."""
-    sides = sorted(shape)
-    return (sides[0] * sides[1] + 1) * int(np.prod(shape))
+        tree = self._tree
+        x = b.astype(np.float64).ravel()  # a fresh array: solved in place
+        fronts_solve(tree.index, tree.start, tree.own, tree.factor_start, self._factor, x)
+        u[...] = x.reshape(self.shape)

@@ -33,7 +33,8 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   symmetric positive definite preconditioner and CG stays valid; lines make strong z
   couplings (thin cells, a graded z axis) harmless;
 * a W-cycle (the V-cycle of aggregation multigrid loses accuracy with every level), a
-  banded Cholesky factor of the coarsest level (at most 16^3 cells; :mod:`.coarsest`);
+  sparse Cholesky factor of the coarsest level in nested-dissection order (at most 16^3
+  cells; :mod:`.coarsest`);
 * the preconditioner's levels in float32 by default, CG, the residual-defining operator and
   the true-residual check in float64; the finest level is smoothed on a float32 copy of its
   face arrays, or, on large grids and where memory is short

@@ -71,21 +71,6 @@ class Level:
         return Level(*(convert(a) for a in (self.tx, self.ty, self.tz, self.diag)),
                      self.free, self.step.copy(), self.spacing, agg=self.agg)
 
-    def to_band(self) -> tuple[np.ndarray, tuple[int, int, int]]:
-        """The level's matrix in lower band storage, a column per row (float64; the layout
-        of ``kernels.band``), cells numbered in C order of the grid transposed to ``order``
-        (axes longest first, so the bandwidth is the product of the two shorter sides):
-        ``band[j, d]`` is entry (j + d, j)."""
-        order = tuple(int(a) for a in np.argsort(self.shape, kind="stable")[::-1])
-        sides = tuple(self.shape[a] for a in order)
-        stride = {order[0]: sides[1] * sides[2], order[1]: sides[2], order[2]: 1}
-        band = np.zeros((self.diag.size, sides[1] * sides[2] + 1))
-        band[:, 0] = self.diag.transpose(order).ravel()
-        for axis, t in enumerate((self.tx, self.ty, self.tz)):
-            if self.shape[axis] > 1:  # (t is 0 on each axis's last plane: no wrap-around)
-                band[:, stride[axis]] -= t.transpose(order).ravel()
-        return band, order  # type: ignore[return-value]
-
     def to_csr(self) -> "sp.csr_matrix":
         """The level's matrix (only for the small coarsest level)."""
         import scipy.sparse as sp
