@@ -20,7 +20,7 @@ the level numbered longest axis outermost, as ``solvers.coarsest`` did then (its
    and solve to 1e-8 after one untimed solve, two numba threads), the hierarchy's coarsest
    solver the fronts' or the band's, alternating; work units = seconds / one float64
    operator application on the finest level (restrict_bench.apply_seconds), timed in each
-   round. BLAS on one thread, as the command runs it.
+   round, then one untimed solve. BLAS on one thread, as the command runs it.
 3. *Whole processes* (``--jobs``): ``sevenfold run`` on the working tree and on ``REVISION``
    (benchmarks/whole_bench.py).
 
@@ -124,6 +124,12 @@ def warm_solves(n: int, case: str, rounds: int, band) -> dict[str, list]:
             gmg.solve_levels(fine, b, 1e-8, 100)
         for i in range(rounds):
             unit = rb.apply_seconds(fine)
+            # untimed: the first solve after the unit's arrays are freed took 1.6-1.8x the others
+            # at 256^3 (page faults, by the look of it), whichever solver went first
+            first = engine.rotation(list(solvers), i)[0]
+            hierarchy.CoarsestSolver = solvers[first]
+            gmg.solve_levels(fine, b, 1e-8, 100)
+            gc.collect()
             for side in engine.rotation(list(solvers), i):
                 hierarchy.CoarsestSolver = solvers[side]
                 result, levels = gmg.solve_levels(fine, b, 1e-8, 100)

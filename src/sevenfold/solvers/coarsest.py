@@ -4,10 +4,10 @@ The level's matrix (at most 16^3 cells by default) is symmetric positive definit
 coupling is a positive conductance and every level has a held cell, a fixed or convective
 face or a pin that anchors it. It is factored by sparse Cholesky, front by front, in the
 nested-dissection order of :mod:`.dissection` (``kernels.fronts``). At 17 x 17 x 16 cells that
-took 9 ms against 22 ms for the banded Cholesky factor used before (the level numbered
-longest axis outermost, a band of 273), and a solve 0.46 against 0.75 ms (one-offs on this
-host, 2026-12-05; benchmarks/RESULTS_FRONTS.md); on a long thin level (8 x 8 x 32, a band of
-65) the band was faster, 1.3 against 1.8 ms, and a level of that shape costs little either way.
+took 8.9 ms against 21.3 ms for the banded Cholesky factor used before (the level numbered
+longest axis outermost, a band of 273), and a solve 0.29 against 0.38 ms; at 16^3 7.5 against
+16.8 ms (benchmarks/RESULTS_FRONTS.md). On a long thin level the band was faster (8 x 8 x 32,
+a band of 65: 1.2 against 1.7 ms, a solve 0.08 against 0.11 ms), where either costs little.
 Both are our own kernels, so a gmg run imports neither scipy.linalg nor scipy.sparse (84-106
 ms of every fresh process; benchmarks/RESULTS_COARSEST_KERNEL.md).
 
