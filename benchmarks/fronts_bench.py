@@ -185,11 +185,8 @@ def main(argv: list[str] | None = None) -> int:
                 f"{sorted({k for _, k in w['band']})} / {sorted({k for _, k in w['fronts']})} |")
             print(lines[-1], flush=True)
     if args.jobs:
-        lines += ["", f"## 3. Whole `sevenfold run` processes, against {args.against}", "",
-                  "Medians of the rounds (every round's whole seconds in order in the last column); "
-                  "ratio = now / then (benchmarks/whole_bench.py).", "",
-                  "| " + " | ".join(whole_bench.COLUMNS) + " |", "|" + "---|" * len(whole_bench.COLUMNS)]
-        lines += whole_bench.compare(args.jobs, args.against, args.rounds)
+        lines += whole_bench.section(f"## 3. Whole `sevenfold run` processes, against {args.against}",
+                                     args.jobs, args.against, args.rounds)
     engine.write_report(args.results, lines, info)
     return 0
 

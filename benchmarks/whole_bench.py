@@ -76,6 +76,15 @@ def compare(jobs: list[str], against: str, rounds: int) -> list[str]:
     return rows
 
 
+def section(heading: str, jobs: list[str], against: str, rounds: int) -> list[str]:
+    """A result file's section of whole processes (:func:`compare`), with its heading and
+    how to read it."""
+    return (["", heading, "", "Medians of the rounds (every round's whole seconds in order in "
+             "the last column); ratio = now / then (benchmarks/whole_bench.py).", "",
+             "| " + " | ".join(COLUMNS) + " |", "|" + "---|" * len(COLUMNS)]
+            + compare(jobs, against, rounds))
+
+
 def compare_resident(jobs: list[str], against: str, rounds: int) -> list[str]:
     """Table rows of the jobs' time in a resident process (``band_bench.resident``: the third
     ``run_job`` in one child, what a worker's slot sees), the working tree and ``against``
