@@ -38,7 +38,8 @@ import numpy as np
 # within the estimate's precision, so its cost stands. The vectors items include the true
 # residual's norm (distance_squared), added since: 0.29-0.36 s threaded, 0.07 s serial (one
 # signature in a fresh process after the other vector kernels, 2026-12-03). fronts_factor (the
-# coarsest level's factor and solve) stands at the band factor's before it: 0.5-0.6 s where
+# coarsest level's factor and solve; its compile not timed) keeps the estimate of the band
+# factor it replaced, measured at 0.5-0.6 s where
 # transmissibility took 1.1 s and fine_stencil 3.1 s (one process, 2026-12-04), so about 2.4
 # times that in these units.
 COST = {
