@@ -1,20 +1,24 @@
 """Whole `sevenfold run` processes: what loading the cached kernels and exiting cost, as
 shipped and as numba and Python do them by default.
 
-    python benchmarks/load_bench.py [--sizes 32 128 256] [--rounds 6]
+    python benchmarks/load_bench.py [--sizes 32 128 256] [--rounds 6] [--sides ...]
 
-Two fixed costs of a fresh process, each against the code without its change:
+Three fixed costs of a fresh process, each against the code without its change:
 
 - *numba's load*: before numba's cache hands back a kernel, it refreshes its target context,
   importing and installing every lowering registry numba has; a fresh process pays that at
   its first kernel. sevenfold's kernels load through ``kernels.jit.KernelCache``, which starts
   numba's runtime and loads the machine code without that refresh. This side puts
   ``KernelCache.load_overload`` back to numba's ``FunctionCache.load_overload``.
+- *bitcode parsed on load*: a cached kernel's LLVM bitcode, which only a later compile that
+  links the kernel needs, is parsed when that compile asks for it, and the names its machine
+  code defines are read from the object's symbol table (``kernels.jit.LazyLibrary``). This
+  side parses and walks the bitcode on every load, as numba does.
 - *collected at exit*: the console command (``cli.program``) freezes every object out of the
   garbage collector before it exits, so that the interpreter's shutdown does not walk them all
   several times over. This side makes that freeze do nothing.
 
-*shipped* has both. The three sides run the same command (``cli.program`` in ``python -c``)
+*shipped* has all three; ``--sides`` picks the others to run beside it. The sides run the same command (``cli.program`` in ``python -c``)
 and import the same modules in the same order.
 
 The job is column.py's 1000:1 column on n^3 cells (gmg, rtol 1e-8). One untimed run per size
@@ -40,7 +44,7 @@ import run as engine  # noqa: E402
 import speed  # noqa: E402
 
 COMMAND = """
-import gc
+import contextlib, gc
 from numba.core.caching import FunctionCache
 from sevenfold import cli
 from sevenfold.kernels import jit
@@ -49,6 +53,7 @@ cli.program()
 """
 SIDES = {"shipped": COMMAND.format(change=""),
          "numba's load": COMMAND.format(change="jit.KernelCache.load_overload = FunctionCache.load_overload"),
+         "bitcode parsed on load": COMMAND.format(change="jit._lazy_libraries = lambda codegen: contextlib.nullcontext()"),
          "collected at exit": COMMAND.format(change="gc.freeze = lambda: None")}
 
 
@@ -61,7 +66,10 @@ def one_run(folder: Path, side: str, job: Path) -> tuple[float, float]:
 def main(argv: list[str] | None = None) -> int:
     p = engine.ab_parser(__doc__, "RESULTS_LOAD.md", rounds=6)
     p.add_argument("--sizes", nargs="+", type=int, default=[32, 128, 256])
+    p.add_argument("--sides", nargs="+", choices=[s for s in SIDES if s != "shipped"],
+                   default=[s for s in SIDES if s != "shipped"])
     args = p.parse_args(argv)
+    sides = ["shipped", *args.sides]
     lines, info = engine.report_head("load_bench.py", argv, "A fresh process: loading cached kernels and exiting")
     lines += engine.opening(
         __doc__, "Seconds, median of the rounds (every round in order in the last column); ratio = shipped / the side.",
@@ -73,9 +81,9 @@ def main(argv: list[str] | None = None) -> int:
             job = folder / f"column-{n}.toml"
             job.write_text(column.job_text(n, folder / f"column-{n}.zarr"))
             one_run(folder, "shipped", job)  # untimed: fills the cache at this size's signatures
-            runs: dict[str, list[tuple[float, float]]] = {side: [] for side in SIDES}
+            runs: dict[str, list[tuple[float, float]]] = {side: [] for side in sides}
             for i in range(args.rounds):
-                for side in engine.rotation(list(SIDES), i):
+                for side in engine.rotation(sides, i):
                     runs[side].append(one_run(folder, side, job))
                     print(n, side, " ".join(f"{x:.2f}" for x in runs[side][-1]), flush=True)
             whole = {side: statistics.median(w for w, _ in r) for side, r in runs.items()}
