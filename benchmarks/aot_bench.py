@@ -46,7 +46,7 @@ sys.path.insert(0, str(HERE))
 from start_bench import import_profile, load_average, revision, timed, write_job  # noqa: E402  (also sets SEVENFOLD_HOME)
 
 KERNEL_MODULES = ("sevenfold.kernels.finite_volume", "sevenfold.kernels.stencil", "sevenfold.kernels.lines",
-                  "sevenfold.kernels.multigrid", "sevenfold.kernels.vector")
+                  "sevenfold.kernels.multigrid", "sevenfold.kernels.vector", "sevenfold.kernels.fronts")
 TARGET = 1.2  # seconds, a warm 32^3 `sevenfold run` as a whole process (issue 10)
 MODULE = "sevenfold_aot"  # the extension's name (one folder per target CPU)
 PY = sys.executable
@@ -75,7 +75,8 @@ def kernels() -> dict[str, object]:
 
     return {f"{m}.{name}": f for m in KERNEL_MODULES
             for name, f in vars(importlib.import_module(m)).items()
-            if isinstance(f, CPUDispatcher) and not name.startswith("_")}
+            if isinstance(f, CPUDispatcher) and not name.startswith("_")
+            and f.py_func.__module__ == m}  # (not one imported from another kernel module)
 
 
 def record(job: Path) -> tuple[dict[str, object], dict[str, tuple]]:
@@ -97,8 +98,13 @@ def record(job: Path) -> tuple[dict[str, object], dict[str, tuple]]:
         setattr(sys.modules[module], attr, recording(name, kernel))
     for ops in ("SERIAL", "THREADED"):  # the vector builds are held in named tuples
         setattr(vector, ops, vector.VectorOps(*(getattr(vector, f.__name__) for f in getattr(vector, ops))))
-    if sevenfold(["run", "-q", str(job)]) != 0:
-        raise SystemExit("the recording run failed")
+    try:
+        if sevenfold(["run", "-q", str(job)]) != 0:
+            raise SystemExit("the recording run failed")
+    finally:  # the kernels back (the build compiles kernels that call others by their names)
+        for name, kernel in found.items():
+            module, attr = name.rsplit(".", 1)
+            setattr(sys.modules[module], attr, kernel)
     return {name: found[name] for name in calls}, calls
 
 

@@ -103,6 +103,10 @@ def install(folder: Path) -> types.ModuleType:
     numba.get_num_threads = lambda: 1
     numba.set_num_threads = lambda n: None
     sys.modules["numba"] = numba
+    # the kernels' own njit (kernels/jit.py) loads numba's cache machinery: the stand-in's instead
+    jit = types.ModuleType("sevenfold.kernels.jit", "stand-in: kernels compiled ahead of time")
+    jit.njit = njit
+    sys.modules[jit.__name__] = jit
     return ext
 
 
