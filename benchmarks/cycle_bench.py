@@ -82,6 +82,11 @@ VARIANTS = {
         "W", "line", "scaled", "float32", "zero", smoothing=2, finest_sweeps=1),
     "W(2,2) z-line scaled f32, finest level W(3,3)": _v(
         "W", "line", "scaled", "float32", "zero", smoothing=2, finest_sweeps=3),
+    **{f"W(2,2) z-line scaled f32, finest level over-relaxed {w}": _v(
+        "W", "line", "scaled", "float32", "zero", smoothing=2, omega=(w, 1.0))
+       for w in (1.05, 1.1, 1.15, 1.2)},
+    "W(2,2) z-line scaled f32, every level over-relaxed 1.1": _v(
+        "W", "line", "scaled", "float32", "zero", smoothing=2, omega=(1.1, 1.1)),
     "W(2,2) z-line scaled f32, float64 finest right-hand side": _v(
         "W", "line", "scaled", "float32", "zero", smoothing=2, wide_rhs=True),
     "W(2,2) z-line scaled f32, 2048-cell coarsest": _v(
@@ -183,12 +188,15 @@ def unit_seconds(level, repeats: int = 9) -> float:
 
 
 @contextlib.contextmanager
-def patched(two_pass: bool = False, finest_sweeps: int | None = None, wide_rhs: bool = False):
+def patched(two_pass: bool = False, finest_sweeps: int | None = None, wide_rhs: bool = False,
+            omega: tuple[float, float] | None = None):
     """Designs measured by patching the kept one: ``two_pass``, the line sweep as it was before
     the one-pass sweep (each colour its own pass over memory: the same numbers, more memory
     traffic); ``finest_sweeps``, that many sweeps each side on the finest level only;
     ``wide_rhs``, the finest level smoothing CG's float64 residual itself (as before the
-    float32 copy: a second signature of each level kernel, no narrowing pass)."""
+    float32 copy: a second signature of each level kernel, no narrowing pass); ``omega``,
+    z-line sweeps over-relaxed by omega[0] on the finest level and omega[1] on the others
+    (relaxed_lines.py, checked against the kept sweep at omega = 1 first)."""
     from sevenfold.kernels import lines
     from sevenfold.solvers.gmg import Hierarchy
 
@@ -215,6 +223,19 @@ def patched(two_pass: bool = False, finest_sweeps: int | None = None, wide_rhs: 
         Hierarchy._smooth = fewer_on_finest
     if wide_rhs:
         Hierarchy._rhs = lambda self, r: r.reshape(self.levels[0].shape)
+    if omega is not None:
+        import numba
+        import relaxed_lines
+
+        relaxed_lines.check()
+
+        def relaxed(self, lv, b, u, first, zero=False):
+            if not lv.lines:
+                return smooth(self, lv, b, u, first, zero)
+            w = omega[0] if lv is self.levels[0] else omega[1]
+            relaxed_lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, first,
+                                            self.sweeps[first], numba.get_num_threads(), zero, w)
+        Hierarchy._smooth = relaxed
     try:
         yield
     finally:
@@ -232,7 +253,7 @@ def run_case(n: int, case: str, names, repeats: int = 1) -> list[dict]:
             if options.pop("two_grid", False):  # the first coarse level solved exactly (LU)
                 options["coarsest_cells"] = fine.diag.size // 8 + 1
             with patched(options.pop("two_pass", False), options.pop("finest_sweeps", None),
-                         options.pop("wide_rhs", False)):
+                         options.pop("wide_rhs", False), options.pop("omega", None)):
                 for _ in range(repeats):  # the best of several: other processes only add time
                     t = CLOCK()
                     result, hierarchy = solve_levels(fine, b, RTOL, MAX_ITERATIONS, **options)
