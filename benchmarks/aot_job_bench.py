@@ -2,7 +2,7 @@
 jit kernels against the same on serial AOT builds, and the job resident on one and two threads.
 
     python benchmarks/aot_job_bench.py                      # 128^3 inclusions; RESULTS_AOT_JOB.md
-    python benchmarks/aot_job_bench.py --cells 128 --pattern inclusions --rounds 6
+    python benchmarks/aot_job_bench.py --cells 128 --pattern column --output benchmarks/RESULTS_AOT_COLUMN.md
 
 aot_bench.py measured the AOT prototype on a 32^3 job, where one thread is as fast as two. A
 speed-suite job is where the own-time targets are (RESULTS.md), and there the AOT builds being
@@ -43,11 +43,17 @@ JOB_SECONDS = re.compile(r"job ([0-9.]+) s \(assembly ([0-9.]+) s, setup ([0-9.]
 
 
 def job_file(folder: Path, n: int, pattern: str) -> Path:
-    import speed
-
+    """The speed suite's job for ``pattern`` (speed.py), or issue 10's 1000:1 column (column.py)."""
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / "job.toml"
-    path.write_text(speed.job_text(n, pattern, str(folder / "result.zarr")))
+    if pattern == "column":
+        import column
+
+        path.write_text(column.job_text(n, folder / "result.zarr"))
+    else:
+        import speed
+
+        path.write_text(speed.job_text(n, pattern, str(folder / "result.zarr")))
     return path
 
 
@@ -95,7 +101,8 @@ def solutions_differ(a: Path, b: Path) -> float:
 def main() -> None:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--cells", type=int, default=128)
-    p.add_argument("--pattern", default="inclusions", help="a speed-suite pattern (speed.py)")
+    p.add_argument("--pattern", default="inclusions",
+                   help="a speed-suite pattern (speed.py) or column (column.py)")
     p.add_argument("--rounds", type=int, default=6, help="alternating rounds of fresh processes")
     p.add_argument("--resident-rounds", type=int, default=5)
     p.add_argument("--output", default=str(HERE / "RESULTS_AOT_JOB.md"))
