@@ -611,9 +611,16 @@ def test_fused_residual_restriction_and_products(shape, step, off, planes) -> No
         rz = ops.dot(r.ravel(), z32)
         assert abs(rz - float(r.ravel() @ z)) <= 1e-12 * float(np.abs(r.ravel() * z).sum())
         p = rng.standard_normal(u.size)
-        expected = z + 0.3 * p
-        ops.update_direction(p, z32, 0.3)
-        assert np.array_equal(p, expected)
+        x = rng.standard_normal(u.size)
+        expected_x, expected = x + 0.7 * p, z + 0.3 * p
+        ops.update_solution_and_direction(x, p, z32, 0.7, 0.3)
+        assert np.array_equal(x, expected_x) and np.array_equal(p, expected)
+        q = rng.standard_normal(u.size)
+        rr = r.ravel().copy()
+        expected = rr - 0.4 * q
+        s = ops.update_residual(rr, q, 0.4)  # (it may fuse the multiply-add: one rounding less)
+        assert np.all(np.abs(rr - expected) <= 2.3e-16 * (np.abs(expected) + np.abs(0.4 * q)))
+        assert abs(s - float(expected @ expected)) <= 1e-12 * float(expected @ expected)
         # ||b - A u||^2 from b and A u without storing the difference (CG's true residual)
         rr = ops.distance_squared(b.ravel(), au.ravel())
         assert abs(rr - float(r.ravel() @ r.ravel())) <= 1e-12 * float(r.ravel() @ r.ravel())

@@ -279,3 +279,45 @@ def test_a_solve_that_stops_improving_fails_as_stagnated() -> None:
     history = info.value.history
     assert 8 < len(history) < 10_000
     assert min(history) < 1e-12  # it did converge as far as rounding allows first
+
+
+def test_cg_iterates_are_the_textbook_recurrence() -> None:
+    """pcg's solution after k iterations (stopped by max_iterations, by rtol, by stagnation)
+    equals the preconditioned CG recurrence written out plainly (Saad, Iterative Methods for
+    Sparse Linear Systems, 2nd ed., Algorithm 9.1; from memory), although pcg adds alpha p to
+    x one pass late, together with the next direction: the late update must not be lost or
+    counted twice on any way out."""
+    from sevenfold.solvers.cg import pcg
+
+    system = assemble(build_problem(make_spec(
+        grid={"cells": [9, 7, 6], "size": [1.0, 1.0, 1.0]}, source={"value": 1.0},
+        material={"value": "1 + 30*(x > 0.4)"},
+        boundary={"x_min": {"type": "dirichlet", "value": 0.0}})))
+    A, b = system.matrix, system.rhs
+    d = A.diagonal()
+
+    def textbook(k: int) -> np.ndarray:
+        x, r = np.zeros_like(b), b.copy()
+        z = r / d
+        p, rz = z.copy(), r @ z
+        for _ in range(k):
+            q = A @ p
+            alpha = rz / (p @ q)
+            x, r = x + alpha * p, r - alpha * q
+            z = r / d
+            rz, beta = r @ z, (r @ z) / rz
+            p = z + beta * p
+        return x
+
+    for k in (1, 2, 5, 11):
+        with pytest.raises(SolverError) as info:
+            pcg(A, b, lambda r: r / d, 1e-14, k)
+        x = info.value.partial.x
+        assert info.value.partial.iterations == k
+        assert np.abs(x - textbook(k)).max() <= 1e-12 * np.abs(x).max()
+    done = pcg(A, b, lambda r: r / d, 1e-6, 500)
+    assert np.abs(done.x - textbook(done.iterations)).max() <= 1e-12 * np.abs(done.x).max()
+    with pytest.raises(SolverError, match="stagnated") as info:
+        pcg(A, b, lambda r: r / d, 1e-30, 10_000, stagnation_window=8)
+    partial = info.value.partial
+    assert np.abs(partial.x - textbook(partial.iterations)).max() <= 1e-9 * np.abs(partial.x).max()

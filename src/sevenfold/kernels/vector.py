@@ -23,11 +23,10 @@ REDUCE = {"reassoc", "nsz", "contract"}
 
 
 @njit(cache=True, parallel=True, fastmath=REDUCE)
-def update_solution_and_residual(x, r, p, q, alpha):
-    """x += alpha p; r -= alpha q; returns ||r||^2."""
+def update_residual(r, q, alpha):
+    """r -= alpha q; returns ||r||^2."""
     s = 0.0
-    for i in prange(x.shape[0]):
-        x[i] += alpha * p[i]
+    for i in prange(r.shape[0]):
         ri = r[i] - alpha * q[i]
         r[i] = ri
         s += ri * ri
@@ -35,10 +34,13 @@ def update_solution_and_residual(x, r, p, q, alpha):
 
 
 @njit(cache=True, parallel=True)
-def update_direction(p, z, beta):
-    """p = z + beta p."""
+def update_solution_and_direction(x, p, z, alpha, beta):
+    """x += alpha p, then p = z + beta p: the last step's solution update rides on the next
+    direction's pass (p is read once for both)."""
     for i in prange(p.shape[0]):
-        p[i] = z[i] + beta * p[i]
+        pi = p[i]
+        x[i] += alpha * pi
+        p[i] = z[i] + beta * pi
 
 
 @njit(cache=True, parallel=True, fastmath=REDUCE)
@@ -60,10 +62,9 @@ def distance_squared(a, b):
 
 
 @njit(cache=True, fastmath=REDUCE)
-def update_solution_and_residual_serial(x, r, p, q, alpha):
+def update_residual_serial(r, q, alpha):
     s = 0.0
-    for i in range(x.shape[0]):
-        x[i] += alpha * p[i]
+    for i in range(r.shape[0]):
         ri = r[i] - alpha * q[i]
         r[i] = ri
         s += ri * ri
@@ -71,9 +72,11 @@ def update_solution_and_residual_serial(x, r, p, q, alpha):
 
 
 @njit(cache=True)
-def update_direction_serial(p, z, beta):
+def update_solution_and_direction_serial(x, p, z, alpha, beta):
     for i in range(p.shape[0]):
-        p[i] = z[i] + beta * p[i]
+        pi = p[i]
+        x[i] += alpha * pi
+        p[i] = z[i] + beta * pi
 
 
 @njit(cache=True, fastmath=REDUCE)
@@ -94,14 +97,14 @@ def distance_squared_serial(a, b):
 
 
 class VectorOps(NamedTuple):
-    update_solution_and_residual: object
-    update_direction: object
+    update_residual: object
+    update_solution_and_direction: object
     dot: object
     distance_squared: object
 
 
-THREADED = VectorOps(update_solution_and_residual, update_direction, dot, distance_squared)
-SERIAL = VectorOps(update_solution_and_residual_serial, update_direction_serial, dot_serial,
+THREADED = VectorOps(update_residual, update_solution_and_direction, dot, distance_squared)
+SERIAL = VectorOps(update_residual_serial, update_solution_and_direction_serial, dot_serial,
                    distance_squared_serial)
 
 

@@ -192,8 +192,9 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
                  else (vector.SERIAL, "vectors_serial"))
 
     def vectors():  # CG's updates; z, the preconditioner's output, is in the levels' type
-        _build(ops.update_solution_and_residual, *(np.ones(8) for _ in range(4)), 0.5)
-        _build(ops.update_direction, np.ones(8), np.ones(8, dtype=f32), 0.5)
+        _build(ops.update_residual, np.ones(8), np.ones(8), 0.5)
+        _build(ops.update_solution_and_direction, np.ones(8), np.ones(8), np.ones(8, dtype=f32),
+               0.5, 0.5)
         _build(ops.dot, np.ones(8), np.ones(8, dtype=f32))
         _build(ops.distance_squared, np.ones(8), np.ones(8))  # the true residual's norm
 

@@ -122,6 +122,11 @@ def pcg(
     CG is done with A p before it preconditions. z may be float32 (a float32 preconditioner's
     own output): CG widens it where it reads it, which is exact.
 
+    Each iteration makes two passes over the vectors besides A p and the preconditioner's:
+    r -= alpha A p (with ||r||), and x += alpha p together with the next direction
+    p = z + beta p, which reads p once for both (x is brought up to date before anything
+    reads it).
+
     The recorded history starts with x0's relative residual; ``x0`` is not modified.
 
     Raises :class:`SolverError` (with the history) on NaN or breakdown; on stagnation,
@@ -180,8 +185,18 @@ def pcg(
     p = z.astype(np.float64)
     best_before = np.inf
     restarts = 0
+    pending = 0.0  # the step whose alpha p is not in x yet (it joins the direction's pass)
+
+    def catch_up() -> None:
+        """x += pending p now, before x is read (in chunks: no full-size temporary)."""
+        nonlocal pending
+        if pending:
+            for s in range(0, n, 1 << 16):
+                x[s:s + (1 << 16)] += pending * p[s:s + (1 << 16)]
+            pending = 0.0
 
     def stopped_short(stop: str, message: str, elapsed: float) -> SolverError:
+        catch_up()
         true = true_residual()
         partial = SolveResult(x, method, len(history) - 1, False, true, setup_seconds, elapsed,
                               history, times, stop=stop, stop_message=message,
@@ -199,7 +214,8 @@ def pcg(
                 history,
             )
         alpha = rz / pq
-        res = np.sqrt(ops.update_solution_and_residual(x, r, p, q, alpha)) / nb
+        res = np.sqrt(ops.update_residual(r, q, alpha)) / nb
+        pending = alpha
         elapsed = time.perf_counter() - start
         history.append(res)
         times.append(elapsed)
@@ -207,6 +223,7 @@ def pcg(
         if not np.isfinite(res):
             raise SolverError(f"residual became {res} at iteration {it}", history)
         if res <= rtol:
+            catch_up()
             final = true_residual()
             if final <= rtol:
                 return SolveResult(x, method, it, True, final, setup_seconds, elapsed, history, times)
@@ -234,7 +251,8 @@ def pcg(
                     elapsed,
                 )
         z, rz_new = precondition_dot(r)
-        ops.update_direction(p, z, rz_new / rz)
+        ops.update_solution_and_direction(x, p, z, pending, rz_new / rz)
+        pending = 0.0
         rz = rz_new
     raise stopped_short(
         STOP_MAX_ITERATIONS,
