@@ -618,8 +618,10 @@ def test_fused_residual_restriction_and_products(shape, step, off, planes) -> No
         q = rng.standard_normal(u.size)
         rr = r.ravel().copy()
         expected = rr - 0.4 * q
-        s = ops.update_residual(rr, q, 0.4)  # (it may fuse the multiply-add: one rounding less)
+        copy = np.empty(rr.size, dtype=np.float32)
+        s = ops.update_residual(rr, q, 0.4, copy)  # (it may fuse the multiply-add: one rounding less)
         assert np.all(np.abs(rr - expected) <= 2.3e-16 * (np.abs(expected) + np.abs(0.4 * q)))
+        assert np.array_equal(copy, rr.astype(np.float32))  # numpy's rounding to nearest
         assert abs(s - float(expected @ expected)) <= 1e-12 * float(expected @ expected)
         # ||b - A u||^2 from b and A u without storing the difference (CG's true residual)
         rr = ops.distance_squared(b.ravel(), au.ravel())
@@ -687,14 +689,16 @@ def test_a_gmg_solve_calls_no_blas(monkeypatch, start) -> None:
 @pytest.mark.parametrize("finest", ["copy", "operator"])
 def test_finest_level_passes_per_iteration(monkeypatch, finest) -> None:
     """Work per CG iteration on the finest level, counted in kernel passes (not times): one
-    operator pass (with p . A p), and per preconditioner application two passes of line
-    smoothing (W(2,2): two sweeps before and two after, each pair in one pass), one fused
-    residual-restriction, one prolongation and one r . z pass (z taken as the levels'
-    float32, no widening pass). The
-    z-line pivots are factored once, or, on the float64 operator where they live in the
-    output buffer, once per application. These counts are what the work units of
-    benchmarks/RESULTS_CYCLE.md are made of; a change that adds a pass shows here first."""
-    from sevenfold.kernels import lines, stencil, vector
+    operator pass (with p . A p), one residual update (which also writes the float32 copy
+    of r the finest level smooths on: no narrowing pass but before the first application),
+    one pass for x and the next direction together, and per preconditioner application two
+    passes of line smoothing (W(2,2): two sweeps before and two after, each pair in one
+    pass), one fused residual-restriction, one prolongation and one r . z pass (z taken as
+    the levels' float32, no widening pass). The z-line pivots are factored once, or, on the
+    float64 operator where they live in the output buffer, once per application. These
+    counts are what the work units of benchmarks/RESULTS_CYCLE.md are made of; a change that
+    adds a pass shows here first."""
+    from sevenfold.kernels import lines, multigrid, stencil, vector
     from sevenfold.solvers import gmg
 
     fine, b = graded_level(24)
@@ -718,9 +722,13 @@ def test_finest_level_passes_per_iteration(monkeypatch, finest) -> None:
     counting(stencil, "residual_restrict", lambda a: a[5].size)
     counting(stencil, "prolong_add", lambda a: a[5].size)
     counting(stencil, "apply_dot", lambda a: a[4].size)
+    counting(multigrid, "narrow", lambda a: a[1].size)
     ops_of = vector.vector_ops
     monkeypatch.setattr(vector, "vector_ops", lambda n: ops_of(n)._replace(
-        dot=counted("dot", ops_of(n).dot, lambda a: a[1].size)))
+        dot=counted("dot", ops_of(n).dot, lambda a: a[1].size),
+        update_residual=counted("residual", ops_of(n).update_residual, lambda a: a[0].size),
+        update_solution_and_direction=counted("direction", ops_of(n).update_solution_and_direction,
+                                              lambda a: a[0].size)))
     result, _ = gmg.solve_levels(fine, b, 1e-8, 100, finest=finest)
     # one before the first iteration and one after each but the last
     applications = result.iterations
@@ -729,9 +737,34 @@ def test_finest_level_passes_per_iteration(monkeypatch, finest) -> None:
     assert sweeps == {2}, sweeps
     assert counts["residual_restrict"] == applications and counts["prolong_add"] == applications, counts
     assert counts["dot"] == applications, counts
+    assert counts["residual"] == result.iterations, counts
+    assert counts["direction"] == result.iterations - 1, counts  # (none after the last)
+    assert counts.get("narrow", 0) == (1 if finest == "copy" else 0), counts
     assert counts["line_factor"] == (1 if finest == "copy" else applications), counts
     # A p per iteration and the final true residual b - A x (a zero start needs no product)
     assert counts["apply_dot"] == result.iterations + 1, (counts, result.iterations)
+
+
+def test_cg_filling_the_preconditioners_copy_of_r_changes_nothing() -> None:
+    """CG writes the finest level's float32 copy of r in its residual update instead of the
+    preconditioner narrowing r itself: the same solve, to rounding (the update is compiled
+    once per copy type, so its sum of squares may be added in another order), as with a
+    preconditioner CG knows only as a function (which narrows every time); a stale or
+    missing copy would change the residuals in their leading digits."""
+    from sevenfold.solvers.cg import pcg
+
+    fine, b = graded_level(24)
+    solves = []
+    for plain in (False, True):
+        operator = FineOperator(fine)
+        hierarchy = Hierarchy(fine, out=operator.out, **{k: v for k, v in DEFAULTS.items()
+                                                          if k != "start"})
+        assert hierarchy.rhs_buffer is not None and hierarchy.rhs_buffer.dtype == np.float32
+        precondition = (lambda r, h=hierarchy: h(r)) if plain else hierarchy
+        solves.append(pcg(operator, b.ravel(), precondition, 1e-8, 100))
+    assert solves[0].iterations == solves[1].iterations >= 3
+    assert np.allclose(solves[0].history, solves[1].history, rtol=1e-9, atol=0.0)
+    assert np.abs(solves[0].x - solves[1].x).max() <= 1e-12 * np.abs(solves[1].x).max()
 
 
 def faulted_layers(n: int, k_weak: float):

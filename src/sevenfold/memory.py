@@ -10,9 +10,9 @@ import os
 # 50 MiB between installs (how much of the shared libraries the kernel maps in), so small
 # jobs are estimated to within that. Per cell, for the default outputs:
 #   gmg:    float64 face arrays and rhs (40), CG's x, r, p and one buffer shared by A p and
-#           the preconditioner's float32 right-hand side and correction (32), the float32
-#           preconditioner's copy of the finest face arrays (16) with its line pivots (4),
-#           coarse levels (~4), and the cell fields k, f and the held values (about 15 of
+#           the preconditioner's float32 correction (32), the float32 preconditioner's copy
+#           of the finest face arrays (16) with its line pivots (4) and right-hand side (4,
+#           written by CG's residual update), coarse levels (~4), and the cell fields k, f and the held values (about 15 of
 #           their 28 at the peak). From LEAN_FROM_CELLS up the fields are dropped as soon as
 #           the face arrays exist (solvers.select.FieldLease) and rebuilt after the solve,
 #           and the finest level is smoothed on the float64 arrays themselves with the pivots
@@ -31,7 +31,7 @@ import os
 # over the base (estimates +21 %, +5 %, +1 %).
 BASE_BYTES = 200 * 2**20  # interpreter, numpy, scipy, numba, pyamg, zarr, compiled kernels
 LEAN_GMG_BYTES_PER_CELL = 78
-COPY_BYTES_PER_CELL = 20  # the float32 copy of the finest face arrays and its pivots
+COPY_BYTES_PER_CELL = 24  # the float32 copy of the finest face arrays, its pivots and right-hand side
 # gmg's levels in float64 (a high-contrast coefficient, solvers/precision.FLOAT32_CONTRAST): no
 # float32 copy of the finest level, but its line pivots in float64 (8; the shared buffer holds
 # the float64 correction) and coarse levels of twice the bytes (4 more): measured 109 bytes per
@@ -39,8 +39,8 @@ COPY_BYTES_PER_CELL = 20  # the float32 copy of the finest face arrays and its p
 # (float32: 77.0), 1e8:1 layers against 1e3:1 (2026-12-04, one-offs)
 FLOAT64_LEVELS_BYTES_PER_CELL = 12
 # what the gmg solve still allocates once the face arrays exist, with the float32 copy: CG's
-# four vectors (32), the copy (16), pivots (4), coarse levels (4)
-GMG_SOLVE_BYTES_PER_CELL = 56
+# four vectors (32), the copy (16), pivots (4), right-hand side (4), coarse levels (4)
+GMG_SOLVE_BYTES_PER_CELL = 60
 # From this many cells sevenfold spends time to save memory: gmg smooths its finest level on
 # the float64 arrays whatever the memory, and every method lends k, f and the held values
 # while it solves (rebuilt after). Whole gmg runs with and without the copy came out equal
@@ -49,7 +49,7 @@ GMG_SOLVE_BYTES_PER_CELL = 56
 # the fields costs about 8 % of a 128^3 job; above about 320^3 the 35 bytes per cell are what
 # decides whether a grid fits.
 LEAN_FROM_CELLS = 2**25
-BYTES_PER_CELL = {"gmg": 113, "amg": 640, "fft": 28, "direct": 100}
+BYTES_PER_CELL = {"gmg": 117, "amg": 640, "fft": 28, "direct": 100}
 LU_BYTES_PER_FILL = 520  # times unknowns^(4/3) (SuperLU with COLAMD fills faster at 40^3)
 FIELD_BYTES_PER_CELL = 8  # each derived array stored with the result
 
@@ -78,7 +78,7 @@ def gmg_finest(cells: int) -> str:
     """How gmg smooths its finest level, decided once its face arrays exist: on a float32
     copy ("copy", faster on smaller grids) below LEAN_FROM_CELLS when the rest of the solve
     fits in the available memory with a tenth to spare, else on the float64 arrays themselves
-    ("operator", 20 bytes per cell less)."""
+    ("operator", 24 bytes per cell less)."""
     if cells < LEAN_FROM_CELLS and 1.1 * GMG_SOLVE_BYTES_PER_CELL * cells <= available_bytes():
         return "copy"
     return "operator"

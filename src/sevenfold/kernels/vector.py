@@ -23,12 +23,14 @@ REDUCE = {"reassoc", "nsz", "contract"}
 
 
 @njit(cache=True, parallel=True, fastmath=REDUCE)
-def update_residual(r, q, alpha):
-    """r -= alpha q; returns ||r||^2."""
+def update_residual(r, q, alpha, copy):
+    """r -= alpha q, and copy = r in copy's float type (a float32 preconditioner's right-hand
+    side, written in the same pass; r itself where there is none); returns ||r||^2."""
     s = 0.0
     for i in prange(r.shape[0]):
         ri = r[i] - alpha * q[i]
         r[i] = ri
+        copy[i] = ri
         s += ri * ri
     return s
 
@@ -62,11 +64,12 @@ def distance_squared(a, b):
 
 
 @njit(cache=True, fastmath=REDUCE)
-def update_residual_serial(r, q, alpha):
+def update_residual_serial(r, q, alpha, copy):
     s = 0.0
     for i in range(r.shape[0]):
         ri = r[i] - alpha * q[i]
         r[i] = ri
+        copy[i] = ri
         s += ri * ri
     return s
 

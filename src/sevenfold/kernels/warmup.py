@@ -173,7 +173,8 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         add("prolong_add", tagged(f32), lambda: _build(
             stencil.prolong_add, _arrays(f32, small), free, _steps(), _aggregates(), 1.0,
             _arrays(f32)))
-    if plan.levels and top != f64:
+    narrowed = bool(plan.levels) and top != f64  # CG's residual copied to float32 for the finest level
+    if narrowed:
         add("narrow", "float32", lambda: _build(multigrid.narrow, np.ones(8), np.ones(8, dtype=f32)))
     add("apply_dot", "float64", lambda: _build(stencil.apply_dot, *_arrays(f64, count=6)))
 
@@ -192,7 +193,8 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
                  else (vector.SERIAL, "vectors_serial"))
 
     def vectors():  # CG's updates; z, the preconditioner's output, is in the levels' type
-        _build(ops.update_residual, np.ones(8), np.ones(8), 0.5)
+        _build(ops.update_residual, np.ones(8), np.ones(8), 0.5,
+               np.ones(8, dtype=f32 if narrowed else f64))
         _build(ops.update_solution_and_direction, np.ones(8), np.ones(8), np.ones(8, dtype=f32),
                0.5, 0.5)
         _build(ops.dot, np.ones(8), np.ones(8, dtype=f32))

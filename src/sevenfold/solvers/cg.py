@@ -120,12 +120,15 @@ def pcg(
     and a ``precondition`` with ``precondition_dot(r)`` -> (z, r . z) likewise (one pass over
     memory fewer each). Products returned by A and the preconditioner may share one buffer:
     CG is done with A p before it preconditions. z may be float32 (a float32 preconditioner's
-    own output): CG widens it where it reads it, which is exact.
+    own output): CG widens it where it reads it, which is exact. A preconditioner with a
+    ``rhs_buffer`` (a flat array: its float32 copy of r) has it written by CG's residual
+    update and is then called as ``precondition_dot(r, filled=True)``: r is not read again
+    to copy it.
 
-    Each iteration makes two passes over the vectors besides A p and the preconditioner's:
-    r -= alpha A p (with ||r||), and x += alpha p together with the next direction
-    p = z + beta p, which reads p once for both (x is brought up to date before anything
-    reads it).
+    Each iteration makes three passes over the vectors besides A p and the preconditioner's:
+    r -= alpha A p (with ||r|| and the copy), r . z, and x += alpha p together with the next
+    direction p = z + beta p, which reads p once for both (x is brought up to date before
+    anything reads it).
 
     The recorded history starts with x0's relative residual; ``x0`` is not modified.
 
@@ -181,6 +184,10 @@ def pcg(
 
     apply_dot = getattr(A, "apply_dot", apply_dot)
     precondition_dot = getattr(precondition, "precondition_dot", precondition_dot)
+    copy = getattr(precondition, "rhs_buffer", None)
+    filled = {} if copy is None else {"filled": True}
+    if copy is None:
+        copy = r  # (the update stores r twice)
     z, rz = precondition_dot(r)
     p = z.astype(np.float64)
     best_before = np.inf
@@ -214,7 +221,7 @@ def pcg(
                 history,
             )
         alpha = rz / pq
-        res = np.sqrt(ops.update_residual(r, q, alpha)) / nb
+        res = np.sqrt(ops.update_residual(r, q, alpha, copy)) / nb
         pending = alpha
         elapsed = time.perf_counter() - start
         history.append(res)
@@ -250,7 +257,7 @@ def pcg(
                     f"(relative residual {res:.3e}, asked for {rtol:.1e})",
                     elapsed,
                 )
-        z, rz_new = precondition_dot(r)
+        z, rz_new = precondition_dot(r, **filled)
         ops.update_solution_and_direction(x, p, z, pending, rz_new / rz)
         pending = 0.0
         rz = rz_new

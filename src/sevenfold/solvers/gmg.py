@@ -39,15 +39,16 @@ Design (measured against the alternatives in benchmarks/RESULTS_CYCLE.md):
   the true-residual check in float64; the finest level is smoothed on a float32 copy of its
   face arrays, or, on large grids and where memory is short
   (:func:`sevenfold.memory.gmg_finest`), on the float64 arrays themselves with the z-line
-  pivots refactored every cycle in a borrowed buffer (20 bytes per cell less; the sweeps
+  pivots refactored every cycle in a borrowed buffer (24 bytes per cell less; the sweeps
   read more bytes, up to a quarter more solve time in some runs, whole runs equal within
   noise, benchmarks/RESULTS_FINEST.md); CG takes the float32 z as it is (no float64 z);
 * CG starts from zero: W(2,2) cycles reach rtol 1e-8 in fewer work units from zero than
   W(1,1) cycles after a full-multigrid start (benchmarks/RESULTS_CYCLE.md);
   :meth:`Hierarchy.full_multigrid` (coarsest first, interpolated up, one V-cycle per level)
   stays available (``start="fmg"``) and reaches discretisation accuracy by itself;
-* CG's two dot products ride on the operator's pass (p . A p) and on the pass that widens the
-  preconditioned residual to float64 (r . z), and A p and z share one buffer.
+* CG's dot product p . A p rides on the operator's pass, ||r|| and the finest level's float32
+  copy of r on the residual's update, x += alpha p on the next direction's pass; r . z is a
+  pass of its own (z read as float32); A p and z share one buffer.
 
 The finest level is never stored as a CSR matrix: only its face arrays (tx, ty, tz, diag).
 """

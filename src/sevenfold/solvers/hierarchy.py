@@ -37,7 +37,7 @@ class Hierarchy:
     ``coarsest_cells``: the level size that is factorised (default COARSEST_CELLS).
     ``finest``: "copy" smooths the finest level on a copy of its face arrays in ``precision``;
     "operator" smooths on the caller's float64 arrays themselves (no copy and, with float32,
-    the pivots in ``out``: 20 bytes per cell less, for slightly slower sweeps).
+    the pivots in ``out``: 24 bytes per cell less, for slightly slower sweeps).
     ``out``: a float64 array of the fine grid's size whose bytes hold the finest level's
     work arrays and :meth:`precondition`'s result (CG lends the operator's product buffer,
     which is free while it preconditions).
@@ -116,13 +116,14 @@ class Hierarchy:
         self._out = out.reshape(fine.shape) if out is not None else np.empty(fine.shape)
         # The finest level's work arrays live in the output buffer's bytes where they fit
         # (CG is done with A p when it preconditions, and takes z in the levels' type): its
-        # correction e, which is z itself, in the second half; in the first half the
-        # right-hand side in the levels' type, or, when the finest level smooths on the
-        # float64 operator and takes CG's residual as it is, the z-line pivots, refactored
-        # at the start of every cycle (pivots and correction then cost no memory of their
-        # own: 8 bytes per cell less where memory is short). A float64 hierarchy's e is the
-        # whole buffer. A stored fine residual only for the linear restriction (the others
-        # fuse residual and restriction).
+        # correction e, which is z itself, in the second half; in the first half, when the
+        # finest level smooths on the float64 operator and takes CG's residual as it is, the
+        # z-line pivots, refactored at the start of every cycle (pivots and correction then
+        # cost no memory of their own: 8 bytes per cell less where memory is short). The
+        # right-hand side in the levels' type is an array of its own: CG writes it in the
+        # pass that updates r, while it reads A p from the buffer (``rhs_buffer``). A float64
+        # hierarchy's e is the whole buffer. A stored fine residual only for the linear
+        # restriction (the others fuse residual and restriction).
         halves = self._out.reshape(-1).view(np.float32)
         n = top.diag.size
         if self.dtype == np.float32:
@@ -132,7 +133,7 @@ class Hierarchy:
         self._refactor = False
         if len(self.levels) > 1 and self.dtype == np.float32:  # (the LU takes float64)
             if top.diag.dtype == np.float32:
-                top.b = halves[:n].reshape(top.shape)  # one signature per level kernel
+                top.b = np.empty(top.shape, dtype=np.float32)  # one signature per level kernel
             elif top.lines:
                 top.inv_w = halves[:n].reshape(top.shape)
                 self._refactor = True
@@ -232,23 +233,34 @@ class Hierarchy:
 
     __call__ = precondition
 
-    def _rhs(self, r: np.ndarray) -> np.ndarray:
-        """The finest level's right-hand side for the float64 vector ``r`` (flat)."""
+    @property
+    def rhs_buffer(self) -> np.ndarray | None:
+        """The finest level's float32 right-hand side (flat), which CG may fill with r in its
+        own pass (then ``precondition_dot(r, filled=True)``); None where the level takes r
+        as it is."""
+        b = self.levels[0].b
+        return None if b is None else b.reshape(-1)
+
+    def _rhs(self, r: np.ndarray, filled: bool = False) -> np.ndarray:
+        """The finest level's right-hand side for the float64 vector ``r`` (flat);
+        ``filled``: :attr:`rhs_buffer` already holds r."""
         top = self.levels[0]
         if top.b is None:
             return r.reshape(top.shape)
-        multigrid.narrow(r, top.b.ravel())
+        if not filled:
+            multigrid.narrow(r, top.b.ravel())
         return top.b
 
-    def precondition_dot(self, r: np.ndarray) -> tuple[np.ndarray, float]:
+    def precondition_dot(self, r: np.ndarray, filled: bool = False) -> tuple[np.ndarray, float]:
         """:meth:`precondition`, and r . z (z in the levels' float type: widening it to
-        float64 is exact, so CG takes it as it is, and no float64 z is stored)."""
+        float64 is exact, so CG takes it as it is, and no float64 z is stored); ``filled``:
+        :attr:`rhs_buffer` already holds r."""
         from ..kernels.vector import vector_ops
 
         top = self.levels[0]
         if self._refactor:
             lines.line_factor(top.tz, top.diag, top.inv_w)
-        self.cycle(0, self._rhs(r), top.e, zero=True)
+        self.cycle(0, self._rhs(r, filled), top.e, zero=True)
         z = top.e.reshape(-1)
         return z, vector_ops(z.size).dot(r, z)
 
