@@ -215,6 +215,25 @@ def test_a_pivot_not_positive_in_either_subtree_or_the_root_takes_the_sparse_lu(
     assert np.abs(u - scipy_solution(level, b)).max() <= 1e-9 * np.abs(u).max()
 
 
+def test_without_a_helper_thread_the_factor_is_serial(monkeypatch) -> None:
+    """When no thread can be had (the interpreter exiting, threads run out), the factor runs
+    serially and is the same."""
+    class NoThreads:
+        def submit(self, *args):
+            raise RuntimeError("can't start new thread")
+
+    level = random_level((9, 9, 16), seed=6)
+    tree = fronts(level.shape)
+    serial = np.full(int(tree.factor_start[-1]), np.nan)
+    assert coarsest.factor(tree, level, serial, False) == 0
+    monkeypatch.setattr(coarsest, "_helper", NoThreads)
+    calls = recorded_calls(monkeypatch)
+    out = np.full_like(serial, np.nan)
+    assert coarsest.factor(tree, level, out, True) == 0
+    assert np.array_equal(out, serial)
+    assert calls == [(threading.current_thread().name, 0, tree.own.size)]
+
+
 HELPER_PROBE = """
 import sys
 import numpy as np
