@@ -144,6 +144,14 @@ def recorded_calls(monkeypatch) -> list[tuple[str, int, int]]:
     return calls
 
 
+def factored(level: Level, two_threads: bool) -> np.ndarray:
+    """The factor ``coarsest.factor`` writes (over NaN), on one thread or two."""
+    tree = fronts(level.shape)
+    out = np.full(int(tree.factor_start[-1]), np.nan)
+    assert coarsest.factor(tree, level, out, two_threads) == 0
+    return out
+
+
 @pytest.mark.parametrize("shape", [(17, 17, 16), (16, 16, 16), (9, 9, 16), (8, 8, 32), (5, 7, 3),
                                    (11, 5, 13), (7, 3, 9), (4, 4, 4), (1, 30, 2)])
 def test_two_threads_give_the_serial_factor_bit_for_bit(shape, monkeypatch) -> None:
@@ -152,12 +160,9 @@ def test_two_threads_give_the_serial_factor_bit_for_bit(shape, monkeypatch) -> N
     serial factor's. A level of one front (at most LEAF cells) is factored serially."""
     level = random_level(shape, seed=6)
     tree = fronts(shape)
-    serial = np.full(int(tree.factor_start[-1]), np.nan)
-    assert coarsest.factor(tree, level, serial, False) == 0
-    threaded = np.full_like(serial, np.nan)
+    serial = factored(level, False)
     calls = recorded_calls(monkeypatch)
-    assert coarsest.factor(tree, level, threaded, True) == 0
-    assert np.array_equal(threaded, serial)
+    assert np.array_equal(factored(level, True), serial)
     me = threading.current_thread().name
     nodes = tree.own.size
     if np.prod(shape) <= LEAF:
@@ -223,15 +228,11 @@ def test_without_a_helper_thread_the_factor_is_serial(monkeypatch) -> None:
             raise RuntimeError("can't start new thread")
 
     level = random_level((9, 9, 16), seed=6)
-    tree = fronts(level.shape)
-    serial = np.full(int(tree.factor_start[-1]), np.nan)
-    assert coarsest.factor(tree, level, serial, False) == 0
+    serial = factored(level, False)
     monkeypatch.setattr(coarsest, "_helper", NoThreads)
     calls = recorded_calls(monkeypatch)
-    out = np.full_like(serial, np.nan)
-    assert coarsest.factor(tree, level, out, True) == 0
-    assert np.array_equal(out, serial)
-    assert calls == [(threading.current_thread().name, 0, tree.own.size)]
+    assert np.array_equal(factored(level, True), serial)
+    assert calls == [(threading.current_thread().name, 0, fronts(level.shape).own.size)]
 
 
 HELPER_PROBE = """
