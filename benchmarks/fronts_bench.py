@@ -13,7 +13,8 @@ the level numbered longest axis outermost, as ``solvers.coarsest`` did then (its
 
 1. *The coarsest level alone*, for each job of ``--levels`` (the level gmg builds for it): the
    factor (the whole solver's set-up: for *fronts* the tree, cached per shape as in a run,
-   and the factor; for *band* the band's assembly and the factor) and one solve of a float64
+   and the factor, on two threads as in a run where numba has them and the level is large
+   enough; for *band* the band's assembly and the factor) and one solve of a float64
    right-hand side, best of 7 per round, the two alternating over ``--rounds`` rounds; the
    largest difference of the two solutions relative to the largest value.
 2. *Warm gmg solves* (``gmg.solve_levels`` as the speed suite's warm column runs it: set-up

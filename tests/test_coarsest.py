@@ -1,11 +1,15 @@
 """The coarsest level's direct solve (solvers/coarsest.py): its sparse Cholesky factor front
 by front in nested-dissection order (solvers/dissection.py, kernels/fronts.py) against
-scipy's sparse solver and numpy's dense factor of the level's own matrix (Level.to_csr), and
-the dense kernel each front is factored with (kernels/band.py) against LAPACK's (pbtrf
-through scipy.linalg) and a plain column-by-column factor."""
+scipy's sparse solver and numpy's dense factor of the level's own matrix (Level.to_csr), on
+two threads against the serial factor bit for bit, and the dense kernel each front is
+factored with (kernels/band.py) against LAPACK's (pbtrf through scipy.linalg) and a plain
+column-by-column factor."""
 
 from __future__ import annotations
 
+import threading
+
+import numba
 import numpy as np
 import pytest
 import scipy.sparse.linalg as sla
@@ -125,6 +129,148 @@ def test_a_large_level_or_an_indefinite_matrix_takes_the_sparse_lu(monkeypatch) 
     assert solver.kind == "lu"
     solver.solve(b, u)
     assert np.abs(u - scipy_solution(indefinite, b)).max() <= 1e-9 * np.abs(u).max()
+
+
+def recorded_calls(monkeypatch) -> list[tuple[str, int, int]]:
+    """(thread, first front, end) of each ``fronts_factor`` call the coarsest solver makes."""
+    calls = []
+    kernel = coarsest.fronts_factor
+
+    def recording(*args):
+        calls.append((threading.current_thread().name, args[-3], args[-2]))
+        return kernel(*args)
+
+    monkeypatch.setattr(coarsest, "fronts_factor", recording)
+    return calls
+
+
+def factored(level: Level, two_threads: bool) -> np.ndarray:
+    """The factor ``coarsest.factor`` writes (over NaN), on one thread or two."""
+    tree = fronts(level.shape)
+    out = np.full(int(tree.factor_start[-1]), np.nan)
+    assert coarsest.factor(tree, level, out, two_threads) == 0
+    return out
+
+
+@pytest.mark.parametrize("shape", [(17, 17, 16), (16, 16, 16), (9, 9, 16), (8, 8, 32), (5, 7, 3),
+                                   (11, 5, 13), (7, 3, 9), (4, 4, 4), (1, 30, 2)])
+def test_two_threads_give_the_serial_factor_bit_for_bit(shape, monkeypatch) -> None:
+    """The helper thread factors the root's second subtree while this one factors the first,
+    then this one the root; every entry of the factor (the unused corners' zeros too) is the
+    serial factor's. A level of one front (at most LEAF cells) is factored serially."""
+    level = random_level(shape, seed=6)
+    tree = fronts(shape)
+    serial = factored(level, False)
+    calls = recorded_calls(monkeypatch)
+    assert np.array_equal(factored(level, True), serial)
+    me = threading.current_thread().name
+    nodes = tree.own.size
+    if np.prod(shape) <= LEAF:
+        assert tree.halves is None and calls == [(me, 0, nodes)]
+        return
+    middle = tree.halves[0]
+    where = {call[1:]: call[0] for call in calls[:2]}  # (the two in either order)
+    assert where[(0, middle)] == me and where[(middle, nodes - 1)].startswith("sevenfold-fronts")
+    assert calls[2:] == [(me, nodes - 1, nodes)]
+    assert 0 < middle < nodes - 1 and tree.first[nodes - 2] == middle  # the root's two subtrees
+
+
+def test_the_solver_factors_on_two_threads_from_the_threshold_up_when_numba_has_two(monkeypatch) -> None:
+    """Two threads when numba has them and the level has TWO_THREADS_FROM cells or more."""
+    shape = (9, 9, 16)
+    level = random_level(shape, seed=2)
+    calls = recorded_calls(monkeypatch)
+    counts = []
+    threads = numba.get_num_threads()
+    for cells, numba_threads in ((level.diag.size, 2), (level.diag.size + 1, 2), (0, 1)):
+        monkeypatch.setattr(coarsest, "TWO_THREADS_FROM", cells)
+        numba.set_num_threads(min(numba_threads, numba.config.NUMBA_NUM_THREADS))
+        try:
+            assert CoarsestSolver(level).kind == "fronts"
+        finally:
+            numba.set_num_threads(threads)
+        counts.append(len(calls) - sum(counts))
+    assert counts[1:] == [1, 1]  # one serial call: too small, or numba on one thread
+    assert counts[0] == (3 if numba.config.NUMBA_NUM_THREADS > 1 else 1)
+
+
+@pytest.mark.parametrize("part", ["first", "second", "root"])
+def test_a_pivot_not_positive_in_either_subtree_or_the_root_takes_the_sparse_lu(part, monkeypatch) -> None:
+    """A cell whose diagonal is negative makes its own pivot negative, so the factor stops in
+    the front that owns it; on two threads as on one it reports so, and the solver falls
+    back to the sparse LU, which solves the level like scipy."""
+    shape = (9, 8, 7)
+    level = random_level(shape, seed=9)
+    tree = fronts(shape)
+    front = {"first": 0, "second": tree.halves[0], "root": tree.own.size - 1}[part]
+    cell = tree.index[tree.start[front]]
+    level.diag.flat[cell] = -100.0
+    for two in (False, True):
+        out = np.empty(int(tree.factor_start[-1]))
+        assert coarsest.factor(tree, level, out, two) == 1
+    calls = recorded_calls(monkeypatch)
+    monkeypatch.setattr(coarsest, "TWO_THREADS_FROM", 0)
+    solver = CoarsestSolver(level)
+    assert solver.kind == "lu"
+    if numba.get_num_threads() > 1:
+        assert len(calls) == (3 if part == "root" else 2)  # the root is not factored after a failure
+    b = np.random.default_rng(4).standard_normal(shape)
+    u = np.empty(shape)
+    solver.solve(b, u)
+    assert np.abs(u - scipy_solution(level, b)).max() <= 1e-9 * np.abs(u).max()
+
+
+def test_without_a_helper_thread_the_factor_is_serial(monkeypatch) -> None:
+    """When no thread can be had (the interpreter exiting, threads run out), the factor runs
+    serially and is the same."""
+    class NoThreads:
+        def submit(self, *args):
+            raise RuntimeError("can't start new thread")
+
+    level = random_level((9, 9, 16), seed=6)
+    serial = factored(level, False)
+    monkeypatch.setattr(coarsest, "_helper", NoThreads)
+    calls = recorded_calls(monkeypatch)
+    assert np.array_equal(factored(level, True), serial)
+    assert calls == [(threading.current_thread().name, 0, fronts(level.shape).own.size)]
+
+
+HELPER_PROBE = """
+import sys
+import numpy as np
+sys.path.insert(0, {tests!r})
+from test_coarsest import random_level
+from sevenfold.solvers import coarsest
+from sevenfold.solvers.dissection import fronts
+
+def factor(two):
+    tree = fronts((9, 9, 16))
+    out = np.zeros(int(tree.factor_start[-1]))
+    assert coarsest.factor(tree, random_level((9, 9, 16)), out, two) == 0
+    return out
+
+serial = factor(False)
+assert np.array_equal(factor(True), serial)  # the helper thread started
+{then}
+print("done")
+"""
+
+
+@pytest.mark.parametrize("then", ["", "import os\npid = os.fork()\nif pid == 0:\n"
+                                  "    os._exit(0 if np.array_equal(factor(True), serial) else 3)\n"
+                                  "assert os.waitstatus_to_exitcode(os.waitpid(pid, 0)[1]) == 0"],
+                         ids=["exit", "fork"])
+def test_the_helper_thread_lets_the_process_exit_and_a_forked_child_factor(then) -> None:
+    """A process that has factored on two threads exits (the idle helper is joined at exit);
+    a child forked after that (it inherits no running helper) starts its own."""
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    probe = HELPER_PROBE.format(tests=str(Path(__file__).parent), then=then)
+    proc = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True,
+                          timeout=120)
+    assert proc.returncode == 0 and proc.stdout.strip().endswith("done"), proc.stderr
 
 
 def column_by_column(band: np.ndarray, stop: int) -> np.ndarray:

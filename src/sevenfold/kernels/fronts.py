@@ -4,8 +4,8 @@ its solve.
 The elimination order and the fronts come from :mod:`sevenfold.solvers.dissection` as plain
 arrays: ``index[start[f]:start[f + 1]]`` are front f's cells (C-order numbers of the level's
 grid), its ``own[f]`` cells to eliminate first, then the later cells their columns of the
-factor reach; ``children[f]`` (0 to 2) is how many fronts before it hand it their update
-(the fronts come children first, so those are the last updates handed on and not yet taken).
+factor reach; fronts ``first[f]`` .. f - 1 are f's subtree (the fronts come children first:
+the last child is f - 1, the one before it ends where that child's subtree begins).
 Each front is a dense symmetric matrix in :mod:`.band`'s storage with the front's size as
 width (``a[c, d]`` is entry (c + d, c)). It gathers the level's own entries of its own cells'
 columns and adds its children's updates; its own columns are factored and the rest left
@@ -14,7 +14,9 @@ parent (common practice: I. S. Duff and J. K. Reid, "The multifrontal solution o
 sparse symmetric linear equations", ACM TOMS 9 (1983); from memory).
 
 The level's matrix: (A u)_P = diag_P u_P - sum_N t_PN u_N, ``tx[i, j, k]`` coupling cell
-(i, j, k) with (i + 1, j, k), likewise ``ty`` and ``tz``, all float64. Both kernels are serial.
+(i, j, k) with (i + 1, j, k), likewise ``ty`` and ``tz``, all float64. Both kernels are
+serial; the factor takes a range of fronts and releases the GIL, so that two subtrees can be
+factored at once (:mod:`sevenfold.solvers.coarsest`).
 """
 
 from __future__ import annotations
@@ -62,41 +64,41 @@ def _add_update(a, update, cells, where):
             a[lc, where[cells[c + e]] - lc] += column[e]
 
 
-@njit(cache=True)
-def fronts_factor(tx, ty, tz, diag, index, start, own, children, factor_start, factor,
-                  stack) -> int:
-    """Factor the level front by front into ``factor`` (front f's own columns at
-    ``factor[factor_start[f]:factor_start[f + 1]]``, own x size entries, a column per row);
-    ``stack`` holds the updates not yet taken. Returns 0, or 1 when a pivot is not positive
-    (the matrix is not positive definite)."""
-    nodes = own.shape[0]
+@njit(cache=True, nogil=True)
+def fronts_factor(tx, ty, tz, diag, index, start, own, first, factor_start, factor, stack,
+                  offset, begin, end, used) -> int:
+    """Factor fronts ``begin`` .. ``end`` - 1 into ``factor`` (front f's own columns at
+    ``factor[factor_start[f]:factor_start[f + 1]]``, own x size entries, a column per row).
+    Each front's update waits in ``stack`` for its parent, at ``offset[f]`` (recorded there);
+    the range's first update goes at ``used``, each next one after the updates still waiting.
+    Returns 0, or 1 when a pivot is not positive (the matrix is not positive definite).
+
+    The range is whole subtrees, or fronts whose other children an earlier call factored
+    (their updates left in ``stack``, offsets in ``offset``). Calls on disjoint subtrees
+    with disjoint parts of ``stack`` may run at once; every front's arithmetic is that of
+    one call on all fronts, so the factor is the same bit for bit."""
     where = np.full(diag.size, -1, dtype=np.int64)  # a cell's place in the current front
-    waiting = np.empty(nodes, dtype=np.int64)  # fronts whose updates wait, last on top
-    offset = np.empty(nodes, dtype=np.int64)  # where in ``stack`` each waiting update is
     width = 0
-    for f in range(nodes):
+    for f in range(begin, end):
         width = max(width, start[f + 1] - start[f])
     work = np.empty(width * width)
-    top = 0
-    used = 0
-    for f in range(nodes):
+    for f in range(begin, end):
         cells = index[start[f]:start[f + 1]]
         size = cells.shape[0]
         owned = own[f]
         later = size - owned
         for r in range(size):
             where[cells[r]] = r
+        work[:size * size] = 0.0  # (the band's unused corner too: the factor holds zeros there)
         a = work[:size * size].reshape((size, size))
-        for c in range(size):  # (the band's unused corner is never read)
-            a[c, :size - c] = 0.0
         _gather_columns(a, cells, owned, where, tx, ty, tz, diag)
-        for _ in range(children[f]):
-            top -= 1
-            child = waiting[top]
+        child = f - 1
+        while child >= first[f]:  # the last child first, as they were stacked
             m = start[child + 1] - start[child] - own[child]
             update = stack[offset[child]:offset[child] + m * m].reshape((m, m))
             _add_update(a, update, index[start[child + 1] - m:start[child + 1]], where)
             used = offset[child]
+            child = first[child] - 1
         if band_cholesky(a, owned) != 0:
             return 1
         factor[factor_start[f]:factor_start[f + 1]] = a[:owned].ravel()
@@ -104,8 +106,6 @@ def fronts_factor(tx, ty, tz, diag, index, start, own, children, factor_start, f
             offset[f] = used
             stack[used:used + later * later].reshape((later, later))[:, :] = a[owned:, :later]
             used += later * later
-            waiting[top] = f
-            top += 1
         for r in range(size):
             where[cells[r]] = -1
     return 0

@@ -184,8 +184,9 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         tree = tree_of((2, 1, 1))
         ints = (tree.index, tree.start, tree.own)
         factor = np.empty(int(tree.factor_start[-1]))
-        _build(fronts.fronts_factor, *_arrays(f64, (2, 1, 1), 4), *ints, tree.children,
-               tree.factor_start, factor, np.empty(max(tree.stack, 1)))
+        _build(fronts.fronts_factor, *_arrays(f64, (2, 1, 1), 4), *ints, tree.first,
+               tree.factor_start, factor, np.empty(max(tree.stack, 1)), np.empty_like(tree.own),
+               0, 1, 0)  # (fronts 0 .. 0, the first update at 0)
         _build(fronts.fronts_solve, *ints, tree.factor_start, factor, np.ones(2))
 
     add("fronts_factor", "float64", coarsest)

@@ -11,6 +11,16 @@ a band of 65: 1.2 against 1.7 ms, a solve 0.08 against 0.11 ms), where either co
 Both are our own kernels, so a gmg run imports neither scipy.linalg nor scipy.sparse (84-106
 ms of every fresh process; benchmarks/RESULTS_COARSEST_KERNEL.md).
 
+With numba on two threads or more, a level of TWO_THREADS_FROM cells or more is factored on
+two: a helper thread (one per process, started on first use) factors the root's second
+subtree while the calling thread factors the first, then the calling thread the root (the
+kernel releases the GIL); the factor is the serial one bit for bit. On an idle 2-core machine
+that took 0.58-0.60 of the serial time at 17 x 17 x 16 (5.5 against 9.2 ms), 16^3 and
+9 x 9 x 16, 0.53 at 8 x 8 x 32 and 0.63 at 10^3 (0.60 against 0.95 ms); below 10^3 cells it
+saves under 0.1 ms (0.68 of 0.33 ms at 8^3, 0.83 at 6^3), so those levels stay serial. With
+the other core busy, two threads took 1.02-1.05 times the serial time
+(benchmarks/fronts_threads_bench.py).
+
 Where the factor would be large (a coarsest level asked much larger than the default) or the
 factorisation finds the matrix not positive definite (rounding in a float32 hierarchy could
 make it so), a sparse LU takes over.
@@ -18,10 +28,15 @@ make it so), a sparse LU takes over.
 
 from __future__ import annotations
 
+import os
+import threading
+from concurrent.futures import ThreadPoolExecutor
+
+import numba
 import numpy as np
 
 from ..kernels.fronts import fronts_factor, fronts_solve
-from .dissection import fronts
+from .dissection import Fronts, fronts
 from .levels import Level
 
 # Largest factor, front and waiting updates kept (entries; 8 bytes each): 17 x 17 x 16 needs
@@ -29,6 +44,8 @@ from .levels import Level
 FRONT_ENTRIES = 1 << 22
 # Levels larger than this are not dissected at all (the tree is built in Python)
 LEVEL_CELLS = 1 << 16
+# Levels of at least this many cells are factored on two threads (see above)
+TWO_THREADS_FROM = 1000
 
 
 class CoarsestSolver:
@@ -44,10 +61,8 @@ class CoarsestSolver:
         tree = self._tree = fronts(level.shape) if level.diag.size <= LEVEL_CELLS else None
         if tree is not None and tree.entries <= FRONT_ENTRIES:
             self._factor = np.empty(int(tree.factor_start[-1]))
-            arrays = (np.ascontiguousarray(a, dtype=np.float64)
-                      for a in (level.tx, level.ty, level.tz, level.diag))
-            if fronts_factor(*arrays, tree.index, tree.start, tree.own, tree.children,
-                             tree.factor_start, self._factor, np.empty(tree.stack)) == 0:
+            two = numba.get_num_threads() > 1 and level.diag.size >= TWO_THREADS_FROM
+            if factor(tree, level, self._factor, two) == 0:
                 self.kind = "fronts"
         if self.kind == "lu":
             import scipy.sparse.linalg as sla
@@ -67,3 +82,54 @@ class CoarsestSolver:
         x = b.astype(np.float64).ravel()  # a fresh array: solved in place
         fronts_solve(tree.index, tree.start, tree.own, tree.factor_start, self._factor, x)
         u[...] = x.reshape(self.shape)
+
+
+def factor(tree: Fronts, level: Level, out: np.ndarray, two_threads: bool) -> int:
+    """``fronts_factor`` of ``level`` (its fronts ``tree``) into ``out``: 0, or 1 when the
+    matrix is not positive definite. On ``two_threads`` (when the root has two subtrees) the
+    helper thread factors the root's second subtree while this thread factors the first, then
+    the root; the factor is the same bit for bit."""
+    arrays = (np.ascontiguousarray(a, dtype=np.float64)
+              for a in (level.tx, level.ty, level.tz, level.diag))
+    args = (*arrays, tree.index, tree.start, tree.own, tree.first, tree.factor_start, out)
+    nodes = tree.own.size
+    offset = np.empty(nodes, dtype=np.int64)
+    if two_threads and tree.halves is not None:
+        middle, first_stack, second_stack = tree.halves
+        stack = np.empty(first_stack + second_stack)
+        try:
+            second = _helper().submit(fronts_factor, *args, stack, offset, middle, nodes - 1,
+                                      first_stack)
+        except RuntimeError:  # no thread to be had (exiting, or no more threads)
+            second = None
+        if second is not None:
+            try:
+                mine = fronts_factor(*args, stack, offset, 0, middle, 0)
+            finally:
+                theirs = second.result()  # (waited for in any case: it writes into ``out``)
+            return mine or theirs or fronts_factor(*args, stack, offset, nodes - 1, nodes, 0)
+    return fronts_factor(*args, np.empty(tree.stack), offset, 0, nodes, 0)
+
+
+_pool: ThreadPoolExecutor | None = None
+_pool_lock = threading.Lock()
+
+
+def _helper() -> ThreadPoolExecutor:
+    """The process's one helper thread, started on first use. Idle between factors; the
+    executor ends and joins it at interpreter exit. A forked child starts its own."""
+    global _pool
+    with _pool_lock:
+        if _pool is None:
+            _pool = ThreadPoolExecutor(1, thread_name_prefix="sevenfold-fronts")
+        return _pool
+
+
+def _forget_helper() -> None:
+    """After a fork: the child has no helper thread, whatever the parent had."""
+    global _pool, _pool_lock
+    _pool, _pool_lock = None, threading.Lock()
+
+
+if hasattr(os, "register_at_fork"):
+    os.register_at_fork(after_in_child=_forget_helper)
