@@ -30,7 +30,7 @@ from __future__ import annotations
 
 import os
 import threading
-from concurrent.futures import ThreadPoolExecutor
+from typing import TYPE_CHECKING
 
 import numba
 import numpy as np
@@ -38,6 +38,9 @@ import numpy as np
 from ..kernels.fronts import fronts_factor, fronts_solve
 from .dissection import Fronts, fronts
 from .levels import Level
+
+if TYPE_CHECKING:
+    from concurrent.futures import ThreadPoolExecutor
 
 # Largest factor, front and waiting updates kept (entries; 8 bytes each): 17 x 17 x 16 needs
 # about 0.7 million; a coarsest level asked much larger than the default takes the sparse LU
@@ -118,6 +121,8 @@ _pool_lock = threading.Lock()
 def _helper() -> ThreadPoolExecutor:
     """The process's one helper thread, started on first use. Idle between factors; the
     executor ends and joins it at interpreter exit. A forked child starts its own."""
+    from concurrent.futures import ThreadPoolExecutor  # (imported by the runs that use it)
+
     global _pool
     with _pool_lock:
         if _pool is None:
