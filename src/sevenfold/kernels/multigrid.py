@@ -142,14 +142,15 @@ def _galerkin_row(tx, ty, tz, diag, free, i, j, x, y, z, keep, rows):
 
     ``x``, ``y``, ``z``: each axis's place of the fine cells in their aggregates
     (:func:`_axis_scales`). 0/1 factors instead of branches and one output row per loop, so
-    that every loop vectorises (five rows written in one loop did not: 2.5 times slower)."""
+    that every loop vectorises (five rows written by one loop did not, and took twice as
+    long)."""
     nz = diag.shape[2]
     fx, gxm, gxp, cx = x[0, i], x[1, i], x[2, i], x[3, i]
     fy, gym, gyp, cy = y[0, j], y[1, j], y[2, j], y[3, j]
     wxm, wym = (1.0 if i > 0 else 0.0), (1.0 if j > 0 else 0.0)  # (no face before the first)
     im, jm = max(i - 1, 0), max(j - 1, 0)
     zp = 0.0
-    for m in range(nz):  # (in float64, as the sums are)
+    for m in range(nz):  # in float64 (the 0/1 weights and 1.0 * widen float32 levels)
         xm, xp, ym, yp = wxm * tx[im, j, m], tx[i, j, m], wym * ty[i, jm, m], ty[i, j, m]
         zm, zp = zp, 1.0 * tz[i, j, m]
         fz = z[0, m]
@@ -220,8 +221,9 @@ def galerkin_scaled(tx, ty, tz, diag, free, agg, txc, tyc, tzc, diagc, freec):
     its coarse row itself). Every sum takes its cells in the order of a cell-by-cell loop
     (x, then y, then z), so couplings and free cells are that loop's bit for bit; a cell's
     diagonal terms are summed before they join its aggregate's, where such a loop added them
-    one by one (float64 sums that differ in their last bits, rounded alike to float32 levels
-    on the speed suite's jobs). HALF
+    one by one (float64 diagonals may differ in their last bits; the float32 levels of the
+    inclusions and graded jobs came out equal). About half the cell-by-cell loop's time
+    (benchmarks/galerkin_bench.py).
     """
     nz = diag.shape[2]
     ax, ay, az = agg
@@ -229,15 +231,15 @@ def galerkin_scaled(tx, ty, tz, diag, free, agg, txc, tyc, tzc, diagc, freec):
     xs, face_x, x = _axis_scales(ax, ncx)
     _, face_y, y = _axis_scales(ay, ncy)
     zs, face_z, z = _axis_scales(az, ncz)
+    whole = ncz == nz  # z not coarsened: each row adds its cells to its coarse row itself
     for I in prange(ncx):
         sums = np.zeros((ncy, 5, ncz))
         rows = np.zeros((5, nz + 1))  # (its last column stays zero: a cell alone's partner)
         for i in range(xs[I], xs[I + 1]):
             for j in range(ay.shape[0]):
-                if ncz == nz:
-                    _galerkin_row(tx, ty, tz, diag, free, i, j, x, y, z, 1.0, sums[ay[j]])
-                else:
-                    _galerkin_row(tx, ty, tz, diag, free, i, j, x, y, z, 0.0, rows)
+                _galerkin_row(tx, ty, tz, diag, free, i, j, x, y, z, 1.0 if whole else 0.0,
+                              sums[ay[j]] if whole else rows)
+                if not whole:
                     _add_rows(rows, zs, (x[3, i], y[3, j]), sums, ay[j])
         for J in range(ncy):
             for K in range(ncz):
