@@ -182,9 +182,9 @@ def _galerkin_row(tx, ty, tz, diag, free, i, j, x, y, z, keep, rows):
 def _add_rows(rows, zs, last, sums, J):
     """sums[J, q, K] += rows[q, first cell of K], then += rows[q, its second cell] (a cell
     alone: rows[q, nz], kept zero) for the aggregates K along z (``zs``: their first cells
-    and the end), q < 3 and the couplings q = 3, 4 where ``last`` (x, y) is not 0. One loop
-    for every partition of z, with no branch that a compile would duplicate: loops per kind
-    of partition that vectorise took 1.7 s more to compile for 1 ns less per fine cell."""
+    and the end), q < 3 and the couplings q = 3, 4 where ``last`` (x, y) is not 0. One scalar
+    loop for every partition of z (pairs, shifted or not, cells alone): a vectorised loop per
+    kind of partition compiled 1.7 s longer for about 1 ns less per fine cell."""
     nz = rows.shape[1] - 1
     cx, cy = last
     for K in range(zs.shape[0] - 1):
@@ -222,8 +222,8 @@ def galerkin_scaled(tx, ty, tz, diag, free, agg, txc, tyc, tzc, diagc, freec):
     (x, then y, then z), so couplings and free cells are that loop's bit for bit; a cell's
     diagonal terms are summed before they join its aggregate's, where such a loop added them
     one by one (float64 diagonals may differ in their last bits; the float32 levels of the
-    inclusions and graded jobs came out equal). About half the cell-by-cell loop's time
-    (benchmarks/galerkin_bench.py).
+    inclusions and graded jobs came out equal). 0.3-0.6 of the cell-by-cell loop's time on
+    their 128^3 and 256^3 finest levels (benchmarks/galerkin_bench.py).
     """
     nz = diag.shape[2]
     ax, ay, az = agg
