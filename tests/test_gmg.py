@@ -549,16 +549,19 @@ GALERKIN_LEVELS = [  # shape, step, pairs' shift, planes per axis (cells alone a
 
 
 @pytest.mark.parametrize("shape, step, off, planes", GALERKIN_LEVELS)
-@pytest.mark.parametrize("dtype", [np.float64, np.float32])
+@pytest.mark.parametrize("dtype, out", [(np.float64, np.float64), (np.float32, np.float32),
+                                        (np.float64, np.float32)])
 @pytest.mark.parametrize("held", [False, True])
-def test_scaled_galerkin_in_either_float_type(shape, step, off, planes, dtype, held) -> None:
-    """galerkin_scaled on float64 and float32 levels (plain and shifted pairs, cells alone
-    inside an axis, axes not coarsened, odd sizes; held cells, and with ``held`` a whole
-    aggregate held: diag 1, no free cell) against the numpy definition computed in float64
-    from the same values. The kernel sums a cell's diagonal terms before adding them to its
-    aggregate, the reference per term: their float64 diagonals agree to 1e-12 relative, and a
-    float32 level's to its rounding (2^-24) besides. Couplings are added one by one in the
-    cells' order and scaled once, as a cell-by-cell loop does: equal bit for bit to that sum."""
+def test_scaled_galerkin_in_either_float_type(shape, step, off, planes, dtype, out, held) -> None:
+    """galerkin_scaled on float64 and float32 levels, and from a float64 level to float32
+    coarse arrays (the hierarchy's finest level on the operator), on plain and shifted pairs,
+    cells alone inside an axis, axes not coarsened, odd sizes, held cells, and with ``held`` a
+    whole aggregate held (diag 1, no free cell), against the numpy definition computed in
+    float64 from the same values. The kernel sums a cell's diagonal terms before adding them
+    to its aggregate, the reference per term: their float64 diagonals agree to 1e-12
+    relative, float32 arrays to their rounding (2^-24) besides. Couplings are added one by one
+    in the cells' order and scaled once, as a cell-by-cell loop does: equal bit for bit to
+    that sum."""
     from sevenfold.kernels import multigrid
 
     level = _random_level(shape, seed=7)
@@ -568,21 +571,21 @@ def test_scaled_galerkin_in_either_float_type(shape, step, off, planes, dtype, h
     free = level[4]
     agg = _maps(shape, step, off, planes)
     coarse = tuple(int(a[-1]) + 1 for a in agg)
-    out = [np.empty(coarse, dtype) for _ in range(4)] + [np.empty(coarse, dtype=np.bool_)]
-    multigrid.galerkin_scaled(tx, ty, tz, diag, free, agg, *out)
+    arrays = [np.empty(coarse, out) for _ in range(4)] + [np.empty(coarse, dtype=np.bool_)]
+    multigrid.galerkin_scaled(tx, ty, tz, diag, free, agg, *arrays)
     wide = [a.astype(np.float64) for a in (tx, ty, tz, diag)]  # (exactly the level's values)
     want = _galerkin_scaled_reference(*wide, free, agg)
-    rtol = 1e-12 if dtype == np.float64 else 2.0**-24 + 2e-12
-    for got, ref in zip(out[:4], want[:4]):
+    rtol = 1e-12 if out == np.float64 else 2.0**-24 + 2e-12
+    for got, ref in zip(arrays[:4], want[:4]):
         np.testing.assert_allclose(got, ref, rtol=rtol, atol=0.0)
-    assert np.array_equal(out[4], want[4])
+    assert np.array_equal(arrays[4], want[4])
     if held:
-        assert not out[4][0, 0, 0] and out[3][0, 0, 0] == 1.0
+        assert not arrays[4][0, 0, 0] and arrays[3][0, 0, 0] == 1.0
     sizes = [np.bincount(a).astype(float) for a in agg]
-    for axis, (got, t) in enumerate(zip(out[:3], wide)):
+    for axis, (got, t) in enumerate(zip(arrays[:3], wide)):
         face = np.append(2.0 / (sizes[axis][:-1] + sizes[axis][1:]), 1.0 / sizes[axis][-1])
         scale = face.reshape([-1 if b == axis else 1 for b in range(3)])
-        assert np.array_equal(got, (scale * _coupling_sums(t, free, agg, axis)).astype(dtype)), axis
+        assert np.array_equal(got, (scale * _coupling_sums(t, free, agg, axis)).astype(out)), axis
 
 
 def test_scaled_galerkin_on_the_hierarchys_aggregates() -> None:
