@@ -17,8 +17,8 @@ whether their coarse arrays are equal bit for bit (else the largest difference r
 each array's largest value). Then the first compile of each for one signature (a float32
 level) in fresh processes, alternating, ``--compiles`` each: numba's own start included,
 both compiled without numba's cache (the revision's module as ``wall_bench.kernels_at``
-loads it, the working tree's source the same way): the time a first run after installation
-pays.
+loads it, the working tree's source the same way; an empty cache folder for the rest): the
+time a first run after installation pays.
 
 Writes benchmarks/RESULTS_GALERKIN.md.
 """
@@ -26,8 +26,10 @@ Writes benchmarks/RESULTS_GALERKIN.md.
 from __future__ import annotations
 
 import argparse
+import os
 import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 
@@ -80,9 +82,12 @@ def compile_seconds(which: str, revision: str) -> float:
 
 
 def z_kind(agg: np.ndarray) -> str:
-    """How the level's z cells are aggregated: whole, pairs, or pairs with cells alone."""
+    """How the level's z cells are aggregated: whole, pairs (shifted or not), or pairs with
+    cells alone inside."""
     sizes = np.bincount(agg)
-    return "whole" if sizes.max() == 1 else ("pairs" if (sizes[:-1] == 2).all() else "pairs and cells alone")
+    if sizes.max() == 1:
+        return "whole"
+    return "pairs" if (sizes[1:-1] == 2).all() else "pairs, cells alone"
 
 
 def compare(n: int, case: str, old, rounds: int) -> dict:
@@ -149,9 +154,10 @@ def main(argv: list[str] | None = None) -> int:
     seconds: dict[str, list[float]] = {"then": [], "now": []}
     for _ in range(args.compiles):
         for which in seconds:
-            out = subprocess.run([sys.executable, __file__, "--against", args.against,
-                                  "--compile-one", which], check=True, capture_output=True,
-                                 text=True).stdout
+            with tempfile.TemporaryDirectory() as cache:  # (nothing compiled before, either)
+                out = subprocess.run([sys.executable, __file__, "--against", args.against,
+                                      "--compile-one", which], check=True, capture_output=True,
+                                     text=True, env={**os.environ, "NUMBA_CACHE_DIR": cache}).stdout
             seconds[which].append(float(out.split()[-1]))
     lines += ["", "First compile, one float32 signature, fresh processes alternating (numba's own "
               "start included), seconds:", "", "| kernel | compiles | min | max |", "|---|---|---|---|"]

@@ -514,7 +514,8 @@ def _coupling_sums(t, free, agg, axis):
     faces of each aggregate's last cells, added one by one in the cells' order (x, then y,
     then z: np.bincount's), as a cell-by-cell loop adds them."""
     coarse = tuple(int(a[-1]) + 1 for a in agg)
-    last = np.r_[agg[axis][1:] != agg[axis][:-1], True].reshape([-1 if b == axis else 1 for b in range(3)])
+    last = np.r_[agg[axis][1:] != agg[axis][:-1], True]
+    last = last.reshape([-1 if b == axis else 1 for b in range(3)])
     cells = np.ravel_multi_index(np.meshgrid(*agg, indexing="ij"), coarse)
     kept = free & last
     return np.bincount(cells[kept], weights=t[kept].astype(np.float64),
