@@ -509,6 +509,111 @@ def test_scaled_galerkin_coarse_operator_against_numpy(shape, step, off, planes)
     assert np.allclose(interior, 12.0), interior
 
 
+def _coupling_sums(t, free, agg, axis):
+    """A coarse coupling along ``axis`` before its scale: the free fine couplings on the plus
+    faces of each aggregate's last cells, added one by one in the cells' order (x, then y,
+    then z: np.bincount's), as a cell-by-cell loop adds them."""
+    coarse = tuple(int(a[-1]) + 1 for a in agg)
+    last = np.r_[agg[axis][1:] != agg[axis][:-1], True]
+    last = last.reshape([-1 if b == axis else 1 for b in range(3)])
+    cells = np.ravel_multi_index(np.meshgrid(*agg, indexing="ij"), coarse)
+    kept = free & last
+    return np.bincount(cells[kept], weights=t[kept].astype(np.float64),
+                       minlength=int(np.prod(coarse))).reshape(coarse)
+
+
+def _hold_block(level, block):
+    """``level`` with the cells of ``block`` (a tuple of slices) held as well, their couplings
+    cut as the face-array convention has it (a free neighbour keeps its diagonal: the cut
+    coupling becomes its excess)."""
+    tx, ty, tz, diag, free = (a.copy() for a in level)
+    free[block] = False
+    for t, axis in ((tx, 0), (ty, 1), (tz, 2)):
+        t[~free | ~np.roll(free, -1, axis=axis)] = 0.0
+    diag[~free] = 1.0
+    return tx, ty, tz, diag, free
+
+
+GALERKIN_LEVELS = [  # shape, step, pairs' shift, planes per axis (cells alone around them)
+    ((8, 6, 10), (2, 2, 2), (0, 0, 0), ((), (), ())),  # plain pairs
+    ((9, 7, 11), (2, 2, 2), (1, 1, 1), ((), (), ())),  # shifted, odd sizes
+    ((9, 7, 10), (2, 2, 2), (0, 0, 0), ((3, 6), (3,), (5,))),  # cells alone inside every axis
+    ((6, 8, 9), (2, 2, 2), (1, 0, 0), ((2, 4), (1, 5), (3, 6))),
+    ((7, 5, 9), (2, 2, 1), (0, 1, 0), ((3,), (), ())),  # z not coarsened
+    ((5, 6, 2), (2, 2, 1), (0, 0, 0), ((), (), ())),
+    ((6, 4, 1), (2, 2, 1), (0, 0, 0), ((), (), ())),
+    ((5, 7, 8), (1, 2, 2), (0, 0, 1), ((), (), ())),  # x not coarsened
+    ((6, 5, 7), (2, 1, 2), (1, 0, 0), ((), (), (3,))),  # y not coarsened, z cell 2 alone
+    ((4, 6, 2), (2, 2, 2), (0, 0, 0), ((), (), ())),  # z one pair
+    ((1, 3, 8), (1, 2, 2), (0, 1, 1), ((), (), ())),
+]
+
+
+@pytest.mark.parametrize("shape, step, off, planes", GALERKIN_LEVELS)
+@pytest.mark.parametrize("dtype, out", [(np.float64, np.float64), (np.float32, np.float32),
+                                        (np.float64, np.float32)])
+@pytest.mark.parametrize("held", [False, True])
+def test_scaled_galerkin_in_either_float_type(shape, step, off, planes, dtype, out, held) -> None:
+    """galerkin_scaled on float64 and float32 levels, and from a float64 level to float32
+    coarse arrays (the hierarchy's finest level on the operator), on plain and shifted pairs,
+    cells alone inside an axis, axes not coarsened, odd sizes, held cells, and with ``held`` a
+    whole aggregate held (diag 1, no free cell), against the numpy definition computed in
+    float64 from the same values. The kernel sums a cell's diagonal terms before adding them
+    to its aggregate, the reference per term: their float64 diagonals agree to 1e-12
+    relative, float32 arrays to their rounding (2^-24) besides. Couplings are added one by one
+    in the cells' order and scaled once, as a cell-by-cell loop does: equal bit for bit to
+    that sum."""
+    from sevenfold.kernels import multigrid
+
+    level = _random_level(shape, seed=7)
+    if held:
+        level = _hold_block(level, tuple(slice(0, 2) for _ in shape))
+    tx, ty, tz, diag = (a.astype(dtype) for a in level[:4])
+    free = level[4]
+    agg = _maps(shape, step, off, planes)
+    coarse = tuple(int(a[-1]) + 1 for a in agg)
+    arrays = [np.empty(coarse, out) for _ in range(4)] + [np.empty(coarse, dtype=np.bool_)]
+    multigrid.galerkin_scaled(tx, ty, tz, diag, free, agg, *arrays)
+    wide = [a.astype(np.float64) for a in (tx, ty, tz, diag)]  # (exactly the level's values)
+    want = _galerkin_scaled_reference(*wide, free, agg)
+    rtol = 1e-12 if out == np.float64 else 2.0**-24 + 2e-12
+    for got, ref in zip(arrays[:4], want[:4]):
+        np.testing.assert_allclose(got, ref, rtol=rtol, atol=0.0)
+    assert np.array_equal(arrays[4], want[4])
+    if held:
+        assert not arrays[4][0, 0, 0] and arrays[3][0, 0, 0] == 1.0
+    sizes = [np.bincount(a).astype(float) for a in agg]
+    for axis, (got, t) in enumerate(zip(arrays[:3], wide)):
+        face = np.append(2.0 / (sizes[axis][:-1] + sizes[axis][1:]), 1.0 / sizes[axis][-1])
+        scale = face.reshape([-1 if b == axis else 1 for b in range(3)])
+        assert np.array_equal(got, (scale * _coupling_sums(t, free, agg, axis)).astype(out)), axis
+
+
+def test_scaled_galerkin_on_the_hierarchys_aggregates() -> None:
+    """The aggregates gmg arranges (levels.aggregates: contact planes of both parities along
+    z keep z whole on a level smoothed along z lines, else leave a z cell alone; planes across
+    x and y leave cells alone) on a float32 level: the kernel against the numpy definition,
+    as above."""
+    from sevenfold.kernels import multigrid
+    from sevenfold.solvers.levels import aggregates
+
+    shape = (12, 10, 14)
+    tx, ty, tz, diag, free = _random_level(shape, seed=8)
+    for lines in (True, False):
+        step, agg, _, _ = aggregates(shape, ((5,), (3, 6), (4, 7)), np.array([2, 2, 2]), lines)
+        assert step[2] == (1 if lines else 2)
+        for a in (agg[1:2] if lines else agg[1:]):  # y, and z unless it stays whole
+            assert 1 in np.bincount(a)[1:-1]  # a cell alone inside the axis
+        coarse = tuple(int(a[-1]) + 1 for a in agg)
+        level = [a.astype(np.float32) for a in (tx, ty, tz, diag)]
+        out = [np.empty(coarse, np.float32) for _ in range(4)] + [np.empty(coarse, dtype=np.bool_)]
+        multigrid.galerkin_scaled(*level, free, agg, *out)
+        want = _galerkin_scaled_reference(*(a.astype(np.float64) for a in level), free, agg)
+        for got, ref in zip(out[:4], want[:4]):
+            np.testing.assert_allclose(got, ref, rtol=2.0**-24 + 2e-12, atol=0.0)
+        assert np.array_equal(out[4], want[4])
+
+
 @pytest.mark.parametrize("shape", [(5, 7, 9), (9, 19, 6), (3, 1, 5), (1, 4, 3), (12, 35, 4),
                                    (31, 6, 5), (64, 3, 4)])
 @pytest.mark.parametrize("chunks", [1, 2, 3, 5, 40])

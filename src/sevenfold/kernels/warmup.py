@@ -41,9 +41,11 @@ import numpy as np
 # coarsest level's factor and solve; its compile not timed) keeps the estimate of the band
 # factor it replaced, measured at 0.5-0.6 s where
 # transmissibility took 1.1 s and fine_stencil 3.1 s (one process, 2026-12-04), so about 2.4
-# times that in these units.
+# times that in these units. galerkin_scaled is scaled by its row-buffer form's compile against
+# the cell-by-cell one: 4.3-4.7 s against 3.8-4.4 s, one float32 signature in a fresh process
+# each, alternating (2026-12-05, benchmarks/galerkin_bench.py), about 1.12 times.
 COST = {
-    "transmissibility": 2.6, "fine_stencil": 7.4, "axis_weakness": 2.3, "galerkin_scaled": 7.4,
+    "transmissibility": 2.6, "fine_stencil": 7.4, "axis_weakness": 2.3, "galerkin_scaled": 8.3,
     "line_factor": 1.9, "line_gauss_seidel": 8.9, "residual_restrict": 6.3, "prolong_add": 2.1,
     "apply_dot": 3.1, "narrow": 0.6, "vectors_threaded": 2.5, "vectors_serial": 1.2,
     "fronts_factor": 1.3, "wall_counts": 1.0,
