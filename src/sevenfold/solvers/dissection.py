@@ -44,9 +44,10 @@ class Fronts:
 
     @property
     def entries(self) -> int:
-        """Float64 entries the factor needs: the factor, the waiting updates, the largest
-        front."""
-        return int(self.factor_start[-1]) + self.stack + int(np.diff(self.start).max()) ** 2
+        """Float64 entries the factor needs: the factor, the waiting updates (the two
+        subtrees' stacks together where they are factored at once), the largest front."""
+        waiting = self.stack if self.halves is None else max(self.stack, sum(self.halves[1:]))
+        return int(self.factor_start[-1]) + waiting + int(np.diff(self.start).max()) ** 2
 
 
 def _cells(lo: tuple[int, ...], hi: tuple[int, ...], shape: tuple[int, int, int]) -> np.ndarray:
