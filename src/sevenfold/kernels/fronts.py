@@ -101,10 +101,14 @@ def fronts_factor(tx, ty, tz, diag, index, start, own, first, factor_start, fact
             child = first[child] - 1
         if band_cholesky(a, owned) != 0:
             return 1
-        factor[factor_start[f]:factor_start[f + 1]] = a[:owned].ravel()
+        base = factor_start[f]
+        for e in range(owned * size):
+            factor[base + e] = work[e]
         if later > 0:
             offset[f] = used
-            stack[used:used + later * later].reshape((later, later))[:, :] = a[owned:, :later]
+            for r in range(later):
+                for e in range(later):
+                    stack[used + r * later + e] = a[owned + r, e]
             used += later * later
         for r in range(size):
             where[cells[r]] = -1
