@@ -27,31 +27,22 @@ from pathlib import Path
 
 import numpy as np
 
-# Compile seconds of one signature of each kernel, one after another in one process (column64's
-# items, 2026-12-02 16:50, load about 1.5; the first, transmissibility, includes numba's own
-# start; benchmarks/RESULTS_START.md): for balancing the two halves and for the notice's
-# estimate (scaled to the measured wall time, kernels/cache.py). The vectors items include
-# the r . z product, measured then as a kernel of its own (0.6). residual_restrict is scaled by
-# its vectorised form's compile against the one measured then: 2.5-2.6 s against 1.6-1.8 s,
-# one signature in a fresh process each (2026-12-03, Intel host); line_gauss_seidel's form with
-# a number of sweeps compiled in 4.2-4.3 s against the one-sweep form's 4.0-4.2 s the same way,
-# within the estimate's precision, so its cost stands. The vectors items include the true
-# residual's norm (distance_squared), added since: 0.29-0.36 s threaded, 0.07 s serial (one
-# signature in a fresh process after the other vector kernels, 2026-12-03). fronts_factor (the
-# coarsest level's factor and solve; its compile not timed) keeps the estimate of the band
-# factor it replaced, measured at 0.5-0.6 s where
-# transmissibility took 1.1 s and fine_stencil 3.1 s (one process, 2026-12-04), so about 2.4
-# times that in these units. galerkin_scaled is scaled by its row-buffer form's compile against
-# the cell-by-cell one: 4.3-4.7 s against 3.8-4.4 s, one float32 signature in a fresh process
-# each, alternating (2026-12-05, benchmarks/galerkin_bench.py), about 1.12 times.
+# Compile seconds of one signature of each kernel, one after another in one process after
+# numba's own start (the items of a gmg run on 64^3, medians of three fresh processes,
+# benchmarks/RESULTS_COMPILE_ITEMS.md, 2026-12-05 14:08, Intel host, load 1.0; vectors_serial
+# from the items of 32^3 the same way): for balancing the two halves and for the notice's
+# estimate (scaled to the measured wall time, kernels/cache.py). An item that calls other
+# kernels includes them (fronts_factor: the band factor's, and fronts_solve).
 COST = {
-    "transmissibility": 2.6, "fine_stencil": 7.4, "axis_weakness": 2.3, "galerkin_scaled": 8.3,
-    "line_factor": 1.9, "line_gauss_seidel": 8.9, "residual_restrict": 6.3, "prolong_add": 2.1,
-    "apply_dot": 3.1, "narrow": 0.6, "vectors_threaded": 2.5, "vectors_serial": 1.2,
-    "fronts_factor": 1.3, "wall_counts": 1.0,
+    "transmissibility": 0.73, "fine_stencil": 2.45, "wall_counts": 0.39, "axis_weakness": 0.51,
+    "galerkin_scaled": 3.44, "line_factor": 1.07, "line_gauss_seidel": 4.17,
+    "residual_restrict": 2.96, "prolong_add": 1.22, "narrow": 0.18, "apply_dot": 1.55,
+    "fronts_factor": 2.37, "vectors_threaded": 1.04, "vectors_serial": 0.26,
 }
-# What starting the child costs before it compiles (the interpreter, numba, the kernel modules)
-CHILD_START = 1.5
+# What starting the child costs before it compiles, beyond what this process also pays
+# (numba's own start): the interpreter and the imports of numpy, numba and the kernel modules
+# (about 0.35 s on the host above)
+CHILD_START = 0.4
 # A child still running this long after its expected time is stopped (the run compiles the rest)
 CHILD_GRACE = 60.0
 
@@ -240,7 +231,7 @@ def compile_seconds(missing: frozenset[str] | set[str]) -> float:
 
 def _cost(name: str, signatures: dict[str, int] | dict[str, frozenset[str]]) -> float:
     count = signatures.get(name, 1)
-    return COST.get(name, 2.0) * (count if isinstance(count, int) else len(count))
+    return COST.get(name, 1.0) * (count if isinstance(count, int) else len(count))
 
 
 def split(names: list[str], signatures: dict[str, int] | dict[str, frozenset[str]]
