@@ -20,12 +20,13 @@ import sys
 from collections.abc import Iterable
 from pathlib import Path
 
-# Seconds of compiling on a first run, measured from an empty cache on the reference machine
-# (2 cores; cold minus warm wall time, benchmarks/start_bench.py --cold, RESULTS_START.md,
-# 2026-12-02 14:48, load average about 1): gmg 19.2 (compiled in two processes at once,
-# kernels/warmup.py; 37.6 s of CPU), amg 18.6; direct 13.4 and fft 1.3 (12:30), compiled
-# single-threaded. A busy machine takes longer, hence "about".
-COMPILE_SECONDS = {"gmg": 20, "amg": 19, "direct": 13, "fft": 1}
+# Seconds of compiling on a first run, measured from an empty cache (2 cores; cold minus warm
+# wall time, benchmarks/start_bench.py --cold, RESULTS_START.md): gmg 10.9-11.4 on the Intel
+# host at load 1 (2026-12-05 14:15; compiled in two processes at once, kernels/warmup.py,
+# 22 s of CPU), the AMD host's compiles about 1.25 times as long (2026-12-04); amg 18.6,
+# direct 13.4 and fft 1.3 (2026-12-02, compiled single-threaded). A busy machine takes
+# longer, hence "about".
+COMPILE_SECONDS = {"gmg": 13, "amg": 19, "direct": 13, "fft": 1}
 # A queue worker's first start compiles every method at once: the kernels the methods share
 # (operator, vector updates, assembly) once, not once per method as the sum above counts
 # them. Measured from an empty cache (its slot's "kernels warm in" line): 30.1 s at load 0.3
