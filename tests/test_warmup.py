@@ -145,3 +145,15 @@ def test_the_split_balances_and_keeps_every_item_once() -> None:
         assert abs(a - b) <= largest, (cells, mine, theirs)
     plan = warmup.gmg_plan((128, 128, 128))
     assert plan.levels == (128**3, 64**3, 32**3) and warmup.GmgPlan.decode(plan.encode()) == plan
+
+
+def test_every_item_has_a_measured_cost() -> None:
+    """The split balances by warmup.COST (benchmarks/compile_items.py measures it): an item
+    without an entry would be split blind, as fronts_factor was with another kernel's."""
+    from sevenfold.kernels import warmup
+
+    seen = set()
+    for cells in ((12, 10, 8), (32, 32, 32), (128, 128, 128)):
+        for precision in ("float32", "float64"):
+            seen |= set(warmup._items(warmup.gmg_plan(cells, precision))[0])
+    assert seen == set(warmup.COST), seen ^ set(warmup.COST)
