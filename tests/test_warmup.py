@@ -149,7 +149,7 @@ def test_the_split_balances_and_keeps_every_item_once() -> None:
 
 def test_every_item_has_a_measured_cost() -> None:
     """The split balances by warmup.COST (benchmarks/compile_items.py measures it): an item
-    without an entry would be split blind, as fronts_factor was with another kernel's."""
+    without an entry would be split on a guess."""
     from sevenfold.kernels import warmup
 
     seen = set()

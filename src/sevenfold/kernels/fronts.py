@@ -101,6 +101,8 @@ def fronts_factor(tx, ty, tz, diag, index, start, own, first, factor_start, fact
             child = first[child] - 1
         if band_cholesky(a, owned) != 0:
             return 1
+        # (loops: as slice assignments through ravel and reshape these two copies took 3 s of
+        # the kernel's first compile, benchmarks/RESULTS_COMPILE_ITEMS.md)
         base = factor_start[f]
         for e in range(owned * size):
             factor[base + e] = work[e]
