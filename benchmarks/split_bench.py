@@ -21,7 +21,13 @@ Thomas recurrence along z advances a whole row of columns at unit stride, with n
   / 2 values: 32 KiB at 128^3, 128 KiB at 256^3);
 * the same order of colours and rows as the kept sweep (the second colour trailing the first
   by one x-row, runs of rows per thread, border rows last), and the same sums in the same
-  order, so the result is the kept sweep's bit for bit (checked on every level it times).
+  order. The recurrences are the Thomas form the kept sweep had when this was written; the
+  kept sweep has since moved to the L D L^T form (benchmarks/RESULTS_LDL.md), so the two now
+  agree to rounding, not bit for bit (the table says which; the iterations still match);
+* the sweeps before (or after) a coarse correction run in one pass over memory, as the kept
+  ones do: the colour passes of both sweeps as stages of a wavefront (`sweeps_split`). On
+  two threads a split sweep is limited by memory bandwidth, and without this it gained
+  little over the kept pass of two sweeps.
 
 Designs: the finest level split, or every smoothed level (the coarsest level's LU stays in
 the kept layout); the finest level split with CG left in the kept layout (r and z transposed
@@ -30,10 +36,11 @@ half a kept one, three sweeps before and after each coarse correction instead of
 split. Otherwise CG works on split vectors, with the finest operator, the residual and
 restriction and the prolongation written for the split layout (the restriction writes, and the
 prolongation reads, the coarse array in x, z, y order, so that a coarse row's y run is unit
-stride too; it is rearranged into the coarse level's layout at coarse size). The levels are
+stride too; it is rearranged into the coarse level's layout at coarse size; y pairs may be
+offset by one cell, as the kept hierarchy pairs them to keep walls between aggregates). The levels are
 those of the kept hierarchy, split once at set-up (the time is reported: assembly and a
-Galerkin product that wrote them split would not pay it). Requires an even ny on every split
-level.
+Galerkin product that wrote them split would not pay it). Only the run of levels from the
+finest with an even ny is split; the rest stay in the kept layout.
 
 Writes benchmarks/RESULTS_SPLIT.md: whole gmg-CG solves, kept against the two designs (one
 numba thread, CPU seconds, set-up and CG apart), and each kernel alone on the same arrays.
@@ -166,23 +173,55 @@ def sweep_split(tx, ty, tz, iw, b, u, first, chunks):
 
 
 @njit(parallel=True)
-def prolong_add_split(ect, free, step, scale, u):
+def sweeps_split(tx, ty, tz, iw, b, u, first, sweeps, chunks):
+    """``sweeps`` sweeps of :func:`sweep_split` in one pass over memory: the 2 ``sweeps``
+    colour passes as stages of a wavefront, each trailing the one before by one x-row, runs
+    of rows per thread and the rows around the runs' borders last, stage by stage (the order
+    of lines.line_gauss_seidel, the numbers of :func:`sweep_split` twice). On two threads a split
+    sweep is limited by memory bandwidth, which one pass per pair of sweeps halves."""
+    nx = u.shape[1]
+    stages = 2 * sweeps
+    chunks = min(chunks, nx // (2 * (stages - 1)))
+    if chunks < 1:
+        for s in range(stages):
+            for i in range(nx):
+                _row(tx, ty, tz, iw, b, u, i, (first + s) % 2)
+        return
+    for r in prange(chunks):
+        lo, hi = r * nx // chunks, (r + 1) * nx // chunks
+        for i in range(lo, hi + stages - 1):
+            for s in range(stages):
+                row = i - s
+                if lo + s <= row <= hi - 1 - s:
+                    _row(tx, ty, tz, iw, b, u, row, (first + s) % 2)
+    for r in prange(chunks + 1):
+        p = r * nx // chunks
+        for s in range(1, stages):
+            for row in range(max(p - s, 0), min(p + s, nx)):
+                _row(tx, ty, tz, iw, b, u, row, (first + s) % 2)
+
+
+@njit(parallel=True)
+def prolong_add_split(ect, free, step, agg, scale, u):
     """u += scale * P ec on the free cells, u split, ``free`` split as 1.0 and 0.0 in u's
     type (a product instead of a branch, so that the loop vectorises), ect = ec in x, z, y
-    order (stencil.prolong_add's sums)."""
+    order (stencil.prolong_add's sums; ``agg`` as there, its y pairs offset or not: a
+    colour's column h lies in coarse column h + ay[q])."""
     nx, nz, nyh = u.shape[1], u.shape[2], u.shape[3]
-    sx, sy, sz = step[0], step[1], step[2]
+    ax, ay, az = agg
+    sy = step[1]
     for i in prange(nx):
-        I = i // sx
+        I = ax[i]
         for c in range(2):
             q = (i + c) & 1
+            oy = ay[q]
             for k in range(nz):
-                row = ect[I, k // sz]
+                row = ect[I, az[k]]
                 uk = u[c, i, k]
                 fk = free[c, i, k]
                 if sy == 2:
                     for h in range(nyh):
-                        uk[h] += scale * row[h] * fk[h]
+                        uk[h] += scale * row[h + oy] * fk[h]
                 else:
                     for h in range(nyh):
                         uk[h] += scale * row[2 * h + q] * fk[h]
@@ -217,32 +256,35 @@ def _residual_row(b, diag, txm, uxm, txp, uxp, tym, typ, uy, tz, u, q, r):
 
 
 @njit(parallel=True)
-def residual_restrict_split(tx, ty, tz, diag, b, u, step, rct):
+def residual_restrict_split(tx, ty, tz, diag, b, u, step, agg, rct):
     """rct = P^T (b - A u) with u, b and the face arrays split and rct in x, z, y order
     (rct[I, K, J]: a coarse row's y run is unit stride, as the split fine rows are), the
-    piecewise-constant restriction of stencil.residual_restrict; each coarse x-row is one
-    thread's."""
+    piecewise-constant restriction of stencil.residual_restrict (``agg`` as there, its y
+    pairs offset or not); each coarse x-row is one thread's."""
     nx, nz, nyh = u.shape[1], u.shape[2], u.shape[3]
-    sx, sy, sz = step[0], step[1], step[2]
+    ax, ay, az = agg
+    sy = step[1]
     ncx = rct.shape[0]
+    xs = stencil.starts(ax, ncx)
     for I in prange(ncx):
         rct[I] = 0.0
         r = np.empty((nz, nyh), dtype=rct.dtype)
-        for i in range(I * sx, min(I * sx + sx, nx)):
+        for i in range(xs[I], xs[I + 1]):
             im = max(i - 1, 0)
             ip = min(i + 1, nx - 1)
             itm = i - 1 if i > 0 else nx - 1
             for c in range(2):
                 o = 1 - c
                 q = (i + c) & 1
+                oy = ay[q]
                 _residual_row(b[c, i], diag[c, i], tx[o, itm], u[o, im], tx[c, i], u[o, ip],
                               ty[o, i], ty[c, i], u[o, i], tz[c, i], u[c, i], q, r)
                 for k in range(nz):
-                    row = rct[I, k // sz]
+                    row = rct[I, az[k]]
                     rk = r[k]
-                    if sy == 2:  # column h of either colour lies in coarse column h
+                    if sy == 2:  # column h of colour q lies in coarse column h + ay[q]
                         for h in range(nyh):
-                            row[h] += rk[h]
+                            row[h + oy] += rk[h]
                     else:
                         for h in range(nyh):
                             row[2 * h + q] += rk[h]
@@ -373,12 +415,19 @@ def split_to_xzy(s, a):
 class SplitHierarchy(gmg.Hierarchy):
     """The kept hierarchy (the same levels, coarse operators and cycle) whose smoothed levels
     are stored split: the finest ``split_levels`` of them (all but the coarsest by default),
-    the rest, and the coarsest level's LU, in the kept layout."""
+    the rest, and the coarsest level's LU, in the kept layout. Only a run of levels from the
+    finest with an even ny and y pairs (offset or not) or y whole can be split: the rest stay
+    kept (on the column at 256^3 the second level is 129 x 129 x 128, so only the finest is
+    split)."""
 
     def __init__(self, fine, split_levels: int | None = None, **options) -> None:
         super().__init__(fine, **options)
         t = cb.CLOCK()
-        smoothed = len(self.levels) - 1
+        smoothed = 0  # the leading levels the prototype can split: an even ny, y paired or whole
+        for lv in self.levels[:-1]:
+            if lv.shape[1] % 2 or (lv.step[1] == 2 and stencil.pair_offset(lv.agg[1]) < 0):
+                break
+            smoothed += 1
         self.split_levels = min(smoothed, split_levels if split_levels is not None else smoothed)
         for lv in self.levels[:self.split_levels]:
             lv.s = {name: split(getattr(lv, name)) for name in ("tx", "ty", "tz", "diag", "inv_w")}
@@ -390,7 +439,12 @@ class SplitHierarchy(gmg.Hierarchy):
             lv.ct = np.empty((nx, nz, ny), dtype=self.dtype)  # the coarse array in x, z, y order
         self.splitting = cb.CLOCK() - t  # set-up that levels built split would not pay
 
-    def precondition_dot(self, r: np.ndarray) -> tuple[np.ndarray, float]:
+    @property
+    def rhs_buffer(self) -> None:
+        """None: CG hands r over as it is (the prototype narrows it here)."""
+        return None
+
+    def precondition_dot(self, r: np.ndarray, filled: bool = False) -> tuple[np.ndarray, float]:
         """One cycle from zero for A z = r, r and z split (r float64, z float32), and r . z."""
         from sevenfold.kernels.vector import vector_ops
 
@@ -403,18 +457,18 @@ class SplitHierarchy(gmg.Hierarchy):
 
     def _sweeps(self, lv, first: int) -> None:
         s = lv.s
-        for _ in range(self.sweeps[first]):
-            sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], lv.sb, lv.su, first,
-                        numba.get_num_threads())
+        sweeps_split(s["tx"], s["ty"], s["tz"], s["inv_w"], lv.sb, lv.su, first,
+                     self.sweeps[first], numba.get_num_threads())
 
-    def cycle(self, level: int, b: np.ndarray, u: np.ndarray) -> None:
+    def cycle(self, level: int, b: np.ndarray, u: np.ndarray, zero: bool = False) -> None:
         """The kept cycle; a split level works on its own lv.sb and lv.su (u from zero)."""
         if level >= self.split_levels:
-            return super().cycle(level, b, u)
+            return super().cycle(level, b, u, zero)
         lv, coarse = self.levels[level], self.levels[level + 1]
         s = lv.s
         self._sweeps(lv, 0)
-        residual_restrict_split(s["tx"], s["ty"], s["tz"], s["diag"], lv.sb, lv.su, lv.step, lv.ct)
+        residual_restrict_split(s["tx"], s["ty"], s["tz"], s["diag"], lv.sb, lv.su, lv.step, lv.agg,
+                                lv.ct)
         visits = self.gamma if level + 2 < len(self.levels) else 1
         if level + 1 < self.split_levels:
             xzy_to_split(lv.ct, coarse.sb)
@@ -428,7 +482,7 @@ class SplitHierarchy(gmg.Hierarchy):
             for _ in range(visits):
                 super().cycle(level + 1, coarse.b, coarse.e)
             swap_yz(coarse.e, lv.ct)
-        prolong_add_split(lv.ct, s["free"], lv.step, self.overcorrection, lv.su)
+        prolong_add_split(lv.ct, s["free"], lv.step, lv.agg, self.overcorrection, lv.su)
         self._sweeps(lv, 1)
 
 
@@ -443,7 +497,7 @@ class SplitFinestKeptCG(SplitHierarchy):
     def __init__(self, fine, **options) -> None:
         super().__init__(fine, 1, **options)
 
-    def precondition_dot(self, r: np.ndarray) -> tuple[np.ndarray, float]:
+    def precondition_dot(self, r: np.ndarray, filled: bool = False) -> tuple[np.ndarray, float]:
         from sevenfold.kernels.vector import vector_ops
 
         top = self.levels[0]
@@ -494,7 +548,8 @@ def solve(fine, b, design: str) -> dict:
     ax = np.empty(fine.shape)
     fine.apply(x, ax)
     residual = float(np.linalg.norm(b - ax) / np.linalg.norm(b))
-    return dict(design=design, setup=t1 - t0, splitting=splitting, cg=t2 - t1,
+    return dict(design=design, split=getattr(hierarchy, "split_levels", 0), setup=t1 - t0,
+                splitting=splitting, cg=t2 - t1,
                 iterations=result.iterations, converged=result.converged, residual=residual)
 
 
@@ -543,10 +598,18 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
         lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, kept_u, 0, 1, threads, False)
         sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, split_u, 0, threads)
         from_split(split_u, back)
-        same = bool(np.array_equal(kept_u, back))
+        same = {"sweep": bool(np.array_equal(kept_u, back))}
+        kept_u, split_u = start.copy(), split(start)  # and two sweeps in one pass
+        lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, kept_u, 0, 2, threads, False)
+        sweeps_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, split_u, 0, 2, threads)
+        from_split(split_u, back)
+        same["two sweeps in one pass"] = bool(np.array_equal(kept_u, back))
         pairs = {"sweep": (
             lambda: lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, u, 0, 1, threads, False),
-            lambda: sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, su, 0, threads))}
+            lambda: sweep_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, su, 0, threads)),
+            "two sweeps in one pass": (
+            lambda: lines.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, rhs, u, 0, 2, threads, False),
+            lambda: sweeps_split(s["tx"], s["ty"], s["tz"], s["inv_w"], sb, su, 0, 2, threads))}
         if level == 0:
             coarse = h.levels[1]
             rc = np.empty(coarse.shape, dtype=h.dtype)
@@ -555,11 +618,11 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
                 lambda: stencil.residual_restrict(lv.tx, lv.ty, lv.tz, lv.diag, rhs, u, lv.step,
                                                   lv.agg, rc),
                 lambda: (residual_restrict_split(s["tx"], s["ty"], s["tz"], s["diag"], sb, su,
-                                                 lv.step, rct), swap_yz(rct, rc)))
+                                                 lv.step, lv.agg, rct), swap_yz(rct, rc)))
             free = split(lv.free, h.dtype)
             pairs["prolongation"] = (
                 lambda: stencil.prolong_add(rc, lv.free, lv.step, lv.agg, 1.0, u),
-                lambda: (swap_yz(rc, rct), prolong_add_split(rct, free, lv.step, 1.0, su)))
+                lambda: (swap_yz(rc, rct), prolong_add_split(rct, free, lv.step, lv.agg, 1.0, su)))
             p64 = r.copy()
             out = np.empty_like(p64)
             op = SplitOperator(fine)
@@ -572,7 +635,7 @@ def components(n: int, case: str, repeats: int = 5) -> list[dict]:
             ts = timing.median(new, repeats, cb.CLOCK)
             rows.append(dict(case=case, n=n, level=level, shape="x".join(map(str, lv.shape)),
                              kernel=name, kept=tk / unit, split=ts / unit,
-                             same=("yes" if same else "no") if name == "sweep" else "-"))
+                             same=("yes" if same[name] else "no") if name in same else "-"))
             print(f"{case} {n} level {level} {name:32s} kept {tk / unit:6.3f} WU  "
                   f"split {ts / unit:6.3f} WU", flush=True)
     return rows
@@ -597,8 +660,9 @@ def report(solves: list[dict], parts: list[dict], info: dict, command: str) -> s
            "cycle whose finest level is stored split by colour with z in the middle, CG's "
            "vectors and operator included; *every level split* = every smoothed level so "
            "stored, the coarsest level's LU in the kept layout (see the docstring of "
-           "`benchmarks/split_bench.py`). Their sweeps give the kept sweeps' numbers bit for "
-           "bit, so the iterations must match *kept*'s. *W(3,3)*: the same with three sweeps "
+           "`benchmarks/split_bench.py`). Their sweeps are the kept sweeps to rounding (the "
+           "Thomas form of the recurrences, where the kept sweep now runs L D L^T), so the "
+           "iterations must match *kept*'s. *W(3,3)*: the same with three sweeps "
            "before and after each coarse correction instead of two. *split finest level, CG "
            "kept*: the finest level split, CG's vectors and operator kept, r and z transposed "
            "each iteration; a product would pay its splitting (it replaces the float32 copy), "
@@ -609,24 +673,28 @@ def report(solves: list[dict], parts: list[dict], info: dict, command: str) -> s
            "product writing that layout) would not pay: *built split* = the total less it; "
            "*residual* = the true relative residual of the returned solution, in the kept "
            "layout.", "",
-           "| case | cells | design | iterations | set-up WU | of which splitting | CG WU | "
-           "total WU | built split WU | built split / kept | residual |",
-           "|---|---|---|---|---|---|---|---|---|---|---|"]
+           "*levels split*: how many levels, from the finest, the design stored split (only a "
+           "run of levels with an even ny and y pairs can be).", "",
+           "| case | cells | design | levels split | iterations | set-up WU | of which splitting | "
+           "CG WU | total WU | built split WU | built split / kept | residual |",
+           "|---|---|---|---|---|---|---|---|---|---|---|---|"]
     for r in solves:
         kept = next(x for x in solves if x["case"] == r["case"] and x["n"] == r["n"]
                     and x["design"] == "kept")
         total = (r["setup"] + r["cg"]) / r["unit"]
         built = total - r["splitting"] / r["unit"]
         ktotal = (kept["setup"] + kept["cg"]) / kept["unit"]
-        out.append(f"| {r['case']} | {r['n']}^3 | {r['design']} | {r['iterations']}"
+        out.append(f"| {r['case']} | {r['n']}^3 | {r['design']} | {r['split']} | {r['iterations']}"
                    f"{'' if r['converged'] else ' (not converged)'} | {r['setup'] / r['unit']:.1f} | "
                    f"{r['splitting'] / r['unit']:.1f} | {r['cg'] / r['unit']:.1f} | {total:.1f} | "
                    f"{built:.1f} | {built / ktotal:.2f} | {r['residual']:.1e} |")
     out += ["", "## The kernels alone", "",
             f"The kept hierarchy's arrays of the layered problem; {_clock_words(short=True)} of one call "
             "(median of 5, kept and split alternating) in work units. A sweep is both colours; "
-            "the operator is CG's (float64, with p . A p). *bit for bit*: one sweep from the same "
-            "random u gives the same numbers in both layouts.", "",
+            "*two sweeps in one pass*: the kept sweep's wavefront (lines.line_gauss_seidel with "
+            "two sweeps) against the split one's (`sweeps_split`), the form both cycles "
+            "run; the operator is CG's (float64, with p . A p). *bit for bit*: the same sweeps "
+            "from the same random u give the same numbers in both layouts.", "",
             "| cells | level | shape | kernel | kept WU | split WU | split / kept | "
             "bit for bit |", "|---|---|---|---|---|---|---|---|"]
     for p in parts:
