@@ -45,42 +45,21 @@ from sevenfold.kernels.stencil import _bands, _neighbours
 
 
 @njit(inline="always")
-def _coded_row(cx, cy, cz, cd, tabx, taby, tabz, tabd, u, out, i, j, nx, ny, nz):
-    """``stencil._apply_row`` with each coefficient looked up from its code."""
-    wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
-    for m in range(nz):
-        out[m] = (tabd[cd[i, j, m]] * u[i, j, m] - wxm * tabx[cx[im, j, m]] * u[im, j, m]
-                  - wxp * tabx[cx[i, j, m]] * u[ip, j, m] - wym * taby[cy[i, jm, m]] * u[i, jm, m]
-                  - wyp * taby[cy[i, j, m]] * u[i, jp, m])
-    for m in range(1, nz - 1):
-        out[m] -= tabz[cz[i, j, m - 1]] * u[i, j, m - 1] + tabz[cz[i, j, m]] * u[i, j, m + 1]
-    if nz > 1:
-        out[0] -= tabz[cz[i, j, 0]] * u[i, j, 1]
-        out[nz - 1] -= tabz[cz[i, j, nz - 2]] * u[i, j, nz - 2]
-
-
-@njit(parallel=True, fastmath={"reassoc", "nsz", "contract"})
-def coded_apply_dot(cx, cy, cz, cd, tabx, taby, tabz, tabd, u, out):
-    """``stencil.apply_dot`` on coded faces (all four arrays coded): out = A u, returns u . A u."""
-    nx, ny, nz = u.shape
-    per, rows = _bands(nx, ny, nz)
-    slabs = (nx + per - 1) // per
-    s = 0.0
-    for t in prange(slabs):
-        for j0 in range(0, ny, rows):
-            for i in range(t * per, min(t * per + per, nx)):
-                for j in range(j0, min(j0 + rows, ny)):
-                    _coded_row(cx, cy, cz, cd, tabx, taby, tabz, tabd, u, out[i, j], i, j, nx, ny, nz)
-                    for m in range(nz):
-                        s += out[i, j, m] * u[i, j, m]
-    return s
+def _diagonal(d, tabd, i, j, m):
+    """The diagonal at (i, j, m): ``d`` itself (float64) when ``tabd`` is None, else looked up
+    from its codes (the None branch is pruned at compile time)."""
+    if tabd is None:
+        return d[i, j, m]
+    return tabd[d[i, j, m]]
 
 
 @njit(inline="always")
-def _coded_row_diag(cx, cy, cz, diag, tabx, taby, tabz, u, out, i, j, nx, ny, nz):
+def _coded_row(cx, cy, cz, d, tabx, taby, tabz, tabd, u, out, i, j, nx, ny, nz):
+    """``stencil._apply_row`` with each coupling looked up from its code (the diagonal as
+    :func:`_diagonal`)."""
     wxm, wxp, wym, wyp, im, ip, jm, jp = _neighbours(i, j, nx, ny)
     for m in range(nz):
-        out[m] = (diag[i, j, m] * u[i, j, m] - wxm * tabx[cx[im, j, m]] * u[im, j, m]
+        out[m] = (_diagonal(d, tabd, i, j, m) * u[i, j, m] - wxm * tabx[cx[im, j, m]] * u[im, j, m]
                   - wxp * tabx[cx[i, j, m]] * u[ip, j, m] - wym * taby[cy[i, jm, m]] * u[i, jm, m]
                   - wyp * taby[cy[i, j, m]] * u[i, jp, m])
     for m in range(1, nz - 1):
@@ -91,8 +70,9 @@ def _coded_row_diag(cx, cy, cz, diag, tabx, taby, tabz, u, out, i, j, nx, ny, nz
 
 
 @njit(parallel=True, fastmath={"reassoc", "nsz", "contract"})
-def coded_apply_dot_diag(cx, cy, cz, diag, tabx, taby, tabz, u, out):
-    """As :func:`coded_apply_dot` with the diagonal kept as float64."""
+def coded_apply_dot(cx, cy, cz, d, tabx, taby, tabz, tabd, u, out):
+    """``stencil.apply_dot`` on coded faces: out = A u, returns u . A u. ``d``: the diagonal's
+    codes with ``tabd`` its table, or the float64 diagonal with ``tabd`` None."""
     nx, ny, nz = u.shape
     per, rows = _bands(nx, ny, nz)
     slabs = (nx + per - 1) // per
@@ -101,7 +81,7 @@ def coded_apply_dot_diag(cx, cy, cz, diag, tabx, taby, tabz, u, out):
         for j0 in range(0, ny, rows):
             for i in range(t * per, min(t * per + per, nx)):
                 for j in range(j0, min(j0 + rows, ny)):
-                    _coded_row_diag(cx, cy, cz, diag, tabx, taby, tabz, u, out[i, j], i, j, nx, ny, nz)
+                    _coded_row(cx, cy, cz, d, tabx, taby, tabz, tabd, u, out[i, j], i, j, nx, ny, nz)
                     for m in range(nz):
                         s += out[i, j, m] * u[i, j, m]
     return s
@@ -134,7 +114,7 @@ def whole_solves(problem, spec, codes, rounds: int) -> dict[str, list[tuple[floa
 
     def coded(self, p):
         lv = self.level
-        pq = coded_apply_dot_diag(cx, cy, cz, lv.diag, tabx, taby, tabz, p.reshape(lv.shape), self.out)
+        pq = coded_apply_dot(cx, cy, cz, lv.diag, tabx, taby, tabz, None, p.reshape(lv.shape), self.out)
         return self.out.ravel(), pq
 
     out: dict[str, list[tuple[float, int]]] = {"kept": [], "coded, diag kept": []}
@@ -172,8 +152,8 @@ def measure(job: Path, rounds: int, solves: int) -> dict:
     outs = {name: np.empty_like(p) for name in ("kept", "coded", "coded, diag kept")}
     passes = {
         "kept": lambda: stencil.apply_dot(level.tx, level.ty, level.tz, level.diag, p, outs["kept"]),
-        "coded, diag kept": lambda: coded_apply_dot_diag(cx, cy, cz, level.diag, tabx, taby, tabz, p,
-                                                         outs["coded, diag kept"]),
+        "coded, diag kept": lambda: coded_apply_dot(cx, cy, cz, level.diag, tabx, taby, tabz, None, p,
+                                                    outs["coded, diag kept"]),
     }
     if coded[3] is not None:
         cd, tabd = coded[3]
