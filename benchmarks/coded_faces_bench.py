@@ -16,7 +16,7 @@ terms, the first array to leave the few-values case): 36 B per cell.
 
 Each job's finest level comes from the product (``gmg.fine_level``); the codes from
 ``np.unique``, whose cost (a sort) is reported beside the pass: a product would derive them
-from the material's region codes instead. Passes alternate kept / coded / coded-diag-kept,
+from the material's region codes instead. Passes alternate kept / coded-diag-kept / coded,
 ``--rounds`` each, wall seconds, best and median. Then whole warm gmg solves with CG's pass
 kept or coded (``--solves`` each, alternating). Writes benchmarks/RESULTS_CODED_FACES.md unless
 --results says otherwise.
