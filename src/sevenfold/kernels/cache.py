@@ -29,10 +29,12 @@ from pathlib import Path
 COMPILE_SECONDS = {"gmg": 13, "amg": 19, "direct": 13, "fft": 1}
 # A queue worker's first start compiles every method at once: the kernels the methods share
 # (operator, vector updates, assembly) once, not once per method as the sum above counts
-# them. Measured from an empty cache (its slot's "kernels warm in" line): 30.1 s at load 0.3
-# (2026-12-02 19:05), 38.4 s at load 1.5 (the same day, `sevenfold demo`); 25.6-29.7 s at load
-# 0.3-0.8 (2026-12-03, `sevenfold demo` after a fresh install).
-ALL_METHODS_SECONDS = 35
+# them, and gmg's for float32 and for float64 levels (queue/child.py's warm-up jobs). Measured
+# from an empty cache (its slot's "kernels warm in" line, `sevenfold demo`): 20.9-24.4 s on the
+# Intel host at load 1.0-1.5 (2026-12-05; 15.7-16.1 s before the warm-up had float64 levels,
+# which the demo's first job, aquifer-lens, then compiled for 7.2-7.8 s); the AMD host's
+# compiles take about 1.25 times as long, a busy machine's longer.
+ALL_METHODS_SECONDS = 30
 # What the other methods still compile once gmg's kernels are cached (the face arrays, the
 # operator and CG's vector updates they share), as after a first `sevenfold run`: measured
 # 2026-12-03 from a cache holding a 128^3 gmg run's kernels, load 0.6: amg 4.1 s, direct 3.8 s

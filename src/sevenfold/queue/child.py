@@ -55,32 +55,40 @@ _WARM_FACES = {
 }
 
 
-# gmg's kernels for grids with smoothed levels and threaded vector updates (above 100,000
-# cells), with a coefficient jump that the line smoother sees: what most real jobs run
-_WARM_LEVELS = {
-    **_WARM_BASE, "name": "warm-gmg-levels", "grid": {"cells": [48, 48, 48], "size": [1.0, 1.0, 1.0]},
-    "material": {"value": "1 + 99 * (z > 0.5)"}, "solver": {"method": "gmg", "rtol": 1e-6},
-}
+# gmg's kernels on grids with smoothed levels and a coefficient jump that the line smoother
+# sees, what most real jobs run: for each float type of the levels (a contrast of 100: float32;
+# 1e5, past solvers/precision.py's FLOAT32_CONTRAST: float64, as for clay in sand) on a grid
+# whose CG updates are threaded (48^3, above kernels/vector.py's PARALLEL_FROM) and on one
+# whose are not (40^3)
+_WARM_LEVELS = [
+    {**_WARM_BASE, "name": f"warm-gmg-{n}-{contrast:g}", "grid": {"cells": [n, n, n], "size": [1.0, 1.0, 1.0]},
+     "material": {"value": f"1 + {contrast - 1:g} * (z > 0.5)"}, "solver": {"method": "gmg", "rtol": 1e-6}}
+    for contrast in (100, 1e5) for n in (48, 40)]
 
 
 def warm_tables() -> list[dict[str, Any]]:
-    """The warm-up jobs: gmg on a grid with smoothed levels, one per solver method the spec
-    knows, and one with every face type."""
+    """The warm-up jobs: gmg on grids with smoothed levels, one per solver method the spec knows,
+    and one with every face type. The most kernels first: compiled on two cores
+    (kernels/warmup.py)."""
     from ..spec import METHODS
 
     tables = [{**_WARM_BASE, "name": f"warm-{m}", "solver": {"method": m, "rtol": 1e-6}}
               for m in METHODS if m != "auto"]
-    return [_WARM_LEVELS, *tables, _WARM_FACES]  # the most kernels first: compiled on two cores
+    return [*_WARM_LEVELS, *tables, _WARM_FACES]
 
 
 def _needs(tables: list[dict[str, Any]]) -> dict[str, frozenset[str]]:
-    """Each method's kernel signatures that the warm-up jobs compile (runner.kernel_signatures)."""
-    from ..runner import kernel_signatures
+    """Each method's kernel signatures that the warm-up jobs compile (runner.kernel_signatures;
+    gmg's depend on the levels' float type, which the job's contrast decides)."""
+    from ..problem import build_problem
+    from ..runner import gmg_precision, kernel_signatures
+    from ..spec import parse_job
 
     needs: dict[str, frozenset[str]] = {}
     for t in tables:
         m = t["solver"]["method"]
-        needs[m] = needs.get(m, frozenset()) | kernel_signatures(m, tuple(t["grid"]["cells"]))
+        precision = gmg_precision(build_problem(parse_job(t, "warm-up"))) if m == "gmg" else "float32"
+        needs[m] = needs.get(m, frozenset()) | kernel_signatures(m, tuple(t["grid"]["cells"]), precision)
     return needs
 
 
