@@ -109,14 +109,16 @@ def warn(text: str) -> None:
 def run_summary(summary: dict[str, Any]) -> str:
     """The line that ends a run: how the solve stopped, its iterations and residual, and
     where the time went. ``summary``: :meth:`SolveResult.summary` with the run's
-    ``seconds`` (build, assemble, setup, solve, write, job) added, as a queue job keeps it."""
+    ``seconds`` (build, compile on a first run, assemble, setup, solve, write, job) added, as
+    a queue job keeps it."""
     secs = summary.get("seconds") or {}
+    compiled = f"compile {secs['compile']:.2f} s, " if "compile" in secs else ""
     sw = summary.get("switch")  # the marked line above gave its reason
     switched = f" (auto switched from {sw['from']} after {sw['after_iterations']} {sw['from']} iterations)" if sw else ""
     return (f"{'converged' if summary.get('converged') else 'stopped'}: {summary.get('method')}{switched}, "
             f"{summary.get('iterations')} iterations, relative residual "
             f"{summary.get('final_relative_residual', math.nan):.2e}, job {secs.get('job', math.nan):.2f} s "
-            f"(assembly {secs.get('assemble', math.nan):.2f} s, setup {summary.get('setup_seconds', math.nan):.2f} s, "
+            f"({compiled}assembly {secs.get('assemble', math.nan):.2f} s, setup {summary.get('setup_seconds', math.nan):.2f} s, "
             f"solve {summary.get('solve_seconds', math.nan):.2f} s, write {secs.get('write', math.nan):.2f} s)")
 
 

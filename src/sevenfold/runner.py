@@ -286,11 +286,15 @@ def run_job(
     compiling = cold_notice(plan.method, needs)  # said before the kernels compile, on a first run
     if compiling and hasattr(monitor, "note"):
         monitor.note(compiling)
-    if compiling:  # compiled on both cores before the solve (kernels/warmup.py)
-        from .kernels.warmup import warm_up
+    compiled: dict[str, float] = {}  # seconds of compiling ahead of the solve, when gmg did
+    if compiling:  # compiled on both cores before the solve (kernels/warmup.py; the other
+        from .kernels.warmup import warm_up  # methods compile inside their own phases)
 
+        t_compile = time.perf_counter()
         warm_up(plan.method, problem.grid.cells, compiled=needs - missing(plan.method, needs),
                 precision=plan.gmg_levels)
+        if plan.method == "gmg":
+            compiled["compile"] = time.perf_counter() - t_compile
     log = ResidualLog(log_path(plan.output))
     physics = PHYSICS[spec.physics]
     stopped: SolverError | None = None  # a solve that stopped short; its last iterate is written
@@ -330,6 +334,7 @@ def run_job(
     probes = sample(grid, u, spec.probe)
     seconds = {
         "build": t_build - t0,
+        **compiled,
         "assemble": result.assembly_seconds,
         "setup": result.setup_seconds,
         "solve": result.solve_seconds,
