@@ -286,9 +286,11 @@ def run_job(
     compiling = cold_notice(plan.method, needs)  # said before the kernels compile, on a first run
     if compiling and hasattr(monitor, "note"):
         monitor.note(compiling)
-    compiled: dict[str, float] = {}  # seconds of compiling ahead of the solve, when gmg did
-    if compiling:  # compiled on both cores before the solve (kernels/warmup.py; the other
-        from .kernels.warmup import warm_up  # methods compile inside their own phases)
+    # the seconds of compiling ahead of the solve: gmg's alone (the other methods compile
+    # inside their own phases)
+    compiled: dict[str, float] = {}
+    if compiling:  # compiled on both cores before the solve (kernels/warmup.py)
+        from .kernels.warmup import warm_up
 
         t_compile = time.perf_counter()
         warm_up(plan.method, problem.grid.cells, compiled=needs - missing(plan.method, needs),
