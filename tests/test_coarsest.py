@@ -170,7 +170,7 @@ def test_two_threads_give_the_serial_factor_bit_for_bit(shape, monkeypatch) -> N
         return
     middle = tree.halves[0]
     where = {call[1:]: call[0] for call in calls[:2]}  # (the two in either order)
-    assert where[(0, middle)] == me and where[(middle, nodes - 1)].startswith("sevenfold-fronts")
+    assert where[(0, middle)] == me and where[(middle, nodes - 1)].startswith("sevenfold-helper")
     assert calls[2:] == [(me, nodes - 1, nodes)]
     assert 0 < middle < nodes - 1 and tree.first[nodes - 2] == middle  # the root's two subtrees
 
@@ -229,7 +229,7 @@ def test_without_a_helper_thread_the_factor_is_serial(monkeypatch) -> None:
 
     level = random_level((9, 9, 16), seed=6)
     serial = factored(level, False)
-    monkeypatch.setattr(coarsest, "_helper", NoThreads)
+    monkeypatch.setattr(coarsest, "helper", NoThreads)
     calls = recorded_calls(monkeypatch)
     assert np.array_equal(factored(level, True), serial)
     assert calls == [(threading.current_thread().name, 0, fronts(level.shape).own.size)]

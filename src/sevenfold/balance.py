@@ -174,8 +174,7 @@ def compute_balance(problem: Problem, u: np.ndarray, units: str = "1",
     count = int(index.max()) + 1 if index.size else 0
     if names is not None:
         count = max(count, len(names))
-    free = index < 0
-    source = grid.integrate(problem.source, free)
+    source = grid.integrate(problem.source, index < 0 if count else None)  # (no hold: every cell)
 
     inflow = interior_hold_inflow(problem, u, count)
     faces: dict[str, float] = {}

@@ -12,6 +12,7 @@ import numpy as np
 from .errors import JobError
 from .expressions import evaluate
 from .grid import Grid
+from .helper import halves
 from .shapes import box_slices, mask
 from .spec import Box, MaterialSpec, SourceSpec, components
 
@@ -49,15 +50,20 @@ def _fill(field: np.ndarray, value: float | str | np.ndarray, grid: Grid) -> Non
     its values besides)."""
     if isinstance(value, str):
         evaluate(value, *grid.mesh(), out=field)
-    else:
+    elif isinstance(value, np.ndarray):
         field[...] = value
+    else:
+        halves(lambda part: part.fill(value), field)
 
 
-def _check_finite(a: np.ndarray, where: str, positive: bool) -> None:
-    if not np.all(np.isfinite(a)):
+def _check_finite(a: np.ndarray | float, where: str, positive: bool) -> None:
+    """A JobError at ``where`` unless every value of ``a`` (an array or a number) is finite,
+    and positive with ``positive``: read from the range alone (NaN carries through it)."""
+    lo, hi = array_range(a) if isinstance(a, np.ndarray) else (float(a), float(a))
+    if not (math.isfinite(lo) and math.isfinite(hi)):
         raise JobError("contains NaN or infinite values", where)
-    if positive and not np.all(a > 0):
-        raise JobError(f"must be positive everywhere, minimum is {float(a.min())!r}", where)
+    if positive and not lo > 0:
+        raise JobError(f"must be positive everywhere, minimum is {lo!r}", where)
 
 
 def _no_cell(where: str) -> JobError:
@@ -107,8 +113,10 @@ def _component(spec: MaterialSpec, grid: Grid, a: int, selections: list[Cells], 
                base: np.ndarray | None) -> np.ndarray:
     where = "material" + ("" if not spec.anisotropic else f" ({'xyz'[a]} component)")
     k = np.empty(grid.shape, dtype=np.float64)
-    _fill(k, base if base is not None else components(spec.base)[a], grid)  # type: ignore[arg-type]
-    _check_finite(k, "material.file" if base is not None else where, positive=True)
+    value = base if base is not None else components(spec.base)[a]
+    _fill(k, value, grid)  # type: ignore[arg-type]
+    _check_finite(value if isinstance(value, (int, float)) else k, "material.file" if base is not None else where,
+                  positive=True)
     for i, (region, cells) in enumerate(zip(spec.region, selections)):
         v = _values(components(region.value)[a], grid, cells)
         if isinstance(v, np.ndarray):
@@ -136,27 +144,39 @@ def is_isotropic(k: Coefficient) -> bool:
     return k[0] is k[1] and k[1] is k[2]
 
 
-# cells per slab of value_range: the slab's second read (max after min) comes from the cache
+# cells per slab of a range: the slab's second read (max after min) comes from the cache
 RANGE_SLAB = 1 << 18
 
 
+def _slab_range(a: np.ndarray) -> tuple[float, float]:
+    lo, hi = np.inf, -np.inf
+    flat = a.reshape(-1)
+    for i in range(0, flat.size, RANGE_SLAB):
+        part = flat[i:i + RANGE_SLAB]
+        lo, hi = np.minimum(lo, part.min()), np.maximum(hi, part.max())  # (NaN carries through)
+    return float(lo), float(hi)
+
+
+def array_range(a: np.ndarray) -> tuple[float, float]:
+    """(min, max) of ``a``, slab by slab, the halves on two cores; NaN when ``a`` has one."""
+    parts = halves(_slab_range, a)
+    return (float(np.min([p[0] for p in parts])), float(np.max([p[1] for p in parts])))
+
+
 def value_range(k: Coefficient) -> tuple[float, float]:
-    """(min, max) over every cell of every distinct array of ``k``, slab by slab."""
-    lo, hi = math.inf, -math.inf
-    for a in {id(a): a for a in k}.values():
-        flat = a.reshape(-1)
-        for i in range(0, flat.size, RANGE_SLAB):
-            part = flat[i:i + RANGE_SLAB]
-            lo, hi = min(lo, float(part.min())), max(hi, float(part.max()))
-    return lo, hi
+    """(min, max) over every cell of every distinct array of ``k``."""
+    ranges = [array_range(a) for a in {id(a): a for a in k}.values()]
+    return min(r[0] for r in ranges), max(r[1] for r in ranges)
 
 
 def source(spec: SourceSpec, grid: Grid, base: np.ndarray | None = None) -> np.ndarray:
     """The source f per unit volume on the cells; finite. A region's ``total`` is spread evenly
     per unit volume over the cells it selects (cells take shares by their volume)."""
     f = np.empty(grid.shape, dtype=np.float64)
-    _fill(f, base if base is not None else spec.base if spec.base is not None else 0.0, grid)
-    _check_finite(f, "source.file" if base is not None else "source", positive=False)
+    value = base if base is not None else spec.base if spec.base is not None else 0.0
+    _fill(f, value, grid)
+    _check_finite(value if isinstance(value, (int, float)) else f, "source.file" if base is not None else "source",
+                  positive=False)
     for i, (region, cells) in enumerate(zip(spec.region, region_cells(spec.region, grid, "source.region"))):
         if region.total is not None:
             f[cells] = region.total / selected_volume(grid, cells)

@@ -12,6 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import JobError
+from .helper import halves
 from .spec import MAX_NEIGHBOUR_RATIO, GridSpec, SegmentedAxis
 
 # Face name -> (axis, side): side 0 is the minimum face, 1 the maximum.
@@ -30,21 +31,26 @@ def weighted_sum(values: np.ndarray, widths: tuple[np.ndarray, np.ndarray, np.nd
                  where: np.ndarray | None = None) -> float:
     """sum of values[i, j, k] wx[i] wy[j] wz[k] over the cells (only where ``where``): an
     integral over cells of widths (wx, wy, wz). With a mask the cells are taken a slab of
-    x-planes at a time: no temporary of the array's size.
+    x-planes at a time: no temporary of the array's size. The two halves along x are summed
+    on two cores (:func:`sevenfold.helper.halves`), then added.
 
     The sums over the widths are matrix-vector products (BLAS): at 256^3 a masked integral
     took 15 ms against 70 ms for numpy's einsum over the four factors, and an unmasked one
     9 ms against 57 ms (one-offs)."""
     wx, wy, wz = widths
-    if where is None:
-        return float(wx @ ((values @ wz) @ wy))
-    where = np.broadcast_to(where, values.shape)
-    planes = max(1, SLAB_CELLS // (values.shape[1] * values.shape[2]))
-    total = 0.0
-    for i in range(0, values.shape[0], planes):
-        slab = slice(i, i + planes)
-        total += float(wx[slab] @ ((np.where(where[slab], values[slab], 0.0) @ wz) @ wy))
-    return total
+
+    def part(values: np.ndarray, wx: np.ndarray, *where: np.ndarray) -> float:
+        if not where:
+            return float(wx @ ((values @ wz) @ wy))
+        planes = max(1, SLAB_CELLS // (values.shape[1] * values.shape[2]))
+        total = 0.0
+        for i in range(0, values.shape[0], planes):
+            slab = slice(i, i + planes)
+            total += float(wx[slab] @ ((np.where(where[0][slab], values[slab], 0.0) @ wz) @ wy))
+        return total
+
+    masks = () if where is None else (np.broadcast_to(where, values.shape),)
+    return sum(halves(part, values, wx, *masks))
 
 
 def uniform_edges(cells: int, width: float, origin: float = 0.0) -> np.ndarray:

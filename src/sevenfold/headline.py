@@ -40,6 +40,7 @@ import numpy as np
 from .balance import Balance, _slabs  # x slabs bound the temporaries on large grids
 from .derived import flux
 from .grid import FACE_AXIS, Grid
+from .helper import halves
 from .operator import conductances
 from .physics import PHYSICS
 from .problem import Problem
@@ -54,10 +55,25 @@ def _at(grid: Grid, flat_index: int) -> list[float]:
     return [float(grid.centres(a)[idx[a]]) for a in range(3)]
 
 
+def _arg_extreme(values: np.ndarray, which: str) -> int:
+    """The flat index of the first largest (``which`` = "max") or smallest value, as numpy's
+    argmax or argmin gives it, the halves on two cores."""
+    pick = np.argmax if which == "max" else np.argmin
+    parts = halves(lambda part: (int(pick(part)), part), values)
+    offset, best, best_value = 0, 0, None
+    for i, part in parts:
+        v = part.flat[i]
+        if best_value is None or (v > best_value if which == "max" else v < best_value) or (
+                np.isnan(v) and not np.isnan(best_value)):
+            best, best_value = offset + i, v
+        offset += part.size
+    return best
+
+
 def _extreme(grid: Grid, values: np.ndarray, which: str, where: np.ndarray | None = None) -> dict[str, Any]:
     if where is not None:
         values = np.where(where, values, -np.inf if which == "max" else np.inf)
-    i = int(np.argmax(values) if which == "max" else np.argmin(values))
+    i = _arg_extreme(values, which)
     return {"value": float(values.flat[i]), "at": _at(grid, i), "index": list(map(int, np.unravel_index(i, grid.shape)))}
 
 

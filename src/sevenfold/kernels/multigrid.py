@@ -80,15 +80,17 @@ def axis_weakness(tx, ty, tz, free, scale, ratio, stride, lines):
     return total
 
 
-@njit(cache=True)  # serial: one pass over diag, a small share of the set-up
-def wall_counts(diag, free, ratio):
+@njit(cache=True, nogil=True)  # serial; two halves of the planes on two threads (levels.py)
+def wall_counts(diag, free, ratio, lo, hi):
     """Per cell boundary across x (between planes i and i + 1) and across y (rows j and
     j + 1), the pairs of free neighbouring cells whose diagonals differ more than ``ratio``
-    times: where the conductivity jumps (:func:`sevenfold.solvers.levels.material_walls`)."""
+    times: where the conductivity jumps (:func:`sevenfold.solvers.levels.material_walls`).
+    Counted over the planes i in [lo, hi) alone (the boundaries across x after them); the
+    counts of a split of the planes add up to the whole's."""
     nx, ny, nz = diag.shape
     cx = np.zeros(max(nx - 1, 0), dtype=np.int64)
     cy = np.zeros(max(ny - 1, 0), dtype=np.int64)
-    for i in range(nx):
+    for i in range(lo, hi):
         for j in range(ny):
             nxt, side = 0, 0
             for m in range(nz):

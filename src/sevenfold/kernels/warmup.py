@@ -144,7 +144,7 @@ def _items(plan: GmgPlan) -> tuple[Items, dict[str, frozenset[str]]]:
         finite_volume.fine_stencil, *_arrays(f64, count=3), ~free, _arrays(f64), _arrays(f64), *widths,
         faces, faces, *_arrays(f64, count=2)))
     if plan.levels:  # the walls in the conductivity, read from the float64 operator
-        add("wall_counts", "float64", lambda: _build(multigrid.wall_counts, _arrays(f64), free, 10.0))
+        add("wall_counts", "float64", lambda: _build(multigrid.wall_counts, _arrays(f64), free, 10.0, 0, 4))
     for i in range(len(plan.levels)):
         # every level's arrays and right-hand side are in the levels' type (the finest smooths
         # a copy of CG's residual), except a finest level smoothed on the float64 operator

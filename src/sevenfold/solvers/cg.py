@@ -23,6 +23,7 @@ from typing import Callable, Protocol
 import numpy as np
 
 from ..errors import Cancelled, SolverError
+from ..helper import halves
 
 
 MAX_RESTARTS = 3
@@ -102,6 +103,13 @@ def relative_residual(A, x: np.ndarray, b: np.ndarray) -> float:
     return r / nb if nb > 0 else r
 
 
+def widened(a: np.ndarray) -> np.ndarray:
+    """A float64 copy of ``a``, the halves on two cores."""
+    out = np.empty(a.shape)
+    halves(np.copyto, out, a)
+    return out
+
+
 def pcg(
     A,
     b: np.ndarray,
@@ -142,7 +150,8 @@ def pcg(
     monitor = monitor or QuietMonitor()
     start = time.perf_counter()
     n = b.shape[0]
-    x = np.zeros(n)
+    x = np.empty(n)
+    halves(lambda part: part.fill(0.0), x)  # (np.zeros: one thread's memset in a worker's slot)
     # norms by the true residual's kernel (||b - A x|| without storing it), not numpy's: a
     # BLAS call wakes BLAS's threads, which then spin beside ours for tens of milliseconds (the
     # first iterations' smoothing took twice its time at 128^3 in a process with two BLAS
@@ -161,10 +170,10 @@ def pcg(
         r = np.subtract(b, q, out=np.empty(n))
         if history[0] >= 1.0:  # a start worse than zero (possible on extreme grids): drop it
             x[...] = 0.0
-            r = b.astype(np.float64, copy=True)
+            r = widened(b)
             history[0] = 1.0
     else:
-        r = b.astype(np.float64, copy=True)
+        r = widened(b)
     monitor.iteration(0, history[0], 0.0)
     if history[0] <= rtol:
         return SolveResult(x, method, 0, True, history[0], setup_seconds,
@@ -189,17 +198,21 @@ def pcg(
     if copy is None:
         copy = r  # (the update stores r twice)
     z, rz = precondition_dot(r)
-    p = z.astype(np.float64)
+    p = widened(z)
     best_before = np.inf
     restarts = 0
     pending = 0.0  # the step whose alpha p is not in x yet (it joins the direction's pass)
 
     def catch_up() -> None:
-        """x += pending p now, before x is read (in chunks: no full-size temporary)."""
+        """x += pending p now, before x is read (in chunks: no full-size temporary; the
+        halves on two cores)."""
         nonlocal pending
         if pending:
-            for s in range(0, n, 1 << 16):
-                x[s:s + (1 << 16)] += pending * p[s:s + (1 << 16)]
+            def step(x: np.ndarray, p: np.ndarray) -> None:
+                for s in range(0, x.size, 1 << 16):
+                    x[s:s + (1 << 16)] += pending * p[s:s + (1 << 16)]
+
+            halves(step, x, p)
             pending = 0.0
 
     def stopped_short(stop: str, message: str, elapsed: float) -> SolverError:
@@ -246,7 +259,7 @@ def pcg(
             residual_into(A, x, b, r)  # restart from the true residual
             history[-1] = final
             z, rz = precondition_dot(r)
-            p = z.astype(np.float64)
+            p = widened(z)
             continue
         if it > stagnation_window:
             best_before = min(best_before, history[it - stagnation_window])

@@ -12,7 +12,7 @@ Both are our own kernels, so a gmg run imports neither scipy.linalg nor scipy.sp
 ms of every fresh process; benchmarks/RESULTS_COARSEST_KERNEL.md).
 
 With numba on two threads or more, a level of TWO_THREADS_FROM cells or more is factored on
-two: a helper thread (one per process, started on first use) factors the root's second
+two: the process's helper thread (:mod:`sevenfold.helper`) factors the root's second
 subtree while the calling thread factors the first, then the calling thread the root (the
 kernel releases the GIL); the factor is the serial one bit for bit. On an idle 2-core machine
 that took 0.58-0.60 of the serial time at 17 x 17 x 16 (5.5 against 9.2 ms), 16^3 and
@@ -28,19 +28,13 @@ make it so), a sparse LU takes over.
 
 from __future__ import annotations
 
-import os
-import threading
-from typing import TYPE_CHECKING
-
 import numba
 import numpy as np
 
+from ..helper import helper
 from ..kernels.fronts import fronts_factor, fronts_solve
 from .dissection import Fronts, fronts
 from .levels import Level
-
-if TYPE_CHECKING:
-    from concurrent.futures import ThreadPoolExecutor
 
 # Largest factor, front and waiting updates kept (entries; 8 bytes each): 17 x 17 x 16 needs
 # about 0.7 million; a coarsest level asked much larger than the default takes the sparse LU
@@ -101,7 +95,7 @@ def factor(tree: Fronts, level: Level, out: np.ndarray, two_threads: bool) -> in
         middle, first_stack, second_stack = tree.halves
         stack = np.empty(first_stack + second_stack)
         try:
-            second = _helper().submit(fronts_factor, *args, stack, offset, middle, nodes - 1,
+            second = helper().submit(fronts_factor, *args, stack, offset, middle, nodes - 1,
                                       first_stack)
         except RuntimeError:  # no thread to be had (exiting, or no more threads)
             second = None
@@ -112,29 +106,3 @@ def factor(tree: Fronts, level: Level, out: np.ndarray, two_threads: bool) -> in
                 theirs = second.result()  # (waited for in any case: it writes into ``out``)
             return mine or theirs or fronts_factor(*args, stack, offset, nodes - 1, nodes, 0)
     return fronts_factor(*args, np.empty(tree.stack), offset, 0, nodes, 0)
-
-
-_pool: ThreadPoolExecutor | None = None
-_pool_lock = threading.Lock()
-
-
-def _helper() -> ThreadPoolExecutor:
-    """The process's one helper thread, started on first use. Idle between factors; the
-    executor ends and joins it at interpreter exit. A forked child starts its own."""
-    from concurrent.futures import ThreadPoolExecutor  # (imported by the runs that use it)
-
-    global _pool
-    with _pool_lock:
-        if _pool is None:
-            _pool = ThreadPoolExecutor(1, thread_name_prefix="sevenfold-fronts")
-        return _pool
-
-
-def _forget_helper() -> None:
-    """After a fork: the child has no helper thread, whatever the parent had."""
-    global _pool, _pool_lock
-    _pool, _pool_lock = None, threading.Lock()
-
-
-if hasattr(os, "register_at_fork"):
-    os.register_at_fork(after_in_child=_forget_helper)

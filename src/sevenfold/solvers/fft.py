@@ -30,7 +30,6 @@ fluxes q per unit area and positive INTO the domain, b and the residual per unit
 from __future__ import annotations
 
 import math
-import os
 import time
 from concurrent.futures import ThreadPoolExecutor
 from typing import Callable
@@ -39,6 +38,7 @@ import numpy as np
 
 from ..errors import Cancelled, SolverError
 from ..grid import FACE_AXIS
+from ..helper import threads as default_workers  # the transforms' threads: numba's count
 from ..problem import Problem
 from .cg import Monitor, QuietMonitor, SolveResult
 
@@ -103,30 +103,6 @@ def eigenvalues(n: int, h: float, kind: str) -> np.ndarray:
     m = np.arange(n, dtype=np.float64)
     shift = 1.0 if kind == "dirichlet" else 0.0
     return 4.0 / h**2 * np.sin(np.pi * (m + shift) / (2.0 * n)) ** 2
-
-
-def default_workers() -> int:
-    """Threads for the transforms: numba's thread count (a slot's limit when one is set).
-
-    numba is not imported for this (the fft path needs no compiled kernel): when it is not
-    loaded yet, its rule is followed: ``NUMBA_NUM_THREADS``, else the CPUs this process may use.
-    """
-    import sys
-
-    numba = sys.modules.get("numba")
-    if numba is not None:
-        try:
-            return max(1, int(numba.get_num_threads()))
-        except Exception:  # pragma: no cover - a partly imported numba; fall through
-            pass
-    try:
-        return max(1, int(os.environ["NUMBA_NUM_THREADS"]))
-    except (KeyError, ValueError):
-        pass
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except (AttributeError, OSError):  # pragma: no cover - not Linux
-        return os.cpu_count() or 1
 
 
 def _transform(w: np.ndarray, kinds: tuple[str, ...], workers: int, inverse: bool) -> np.ndarray:

@@ -9,6 +9,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from ..helper import HALVES_FROM, both
 from ..kernels import multigrid, stencil
 from ..kernels.vector import PARALLEL_FROM
 
@@ -170,7 +171,12 @@ def material_walls(lv: Level) -> tuple[tuple[int, ...], tuple[int, ...], tuple[i
     between aggregates (benchmarks/RESULTS_MATERIAL_WALLS.md). Along z the lines solve
     exactly, and walls of both parities would keep z whole (:func:`aggregates`)."""
     nx, ny, nz = lv.shape
-    cx, cy = multigrid.wall_counts(lv.diag, lv.free, WALL_RATIO)
+    if lv.diag.size < HALVES_FROM:
+        cx, cy = multigrid.wall_counts(lv.diag, lv.free, WALL_RATIO, 0, nx)
+    else:  # the two halves of the planes on two cores
+        parts = both(lambda: multigrid.wall_counts(lv.diag, lv.free, WALL_RATIO, 0, nx // 2),
+                     lambda: multigrid.wall_counts(lv.diag, lv.free, WALL_RATIO, nx // 2, nx))
+        cx, cy = parts[0][0] + parts[1][0], parts[0][1] + parts[1][1]
     found = []
     for counts, plane in ((cx, ny * nz), (cy, nx * nz)):
         found.append(tuple(int(b) + 1 for b in np.nonzero(counts >= WALL_COVER * plane)[0]))
