@@ -66,6 +66,12 @@ def _check_finite(a: np.ndarray | float, where: str, positive: bool) -> None:
         raise JobError(f"must be positive everywhere, minimum is {lo!r}", where)
 
 
+def _checked(value: float | str | np.ndarray, field: np.ndarray) -> np.ndarray | float:
+    """What to check after ``_fill(field, value)``: a number itself (every cell holds it),
+    else the filled field."""
+    return value if isinstance(value, (int, float)) else field
+
+
 def _no_cell(where: str) -> JobError:
     return JobError("selects no cell centre; enlarge it or refine the grid", where)
 
@@ -115,8 +121,7 @@ def _component(spec: MaterialSpec, grid: Grid, a: int, selections: list[Cells], 
     k = np.empty(grid.shape, dtype=np.float64)
     value = base if base is not None else components(spec.base)[a]
     _fill(k, value, grid)  # type: ignore[arg-type]
-    _check_finite(value if isinstance(value, (int, float)) else k, "material.file" if base is not None else where,
-                  positive=True)
+    _check_finite(_checked(value, k), "material.file" if base is not None else where, positive=True)
     for i, (region, cells) in enumerate(zip(spec.region, selections)):
         v = _values(components(region.value)[a], grid, cells)
         if isinstance(v, np.ndarray):
@@ -175,8 +180,7 @@ def source(spec: SourceSpec, grid: Grid, base: np.ndarray | None = None) -> np.n
     f = np.empty(grid.shape, dtype=np.float64)
     value = base if base is not None else spec.base if spec.base is not None else 0.0
     _fill(f, value, grid)
-    _check_finite(value if isinstance(value, (int, float)) else f, "source.file" if base is not None else "source",
-                  positive=False)
+    _check_finite(_checked(value, f), "source.file" if base is not None else "source", positive=False)
     for i, (region, cells) in enumerate(zip(spec.region, region_cells(spec.region, grid, "source.region"))):
         if region.total is not None:
             f[cells] = region.total / selected_volume(grid, cells)

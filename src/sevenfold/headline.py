@@ -57,17 +57,12 @@ def _at(grid: Grid, flat_index: int) -> list[float]:
 
 def _arg_extreme(values: np.ndarray, which: str) -> int:
     """The flat index of the first largest (``which`` = "max") or smallest value, as numpy's
-    argmax or argmin gives it, the halves on two cores."""
+    argmax or argmin gives it (a NaN first of all): each half's on two cores, then the
+    first of the two by numpy's own rule."""
     pick = np.argmax if which == "max" else np.argmin
-    parts = halves(lambda part: (int(pick(part)), part), values)
-    offset, best, best_value = 0, 0, None
-    for i, part in parts:
-        v = part.flat[i]
-        if best_value is None or (v > best_value if which == "max" else v < best_value) or (
-                np.isnan(v) and not np.isnan(best_value)):
-            best, best_value = offset + i, v
-        offset += part.size
-    return best
+    parts = halves(lambda part: (int(pick(part)), part.size), values)
+    found = np.array([int(i) + sum(size for _, size in parts[:k]) for k, (i, _) in enumerate(parts)])
+    return int(found[pick(values.flat[found])])
 
 
 def _extreme(grid: Grid, values: np.ndarray, which: str, where: np.ndarray | None = None) -> dict[str, Any]:
