@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 import scipy.sparse.linalg as sla
 
+import sevenfold.helper as helper
 import sevenfold.solvers.coarsest as coarsest
 from conftest import write_layer_job
 from sevenfold.kernels.band import band_cholesky
@@ -221,18 +222,22 @@ def test_a_pivot_not_positive_in_either_subtree_or_the_root_takes_the_sparse_lu(
 
 
 def test_without_a_helper_thread_the_factor_is_serial(monkeypatch) -> None:
-    """When no thread can be had (the interpreter exiting, threads run out), the factor runs
-    serially and is the same."""
+    """When no thread can be had (the interpreter exiting, threads run out), the two subtrees
+    and the root are factored in this thread, and the factor is the serial one."""
     class NoThreads:
         def submit(self, *args):
             raise RuntimeError("can't start new thread")
 
     level = random_level((9, 9, 16), seed=6)
     serial = factored(level, False)
-    monkeypatch.setattr(coarsest, "helper", NoThreads)
+    monkeypatch.setattr(helper, "threads", lambda: 2)
+    monkeypatch.setattr(helper, "helper", NoThreads)
     calls = recorded_calls(monkeypatch)
     assert np.array_equal(factored(level, True), serial)
-    assert calls == [(threading.current_thread().name, 0, fronts(level.shape).own.size)]
+    tree = fronts(level.shape)
+    nodes, middle = tree.own.size, tree.halves[0]
+    me = threading.current_thread().name
+    assert calls == [(me, 0, middle), (me, middle, nodes - 1), (me, nodes - 1, nodes)]
 
 
 HELPER_PROBE = """

@@ -31,7 +31,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-from ..helper import helper
+from ..helper import both
 from ..kernels.fronts import fronts_factor, fronts_solve
 from .dissection import Fronts, fronts
 from .levels import Level
@@ -84,8 +84,9 @@ class CoarsestSolver:
 def factor(tree: Fronts, level: Level, out: np.ndarray, two_threads: bool) -> int:
     """``fronts_factor`` of ``level`` (its fronts ``tree``) into ``out``: 0, or 1 when the
     matrix is not positive definite. On ``two_threads`` (when the root has two subtrees) the
-    helper thread factors the root's second subtree while this thread factors the first, then
-    the root; the factor is the same bit for bit."""
+    helper thread factors the root's second subtree while this thread factors the first
+    (:func:`sevenfold.helper.both`: both here when no thread can be had), then the root; the
+    factor is the same bit for bit."""
     arrays = (np.ascontiguousarray(a, dtype=np.float64)
               for a in (level.tx, level.ty, level.tz, level.diag))
     args = (*arrays, tree.index, tree.start, tree.own, tree.first, tree.factor_start, out)
@@ -94,15 +95,7 @@ def factor(tree: Fronts, level: Level, out: np.ndarray, two_threads: bool) -> in
     if two_threads and tree.halves is not None:
         middle, first_stack, second_stack = tree.halves
         stack = np.empty(first_stack + second_stack)
-        try:
-            second = helper().submit(fronts_factor, *args, stack, offset, middle, nodes - 1,
-                                      first_stack)
-        except RuntimeError:  # no thread to be had (exiting, or no more threads)
-            second = None
-        if second is not None:
-            try:
-                mine = fronts_factor(*args, stack, offset, 0, middle, 0)
-            finally:
-                theirs = second.result()  # (waited for in any case: it writes into ``out``)
-            return mine or theirs or fronts_factor(*args, stack, offset, nodes - 1, nodes, 0)
+        mine, theirs = both(lambda: fronts_factor(*args, stack, offset, 0, middle, 0),
+                            lambda: fronts_factor(*args, stack, offset, middle, nodes - 1, first_stack))
+        return mine or theirs or fronts_factor(*args, stack, offset, nodes - 1, nodes, 0)
     return fronts_factor(*args, np.empty(tree.stack), offset, 0, nodes, 0)
