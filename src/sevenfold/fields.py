@@ -12,7 +12,7 @@ import numpy as np
 from .errors import JobError
 from .expressions import evaluate
 from .grid import Grid
-from .helper import halves
+from .helper import fill, halves
 from .shapes import box_slices, mask
 from .spec import Box, MaterialSpec, SourceSpec, components
 
@@ -53,7 +53,7 @@ def _fill(field: np.ndarray, value: float | str | np.ndarray, grid: Grid) -> Non
     elif isinstance(value, np.ndarray):
         field[...] = value
     else:
-        halves(lambda part: part.fill(value), field)
+        fill(field, value)
 
 
 def _check_finite(a: np.ndarray | float, where: str, positive: bool) -> None:

@@ -99,3 +99,9 @@ def halves(fn: Callable[..., Any], *arrays: np.ndarray) -> list[Any]:
         return [fn(*arrays)]
     h = a.shape[0] // 2
     return both(lambda: fn(*(x[:h] for x in arrays)), lambda: fn(*(x[h:] for x in arrays)))
+
+
+def fill(a: np.ndarray, value: float) -> None:
+    """``a[...] = value``, the halves on two cores (np.zeros or np.full on memory that malloc
+    kept is one thread's write)."""
+    halves(lambda part: part.fill(value), a)

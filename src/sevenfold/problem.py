@@ -21,7 +21,7 @@ from .conditions import (ContactTerms, ExchangeTerms, PatchTerms, apply_patches,
 from .electrodes import floating_charges
 from .errors import JobError
 from .grid import FACE_AXIS, Grid, grid_from_spec
-from .helper import halves
+from .helper import fill
 from .physics import PHYSICS
 from .spec import JobSpec
 from .wells import Well, place_wells, total_rate
@@ -94,7 +94,7 @@ def build_problem(
     held = np.zeros(grid.shape, dtype=np.bool_)
     held_value = np.zeros(grid.shape, dtype=np.float64)
     hold_index = np.empty(grid.shape, dtype=np.int32)
-    halves(lambda part: part.fill(-1), hold_index)
+    fill(hold_index, -1)
     for i, (hold, m) in enumerate(zip(spec.hold, fields.region_masks(spec.hold, grid, "hold"))):
         held |= m
         held_value[m] = hold.value if hold.value is not None else 0.0  # floating: 0 V, see electrodes.py

@@ -23,7 +23,7 @@ from typing import Callable, Protocol
 import numpy as np
 
 from ..errors import Cancelled, SolverError
-from ..helper import halves
+from ..helper import fill, halves
 
 
 MAX_RESTARTS = 3
@@ -151,7 +151,7 @@ def pcg(
     start = time.perf_counter()
     n = b.shape[0]
     x = np.empty(n)
-    halves(lambda part: part.fill(0.0), x)  # (np.zeros: one thread's memset in a worker's slot)
+    fill(x, 0.0)
     # norms by the true residual's kernel (||b - A x|| without storing it), not numpy's: a
     # BLAS call wakes BLAS's threads, which then spin beside ours for tens of milliseconds (the
     # first iterations' smoothing took twice its time at 128^3 in a process with two BLAS

@@ -28,10 +28,9 @@ make it so), a sparse LU takes over.
 
 from __future__ import annotations
 
-import numba
 import numpy as np
 
-from ..helper import both
+from ..helper import both, threads
 from ..kernels.fronts import fronts_factor, fronts_solve
 from .dissection import Fronts, fronts
 from .levels import Level
@@ -58,7 +57,7 @@ class CoarsestSolver:
         tree = self._tree = fronts(level.shape) if level.diag.size <= LEVEL_CELLS else None
         if tree is not None and tree.entries <= FRONT_ENTRIES:
             self._factor = np.empty(int(tree.factor_start[-1]))
-            two = numba.get_num_threads() > 1 and level.diag.size >= TWO_THREADS_FROM
+            two = threads() > 1 and level.diag.size >= TWO_THREADS_FROM
             if factor(tree, level, self._factor, two) == 0:
                 self.kind = "fronts"
         if self.kind == "lu":
