@@ -80,6 +80,7 @@ VARIANTS = {
         "W", "line", "scaled", "float32", "zero", smoothing=2, two_pass=True),
     "W(2,2) z-line scaled f32, finest level W(1,1)": _v(
         "W", "line", "scaled", "float32", "zero", smoothing=2, finest_sweeps=1),
+    "W(3,3) z-line scaled f32": _v("W", "line", "scaled", "float32", "zero", smoothing=3),
     "W(2,2) z-line scaled f32, finest level W(3,3)": _v(
         "W", "line", "scaled", "float32", "zero", smoothing=2, finest_sweeps=3),
     **{f"W(2,2) z-line scaled f32, finest level over-relaxed {w}": _v(
