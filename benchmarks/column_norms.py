@@ -31,7 +31,6 @@ from __future__ import annotations
 import argparse
 import datetime
 import shlex
-import subprocess
 import sys
 from pathlib import Path
 
@@ -42,6 +41,7 @@ sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parent / "tests"))
 
 import run as engine  # noqa: E402
+from speed import revision  # noqa: E402
 from cycle_bench import problem_level  # noqa: E402
 
 from sevenfold.kernels import lines  # noqa: E402
@@ -210,10 +210,8 @@ def main(argv=None) -> int:
     parser.add_argument("--cases", nargs="+", default=["column", "constant"])
     parser.add_argument("--results", default=str(HERE / "RESULTS_COLUMN_NORMS.md"))
     args = parser.parse_args(argv)
-    info = engine.machine()
-    info["sevenfold revision"] = subprocess.run(["git", "rev-parse", "--short", "HEAD"],
-                                                capture_output=True, text=True, cwd=HERE).stdout.strip()
-    info["date"] = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    info = {**engine.machine(), "sevenfold revision": revision(),
+            "date": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")}
     rows = []
     for n in args.sizes:
         for case in args.cases:

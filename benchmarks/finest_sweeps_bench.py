@@ -16,7 +16,6 @@ import argparse
 import datetime
 import gc
 import shlex
-import subprocess
 import sys
 from pathlib import Path
 
@@ -27,6 +26,7 @@ sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parent / "tests"))
 
 import run as engine  # noqa: E402
+from speed import revision  # noqa: E402
 from cycle_bench import patched, problem_level  # noqa: E402
 
 from sevenfold.solvers.gmg import solve_levels  # noqa: E402
@@ -82,10 +82,8 @@ def main(argv=None) -> int:
     parser.add_argument("--rounds", type=int, default=4)
     parser.add_argument("--results", default=str(HERE / "RESULTS_FINEST_SWEEPS.md"))
     args = parser.parse_args(argv)
-    info = engine.machine()
-    info["sevenfold revision"] = subprocess.run(["git", "rev-parse", "--short", "HEAD"],
-                                                capture_output=True, text=True, cwd=HERE).stdout.strip()
-    info["date"] = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    info = {**engine.machine(), "sevenfold revision": revision(),
+            "date": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")}
     rows = []
     for n in args.sizes:
         for case in args.cases:
