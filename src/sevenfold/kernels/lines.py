@@ -18,9 +18,13 @@ from .jit import njit
 # Columns a line sweep (and line_factor) takes as one block; _line_plane writes out its eight
 # recurrences
 LINE_BLOCK = 8
+# a * b + c as one fused multiply-add (one rounding), nothing else relaxed: the sweeps took
+# 0.93-0.99x their time (median over 15 rounds, 128^3 and 256^3, float32 and float64 levels;
+# benchmarks/RESULTS_CONTRACT.md)
+CONTRACT = {"contract"}
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, fastmath=CONTRACT, parallel=True)
 def line_factor(tz, diag, inv_w):
     """Pivots of the tridiagonal z-line systems (Thomas algorithm, common practice).
 
@@ -55,7 +59,7 @@ def line_factor(tz, diag, inv_w):
                     inv_w[i, j0 + c, m] = 1.0 / w[m * LINE_BLOCK + c]
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, fastmath=CONTRACT, inline="always")
 def _forward(r, l, inv_w, o, i, j, m, prev):
     """One forward step for column (i, j) at row m >= 1: z_m = rhs_m + l_{m-1} z_{m-1}, the
     right-hand side read from r[o + m] and y_m = z_m / w_m stored there (l in ``l[o + m]``)."""
@@ -64,7 +68,7 @@ def _forward(r, l, inv_w, o, i, j, m, prev):
     return v
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, fastmath=CONTRACT, inline="always")
 def _backward(r, l, u, o, i, j, m, nxt):
     """One back-substitution step for column (i, j) at row m: u_m = y_m + l_m u_{m+1}."""
     v = r[o + m] + l[o + m] * nxt
@@ -72,14 +76,14 @@ def _backward(r, l, u, o, i, j, m, nxt):
     return v
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, fastmath=CONTRACT, inline="always")
 def _line_buffer(u):
     """A thread's buffer for :func:`_line_plane`: LINE_BLOCK columns' right-hand sides, then
     as many columns' products l = tz / w."""
     return np.empty(2 * u.shape[2] * LINE_BLOCK, dtype=u.dtype)
 
 
-@njit(cache=True)
+@njit(cache=True, fastmath=CONTRACT)
 def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
     """Exact z-line solves for the columns (i, j) of plane i with (i + j) % 2 == colour, x and
     y neighbours taken from the current u, or, when ``zero``, taken as zero (u's current values
@@ -204,7 +208,7 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
         j0 += 2 * LINE_BLOCK
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, fastmath=CONTRACT, parallel=True)
 def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
     """One colour of zebra z-line Gauss-Seidel: exact solves along every z column (i, j) with
     (i + j) % 2 == colour (:func:`_line_plane`); the columns of one colour are independent."""
@@ -214,7 +218,7 @@ def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
         _line_plane(tx, ty, tz, inv_w, b, u, i, colour, False, r)
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, fastmath=CONTRACT, parallel=True)
 def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks, zero):
     """``sweeps`` zebra z-line Gauss-Seidel sweeps, each colour ``first`` then the other, in
     one pass over memory: the same result, bit for bit, as :func:`line_gauss_seidel_colour`
