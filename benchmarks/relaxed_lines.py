@@ -53,7 +53,8 @@ def _source() -> str:
     once("cache=True", "cache=False", count=src.count("cache=True"))
     once("def _backward(r, l, u, o, i, j, m, nxt):", "def _backward(r, l, u, o, i, j, m, nxt, w, z):")
     once(BACKWARD, RELAXED_BACKWARD)
-    once("@njit(cache=False, inline=\"always\")\ndef _line_buffer", STORE + "@njit(cache=False, inline=\"always\")\ndef _line_buffer")
+    buffer = "@njit(cache=False, fastmath=CONTRACT, inline=\"always\")\ndef _line_buffer"
+    once(buffer, STORE + buffer)
     once("def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):",
          "def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r, w, z):")
     once(r"_backward\(r, lb, u, (o\d?), ui, (a\d?), (m|last - k), (p\d?)\)",

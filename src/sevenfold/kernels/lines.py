@@ -18,9 +18,10 @@ from .jit import njit
 # Columns a line sweep (and line_factor) takes as one block; _line_plane writes out its eight
 # recurrences
 LINE_BLOCK = 8
-# a * b + c as one fused multiply-add (one rounding), nothing else relaxed: the sweeps took
-# 0.93-0.99x their time (median over 15 rounds, 128^3 and 256^3, float32 and float64 levels;
-# benchmarks/RESULTS_CONTRACT.md)
+# a * b + c as one fused multiply-add (one rounding), nothing else relaxed: a pass of two
+# sweeps took 0.86-0.98x its time without (medians over 15 rounds at 128^3 and 256^3; 0.90-0.94x
+# on float32 levels; benchmarks/RESULTS_CONTRACT.md), resident gmg jobs 0.95-0.97x
+# (RESULTS_CONTRACT_WHOLE.md)
 CONTRACT = {"contract"}
 
 
