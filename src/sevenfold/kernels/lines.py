@@ -93,8 +93,8 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
     Each column's system is solved as L D L^T with L unit lower bidiagonal (entries -l_{m-1},
     l_m = tz_m / w_m) and D = diag(w): forward z_m = rhs_m + l_{m-1} z_{m-1}, storing
     y_m = z_m / w_m, then u_m = y_m + l_m u_{m+1}. Each step's dependence on the step before is
-    one multiply and one add; the Thomas form, (rhs_m + tz_{m-1} y_{m-1}) / w_m, puts a third
-    operation on that chain (a smoothing step 0.88-0.92 of its time in a one-off of the kernel
+    one fused multiply-add (CONTRACT); the Thomas form, (rhs_m + tz_{m-1} y_{m-1}) / w_m, puts a
+    division on that chain too (a smoothing step 0.88-0.92 of its time in a one-off of the kernel
     alone, 0.90-1.05 on the solver's finest levels, benchmarks/RESULTS_LDL.md).
 
     Columns go in blocks of LINE_BLOCK: the block's right-hand sides are formed column by
