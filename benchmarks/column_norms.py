@@ -29,8 +29,6 @@ the seventh iteration) or cross 1e-8 at different iterations. Writes benchmarks/
 from __future__ import annotations
 
 import argparse
-import datetime
-import shlex
 import sys
 from pathlib import Path
 
@@ -41,7 +39,6 @@ sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parent / "tests"))
 
 import run as engine  # noqa: E402
-from speed import revision  # noqa: E402
 from cycle_bench import problem_level  # noqa: E402
 
 from sevenfold.kernels import lines  # noqa: E402
@@ -177,49 +174,44 @@ def study(n: int, case: str) -> dict:
                       else [float("nan")] * ITERATIONS)}
 
 
-def report(rows: list[dict], info: dict, command: str) -> str:
-    out = ["# The column's iterations: which norm the stopping test weighs\n",
-           f"Written by `{command}` on {info['date']}; every number below comes from that run. "
-           "Do not edit by hand: run the command again.\n",
-           __doc__.split("\n\n", 2)[2].split("\n\nCG here")[0] + "\n",
-           "Counts and residuals do not depend on the host's speed. *column share* = the share "
-           "of ||r||^2 in cells whose diagonal exceeds 100 times the median (the k = 1000 cells; "
-           "on constant k none). *spectrum* = the smallest and largest Ritz values after "
-           f"{ITERATIONS} CG iterations.\n",
-           "| case | cells | column cells | iterations to 1e-8: CG (the product) | right-preconditioned GMRES, "
-           "same Krylov space | CG, three sweeps | CG, a sweep pair more on the column | spectrum of M^-1 A |",
-           "|---|---|---|---|---|---|---|---|"]
+def report(rows: list[dict]) -> list[str]:
+    """The result file's body: the summary table, then each case's residuals."""
+    out = engine.opening(
+        __doc__, "Counts and residuals do not depend on the host's speed. *column share* = the "
+        "share of ||r||^2 in cells whose diagonal exceeds 100 times the median (the k = 1000 "
+        "cells; on constant k none). *spectrum* = the smallest and largest Ritz values after "
+        f"{ITERATIONS} CG iterations.",
+        ["case", "cells", "column cells", "iterations to 1e-8: CG (the product)",
+         "right-preconditioned GMRES, same Krylov space", "CG, three sweeps",
+         "CG, a sweep pair more on the column", "spectrum of M^-1 A"])
     for r in rows:
         out.append(f"| {r['case']} | {r['n']}^3 | {r['column cells']:.1%} | {crossing(r['cg'])} "
                    f"({r['product']}) | {crossing(r['gmres'])} | {crossing(r['three'])} | "
                    f"{crossing(r['block']) if r['column cells'] else 'n/a'} | "
                    f"{r['spectrum'][0]:.3f} to {r['spectrum'][1]:.3f} |")
     for r in rows:
-        out += ["", f"## {r['case']}, {r['n']}^3\n",
+        out += ["", f"## {r['case']}, {r['n']}^3", "",
                 "| iteration | CG | column share | GMRES, same space | CG, three sweeps | CG, a sweep pair more on the column |",
                 "|---|---|---|---|---|---|"]
         out += [f"| {i + 1} | {c:.2e} | {s:.1%} | {g:.2e} | {t:.2e} | {'n/a' if k != k else f'{k:.2e}'} |"
                 for i, (c, s, g, t, k) in enumerate(zip(r["cg"], r["shares"], r["gmres"], r["three"], r["block"]))]
-    out += ["", "## Machine\n", "| | |\n|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
-    return "\n".join(out) + "\n"
+    return out
 
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     parser.add_argument("--cases", nargs="+", default=["column", "constant"])
-    parser.add_argument("--results", default=str(HERE / "RESULTS_COLUMN_NORMS.md"))
+    parser.add_argument("--results", type=Path, default=HERE / "RESULTS_COLUMN_NORMS.md")
     args = parser.parse_args(argv)
-    info = {**engine.machine(), "sevenfold revision": revision(),
-            "date": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")}
+    lines, info = engine.report_head("column_norms.py", argv,
+                                     "The column's iterations: which norm the stopping test weighs")
     rows = []
     for n in args.sizes:
         for case in args.cases:
             rows.append(study(n, case))
             print(n, case, crossing(rows[-1]["cg"]), crossing(rows[-1]["gmres"]), flush=True)
-    command = "python benchmarks/column_norms.py " + shlex.join(argv if argv is not None else sys.argv[1:])
-    Path(args.results).write_text(report(rows, info, command.strip()))
-    print(f"wrote {args.results}")
+    engine.write_report(args.results, lines + report(rows), info)
     return 0
 
 

@@ -13,9 +13,6 @@ rounds twice). Writes benchmarks/RESULTS_CONTRACT.md.
 
 from __future__ import annotations
 
-import argparse
-import datetime
-import shlex
 import sys
 import time
 import types
@@ -30,7 +27,6 @@ sys.path.insert(0, str(HERE.parent / "tests"))
 
 import run as engine  # noqa: E402
 from cycle_bench import problem_level  # noqa: E402
-from speed import revision  # noqa: E402
 
 import sevenfold.kernels.lines as kept  # noqa: E402
 from sevenfold.solvers import gmg  # noqa: E402
@@ -78,32 +74,25 @@ def compare(plain, n: int, case: str, precision: str, rounds: int) -> dict:
             "median": float(np.median(ratios))}
 
 
-def report(rows: list[dict], info: dict, command: str, rounds: int) -> str:
-    out = ["# The z-line sweep with fused multiply-adds\n",
-           f"Written by `{command}` on {info['date']}; every number below comes from that run. "
-           "Do not edit by hand: run the command again.\n",
-           __doc__.split("\n\n", 2)[2].split("Writes")[0].strip() + "\n",
-           f"*best ratio* = contracted best / plain best over {rounds} rounds; *median ratio* = the "
-           "median over rounds of each round's ratio; *difference* = max |contracted - plain| / "
-           "max |plain| after one pass.\n",
-           "| case | cells | levels | plain ms (best) | contracted ms (best) | best ratio | median ratio | difference |",
-           "|---|---|---|---|---|---|---|---|"]
-    out += [f"| {r['case']} | {r['n']}^3 | {r['precision']} | {r['plain'] * 1e3:.1f} | "
-            f"{r['contracted'] * 1e3:.1f} | {r['best']:.3f} | {r['median']:.3f} | {r['difference']:.1e} |"
-            for r in rows]
-    out += ["", "## Machine\n", "| | |\n|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
-    return "\n".join(out) + "\n"
+def report(rows: list[dict], rounds: int) -> list[str]:
+    out = engine.opening(
+        __doc__, f"*best ratio* = contracted best / plain best over {rounds} rounds; *median "
+        "ratio* = the median over rounds of each round's ratio; *difference* = max |contracted "
+        "- plain| / max |plain| after one pass.",
+        ["case", "cells", "levels", "plain ms (best)", "contracted ms (best)", "best ratio",
+         "median ratio", "difference"])
+    return out + [f"| {r['case']} | {r['n']}^3 | {r['precision']} | {r['plain'] * 1e3:.1f} | "
+                  f"{r['contracted'] * 1e3:.1f} | {r['best']:.3f} | {r['median']:.3f} | {r['difference']:.1e} |"
+                  for r in rows]
 
 
 def main(argv=None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser = engine.ab_parser(__doc__, "RESULTS_CONTRACT.md", 15)
     parser.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     parser.add_argument("--cases", nargs="+", default=["column", "inclusions", "layered"])
-    parser.add_argument("--rounds", type=int, default=15)
-    parser.add_argument("--results", default=str(HERE / "RESULTS_CONTRACT.md"))
     args = parser.parse_args(argv)
-    info = {**engine.machine(), "sevenfold revision": revision(),
-            "date": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")}
+    lines, info = engine.report_head("contract_bench.py", argv,
+                                     "The z-line sweep with fused multiply-adds")
     plain = plain_lines()
     rows = []
     for n in args.sizes:
@@ -112,9 +101,7 @@ def main(argv=None) -> int:
                 rows.append(compare(plain, n, case, precision, args.rounds))
                 r = rows[-1]
                 print(f"{case} {n}^3 {precision}: best {r['best']:.3f}, median {r['median']:.3f}", flush=True)
-    command = "python benchmarks/contract_bench.py " + shlex.join(argv if argv is not None else sys.argv[1:])
-    Path(args.results).write_text(report(rows, info, command.strip(), args.rounds))
-    print(f"wrote {args.results}")
+    engine.write_report(args.results, lines + report(rows, args.rounds), info)
     return 0
 
 

@@ -12,10 +12,7 @@ benchmarks/RESULTS_FINEST_SWEEPS.md.
 
 from __future__ import annotations
 
-import argparse
-import datetime
 import gc
-import shlex
 import sys
 from pathlib import Path
 
@@ -26,7 +23,6 @@ sys.path.insert(0, str(HERE))
 sys.path.insert(0, str(HERE.parent / "tests"))
 
 import run as engine  # noqa: E402
-from speed import revision  # noqa: E402
 from cycle_bench import patched, problem_level  # noqa: E402
 
 from sevenfold.solvers.gmg import solve_levels  # noqa: E402
@@ -59,39 +55,30 @@ def compare(n: int, case: str, rounds: int) -> dict:
             "best": min(seconds["three"]) / min(seconds["kept"]), "median": float(np.median(ratios))}
 
 
-def report(rows: list[dict], info: dict, command: str) -> str:
-    out = ["# Three finest sweeps against two, on two threads\n",
-           f"Written by `{command}` on {info['date']}; every number below comes from that run. "
-           "Do not edit by hand: run the command again.\n",
-           __doc__.split("\n\n", 2)[2].split("Writes")[0].strip() + "\n",
-           "*best ratio* = the three-sweep design's best seconds over the kept design's; "
-           "*median ratio* = the median over rounds of each round's ratio.\n",
-           "| case | cells | iterations, kept / three | kept s (best) | three s (best) | best ratio | median ratio |",
-           "|---|---|---|---|---|---|---|"]
-    out += [f"| {r['case']} | {r['n']}^3 | {r['iterations']['kept']} / {r['iterations']['three']} | "
-            f"{min(r['seconds']['kept']):.3f} | {min(r['seconds']['three']):.3f} | {r['best']:.3f} | "
-            f"{r['median']:.3f} |" for r in rows]
-    out += ["", "## Machine\n", "| | |\n|---|---|"] + [f"| {k} | {v} |" for k, v in info.items()]
-    return "\n".join(out) + "\n"
+def report(rows: list[dict]) -> list[str]:
+    out = engine.opening(
+        __doc__, "*best ratio* = the three-sweep design's best seconds over the kept design's; "
+        "*median ratio* = the median over rounds of each round's ratio.",
+        ["case", "cells", "iterations, kept / three", "kept s (best)", "three s (best)",
+         "best ratio", "median ratio"])
+    return out + [f"| {r['case']} | {r['n']}^3 | {r['iterations']['kept']} / {r['iterations']['three']} | "
+                  f"{min(r['seconds']['kept']):.3f} | {min(r['seconds']['three']):.3f} | {r['best']:.3f} | "
+                  f"{r['median']:.3f} |" for r in rows]
 
 
 def main(argv=None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser = engine.ab_parser(__doc__, "RESULTS_FINEST_SWEEPS.md", 4)
     parser.add_argument("--sizes", type=int, nargs="+", default=[128, 256])
     parser.add_argument("--cases", nargs="+", default=["column", "inclusions", "layered", "constant"])
-    parser.add_argument("--rounds", type=int, default=4)
-    parser.add_argument("--results", default=str(HERE / "RESULTS_FINEST_SWEEPS.md"))
     args = parser.parse_args(argv)
-    info = {**engine.machine(), "sevenfold revision": revision(),
-            "date": datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")}
+    lines, info = engine.report_head("finest_sweeps_bench.py", argv,
+                                     "Three finest sweeps against two, on two threads")
     rows = []
     for n in args.sizes:
         for case in args.cases:
             rows.append(compare(n, case, args.rounds))
             print(f"{case} {n}^3: best {rows[-1]['best']:.3f}, median {rows[-1]['median']:.3f}", flush=True)
-    command = "python benchmarks/finest_sweeps_bench.py " + shlex.join(argv if argv is not None else sys.argv[1:])
-    Path(args.results).write_text(report(rows, info, command.strip()))
-    print(f"wrote {args.results}")
+    engine.write_report(args.results, lines + report(rows), info)
     return 0
 
 
