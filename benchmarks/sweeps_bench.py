@@ -70,7 +70,10 @@ def one_sweep_per_pass(old):
 def two_sweeps(old, lv, b, u, threads: int) -> None:
     """One smoothing step (two sweeps) on ``lv`` with ``old``'s kernel: one call where it takes
     the number of sweeps, else one call per sweep."""
-    if old.line_gauss_seidel.py_func.__code__.co_argcount == 9:
+    argcount = old.line_gauss_seidel.py_func.__code__.co_argcount
+    if argcount == 10:  # the number of sweeps, and whether u starts at zero
+        old.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, 2, threads, False)
+    elif argcount == 9:
         old.line_gauss_seidel(lv.tx, lv.ty, lv.tz, lv.inv_w, b, u, 0, 2, threads)
     else:
         for _ in range(2):

@@ -23,6 +23,11 @@ LINE_BLOCK = 8
 # on float32 levels; benchmarks/RESULTS_CONTRACT.md), resident gmg jobs 0.95-0.97x
 # (RESULTS_CONTRACT_WHOLE.md)
 CONTRACT = {"contract"}
+# Bytes of one array's plane that a strip of the sweeps' wavefront spans: the strip's planes
+# of all six arrays then stay in a core's second-level cache while the stages pass over them.
+# A two-sweep pass on a 256^3 float32 level took 0.81-0.83x its time without strips at 16 and
+# 32 KiB, 0.85 at 64 and 0.97 at 128 (one-offs; benchmarks/RESULTS_STRIPS.md)
+STRIP_BYTES = 32768
 
 
 @njit(cache=True, fastmath=CONTRACT, parallel=True)
@@ -85,9 +90,9 @@ def _line_buffer(u):
 
 
 @njit(cache=True, fastmath=CONTRACT)
-def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
-    """Exact z-line solves for the columns (i, j) of plane i with (i + j) % 2 == colour, x and
-    y neighbours taken from the current u, or, when ``zero``, taken as zero (u's current values
+def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r, jlo, jhi):
+    """Exact z-line solves for the columns (i, j) of plane i with jlo <= j < jhi and
+    (i + j) % 2 == colour, x and y neighbours taken from the current u, or, when ``zero``, taken as zero (u's current values
     are not read: the first colour of a sweep from u = 0 needs neither u nor its zeroing).
 
     Each column's system is solved as L D L^T with L unit lower bidiagonal (entries -l_{m-1},
@@ -131,10 +136,10 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
     unz = np.uint64(nz)
     last = unz - one
     ui = np.uint64(i)
-    j0 = (i + colour) & 1
+    j0 = jlo + ((i + colour + jlo) & 1)
     lb = r[LINE_BLOCK * nz:]  # the block's products l
-    while j0 < ny:
-        nb = min(LINE_BLOCK, (ny - j0 + 1) // 2)
+    while j0 < jhi:
+        nb = min(LINE_BLOCK, (jhi - j0 + 1) // 2)
         for c in range(nb):
             j = j0 + 2 * c
             jm = j - 1 if j > 0 else min(j + 1, ny - 1)
@@ -209,6 +214,17 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r):
         j0 += 2 * LINE_BLOCK
 
 
+@njit(cache=True, inline="always")
+def strip_width(ny, nz, itemsize, stages):
+    """Columns in a strip of :func:`line_gauss_seidel`'s wavefront: about STRIP_BYTES of each
+    array's plane, a multiple of 2 LINE_BLOCK (full blocks of one colour); ny + stages - 1
+    (one strip for every stage) when the plane is no larger than that."""
+    if ny * nz * itemsize <= STRIP_BYTES:
+        return ny + stages - 1
+    w = (STRIP_BYTES // (nz * itemsize)) // (2 * LINE_BLOCK) * (2 * LINE_BLOCK)
+    return max(w, 2 * LINE_BLOCK)
+
+
 @njit(cache=True, fastmath=CONTRACT, parallel=True)
 def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
     """One colour of zebra z-line Gauss-Seidel: exact solves along every z column (i, j) with
@@ -216,7 +232,7 @@ def line_gauss_seidel_colour(tx, ty, tz, inv_w, b, u, colour):
     nx = u.shape[0]
     for i in prange(nx):
         r = _line_buffer(u)
-        _line_plane(tx, ty, tz, inv_w, b, u, i, colour, False, r)
+        _line_plane(tx, ty, tz, inv_w, b, u, i, colour, False, r, 0, u.shape[1])
 
 
 @njit(cache=True, fastmath=CONTRACT, parallel=True)
@@ -236,6 +252,12 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks, zero):
     border between runs (and at the grid's ends) follow once every run is done, stage by
     stage, one border per thread. Two sweeps in one pass took 0.84-0.85 of the time of two
     one-sweep passes on 256^3 finest levels, 0.91-0.95 on 128^3 (benchmarks/RESULTS_SWEEPS.md).
+
+    Within a run the columns go in strips along y (:func:`strip_width`), each strip a whole
+    wavefront over the run's planes, stage s's strip one column behind stage s - 1's: a column
+    of stage s reads its y neighbours at j - 1 and j + 1, which stage s - 1 has solved (its
+    strip reaches one column further), and stage s + 1, whose colour it reads, has stopped two
+    columns short of them. Solves are only reordered, so the result is the same bit for bit.
     """
     nx, ny = u.shape[0], u.shape[1]
     if zero and (nx < 2 or ny < 2):  # no column of the other colour beside a border column
@@ -248,21 +270,28 @@ def line_gauss_seidel(tx, ty, tz, inv_w, b, u, first, sweeps, chunks, zero):
         r = _line_buffer(u)
         for s in range(stages):
             for plane in range(nx):
-                _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, zero and s == 0, r)
+                _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, zero and s == 0, r,
+                            0, ny)
         return
     # the plane solve is a called function, not inlined: four inlined copies compiled in 18.6 s,
     # the call in 7 s, for sweeps within measurement noise of each other
+    width = strip_width(ny, u.shape[2], u.itemsize, stages)
+    strips = (ny + stages - 1 + width - 1) // width
     for k in prange(chunks):
         r = _line_buffer(u)
         lo, hi = k * nx // chunks, (k + 1) * nx // chunks
-        for i in range(lo, hi + stages - 1):
-            for s in range(stages):
-                plane = i - s
-                if lo + s <= plane <= hi - 1 - s:
-                    _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, zero and s == 0, r)
+        for q in range(strips):
+            for i in range(lo, hi + stages - 1):
+                for s in range(stages):
+                    plane = i - s
+                    jlo, jhi = max(q * width - s, 0), min((q + 1) * width - s, ny)
+                    if lo + s <= plane <= hi - 1 - s and jlo < jhi:
+                        _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2,
+                                    zero and s == 0, r, jlo, jhi)
     for k in prange(chunks + 1):  # the border at plane k nx / chunks (0 and nx: the ends)
         r = _line_buffer(u)
         p = k * nx // chunks
         for s in range(1, stages):
             for plane in range(max(p - s, 0), min(p + s, nx)):
-                _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, zero and s == 0, r)
+                _line_plane(tx, ty, tz, inv_w, b, u, plane, (first + s) % 2, zero and s == 0, r,
+                            0, ny)
