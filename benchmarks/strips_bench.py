@@ -8,7 +8,7 @@ alone and in whole gmg solves.
 the x-planes, each stage a plane behind the one before. On a 256^3 float32 level one array's
 plane is 256 KiB, so the six arrays' planes that the stages pass over (about six planes each)
 do not stay in a core's 2 MiB second-level cache, and every stage fetches them again from the
-shared last-level cache or memory. Now a plane larger than `lines.STRIP_BYTES` goes in strips
+shared last-level cache or memory. Now a plane over twice `lines.STRIP_BYTES` goes in strips
 of columns along y, each strip a whole wavefront, each stage's strip one column behind the
 stage before. The same solves in another order, so the same numbers bit for bit.
 

@@ -26,7 +26,7 @@ CONTRACT = {"contract"}
 # Bytes of one array's plane that a strip of the sweeps' wavefront spans: the strip's planes
 # of all six arrays then stay in a core's second-level cache while the stages pass over them.
 # A two-sweep pass on a 256^3 float32 level took 0.81-0.83x its time without strips at 16 and
-# 32 KiB, 0.85 at 64 and 0.97 at 128 (one-offs; benchmarks/RESULTS_STRIPS.md)
+# 32 KiB, 0.85 at 64 and 0.97 at 128 (one-offs), 0.83-0.84x at 32 in benchmarks/RESULTS_STRIPS.md
 STRIP_BYTES = 32768
 
 
@@ -218,8 +218,9 @@ def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r, jlo, jhi):
 def strip_width(ny, nz, itemsize, stages):
     """Columns in a strip of :func:`line_gauss_seidel`'s wavefront: about STRIP_BYTES of each
     array's plane, a multiple of 2 LINE_BLOCK (full blocks of one colour); ny + stages - 1
-    (one strip for every stage) when the plane is no larger than that."""
-    if ny * nz * itemsize <= STRIP_BYTES:
+    (one strip for every stage) when the plane is no larger than 2 STRIP_BYTES (a 128^3
+    float32 level's planes, 64 KiB, took 1.01-1.09x their time in strips of 32 KiB)."""
+    if ny * nz * itemsize <= 2 * STRIP_BYTES:
         return ny + stages - 1
     w = (STRIP_BYTES // (nz * itemsize)) // (2 * LINE_BLOCK) * (2 * LINE_BLOCK)
     return max(w, 2 * LINE_BLOCK)
