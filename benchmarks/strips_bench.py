@@ -34,18 +34,12 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
-import restrict_bench as rb  # noqa: E402
 import sweeps_bench  # noqa: E402
 
 
 def main(argv: list[str] | None = None) -> int:
-    from sevenfold.solvers import hierarchy
-
-    args = rb.ab_arguments(__doc__, "RESULTS_STRIPS.md", argv)
-    old = sweeps_bench.lines_at(args.against)
-    return sweeps_bench.report(args, argv, "strips_bench.py",
-                               "The z-line sweeps' wavefront in strips along y", __doc__, old,
-                               {(hierarchy, "lines"): old})
+    return sweeps_bench.lines_ab(__doc__, "RESULTS_STRIPS.md", "strips_bench.py",
+                                 "The z-line sweeps' wavefront in strips along y", argv)
 
 
 if __name__ == "__main__":

@@ -128,6 +128,16 @@ def main(argv: list[str] | None = None) -> int:
                   __doc__, old, then)
 
 
+def lines_ab(doc: str, results: str, script: str, title: str, argv: list[str] | None) -> int:
+    """The kernel and solve pairs of a z-line smoother as it is against ``--against``'s, the
+    solves with only hierarchy's ``lines`` module swapped; writes ``results`` (``report``)."""
+    from sevenfold.solvers import hierarchy
+
+    args = rb.ab_arguments(doc, results, argv)
+    old = lines_at(args.against)
+    return report(args, argv, script, title, doc, old, {(hierarchy, "lines"): old})
+
+
 def report(args, argv: list[str] | None, script: str, title: str, doc: str, old, then: dict) -> int:
     """Run the kernel and solve pairs for every size and case of ``args`` and write the
     report: ``old`` the revision's z-line smoother module, ``then`` the attributes its solves set
