@@ -650,7 +650,8 @@ def test_one_pass_line_sweeps_equal_the_colour_passes(shape, chunks, sweeps) -> 
             assert np.array_equal(one, two), (dtype, first, np.abs(one - two).max())
 
 
-@pytest.mark.parametrize("shape", [(5, 7, 9), (9, 19, 6), (1, 4, 3), (12, 35, 4), (64, 3, 4)])
+@pytest.mark.parametrize("shape", [(5, 7, 9), (9, 19, 6), (1, 4, 3), (12, 35, 4), (64, 3, 4),
+                                   (9, 66, 260)])
 @pytest.mark.parametrize("chunks", [1, 2, 5])
 def test_line_sweeps_from_zero_read_no_u(shape, chunks) -> None:
     """``zero``: sweeps from u = 0 on an array full of NaN give bit for bit what the sweeps

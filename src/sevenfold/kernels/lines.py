@@ -92,8 +92,9 @@ def _line_buffer(u):
 @njit(cache=True, fastmath=CONTRACT)
 def _line_plane(tx, ty, tz, inv_w, b, u, i, colour, zero, r, jlo, jhi):
     """Exact z-line solves for the columns (i, j) of plane i with jlo <= j < jhi and
-    (i + j) % 2 == colour, x and y neighbours taken from the current u, or, when ``zero``, taken as zero (u's current values
-    are not read: the first colour of a sweep from u = 0 needs neither u nor its zeroing).
+    (i + j) % 2 == colour, x and y neighbours taken from the current u, or, when ``zero``,
+    taken as zero (u's current values are not read: the first colour of a sweep from u = 0
+    needs neither u nor its zeroing).
 
     Each column's system is solved as L D L^T with L unit lower bidiagonal (entries -l_{m-1},
     l_m = tz_m / w_m) and D = diag(w): forward z_m = rhs_m + l_{m-1} z_{m-1}, storing
