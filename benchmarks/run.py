@@ -29,6 +29,7 @@ import json
 import os
 import platform
 import re
+import shlex
 import shutil
 import subprocess
 import sys
@@ -160,7 +161,7 @@ def report_head(script: str, argv: list[str] | None, title: str) -> tuple[list[s
                                                 text=True, cwd=HERE, check=False).stdout.strip()
     info["load average"] = " ".join(f"{x:.2f}" for x in os.getloadavg())
     date = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-    command = f"python benchmarks/{script} " + " ".join(sys.argv[1:] if argv is None else argv)
+    command = f"python benchmarks/{script} " + shlex.join(sys.argv[1:] if argv is None else argv)
     return [f"# {title}", "", f"Written by `{command.strip()}` on {date}; every number below comes "
             "from that run. Do not edit by hand: run the command again.", ""], info
 
