@@ -237,12 +237,17 @@ def test_selection_matches_the_full_mask() -> None:
     grid = Grid((np.cumsum(np.r_[0, np.linspace(0.05, 0.15, 10)]), np.linspace(0, 1, 8), np.linspace(-1, 1, 13)))
     for shape in (Sphere(center=(0.4, 0.3, 0.0), radius=0.35),
                   Cylinder(center=(0.5, 0.5, 0.0), radius=0.3, axis="x", length=0.6),
-                  Box(min=(0.1, 0.2, -0.5), max=(0.45, 0.9, 0.3))):
+                  Box(min=(0.1, 0.2, -0.5), max=(0.45, 0.9, 0.3)),
+                  Box(min=(2.0, 0.2, -0.5), max=(3.0, 0.9, 0.3))):  # outside the grid: no cells
         sel = selection(shape, grid)
         full = mask(shape, grid)
         assert np.array_equal(sel.full_mask(grid.shape), full)
         assert sel.cells == int(full.sum())
         assert sel.volume == pytest.approx(grid.volume(full), rel=1e-12)
+        if sel.cells:  # the integral and the maximum against the cell-by-cell sums
+            u = np.random.default_rng(3).standard_normal(grid.shape)
+            assert sel.integral(u, grid) == pytest.approx(float((u * grid.cell_volumes())[full].sum()), rel=1e-12)
+            assert sel.maximum(u) == u[full].max()
 
 
 

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .grid import Grid, weighted_sum
-from .shapes import mask
+from .shapes import box_slices, mask
 from .spec import Box, Cylinder, Sphere
 
 Shape = Box | Sphere | Cylinder
@@ -35,26 +35,27 @@ _QUADRATURE_POINTS = 600  # per axis of the clipped cross-section
 
 @dataclass(frozen=True)
 class Selection:
-    """The cells a shape selects: ``block`` (index slices of the grid) and ``mask`` on it."""
+    """The cells a shape selects: ``block`` (index slices of the grid) and ``mask`` on it,
+    None when every cell of the block is selected (a box)."""
 
     block: tuple[slice, slice, slice]
-    mask: np.ndarray  # bool, shaped like the block
+    mask: np.ndarray | None  # bool, shaped like the block
     cells: int
     volume: float  # m^3, the selected cells' volume
 
     def integral(self, field: np.ndarray, grid: Grid) -> float:
         """The sum of ``field`` times the cell volume over the selected cells (no copy of
         the selected values)."""
-        return weighted_sum(field[self.block], tuple(grid.widths(a)[self.block[a]] for a in range(3)),
-                            self.mask)
+        return weighted_sum(field[self.block], _block_widths(grid, self.block), self.mask)
 
     def maximum(self, field: np.ndarray) -> float:
         """The largest value of ``field`` on the selected cells (at least one)."""
-        return float(np.max(field[self.block], where=self.mask, initial=-np.inf))
+        where = True if self.mask is None else self.mask
+        return float(np.max(field[self.block], where=where, initial=-np.inf))
 
     def full_mask(self, shape: tuple[int, int, int]) -> np.ndarray:
         out = np.zeros(shape, dtype=bool)
-        out[self.block] = self.mask
+        out[self.block] = True if self.mask is None else self.mask
         return out
 
 
@@ -72,6 +73,11 @@ def bounds(shape: Shape) -> tuple[np.ndarray, np.ndarray]:
 
 def selection(shape: Shape, grid: Grid) -> Selection:
     """The cells whose centre lies in ``shape`` (the same test as :func:`shapes.mask`)."""
+    if isinstance(shape, Box):  # one block of cells, no mask (shapes.box_slices)
+        block = box_slices(shape, grid)
+        cells = math.prod(max(0, s.stop - s.start) for s in block)
+        volume = math.prod(float(w.sum()) for w in _block_widths(grid, block)) if cells else 0.0
+        return Selection(block, None, cells, volume)
     lo, hi = bounds(shape)
     block = []
     for a in range(3):
@@ -87,6 +93,10 @@ def selection(shape: Shape, grid: Grid) -> Selection:
     cells = int(np.count_nonzero(m))
     volume = sub.volume(m) if cells else 0.0
     return Selection(tuple(block), m, cells, volume)  # type: ignore[arg-type]
+
+
+def _block_widths(grid: Grid, block: tuple[slice, slice, slice]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    return tuple(grid.widths(a)[block[a]] for a in range(3))  # type: ignore[return-value]
 
 
 def _domain(grid: Grid) -> tuple[np.ndarray, np.ndarray]:
