@@ -107,9 +107,7 @@ def region_cells(regions, grid: Grid, where: str) -> list[Cells]:
 
 def selected_volume(grid: Grid, cells: Cells) -> float:
     """Total volume of the cells that ``cells`` (:func:`region_cells`) selects."""
-    if isinstance(cells, tuple):
-        return float(np.prod([grid.widths(a)[s].sum() for a, s in enumerate(cells)]))
-    return grid.volume(cells)
+    return grid.block_volume(cells) if isinstance(cells, tuple) else grid.volume(cells)
 
 
 Coefficient = tuple[np.ndarray, np.ndarray, np.ndarray]

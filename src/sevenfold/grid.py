@@ -170,6 +170,10 @@ class Grid:
         """Total volume of the cells selected by the boolean mask ``where``."""
         return self.integrate(np.ones(()), where)
 
+    def block_volume(self, block: tuple[slice, slice, slice]) -> float:
+        """Total volume of the cells of an index block (m^3): the product of its width sums."""
+        return math.prod(float(self.widths(a)[s].sum()) for a, s in enumerate(block))
+
     def face_mesh(self, face: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Broadcastable centres of the boundary faces on ``face``; the result is 2D.
 

@@ -76,8 +76,7 @@ def selection(shape: Shape, grid: Grid) -> Selection:
     if isinstance(shape, Box):  # one block of cells, no mask (shapes.box_slices)
         block = box_slices(shape, grid)
         cells = math.prod(max(0, s.stop - s.start) for s in block)
-        volume = math.prod(float(w.sum()) for w in _block_widths(grid, block)) if cells else 0.0
-        return Selection(block, None, cells, volume)
+        return Selection(block, None, cells, grid.block_volume(block))
     lo, hi = bounds(shape)
     block = []
     for a in range(3):
