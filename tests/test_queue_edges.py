@@ -254,6 +254,44 @@ def test_forget_removes_finished_jobs_and_keeps_results_unless_asked(tmp_path: P
     assert not snapshot.exists() and not snapshot.parent.exists()
 
 
+def test_forget_deletes_only_a_result_the_job_itself_wrote(tmp_path: Path, home: Home, capsys) -> None:
+    big = small_job(tmp_path, "big")
+    assert run(home, "submit", str(big), capsys=capsys)[0] == 0
+    assert run(home, "cancel", "1", capsys=capsys)[0] == 0  # before it ever ran
+    output = Path(listing(home, capsys)[0]["output"])
+    # the same output written by a run of its own, outside the queue
+    assert main(["run", "--here", "--no-progress", str(big)]) == 0
+    capsys.readouterr()
+    assert is_complete(output)
+    code, out, _ = run(home, "forget", "--state", "cancelled", "--delete-results", capsys=capsys)
+    assert code == 0 and "forgotten; result kept (not written by this job: written outside the queue)" in out
+    assert is_complete(output) and log_path(output).exists()  # the user's result, untouched
+    # job 2 writes it and is forgotten, its result kept; job 3, the same output cancelled
+    # before it ran, did not write it
+    assert run(home, "submit", str(big), capsys=capsys)[0] == 0
+    finish(home, 2)
+    assert run(home, "forget", "2", capsys=capsys)[0] == 0
+    assert run(home, "submit", str(big), capsys=capsys)[0] == 0
+    assert run(home, "cancel", "3", capsys=capsys)[0] == 0
+    code, out, _ = run(home, "forget", "3", "--delete-results", capsys=capsys)
+    assert code == 0 and "result kept (not written by this job: written by job 2)" in out
+    assert is_complete(output)
+    # a job's result is its own until a separate run writes over it
+    assert run(home, "submit", str(big), capsys=capsys)[0] == 0
+    finish(home, 4)
+    assert main(["run", "--here", "--no-progress", str(big)]) == 0
+    capsys.readouterr()
+    code, out, _ = run(home, "forget", "4", "--delete-results", capsys=capsys)
+    assert code == 0 and "result kept (not written by this job: written outside the queue)" in out
+    assert is_complete(output)
+    # a job's own result goes with it
+    assert run(home, "submit", str(big), capsys=capsys)[0] == 0
+    finish(home, 5)
+    code, out, _ = run(home, "forget", "5", "--delete-results", capsys=capsys)
+    assert code == 0 and "forgotten; result deleted" in out
+    assert not output.exists() and not log_path(output).exists() and read_runs(output) == []
+
+
 def test_forget_of_a_batch_and_an_unusable_request(tmp_path: Path, home: Home, capsys) -> None:
     path = tmp_path / "sw.toml"
     path.write_text(SWEEP.format(k="[10.0, 20.0]", q="[1e3, 2e3]"))

@@ -206,7 +206,7 @@ def _retry(args: argparse.Namespace) -> int:
 def _forget(args: argparse.Namespace) -> int:
     import shutil
 
-    from .files import delete_result, remove_unused_inputs
+    from .files import delete_result, not_written_by, remove_unused_inputs
 
     out, _ = consoles()
     queue = queue_of(args)
@@ -224,10 +224,16 @@ def _forget(args: argparse.Namespace) -> int:
     in_use = queue.outputs_in_use(j.output for j in forgotten) if args.delete_results else {}
     for job, what in results:
         if what == "forgotten" and args.delete_results:
+            output = Path(job.output)
             if job.output in in_use:
                 what += f"; result kept (job {in_use[job.output]} writes it too)"
+            elif not output.exists():
+                what += "; it had no result"
+            elif (why := not_written_by(output, job.id, job.run_id, queue.home.root)) is not None:
+                what += f"; result kept ({why})"
             else:
-                what += "; result deleted" if delete_result(Path(job.output)) else "; it had no result"
+                delete_result(output)
+                what += "; result deleted"
         elif what == "forgotten":
             what += "; result kept" if Path(job.output).exists() else ""
         out.print(f"{job.id}  {escape(job.name)} ({job.state}): {escape(what)}", soft_wrap=True)
@@ -322,7 +328,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     f.add_argument("ids", nargs="*", metavar="ID", help="job ids or batch ids (b<number>)")
     f.add_argument("--state", choices=FINISHED, help="the jobs in this state (of the IDs, when given)")
     f.add_argument("--delete-results", action="store_true",
-                   help="delete their results too (with the residual log, probe table and run record)")
+                   help="delete the results these jobs wrote too (with the residual log, probe table "
+                        "and run record); a result something else wrote is kept")
     f.set_defaults(func=_forget)
 
     t = sub.add_parser("table", parents=[home],

@@ -196,6 +196,26 @@ def beside(output: Path) -> list[Path]:
     return [log_path(output), output.with_name(output.stem + ".probes.csv"), runs_path(output)]
 
 
+def not_written_by(output: Path, job_id: int, run_id: str | None, queue_root: Path) -> str | None:
+    """Why the result at ``output`` is not the one queue job ``job_id`` wrote in its last run
+    ``run_id``, or None when it is. The result's ``queue`` attribute (set by
+    :func:`.child.run_recorded`: job, run, ...) must name both; a result without one
+    (``sevenfold run --here``, another program) is never taken for the job's."""
+    from ..store import read_attrs
+
+    record = read_attrs(output).get("queue")
+    if not isinstance(record, dict):
+        return "not written by this job: written outside the queue"
+    where = record.get("queue")
+    if isinstance(where, str) and Path(where) != queue_root:
+        return f"not written by this job: written by job {record.get('job')} of the queue in {where}"
+    if record.get("job") != job_id:
+        return f"not written by this job: written by job {record.get('job')}"
+    if run_id is None or record.get("run") != run_id:
+        return "not written by this job's last run"
+    return None
+
+
 def delete_result(output: Path) -> list[Path]:
     """Delete a result and the files beside it; returns what existed and was removed.
 
