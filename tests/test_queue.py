@@ -219,7 +219,7 @@ def test_sweep_that_would_overwrite_one_result_is_refused(tmp_path: Path, home: 
     path.write_text(text)
     assert main(["submit", str(path), "--home", str(home.root)]) == 2
     assert "would both write" in capsys.readouterr().err
-    assert listing(home, capsys=capsys) == []
+    assert not home.db.exists()  # nothing queued: no queue was even started
 
 
 def test_a_bad_combination_is_refused_with_its_values(tmp_path: Path, home: Home, capsys) -> None:
@@ -227,7 +227,7 @@ def test_a_bad_combination_is_refused_with_its_values(tmp_path: Path, home: Home
     assert main(["submit", str(path), "--home", str(home.root)]) == 2
     err = " ".join(capsys.readouterr().err.split())
     assert "must be positive" in err and "sweep combination 1: material.region.0.value=-1" in err
-    assert listing(home, capsys=capsys) == []
+    assert not home.db.exists()  # nothing queued: no queue was even started
 
 
 # ---------------------------------------------------------------- refusals at submit

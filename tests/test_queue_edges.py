@@ -146,6 +146,21 @@ def test_submit_and_worker_start_a_queue_and_say_so(tmp_path: Path, capsys, monk
     assert "new queue in" in capsys.readouterr().err and (tmp_path / "other").is_dir()
 
 
+def test_a_refused_submit_creates_no_queue(tmp_path: Path, capsys) -> None:
+    where = tmp_path / "new"
+    bad = tmp_path / "bad.toml"
+    bad.write_text(small_job(tmp_path, "bad").read_text().replace("cells = [6, 6, 6]", "cells = [6, 6]"))
+    np.save(tmp_path / "k.npy", np.full((6, 6, 6), 3.0))
+    good = small_job(tmp_path, "good")  # names an input file, which a snapshot would copy
+    good.write_text(good.read_text().replace("value = 20.0", 'file = "k.npy"', 1))
+    twin = small_job(tmp_path, "twin", output="results/good.zarr")
+    for files in ([bad], [good, bad], [good, twin]):  # the last two write one result
+        assert main(["submit", *map(str, files), "--home", str(where)]) == 2
+        err = capsys.readouterr().err
+        assert "nothing was submitted" in err and "Traceback" not in err
+        assert "new queue" not in err and not where.exists()  # not even the folder
+
+
 # ---------------------------------------------------------------- retry of an edited job file
 def test_retry_says_the_file_changed_and_from_file_runs_the_edit(tmp_path: Path, home: Home, capsys) -> None:
     path = small_job(tmp_path, "edited", k=20.0)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import sqlite3
 import time
-from typing import Callable, Sequence
+from typing import Callable, Iterable, Sequence
 
 from ..errors import JobError, QueueError
 from .queries import Queries
@@ -26,15 +26,12 @@ class Actions(Queries):
         """
         now = time.time()
 
+        one_writer_each(job for job, _, _ in jobs)
+
         def fn(c: sqlite3.Connection) -> list[int]:
             batch_ids: dict[int, int] = {}
             ids = []
-            sources: dict[str, str] = {}  # output -> the job file of a job entered in this call
             for job, batch, group in jobs:
-                if job.output in sources:
-                    raise JobError(f"{job.output!r} is also the output of a job from {sources[job.output]}; "
-                                   "give each job its own output.path", "output.path", job.source)
-                sources[job.output] = job.source
                 other = _writer(c, job.output)
                 if other is not None:
                     raise JobError(_taken(job.output, other), "output.path", job.source)
@@ -160,6 +157,16 @@ class Actions(Queries):
 
         before = {j.id: j for j in self.jobs(ids=ids)}
         return [(before[i], what) for i, what in self.write(fn)]
+
+
+def one_writer_each(jobs: Iterable[NewJob]) -> None:
+    """JobError when two of ``jobs`` (entered together) write one output."""
+    sources: dict[str, str] = {}  # output -> the job file of the first job writing it
+    for job in jobs:
+        if job.output in sources:
+            raise JobError(f"{job.output!r} is also the output of a job from {sources[job.output]}; "
+                           "give each job its own output.path", "output.path", job.source)
+        sources[job.output] = job.source
 
 
 def _writer(c: sqlite3.Connection, output: str, other_than: int | None = None) -> sqlite3.Row | None:

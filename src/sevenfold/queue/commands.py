@@ -140,16 +140,17 @@ def clean_stale(queue: Queue) -> None:
 
 # ---------------------------------------------------------------- submit
 def _submit(args: argparse.Namespace) -> int:
-    from .submit import enqueue, prepare_all
+    from .submit import check_all, enqueue, snapshotted
 
     out, err = consoles()
-    queue = queue_of(args, create=True)
-    prepared, errors = prepare_all(args.jobs, queue.home)
+    checked, errors = check_all(args.jobs)  # before the queue: a refused submit creates nothing
     if errors:
         for exc in errors:
             err.print(f"[red]error:[/red] {escape(str(exc))}", soft_wrap=True)
         err.print(f"nothing was submitted ({len(errors)} of {len(args.jobs)} job files refused)")
         return 2
+    queue = queue_of(args, create=True)
+    prepared = [snapshotted(p, queue.home) for p in checked]
     jobs = enqueue(queue, prepared, args.priority, args.time_limit, args.max_attempts)
     if args.json:
         print(json.dumps([{"id": j.id, "name": j.name, "batch": j.batch_id, "output": j.output} for j in jobs],

@@ -22,6 +22,7 @@ from pathlib import Path
 from typing import Any, Sequence
 
 from ..errors import JobError
+from .actions import one_writer_each
 from .db import DEFAULT_MAX_ATTEMPTS, Queue
 from .records import Job, NewBatch, NewJob
 from .files import snapshot_input
@@ -127,6 +128,12 @@ def prepare(job_file: str | Path, home: Home, output: str | Path | None = None,
     ``output`` overrides ``output.path`` as ``run --output`` does; ``build=False`` checks
     the spec and the plan but does not build the problem (see :func:`_check`).
     """
+    return snapshotted(check(job_file, output, build), home)
+
+
+def check(job_file: str | Path, output: str | Path | None = None, build: bool = True) -> Prepared:
+    """Validate one job file as :func:`prepare` does, without a queue home: its jobs' tables
+    still name the original input files (:func:`snapshotted` copies them)."""
     job_file = Path(job_file)
     source = str(job_file)
     text, table = _read(job_file)
@@ -134,7 +141,7 @@ def prepare(job_file: str | Path, home: Home, output: str | Path | None = None,
     jobs: list[NewJob] = []
     outputs: dict[str, int | None] = {}
     for v in variants:
-        job = _prepare_variant(v, job_file, text, home, output, build)
+        job = _check_variant(v, job_file, text, output, build)
         if job.output in outputs:
             raise JobError(
                 f"sweep combinations {outputs[job.output]} and {v.index} would both write {job.output!r}; "
@@ -146,8 +153,19 @@ def prepare(job_file: str | Path, home: Home, output: str | Path | None = None,
     return Prepared(job_file, jobs, batch)
 
 
-def _prepare_variant(v: Variant, job_file: Path, text: str, home: Home,
-                     output: str | Path | None = None, build: bool = True) -> NewJob:
+def snapshotted(prepared: Prepared, home: Home) -> Prepared:
+    """``prepared`` with the files its jobs name copied into ``home``'s input snapshots."""
+    return dataclasses.replace(prepared, jobs=[_snapshot_job(j, home) for j in prepared.jobs])
+
+
+def _snapshot_job(job: NewJob, home: Home) -> NewJob:
+    table, inputs = _snapshot(job.job_table, Path(job.source), home)
+    return dataclasses.replace(job, job_table=table, inputs=inputs)
+
+
+def _check_variant(v: Variant, job_file: Path, text: str, output: str | Path | None = None,
+                   build: bool = True) -> NewJob:
+    """One combination validated; its table as it runs, before the snapshot of its inputs."""
     source = str(job_file)
     try:
         plan = _check(v, job_file, source, output, build)
@@ -156,12 +174,12 @@ def _prepare_variant(v: Variant, job_file: Path, text: str, home: Home,
             raise
         raise JobError(f"{exc.reason} (sweep combination {v.index}: {v.label})",
                        exc.where, exc.source or source) from None
-    run_table, inputs = _snapshot(v.table, job_file, home)
+    run_table = copy.deepcopy(v.table)
     if output is not None:  # the table says where the result goes, as the run will write it
         run_table.setdefault("output", {})["path"] = str(plan.output)
     return NewJob(
         name=plan.spec.name, output=str(plan.output), source=os.path.abspath(job_file), job_text=text,
-        job_table=run_table, inputs=inputs, cells=plan.cells, method=plan.method,
+        job_table=run_table, inputs=[], cells=plan.cells, method=plan.method,
         memory_bytes=plan.memory_bytes, variant=v.values,
     )
 
@@ -201,19 +219,25 @@ def prepare_again(job: Job, home: Home) -> NewJob:
             label = ", ".join(f"{k}={v!r}" for k, v in job.variant.items())
             raise JobError(f"the [sweep] no longer makes job {job.id}'s combination ({label}); "
                            "submit the file again for its new combinations", "sweep", str(job_file))
-        return _prepare_variant(chosen[0], job_file, text, home)
+        return _snapshot_job(_check_variant(chosen[0], job_file, text), home)
     if len(variants) != 1 or variants[0].values is not None:
         raise JobError(f"the file now has a [sweep]; job {job.id} was a single job: submit the file again",
                        "sweep", str(job_file))
-    return _prepare_variant(variants[0], job_file, text, home)
+    return _snapshot_job(_check_variant(variants[0], job_file, text), home)
 
 
-def prepare_all(job_files: Sequence[str | Path], home: Home) -> tuple[list[Prepared], list[JobError]]:
-    """Every file prepared, and the refusals of the bad ones (nothing is queued here)."""
+def check_all(job_files: Sequence[str | Path]) -> tuple[list[Prepared], list[JobError]]:
+    """Every file checked (:func:`check`), and the refusals of the bad ones, among them two
+    files that write one output; nothing is written anywhere."""
     done, errors = [], []
     for f in job_files:
         try:
-            done.append(prepare(f, home))
+            done.append(check(f))
+        except JobError as exc:
+            errors.append(exc)
+    if not errors:
+        try:
+            one_writer_each(job for p in done for job in p.jobs)
         except JobError as exc:
             errors.append(exc)
     return done, errors
@@ -229,7 +253,7 @@ def enqueue(queue: Queue, prepared: Sequence[Prepared], priority: int = 0,
 def submit(queue: Queue, job_files: Sequence[str | Path], priority: int = 0,
            time_limit: float | None = None, max_attempts: int = DEFAULT_MAX_ATTEMPTS) -> list[Job]:
     """Validate every file, then queue them all; a bad file raises its JobError, queuing nothing."""
-    prepared, errors = prepare_all(job_files, queue.home)
+    checked, errors = check_all(job_files)
     if errors:
         raise errors[0]
-    return enqueue(queue, prepared, priority, time_limit, max_attempts)
+    return enqueue(queue, [snapshotted(p, queue.home) for p in checked], priority, time_limit, max_attempts)
