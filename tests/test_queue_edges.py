@@ -8,10 +8,13 @@ import csv
 import io
 import json
 import os
+import signal
 import sqlite3
 import subprocess
 import sys
+import threading
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -30,7 +33,7 @@ from sevenfold.residual_log import log_path
 from sevenfold.runner import probes_csv_path
 from sevenfold.store import is_complete
 
-from queue_support import small_job
+from queue_support import WAIT, small_job, wait_for
 
 SWEEP = """
 name = "sw"
@@ -622,3 +625,40 @@ def test_a_slot_reads_requests_and_says_when_it_has_waited_long_enough() -> None
     thread.join(5.0)
     assert not thread.is_alive() and len(idle) <= 2
     os.close(read)
+
+
+# ---------------------------------------------------------------- a worker stopped by a signal
+@pytest.mark.parametrize("signum", [signal.SIGINT, signal.SIGTERM])
+def test_a_worker_says_which_signal_stopped_it_and_what_becomes_of_its_jobs(
+        home: Home, monkeypatch, signum: signal.Signals) -> None:
+    """SIGTERM as Ctrl-C's SIGINT: one line naming the signal and the running jobs, which go
+    back to the queue. The slots are stand-ins (no child process): slot 1 runs a job until
+    the worker stops, slot 2 is idle."""
+    from sevenfold.queue import worker
+
+    class Slot(threading.Thread):
+        def __init__(self, w: worker.Worker, index: int, threads: int) -> None:
+            super().__init__(daemon=True)
+            self.worker, self.busy, self.failure = w, False, None
+            self.current = SimpleNamespace(id=7, name="big", run_id="r7") if index == 1 else None
+
+        def run(self) -> None:
+            self.worker.stopping.wait(WAIT)
+
+    monkeypatch.setattr(worker, "Slot", Slot)
+    said: list[str] = []
+    w = worker.Worker(home, worker.WorkerOptions(slots=2), say=said.append)
+    before = signal.getsignal(signum)
+
+    def send() -> None:
+        wait_for(lambda: said, "the worker to start")
+        os.kill(os.getpid(), signum)
+
+    threading.Thread(target=send, daemon=True).start()
+    assert w.run(handle_signals=True) == 0
+    stops = [line for line in said if "asked to stop" in line]
+    assert len(stops) == 1, said
+    assert f"asked to stop ({signum.name}); the running jobs (7 big) stop at their next iteration " \
+           "and go back to the queue" in stops[0]
+    assert signal.getsignal(signum) is before  # the handler is the worker's only while it runs
+    assert worker.stop_notice(signum, []).endswith(f"asked to stop ({signum.name}); no job was running")

@@ -113,6 +113,9 @@ def test_a_worker_stopped_by_sigterm_puts_its_running_job_back(tmp_path: Path, w
     w.proc.send_signal(signal.SIGTERM)
     assert w.wait() == 0, w.output()
     assert "compiling" not in w.output()  # a new home: the kernels are in the install's cache
+    said = w.output()  # the signal and the job's fate, said before the job's own line
+    assert said.index(f"asked to stop (SIGTERM); the running jobs ({s['id']} interrupted)") \
+        < said.index(f"requeued {s['id']} interrupted (worker shutting down)"), said
     j = job(home, s["id"])
     assert j.state == "queued" and j.attempts == 1 and j.worker is None
     with Queue(home) as q:

@@ -44,6 +44,7 @@ from .db import Queue
 from .records import Claim
 from .files import read_runs, remove_partials
 from .home import Home, Timing
+from .worker import stop_notice
 
 INSTALL_HINT = "the cluster worker needs Dask: pip install 'sevenfold[cluster]'"
 CONNECT_TIMEOUT = 5.0  # s to reach the scheduler before giving up
@@ -125,8 +126,10 @@ class ClusterWorker:
     def say(self, text: str) -> None:
         self._say(f"{time.strftime('%H:%M:%S')}  {text}")
 
-    def request_stop(self, *_: object) -> None:
-        """Stop claiming; running tasks are asked to stop and their jobs requeued."""
+    def request_stop(self, signum: int, frame: object = None) -> None:
+        """A signal's handler: say so, stop claiming; running tasks are asked to stop and
+        their jobs requeued."""
+        self.say(stop_notice(signum, [r.claim for r in list(self.running.values())]))
         self.stopping.set()
 
     # ---------------------------------------------------------------- cluster facts

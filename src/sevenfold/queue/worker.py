@@ -26,7 +26,7 @@ import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable
+from typing import Callable, Sequence
 
 from ..errors import QueueError
 from ..memory import available_bytes, human
@@ -34,11 +34,11 @@ from .child_process import slot_environment
 from .db import Queue
 from .files import remove_partials
 from .home import Home, Timing
-from .records import ClaimResult
+from .records import Claim, ClaimResult
 from .slot import Slot
 from .wake import Bell
 
-__all__ = ["Worker", "WorkerOptions", "cores", "slot_environment"]
+__all__ = ["Worker", "WorkerOptions", "cores", "slot_environment", "stop_notice"]
 
 
 def cores() -> int:
@@ -47,6 +47,16 @@ def cores() -> int:
         return len(os.sched_getaffinity(0))
     except AttributeError:
         return os.cpu_count() or 1
+
+
+def stop_notice(signum: int, running: Sequence[Claim]) -> str:
+    """What a worker says when a signal (Ctrl-C's SIGINT, SIGTERM) asks it to stop: the
+    signal and what becomes of the jobs it runs."""
+    said = f"asked to stop ({signal.Signals(signum).name})"
+    if not running:
+        return f"{said}; no job was running"
+    jobs = ", ".join(f"{c.id} {c.name}" for c in running)
+    return f"{said}; the running jobs ({jobs}) stop at their next iteration and go back to the queue"
 
 
 @dataclass(frozen=True)
@@ -128,8 +138,10 @@ class Worker:
             queue.close()
 
     # ---------------------------------------------------------------- running
-    def request_stop(self, *_: object) -> None:
-        """Stop claiming; running solves are asked to stop and their jobs requeued."""
+    def request_stop(self, signum: int, frame: object = None) -> None:
+        """A signal's handler: say so, stop claiming; running solves are asked to stop and
+        their jobs requeued."""
+        self.say(stop_notice(signum, [s.current for s in self.slots if s.current is not None]))
         self.stopping.set()
 
     def _drained(self, queue: Queue) -> bool:
