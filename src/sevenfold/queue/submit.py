@@ -51,7 +51,8 @@ def file_references(table: dict[str, Any]) -> list[tuple[str, Any, Any]]:
 
 @dataclass(frozen=True)
 class Prepared:
-    """The jobs one job file stands for, validated and snapshotted."""
+    """The jobs one job file stands for, validated (:func:`check`) and, once
+    :func:`snapshotted`, naming the copies of their inputs in the queue home."""
 
     job_file: Path
     jobs: list[NewJob]

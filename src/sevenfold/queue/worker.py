@@ -141,7 +141,8 @@ class Worker:
     def request_stop(self, signum: int, frame: object = None) -> None:
         """A signal's handler: say so, stop claiming; running solves are asked to stop and
         their jobs requeued."""
-        self.say(stop_notice(signum, [s.current for s in self.slots if s.current is not None]))
+        running = [c for c in (s.current for s in self.slots) if c is not None]  # (each read once)
+        self.say(stop_notice(signum, running))
         self.stopping.set()
 
     def _drained(self, queue: Queue) -> bool:
