@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+import difflib
 import math
 import re
+import typing
 from typing import Any, Literal, Union
 
-from pydantic import BaseModel, ConfigDict, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, ValidationError, field_validator, model_validator
 
 from ..expressions import ExpressionError, check_expression
 
@@ -188,3 +190,47 @@ def _reason(err: dict[str, Any]) -> str:
             msg = msg[len(prefix):]
     return msg
 
+
+def explain(exc: ValidationError, model: type[BaseModel], also: tuple[str, ...] = ()) -> tuple[str, str]:
+    """(where, reason) of the error to show for ``exc``, raised validating ``model``.
+
+    An unknown key comes first: a misspelt table or key is usually why a required one is
+    missing too (``[materal]`` leaves ``material`` missing). It names the closest known key
+    at its place (``also``: keys the top level takes besides the model's fields), and a key
+    still missing beside it is named after it."""
+    errors = exc.errors()
+    unknown = [e for e in errors if e.get("type") == "extra_forbidden"]
+    if not unknown:
+        err = errors[0]
+        return _where(tuple(err["loc"])), _reason(err)
+    loc = tuple(unknown[0]["loc"])
+    reason = _reason(unknown[0])
+    known = sorted(_keys_at(model, loc[:-1]) | (set(also) if len(loc) == 1 else set()))
+    close = difflib.get_close_matches(str(loc[-1]), known, n=1)
+    if close:
+        reason += f"; did you mean {close[0]!r}?"
+    missing = [e for e in errors if e.get("type") == "missing"]
+    if missing:
+        reason += f" (and {_where(tuple(missing[0]['loc']))}: {_reason(missing[0])})"
+    return _where(loc), reason
+
+
+def _models(annotation: Any) -> list[type[BaseModel]]:
+    """The models an annotation holds: itself, or those of its unions, tuples and options."""
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        return [annotation]
+    return [m for arg in typing.get_args(annotation) for m in _models(arg)]
+
+
+def _keys_at(model: type[BaseModel], loc: tuple[Any, ...]) -> set[str]:
+    """The keys a table at ``loc`` (a pydantic error location below ``model``) may hold."""
+    models = [model]
+    for item in loc:
+        if isinstance(item, str) and any(item in m.model_fields for m in models):
+            models = [n for m in models if item in m.model_fields
+                      for n in _models(m.model_fields[item].annotation)]
+        elif isinstance(item, str):  # a union's tag: the member whose literal it is, if one is
+            tagged = [m for m in models if any(item in typing.get_args(f.annotation)
+                                               for f in m.model_fields.values())]
+            models = tagged or models
+    return {key for m in models for key in m.model_fields}

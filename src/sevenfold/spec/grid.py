@@ -7,7 +7,7 @@ from typing import Any, Literal, Union
 
 from pydantic import ValidationError, field_validator, model_validator
 
-from .base import _finite, _Frozen, _number, _positive, _reason, _where
+from .base import _finite, _Frozen, _number, _positive, explain
 
 
 # Adjacent cells along a graded axis may differ in width by at most this factor; a larger
@@ -88,8 +88,8 @@ def _edge_list(v: Any) -> Any:
         try:  # validated here so that errors name the segment's own keys
             return SegmentedAxis.model_validate(v)
         except ValidationError as exc:
-            err = exc.errors()[0]
-            raise ValueError(f"{_where(tuple(err['loc']))}: {_reason(err)}") from None
+            where, reason = explain(exc, SegmentedAxis)
+            raise ValueError(f"{where}: {reason}") from None
     if not isinstance(v, (list, tuple)) or len(v) < 2:
         raise ValueError("must be a list of at least two edge coordinates, a .npy path or a table of segments")
     out = []

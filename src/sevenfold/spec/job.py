@@ -10,7 +10,7 @@ from pydantic import PrivateAttr, ValidationError, field_validator, model_valida
 
 from ..errors import JobError
 from ..physics import DERIVED
-from .base import Vector3, _Frozen, _plain_name, _reason, _unique_names, _vector, _where
+from .base import Vector3, _Frozen, _plain_name, _unique_names, _vector, explain
 from .conditions import (BoundarySpec, ContactSpec, ExchangeSpec, HoldSpec, PatchSpec, WellSpec,
                          check_wells_and_electrodes)
 from .fields import MaterialSpec, SourceSpec
@@ -202,8 +202,8 @@ def parse_job(table: dict[str, Any], source: str = "") -> JobSpec:
     try:
         spec = JobSpec.model_validate(table)
     except ValidationError as exc:
-        err = exc.errors()[0]
-        raise JobError(_reason(err), _where(tuple(err["loc"])), source) from None
+        where, reason = explain(exc, JobSpec, also=("units", "sweep"))
+        raise JobError(reason, where, source) from None
     spec._unit_notes = notes
     return spec
 
