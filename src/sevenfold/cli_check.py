@@ -19,6 +19,7 @@ def check(args: argparse.Namespace) -> int:
     from .runner import plan_job, prepare_problem
     from .solvers.precision import coefficient_contrast, precision_note
     from .units import unit_notes
+    from .volumes import domain, extent_text
 
     plan = plan_job(args.job)
     plan, problem = prepare_problem(plan)  # settled: the method the built problem is solved with
@@ -38,7 +39,7 @@ def check(args: argparse.Namespace) -> int:
     for key, value in (
         ("job", f"{spec.name} ({spec.physics})"),
         ("cells", f"{nx} x {ny} x {nz} = {plan.cells:,}"),
-        ("box", " x ".join(f"[{o:.4g}, {o + e:.4g}]" for o, e in zip(grid.origin, grid.extent)) + " m"),
+        ("box", extent_text(*domain(grid))),
         ("cell widths", " x ".join(widths(a) for a in range(3)) + " m"),
         ("coefficient", "directional (kx, ky, kz)" if not problem.isotropic else "one value for every direction"),
         *placed_rows(problem),

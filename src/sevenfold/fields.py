@@ -15,6 +15,7 @@ from .grid import Grid
 from .helper import fill, halves
 from .shapes import box_slices, mask
 from .spec import Box, MaterialSpec, SourceSpec, components
+from .volumes import bounds, domain, extent_text, outside
 
 
 # the cells a region selects: a block of slices (a box) or a cell mask (other shapes)
@@ -72,7 +73,11 @@ def _checked(value: float | str | np.ndarray, field: np.ndarray) -> np.ndarray |
     return value if isinstance(value, (int, float)) else field
 
 
-def _no_cell(where: str) -> JobError:
+def _no_cell(region, grid: Grid, where: str) -> JobError:
+    """Why ``region`` selects no cell: it lies outside the block, or it is smaller than a cell."""
+    if outside(region.shape, grid):
+        return JobError(f"lies outside the block {extent_text(*domain(grid))} (its bounding box is "
+                        f"{extent_text(*bounds(region.shape))})", where)
     return JobError("selects no cell centre; enlarge it or refine the grid", where)
 
 
@@ -83,7 +88,7 @@ def region_masks(regions, grid: Grid, where: str, first: int = 0) -> list[np.nda
     for i, region in enumerate(regions, start=first):
         m = mask(region.shape, grid)
         if not m.any():
-            raise _no_cell(f"{where}.{i}")
+            raise _no_cell(region, grid, f"{where}.{i}")
         masks.append(m)
     return masks
 
@@ -98,7 +103,7 @@ def region_cells(regions, grid: Grid, where: str) -> list[Cells]:
         if isinstance(region.shape, Box):
             cells = box_slices(region.shape, grid)
             if any(s.stop <= s.start for s in cells):
-                raise _no_cell(f"{where}.{i}")
+                raise _no_cell(region, grid, f"{where}.{i}")
             out.append(cells)
         else:
             out.extend(region_masks([region], grid, where, first=i))

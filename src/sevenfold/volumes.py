@@ -71,6 +71,25 @@ def bounds(shape: Shape) -> tuple[np.ndarray, np.ndarray]:
     return c - half, c + half
 
 
+def domain(grid: Grid) -> tuple[np.ndarray, np.ndarray]:
+    """The grid's block: its lowest and highest corner (m)."""
+    lo = np.array(grid.origin, float)
+    return lo, lo + np.array(grid.extent, float)
+
+
+def outside(shape: Shape, grid: Grid) -> bool:
+    """The shape's bounding box shares no volume with the grid's block: no grid selects a
+    cell of it (a shape that overlaps the block may still be too small for its cells)."""
+    lo, hi = bounds(shape)
+    dlo, dhi = domain(grid)
+    return bool(np.any(np.minimum(hi, dhi) <= np.maximum(lo, dlo)))
+
+
+def extent_text(lo, hi) -> str:
+    """``[x0, x1] x [y0, y1] x [z0, z1] m``: a block's extent as ``check`` and messages show it."""
+    return " x ".join(f"[{a:.4g}, {b:.4g}]" for a, b in zip(lo, hi)) + " m"
+
+
 def selection(shape: Shape, grid: Grid) -> Selection:
     """The cells whose centre lies in ``shape`` (the same test as :func:`shapes.mask`)."""
     if isinstance(shape, Box):  # one block of cells, no mask (shapes.box_slices)
@@ -98,11 +117,6 @@ def _block_widths(grid: Grid, block: tuple[slice, slice, slice]) -> tuple[np.nda
     return tuple(grid.widths(a)[block[a]] for a in range(3))  # type: ignore[return-value]
 
 
-def _domain(grid: Grid) -> tuple[np.ndarray, np.ndarray]:
-    lo = np.array(grid.origin, float)
-    return lo, lo + np.array(grid.extent, float)
-
-
 def _interval(a: float, b: float, lo: float, hi: float) -> float:
     return max(0.0, min(b, hi) - max(a, lo))
 
@@ -122,7 +136,7 @@ def _disc_area(cu: float, cv: float, r: float, u: tuple[float, float], v: tuple[
 
 def true_volume(shape: Shape, grid: Grid) -> float:
     """The shape's volume inside the grid's box (m^3)."""
-    dlo, dhi = _domain(grid)
+    dlo, dhi = domain(grid)
     if isinstance(shape, Box):
         return math.prod(_interval(shape.min[a], shape.max[a], dlo[a], dhi[a]) for a in range(3))
     if isinstance(shape, Cylinder):
