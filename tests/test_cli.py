@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import os
+import subprocess
+import sys
 from pathlib import Path
 
 import zarr
@@ -47,6 +50,20 @@ def test_examples_are_valid_and_shipped() -> None:
     assert {"heat", "electrostatics", "groundwater"} <= physics
 
 
+def test_check_off_a_terminal_does_not_wrap(tmp_path: Path) -> None:
+    """Piped, a line is as long as it is: the output path, longer than 80 columns, stays whole
+    in the check table (rich would wrap at 80 without a terminal)."""
+    folder = tmp_path / ("a-folder-with-a-long-name-" + "x" * 80)
+    folder.mkdir()
+    job = write_job(folder)
+    env = {k: v for k, v in os.environ.items() if k != "COLUMNS"}
+    proc = subprocess.run([sys.executable, "-m", "sevenfold.cli", "check", str(job)],
+                          capture_output=True, text=True, timeout=120, env=env)
+    assert proc.returncode == 0, proc.stderr
+    (row,) = [line for line in proc.stdout.splitlines() if line.split()[:1] == ["output"]]
+    assert str(folder / "results" / "slab.zarr") in row
+
+
 def test_demo_runs_every_example(tmp_path: Path, capsys, warm_cache: Path) -> None:
     # a queue home of an earlier demo, which the demo replaces; its worker finds the kernels
     # compiled in the install's cache (the warm_cache fixture's)
@@ -55,6 +72,8 @@ def test_demo_runs_every_example(tmp_path: Path, capsys, warm_cache: Path) -> No
     (home / DEMO_MARK).touch()
     assert main(["demo", str(tmp_path / "demo")]) == 0
     text = capsys.readouterr().out
+    lines = text.splitlines()
+    assert any(line.startswith("submitted") and line.endswith("one after another:") for line in lines), text
     for job in sorted(examples_dir().glob("*.toml")):
         name = load_job(job).name
         result = tmp_path / "demo" / "results" / f"{name}.zarr"

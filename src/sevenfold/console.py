@@ -8,7 +8,7 @@ import math
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from rich.console import Console
+from rich.console import Console, ConsoleDimensions
 from rich.markup import escape
 from rich.table import Table
 
@@ -16,9 +16,29 @@ if TYPE_CHECKING:  # rich.progress loads only when a run shows progress
     from rich.progress import Progress
 
 
+# The width of a console that does not write to a terminal (a pipe, a file, a captured log):
+# lines are not broken where a terminal would have ended; only COLUMNS sets another width.
+UNWRAPPED = 10_000
+
+
 class _Console(Console):
-    """rich's Console, except that a closed stdout (``| head``) raises BrokenPipeError for
-    :func:`main` to end quietly, instead of rich's own exit with status 1."""
+    """rich's Console, except that
+
+    * off a terminal it does not wrap: it is :data:`UNWRAPPED` wide, unless COLUMNS is set
+      (rich's own default there is 80 columns, breaking sentences in a log mid-line);
+    * a closed stdout (``| head``) raises BrokenPipeError for :func:`main` to end quietly,
+      instead of rich's own exit with status 1."""
+
+    @property
+    def size(self) -> ConsoleDimensions:
+        size = super().size
+        if self._width is None and not self.is_terminal:
+            return ConsoleDimensions(UNWRAPPED, size.height)
+        return size
+
+    @size.setter
+    def size(self, new_size: tuple[int, int]) -> None:
+        Console.size.fset(self, new_size)  # type: ignore[attr-defined]
 
     def on_broken_pipe(self) -> None:
         self.quiet = True
