@@ -10,7 +10,7 @@ from pathlib import Path
 import zarr
 
 from sevenfold.cli import main
-from sevenfold.demo import DEMO_MARK, examples_dir
+from sevenfold.demo import DEMO_MARK, copy_examples, examples_dir
 from sevenfold.spec import load_job
 
 from conftest import write_layer_job
@@ -64,15 +64,33 @@ def test_check_off_a_terminal_does_not_wrap(tmp_path: Path) -> None:
     assert str(folder / "results" / "slab.zarr") in row
 
 
+def test_demo_keeps_an_edited_example(tmp_path: Path) -> None:
+    shipped = {p.name: p.read_bytes() for p in examples_dir().glob("*.toml")}
+    jobs, kept = copy_examples(tmp_path)
+    assert sorted(p.name for p in jobs) == sorted(shipped) and kept == []
+    edited = jobs[0]
+    edited.write_bytes(shipped[edited.name] + b"# my note\n")
+    jobs, kept = copy_examples(tmp_path)
+    assert kept == [edited] and edited in jobs
+    assert edited.read_bytes() == shipped[edited.name] + b"# my note\n"
+    assert all(p.read_bytes() == shipped[p.name] for p in jobs if p != edited)
+
+
 def test_demo_runs_every_example(tmp_path: Path, capsys, warm_cache: Path) -> None:
     # a queue home of an earlier demo, which the demo replaces; its worker finds the kernels
-    # compiled in the install's cache (the warm_cache fixture's)
+    # compiled in the install's cache (the warm_cache fixture's); an example edited since the
+    # earlier demo is kept and run as it is
     home = tmp_path / "demo" / "queue"
     (home / "jobs").mkdir(parents=True)
     (home / DEMO_MARK).touch()
+    edited = tmp_path / "demo" / "heat-spreader.toml"
+    mine = (examples_dir() / edited.name).read_text() + "# my note\n"
+    edited.write_text(mine)
     assert main(["demo", str(tmp_path / "demo")]) == 0
     text = capsys.readouterr().out
+    assert edited.read_text() == mine
     lines = text.splitlines()
+    assert any(line.startswith(f"kept your edited {edited}:") and "remove it" in line for line in lines), text
     assert any(line.startswith("submitted") and line.endswith("one after another:") for line in lines), text
     for job in sorted(examples_dir().glob("*.toml")):
         name = load_job(job).name

@@ -25,14 +25,20 @@ def examples_dir() -> Path:
     raise SevenfoldError("the example jobs are missing from this installation; reinstall sevenfold")
 
 
-def copy_examples(target: Path) -> list[Path]:
+def copy_examples(target: Path) -> tuple[list[Path], list[Path]]:
+    """The example jobs in ``target``: (every job file, those kept as they were). An example
+    already there that differs from the shipped one is the user's edit: it is kept, never
+    overwritten, and the demo runs it."""
     target.mkdir(parents=True, exist_ok=True)
-    copied = []
+    jobs, kept = [], []
     for src in sorted(examples_dir().glob("*.toml")):
         dst = target / src.name
-        shutil.copyfile(src, dst)
-        copied.append(dst)
-    return copied
+        if dst.exists() and dst.read_bytes() != src.read_bytes():
+            kept.append(dst)
+        else:
+            shutil.copyfile(src, dst)
+        jobs.append(dst)
+    return jobs, kept
 
 
 DEMO_MARK = ".sevenfold-demo-queue"  # marks a queue home the demo made and may replace
@@ -53,13 +59,17 @@ def fresh_queue_home(path: Path):
 
 
 def run_demo(target: Path, console: Console) -> int:
-    """Copy the examples to ``target``, queue them in ``target/queue``, drain it with a worker."""
+    """Copy the examples to ``target`` (keeping any the user edited there), queue them in
+    ``target/queue``, drain it with a worker."""
     from .queue.db import Queue
     from .queue.submit import submit
     from .queue.worker import Worker, WorkerOptions
 
-    jobs = copy_examples(target)
-    console.print(f"copied {len(jobs)} example jobs to {escape(str(target.resolve()))}")
+    jobs, kept = copy_examples(target)
+    console.print(f"copied {len(jobs) - len(kept)} example jobs to {escape(str(target.resolve()))}")
+    for path in kept:
+        console.print(f"kept your edited {escape(str(path))}: the demo runs it as it is; for the "
+                      "original, remove it or give the demo another folder (sevenfold demo DIR)")
     home = fresh_queue_home(target.resolve() / "queue")
     with Queue(home) as queue:
         queued = submit(queue, jobs)
