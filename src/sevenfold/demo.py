@@ -99,5 +99,6 @@ def run_demo(target: Path, console: Console) -> int:
     results = target.resolve() / "results"
     console.print(f"results (zarr groups) and residual logs are in {escape(str(results))}")
     console.print(f"the queue: sevenfold list --home {escape(str(home.root))}")
-    console.print("open one with xarray:  xarray.open_zarr(" + repr(str(results / "heat-spreader.zarr")) + ")")
+    console.print("open one with xarray (pip install xarray):  xarray.open_zarr("
+                  + repr(str(results / "heat-spreader.zarr")) + ")")
     return 1 if failures else 0
