@@ -232,7 +232,7 @@ def _result_attrs(path: Path) -> dict:
 
 # ---------------------------------------------------------------- watch
 def watch_command(args: argparse.Namespace) -> int:
-    from .watch import describe, plot, read_progress, switch_text
+    from .watch import describe, plot, queue_position, read_progress, switch_text
 
     out, _ = consoles()
     queue = queue_of(args)
@@ -241,7 +241,7 @@ def watch_command(args: argparse.Namespace) -> int:
 
     def position(j: Job) -> str:
         ahead = [q for q in queue.jobs(state="queued") if (q.priority, -q.id) > (j.priority, -j.id)]
-        return f"queued, {len(ahead)} job(s) ahead"
+        return queue_position(len(ahead))
 
     def panel(j: Job, text: str, history: list[float]):
         from rich.console import Group

@@ -1,8 +1,13 @@
 """Following a solve: convergence rate, iterations left to rtol, a terminal residual plot.
 
-The rate is the geometric mean reduction of the relative residual per iteration over the
-last :data:`RATE_WINDOW` iterations, ``(r_n / r_{n-w})^(1/w)``; the iterations left to reach
-``rtol`` at that rate are ``log(rtol / r_n) / log(rate)``.
+CG's residual is not monotone: one iteration may rise above the ones before it. So progress
+is measured on the best residual so far within the last :data:`RATE_WINDOW` iterations:
+the rate is its mean reduction per iteration over the window, ``(best_n / r_{n-w})^(1/w)``,
+and the iterations left to reach ``rtol`` are ``log(rtol / best_n) / log(rate)``. An estimate
+is given only while progress is steady: the window's two halves both reduce the best residual,
+at log-rates within a factor :data:`STEADY_SPREAD` of each other, and by more than
+:data:`STALL_RATE` per iteration (a stall, a crawl, a jump or a burst after a plateau gives
+none, rather than a wild number).
 """
 
 from __future__ import annotations
@@ -14,18 +19,49 @@ from typing import Any, Sequence
 
 from ..residual_log import log_path, read_log
 
-RATE_WINDOW = 5  # iterations
+RATE_WINDOW = 10  # iterations
+STEADY_SPREAD = 4.0  # largest ratio of the log-rates of the window's two halves
+MIN_WINDOW = 4  # fewer iterations give no estimate
+STALL_RATE = 0.99  # a slower reduction per iteration counts as a stall
 
 
-def rate(history: Sequence[float], window: int = RATE_WINDOW) -> float | None:
-    """Mean reduction factor per iteration over the last ``window`` iterations (None if unknown)."""
+def _best_so_far(history: Sequence[float], window: int) -> list[float] | None:
+    """The running minimum over the last ``window`` + 1 residuals (None if any is unusable)."""
     w = min(window, len(history) - 1)
     if w < 1:
         return None
-    new, old = history[-1], history[-1 - w]
-    if not (new > 0 and old > 0 and math.isfinite(new) and math.isfinite(old)):
+    tail = history[-1 - w:]
+    if not all(r > 0 and math.isfinite(r) for r in tail):
         return None
-    return (new / old) ** (1.0 / w)
+    best, out = math.inf, []
+    for r in tail:
+        best = min(best, r)
+        out.append(best)
+    return out
+
+
+def rate(history: Sequence[float], window: int = RATE_WINDOW) -> float | None:
+    """Mean reduction factor per iteration of the best residual over the last ``window``
+    iterations (None if unknown)."""
+    best = _best_so_far(history, window)
+    if best is None:
+        return None
+    return (best[-1] / best[0]) ** (1.0 / (len(best) - 1))
+
+
+def steady(history: Sequence[float], window: int = RATE_WINDOW) -> bool:
+    """True when both halves of the last ``window`` iterations reduce the best residual, at
+    log-rates within :data:`STEADY_SPREAD` of each other and faster than :data:`STALL_RATE`."""
+    best = _best_so_far(history, window)
+    if best is None or len(best) - 1 < MIN_WINDOW:
+        return False
+    w = len(best) - 1
+    k = w // 2
+    first = math.log(best[k] / best[0]) / k
+    second = math.log(best[w] / best[k]) / (w - k)
+    if not (first < math.log(STALL_RATE) and second < math.log(STALL_RATE)):
+        return False
+    return min(first, second) / max(first, second) <= STEADY_SPREAD  # both < 0: |faster| / |slower|
 
 
 def remaining(residual: float, rtol: float, factor: float | None) -> int | None:
@@ -155,6 +191,27 @@ def log_lines(p: Progress, csv: bool = False) -> list[str]:
     return out
 
 
+@dataclass(frozen=True)
+class Estimate:
+    """What is left of a solve: the rate per iteration over the window, the iterations and
+    seconds to rtol (None when unknown, or when progress is not steady)."""
+
+    factor: float | None
+    left: int | None
+    seconds: float | None
+
+
+def estimate(p: Progress) -> Estimate:
+    """The rate and what is left to rtol, from the last :data:`RATE_WINDOW` iterations."""
+    factor = rate(p.history)
+    if p.rtol is None or not p.history:
+        return Estimate(factor, None, None)
+    best = min(p.history[-1 - RATE_WINDOW:])
+    left = 0 if best <= p.rtol else remaining(best, p.rtol, factor) if steady(p.history) else None
+    per = seconds_per_iteration(p)
+    return Estimate(factor, left, None if left is None or per is None else left * per)
+
+
 def describe(p: Progress) -> str:
     """One line: iteration, residual, rate and what is left."""
     if not p.history:
@@ -165,17 +222,16 @@ def describe(p: Progress) -> str:
     parts = [f"iteration {p.iteration}", f"relative residual {r:.3e}"]
     if p.switches:
         parts.insert(0, f"{switch_text(p.switches[-1])}; now {p.method}")
-    f = rate(p.history)
-    if f is not None:
-        parts.append(f"rate {f:.3f} per iteration")
+    e = estimate(p)
+    if e.factor is not None:
+        parts.append(f"rate {e.factor:.3f} per iteration")
     if p.rtol is not None:
-        left = remaining(r, p.rtol, f)
-        if left is None and f is not None:
-            parts.append(f"not approaching rtol {p.rtol:.0e} at this rate")
-        elif left is not None and left > 0:
-            per = seconds_per_iteration(p)
-            eta = f", about {left * per:.0f} s" if per is not None else ""
-            parts.append(f"about {left} more to rtol {p.rtol:.0e}{eta}")
+        w = min(RATE_WINDOW, len(p.history) - 1)
+        if e.left is None and w >= MIN_WINDOW:
+            parts.append(f"no steady progress over the last {w} iterations: no estimate to rtol {p.rtol:.0e}")
+        elif e.left:
+            eta = f", about {e.seconds:.0f} s" if e.seconds is not None else ""
+            parts.append(f"about {e.left} more to rtol {p.rtol:.0e}{eta}")
     return ", ".join(parts)
 
 
@@ -185,3 +241,8 @@ def seconds_per_iteration(p: Progress) -> float | None:
     if w < 1:
         return None
     return (p.seconds[-1] - p.seconds[-1 - w]) / w
+
+
+def queue_position(ahead: int) -> str:
+    """Where a queued job stands: ``next to run`` or ``2 jobs ahead``."""
+    return "next to run" if ahead == 0 else f"{ahead} job{'s' if ahead != 1 else ''} ahead"

@@ -21,7 +21,7 @@ from typing import Any
 from ..queue.db import Queue
 from ..queue.home import Home, Timing
 from ..queue.records import Job
-from ..queue.watch import RATE_WINDOW, Progress, describe, rate, remaining, seconds_per_iteration
+from ..queue.watch import RATE_WINDOW, Progress, describe, estimate
 from ..residual_log import log_path
 
 MAX_POINTS = 1000  # residual points kept per log and sent per plot; thinned by stride beyond
@@ -212,12 +212,9 @@ class Logs:
                        ended=f.ended)
             if p.history:
                 r = p.history[-1]
-                factor = rate(p.history)
-                left = remaining(r, p.rtol, factor) if p.rtol is not None else None
-                per = seconds_per_iteration(p)
-                out.update(iteration=p.iteration, residual=r, rate=factor, left=left,
-                           eta_seconds=None if left is None or per is None else left * per,
-                           last=[p.iteration, r])
+                e = estimate(p)
+                out.update(iteration=p.iteration, residual=r, rate=e.factor, left=e.left,
+                           eta_seconds=e.seconds, last=[p.iteration, r])
             out["text"] = describe(p)
             if points:
                 since = -1 if reset else after
