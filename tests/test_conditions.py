@@ -417,7 +417,8 @@ method = "direct"
 
 
 def test_report_draws_patches_and_exchanges(tmp_path) -> None:
-    from sevenfold.report import placed_outlines, write_report
+    from sevenfold.report import write_report
+    from sevenfold.report_slices import placed_outlines
     from sevenfold.runner import run_job
 
     job = tmp_path / "spread.toml"

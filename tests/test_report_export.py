@@ -13,7 +13,9 @@ from test_converge import png_size
 from test_derived_probes import JOB
 
 from sevenfold.cli import main
+from sevenfold.export import open_result
 from sevenfold.report import DPI, SIZES
+from sevenfold.report_slices import slice_figsize
 
 
 @pytest.fixture(scope="module")
@@ -29,9 +31,11 @@ def test_report_files_and_links(result: Path, capsys) -> None:
     assert main(["report", str(result)]) == 0
     folder = result.with_name("probed.report")
     assert str(folder / "index.html") in " ".join(capsys.readouterr().out.split())
+    opened = open_result(result, warn=False)
+    sizes = dict(SIZES, **{"slices.png": slice_figsize([float(np.ptp(opened.edges(a))) for a in range(3)])})
     for name in ("residuals.png", "slices.png", "probes.png"):
         w, h = png_size(folder / name)
-        assert (w, h) == (round(SIZES[name][0] * DPI), round(SIZES[name][1] * DPI)), name
+        assert (w, h) == (round(sizes[name][0] * DPI), round(sizes[name][1] * DPI)), name
         assert (folder / name).stat().st_size > 10_000  # a drawn figure, not an empty canvas
     page = (folder / "index.html").read_text()
     refs = re.findall(r"""(?:src|href)\s*=\s*['"]([^'"]+)['"]""", page)

@@ -7,6 +7,7 @@ import json
 import tomllib
 from pathlib import Path
 
+import numpy as np
 import pytest
 from test_converge import png_size
 
@@ -14,7 +15,8 @@ from sevenfold.cli import main
 from sevenfold.export import open_result
 from sevenfold.queue.home import locate
 from sevenfold.queue.sweep import expand
-from sevenfold.report import DPI, SIZES
+from sevenfold.report import DPI
+from sevenfold.report_slices import slice_figsize
 from sevenfold.runner import run_job
 from sevenfold.spec import parse_job
 from sevenfold.study import run_study
@@ -89,8 +91,9 @@ def test_report_draws_the_wells(wellfield: Path, capsys) -> None:
     page = (folder / "index.html").read_text()
     assert "wells: triangles on the z plane" in page
     assert "from well pw1 (given rate; bore head" in page and "from well drain (given head; bore head 11 m)" in page
-    w, h = SIZES["slices.png"]
-    assert png_size(folder / "slices.png") == (int(w * DPI), int(h * DPI))
+    opened = open_result(wellfield / "results" / "wellfield.zarr", warn=False)
+    w, h = slice_figsize([float(np.ptp(opened.edges(a))) for a in range(3)])
+    assert png_size(folder / "slices.png") == (round(w * DPI), round(h * DPI))
 
 
 def test_converge_reports_the_bore_head_and_the_head_wells_rate(wellfield: Path) -> None:

@@ -240,6 +240,17 @@ def not_converged_warning(attrs: dict[str, Any]) -> str | None:
             + "; use it with care")
 
 
+def not_converged_mark(attrs: dict[str, Any]) -> str | None:
+    """The short line a figure of a result whose solve stopped short carries, else None."""
+    if attrs.get("converged", True):
+        return None
+    solver = attrs.get("solver", {})
+    best, rtol = solver.get("best_relative_residual"), solver.get("rtol")
+    return (f"NOT converged: {solver.get('stop', 'stopped short')}"
+            + (f", best relative residual {best:.2e}" if best is not None else "")
+            + (f" (rtol {rtol:.0e})" if rtol is not None else ""))
+
+
 def write_probe_csv(path: Path, probes, solution: str, units: str) -> Path:
     """One row per probe sample: probe, kind, sample, x, y, z, distance (m), value.
 
