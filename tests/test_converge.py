@@ -202,3 +202,34 @@ def test_a_failing_level_is_named(tmp_path: Path, capsys) -> None:
     assert main(["converge", str(job), "--folder", str(tmp_path / "s")]) == 2
     err = " ".join(capsys.readouterr().err.split())
     assert "level 1 (12 x 12 x 12 cells): hold.0: selects no cell centre" in err and "Traceback" not in err
+
+
+def test_the_figure_gives_no_order_to_an_oscillatory_quantity() -> None:
+    """A made-up study of three levels: ``smooth`` follows f0 + c h^2, ``wobbly`` swings about
+    its limit. The legend gives the first its order and says the second has none; the second
+    is drawn as its change from the finest level, with no extrapolated value in it."""
+    from sevenfold.report_study import draw_study
+    from sevenfold.study import Level, Study
+
+    hs = [0.04, 0.02, 0.01]
+    smooth = [1.0 + 0.5 * h**2 for h in hs]
+    wobbly = [2.0 + 0.01 * (-1) ** i * h for i, h in enumerate(hs)]
+    levels = [Level((n, n, n), h, (2.0, 2.0, 2.0), {"smooth": s, "wobbly": w}, "")
+              for n, h, s, w in zip((4, 8, 16), hs, smooth, wobbly)]
+    results = {key: gci_three_grids(v[2], v[1], v[0], 2.0, 2.0) for key, v in
+               (("smooth", smooth), ("wobbly", wobbly))}
+    assert results["wobbly"].convergence == "oscillatory" and math.isfinite(results["wobbly"].order)
+    fig = draw_study(Study("made-up", "K", "W", levels, results))
+    try:
+        lines = {ln.get_label(): ln for ln in fig.axes[0].get_lines()}
+        legend = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    finally:
+        import matplotlib.pyplot as plt
+
+        plt.close(fig)
+    assert f"smooth (p = {results['smooth'].order:.2f})" in legend
+    (label,) = [t for t in legend if t.startswith("wobbly")]
+    assert "oscillatory, no order" in label and "p =" not in label
+    ys = lines[label].get_ydata()
+    expected = [abs(w - wobbly[-1]) / abs(wobbly[-1]) for w in wobbly[:-1]]
+    assert list(ys) == pytest.approx(expected, rel=1e-12)

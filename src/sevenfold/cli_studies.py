@@ -68,7 +68,8 @@ def capacitance(args: argparse.Namespace) -> int:
 
 def converge(args: argparse.Namespace) -> int:
     """``converge``: the levels, the selected volumes and the GCI table; a figure."""
-    from .study import plot_study, run_study
+    from .report_study import plot_study
+    from .study import run_study
 
     def progress(level: int, cells) -> None:
         out.print(f"level {level}: {cells[0]} x {cells[1]} x {cells[2]} cells ...")

@@ -30,7 +30,8 @@ more than 10 % of the shape's volume solves a different geometry on each level a
 (``geometry_changes``): its GCI mixes discretisation error with the changing shape. A level
 that fails is named in the error.
 
-This module runs jobs and writes the study's files; the formulas live in gci.py.
+This module runs jobs and writes the study's files; the formulas live in gci.py, the figure in
+report_study.py.
 """
 
 from __future__ import annotations
@@ -276,44 +277,3 @@ def run_study(job_file: str | Path, levels: int = 3, ratio: float = 2.0,
     with writing(folder / "study.json", "the study"):
         (folder / "study.json").write_text(json.dumps(study.to_dict(), indent=2, default=float))
     return study
-
-
-def plot_study(study: Study, target: str | Path) -> Path:
-    """Log-log PNG: |f(h) - f_extrapolated| / |f_extrapolated| against cell size h, per quantity."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    target = Path(target)
-    hs = np.array([lv.h for lv in study.levels])
-    fig, ax = plt.subplots(figsize=(6.4, 4.8), dpi=100)
-    plotted = False
-    for key, res in study.results.items():
-        if not math.isfinite(res.extrapolated):
-            continue
-        ref = res.scale if math.isfinite(res.scale) and res.scale > 0 else (
-            abs(res.extrapolated) or max(abs(lv.values[key]) for lv in study.levels) or 1.0)
-        change = np.array([abs(lv.values[key] - res.extrapolated) / ref for lv in study.levels])
-        keep = change > 0
-        if keep.sum() >= 2:
-            ax.loglog(hs[keep], change[keep], "o-", label=f"{key} (p = {res.order:.2f})")
-            plotted = True
-    if plotted:
-        h0 = hs[-1]
-        ys = [ln.get_ydata()[-1] for ln in ax.get_lines()]
-        y0 = float(np.median(ys))
-        ax.loglog(hs, y0 * (hs / h0) ** 2, "k--", lw=1, label="slope 2")
-    ax.set_xlabel("cell size h (m)")
-    ax.set_ylabel("|f(h) - f_extrapolated| / scale (see study.json)")
-    ax.set_title(f"grid convergence: {study.name}")
-    ax.grid(True, which="both", alpha=0.3)
-    if plotted:
-        ax.legend(fontsize=7)
-    fig.tight_layout()
-    try:
-        with writing(target, "the figure"):
-            fig.savefig(target)
-    finally:
-        plt.close(fig)
-    return target
