@@ -55,6 +55,7 @@ def _save(fig: Figure, target):
 
 
 def draw_residuals(result: StoredResult) -> Figure:
+    """The relative residual per iteration on a log axis, with rtol."""
     history = np.asarray(result.group["residual_history"][...])
     solver = result.attrs.get("solver", {})
     fig = _figure(SIZES["residuals.png"])
@@ -85,6 +86,7 @@ def line_probes(result: StoredResult) -> list[str]:
 
 
 def draw_probes(result: StoredResult) -> Figure:
+    """Each line probe's values against the distance along it."""
     fig = _figure(SIZES["probes.png"])
     ax = fig.add_subplot()
     for name in line_probes(result):
@@ -100,6 +102,7 @@ def draw_probes(result: StoredResult) -> Figure:
 
 
 def residual_figure(result: StoredResult, target):
+    """Write :func:`draw_residuals`'s figure to ``target`` (a path or a binary file); so the next two."""
     return _save(draw_residuals(result), target)
 
 
