@@ -3,8 +3,9 @@
 The three planes are laid out as in a third-angle drawing: the z plane (plan) above the y
 plane (front view) on the same x axis, the x plane (side view) to the right of the front
 view on the same z axis. Every panel keeps one scale on both its axes, so a sphere stays
-round on a thin block; only an axis shorter than 1/:data:`MAX_SPAN` of the longest is
-stretched, by a whole factor that its label states. Patches and exchanges are outlined and
+round, except that an axis shorter than 1/:data:`MAX_SPAN` of the longest is stretched, by
+the whole factor its label states: drawn to scale, a 5 mm plate under a 48 mm spreader is a
+strip too thin to read its through-thickness field in. Patches and exchanges are outlined and
 named in a legend below the panels, never over the field.
 """
 
@@ -15,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-MAX_SPAN = 16  # longest / shortest axis drawn to scale; beyond it the short axis is stretched
+MAX_SPAN = 4  # longest / shortest axis drawn to scale; beyond it the short axis is stretched
 PLOT_AREA = (10.0, 7.5)  # inches the panels may fill at most (width, height)
 MARGINS = (2.6, 2.0)  # inches around them: labels, colour bar, titles, legend
 FREE_CORNER = 0.25  # the top right (beside the plan) holds the colour bar when this share of both sides
@@ -168,7 +169,7 @@ def draw_planes(result, fig) -> None:
         ax.set_aspect(s[b] / s[a])  # one scale on both axes unless one is stretched
         ax.set_xlabel(_axis_label(a, s[a]))
         ax.set_ylabel(_axis_label(b, s[b]))
-        ax.set_title(f"{'xyz'[normal]} = {at:.4g} m", fontsize=10)
+        ax.set_title(f"{'xyz'[normal]} = {at:.4g} m", fontsize=10, pad=9)  # clear of a patch bar on the top edge
         axes.append(ax)
     label = f"{name} ({result.units(name)})"
     names = [f"{src} {what}" for src, what in handles]
