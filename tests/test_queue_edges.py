@@ -662,3 +662,18 @@ def test_a_worker_says_which_signal_stopped_it_and_what_becomes_of_its_jobs(
            "and go back to the queue" in stops[0]
     assert signal.getsignal(signum) is before  # the handler is the worker's only while it runs
     assert worker.stop_notice(signum, []).endswith(f"asked to stop ({signum.name}); no job was running")
+
+
+def test_a_stop_notice_that_cannot_be_printed_does_not_stop_the_stop() -> None:
+    """A signal landing while the main thread itself prints makes the notice's write
+    reentrant (Python raises RuntimeError): the notice is lost, the stop goes on."""
+    from sevenfold.queue.worker import say_in_handler
+
+    said: list[str] = []
+
+    def reentrant(text: str) -> None:
+        raise RuntimeError("reentrant call inside <_io.BufferedWriter name='<stdout>'>")
+
+    say_in_handler(reentrant, "asked to stop (SIGINT); no job was running")  # no exception
+    say_in_handler(said.append, "asked to stop (SIGTERM); no job was running")
+    assert said == ["asked to stop (SIGTERM); no job was running"]

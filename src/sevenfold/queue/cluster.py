@@ -44,7 +44,7 @@ from .db import Queue
 from .records import Claim
 from .files import read_runs, remove_partials
 from .home import Home, Timing
-from .worker import stop_notice
+from .worker import say_in_handler, stop_notice
 
 INSTALL_HINT = "the cluster worker needs Dask: pip install 'sevenfold[cluster]'"
 CONNECT_TIMEOUT = 5.0  # s to reach the scheduler before giving up
@@ -129,7 +129,7 @@ class ClusterWorker:
     def request_stop(self, signum: int, frame: object = None) -> None:
         """A signal's handler: say so, stop claiming; running tasks are asked to stop and
         their jobs requeued."""
-        self.say(stop_notice(signum, [r.claim for r in list(self.running.values())]))
+        say_in_handler(self.say, stop_notice(signum, [r.claim for r in list(self.running.values())]))
         self.stopping.set()
 
     # ---------------------------------------------------------------- cluster facts

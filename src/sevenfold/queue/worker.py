@@ -38,7 +38,7 @@ from .records import Claim, ClaimResult
 from .slot import Slot
 from .wake import Bell
 
-__all__ = ["Worker", "WorkerOptions", "cores", "slot_environment", "stop_notice"]
+__all__ = ["Worker", "WorkerOptions", "cores", "say_in_handler", "slot_environment", "stop_notice"]
 
 
 def cores() -> int:
@@ -57,6 +57,16 @@ def stop_notice(signum: int, running: Sequence[Claim]) -> str:
         return f"{said}; no job was running"
     jobs = ", ".join(f"{c.id} {c.name}" for c in running)
     return f"{said}; the running jobs ({jobs}) stop at their next iteration and go back to the queue"
+
+
+def say_in_handler(say: Callable[[str], None], text: str) -> None:
+    """``say(text)`` from a signal handler: a signal that lands while this thread is itself
+    printing makes the write reentrant, which Python refuses (RuntimeError); then the notice
+    is lost, never the stop."""
+    try:
+        say(text)
+    except RuntimeError:
+        pass
 
 
 @dataclass(frozen=True)
@@ -142,7 +152,7 @@ class Worker:
         """A signal's handler: say so, stop claiming; running solves are asked to stop and
         their jobs requeued."""
         running = [c for c in (s.current for s in self.slots) if c is not None]  # (each read once)
-        self.say(stop_notice(signum, running))
+        say_in_handler(self.say, stop_notice(signum, running))
         self.stopping.set()
 
     def _drained(self, queue: Queue) -> bool:
