@@ -210,5 +210,5 @@ def test_the_queue_fails_the_job_and_keeps_its_result(tmp_path: Path, capsys) ->
     assert [r["event"] for r in read_runs(out)] == ["start", "not converged"]
     assert main(["show", str(j.id), "--home", str(home.root)]) == 0
     text = " ".join(capsys.readouterr().out.split())
-    assert "complete, NOT converged" in text and "warning: NOT converged (max_iterations)" in text
+    assert "complete, NOT converged" in text and "warning: NOT converged: max_iterations, best relative residual" in text
     assert "failed" in text and "relative imbalance" in text

@@ -227,21 +227,9 @@ def read_attrs(path: Path) -> dict[str, Any]:
         return {}
 
 
-def not_converged_warning(attrs: dict[str, Any]) -> str | None:
-    """The one warning line for a result whose solve stopped short, else None."""
-    if attrs.get("converged", True):
-        return None
-    solver = attrs.get("solver", {})
-    best, final = solver.get("best_relative_residual"), solver.get("final_relative_residual")
-    rtol = solver.get("rtol")
-    return (f"NOT converged ({solver.get('stop', 'stopped short')}): best relative residual "
-            f"{best:.2e}, the stored solution (the {solver.get('solution_iterate', 'last')} iterate) "
-            f"{final:.2e}" + (f", asked for {rtol:.1e}" if rtol is not None else "")
-            + "; use it with care")
-
-
 def not_converged_mark(attrs: dict[str, Any]) -> str | None:
-    """The short line a figure of a result whose solve stopped short carries, else None."""
+    """The short line for a result whose solve stopped short (its figures' titles), else None:
+    why it stopped, the best relative residual reached and the rtol asked for."""
     if attrs.get("converged", True):
         return None
     solver = attrs.get("solver", {})
@@ -249,6 +237,17 @@ def not_converged_mark(attrs: dict[str, Any]) -> str | None:
     return (f"NOT converged: {solver.get('stop', 'stopped short')}"
             + (f", best relative residual {best:.2e}" if best is not None else "")
             + (f" (rtol {rtol:.0e})" if rtol is not None else ""))
+
+
+def not_converged_warning(attrs: dict[str, Any]) -> str | None:
+    """The one warning line for a result whose solve stopped short (:func:`not_converged_mark`
+    and the stored solution's own residual), else None."""
+    mark = not_converged_mark(attrs)
+    if mark is None:
+        return None
+    solver = attrs.get("solver", {})
+    return (f"{mark}; the stored solution (the {solver.get('solution_iterate', 'last')} iterate) "
+            f"{solver.get('final_relative_residual', float('nan')):.2e}; use it with care")
 
 
 def write_probe_csv(path: Path, probes, solution: str, units: str) -> Path:
